@@ -1,0 +1,71 @@
+"""The command line: thin. Each sub-command lives in ``retuner/commands/<name>.py``.
+
+A command module defines::
+
+    NAME = "show"            # the sub-command
+    HELP = "one line"        # shown in ``retuner --help``
+    ORDER = 20               # position in the help listing
+    def add_arguments(parser): ...
+    def run(args) -> int: ...  # exit status
+
+Errors a user can cause are raised as :class:`retuner.errors.RetunerError` and
+printed here as one line with exit status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+
+from . import __version__
+from . import commands as _commands_pkg
+from .errors import RetunerError
+
+
+def _command_modules():
+    mods = []
+    for info in pkgutil.iter_modules(_commands_pkg.__path__):
+        if info.name.startswith("_"):
+            continue
+        mod = importlib.import_module(f"{_commands_pkg.__name__}.{info.name}")
+        if hasattr(mod, "NAME") and hasattr(mod, "run"):
+            mods.append(mod)
+    mods.sort(key=lambda m: (getattr(m, "ORDER", 100), m.NAME))
+    return mods
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="retuner",
+        description="Give every MIDI note the exact pitch of a tuning: live, or in MIDI files.",
+    )
+    parser.add_argument("--version", action="version", version=f"retuner {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for mod in _command_modules():
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except RetunerError as exc:
+        print(f"retuner: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        return 0
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
