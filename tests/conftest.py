@@ -1,0 +1,48 @@
+"""Shared fixtures. The JACK server is a real part: when jackd is missing the tests FAIL."""
+
+from __future__ import annotations
+
+import os
+import uuid
+
+import pytest
+
+from jack import JackServer, JackError, TestClient  # tests/ is on sys.path (rootdir conftest)
+
+
+@pytest.fixture(scope="session")
+def jack_server():
+    """A private JACK server (dummy backend, 48 kHz, 128-frame periods) for the whole session.
+
+    ``JACK_DEFAULT_SERVER`` names it in this process's environment (so python-rtmidi clients
+    in the tests reach it) and in ``server.env`` for subprocesses."""
+    name = f"retuner-test-{os.getpid()}-{uuid.uuid4().hex[:6]}"
+    server = JackServer(name)
+    try:
+        server.start()
+    except JackError as exc:
+        pytest.fail(f"JACK server could not start: {exc}", pytrace=False)
+    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
+    os.environ["JACK_DEFAULT_SERVER"] = name
+    os.environ["JACK_NO_START_SERVER"] = "1"
+    try:
+        yield server
+    finally:
+        server.stop()
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+@pytest.fixture
+def jack_client(jack_server):
+    """A test client on the JACK server with a 'play' output and a 'record' input."""
+    client = TestClient(f"tc{uuid.uuid4().hex[:6]}")
+    jack_server.wait_port(client.out_full)
+    jack_server.wait_port(client.in_full)
+    try:
+        yield client
+    finally:
+        client.close()

@@ -1,0 +1,96 @@
+"""Port listing, name matching and opening through a real JACK server (no mocks of ports)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import time
+
+import mido
+import pytest
+
+from retuner import ports
+
+
+def test_match_port_rules():
+    names = ["Midi Through:Midi Through Port-0 14:0",
+             "Digital Piano:Digital Piano MIDI 1 20:0",
+             "retuner-in:in 130:0",
+             "FLUID Synth (1234):Synth input port (1234:0) 128:0"]
+    # 1. exact
+    assert ports.match_port("Digital Piano:Digital Piano MIDI 1 20:0", names) == names[1]
+    # 2. without ALSA's client:port numbers
+    assert ports.match_port("Digital Piano:Digital Piano MIDI 1", names) == names[1]
+    # 3. shell pattern, any case
+    assert ports.match_port("fluid*", names) == names[3]
+    assert ports.match_port("*piano*", names) == names[1]
+    # 4. part of the name, any case
+    assert ports.match_port("synth input", names) == names[3]
+    assert ports.match_port("nothing here", names) is None
+    # our own ports never match
+    assert ports.match_port("retuner", names, exclude=["retuner-"]) is None
+    assert ports.match_port("retuner", names) == names[2]
+
+
+def test_backend_words():
+    assert ports.backend_word("jack") == "jack"
+    assert ports.backend_word("mido.backends.rtmidi/UNIX_JACK") == "jack"
+    assert ports.backend_word("mido.backends.rtmidi/LINUX_ALSA") == "alsa"
+    from retuner.errors import RetunerError
+    with pytest.raises(RetunerError):
+        ports.backend_word("coreaudio")
+
+
+def test_open_list_and_carry_messages(jack_server, jack_client):
+    got = []
+    inp = ports.InputPort("jack", "rt-test-in", "in", callback=got.append)
+    out = ports.OutputPort("jack", "rt-test-out", "out")
+    try:
+        listed_in, listed_out = ports.list_ports("jack")
+        assert jack_client.out_full in listed_in          # we can read from the client's output
+        assert "rt-test-in:in" in listed_out              # others can write to our input
+        assert "rt-test-out:out" in listed_in
+        jack_server.connect(jack_client.out_full, "rt-test-in:in")
+        jack_server.connect("rt-test-out:out", jack_client.in_full)
+        jack_client.send(mido.Message("note_on", note=60, velocity=99, channel=3))
+        sysex = mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x01])
+        jack_client.send(sysex)
+        end = time.monotonic() + 5
+        while len(got) < 2 and time.monotonic() < end:
+            time.sleep(0.01)
+        assert got[0] == mido.Message("note_on", note=60, velocity=99, channel=3)
+        assert got[1] == sysex
+        out.send(mido.Message("pitchwheel", pitch=-8192, channel=15))
+        rec = jack_client.wait_for(lambda r: len(r) >= 1)
+        assert rec[0].msg == mido.Message("pitchwheel", pitch=-8192, channel=15)
+    finally:
+        inp.close()
+        out.close()
+
+
+def test_open_by_name_connects(jack_server, jack_client):
+    names = ports.list_ports("jack")[0]
+    spec = jack_client.client_name + ":pl*"
+    name = ports.match_port(spec, names)
+    assert name == jack_client.out_full
+    got = []
+    inp = ports.InputPort("jack", "rt-named", "in", connect_to=name, names=names, callback=got.append)
+    try:
+        assert "rt-named:in" in jack_server.connections(jack_client.out_full)
+        jack_client.send(mido.Message("control_change", control=64, value=127))
+        end = time.monotonic() + 5
+        while not got and time.monotonic() < end:
+            time.sleep(0.01)
+        assert got == [mido.Message("control_change", control=64, value=127)]
+    finally:
+        inp.close()
+
+
+def test_ports_command_lists_both_directions(jack_server, jack_client):
+    r = subprocess.run([sys.executable, "-m", "retuner", "ports", "--backend", "jack"],
+                       env=jack_server.env, capture_output=True, text=True, timeout=20)
+    assert r.returncode == 0, r.stderr
+    text = r.stdout
+    inputs, outputs = text.split("outputs", 1) if "outputs" in text else (text, "")
+    assert jack_client.out_full in inputs
+    assert jack_client.in_full in outputs
