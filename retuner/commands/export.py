@@ -1,0 +1,134 @@
+"""`retuner export ID --format mts-bulk -o FILE.syx`: write a tuning as MIDI Tuning Standard data."""
+
+from __future__ import annotations
+
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+from .. import mts
+from ..errors import RetunerError
+from ..profile import load_profile
+
+NAME = "export"
+HELP = "write a profile as a MIDI Tuning Standard bulk tuning dump or single note changes (.syx)"
+DESCRIPTION = (
+    "Write a profile's 128 key pitches as MIDI Tuning Standard system exclusive data: "
+    "a bulk tuning dump (mts-bulk: one message, 16-character name, checksum) or single note "
+    "tuning changes for all keys (mts-single). Unmapped keys are written as 'no change' "
+    "(mts-bulk) or left out (mts-single); keys outside 8.1758 Hz .. 13289.7 Hz are clamped "
+    "and reported."
+)
+ORDER = 40
+FORMATS = ("mts-bulk", "mts-single")
+
+
+def _data_byte(text: str) -> int:
+    import argparse
+    try:
+        v = int(text, 0)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number: {text!r}")
+    if not 0 <= v <= 127:
+        raise argparse.ArgumentTypeError(f"must be 0..127, got {v}")
+    return v
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("profile", metavar="ID", help="profile id or path to a profile YAML file")
+    parser.add_argument("--format", choices=FORMATS, default="mts-bulk",
+                        help="mts-bulk (bulk tuning dump, default) or mts-single "
+                             "(single note tuning changes for all 128 keys)")
+    parser.add_argument("-o", "--output", required=True, metavar="FILE.syx",
+                        help="file to write (raw system exclusive bytes, F0 ... F7)")
+    parser.add_argument("--device", type=_data_byte, default=mts.DEVICE_ALL,
+                        help="device ID 0..127 (default 127 = all devices)")
+    parser.add_argument("--program", type=_data_byte, default=0, help="tuning program 0..127 (default 0)")
+    parser.add_argument("--bank", type=_data_byte, default=None,
+                        help="tuning bank 0..127 (mts-single only: use the bank form of the message)")
+    parser.add_argument("--non-realtime", action="store_true",
+                        help="mts-single only: use the non-real-time form (always with a bank byte)")
+    parser.add_argument("--name", default=None,
+                        help="tuning name in the dump, up to 16 ASCII characters (default: the profile id)")
+    parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
+                        help="also look for profiles in DIR")
+
+
+def write_atomic(path: str | os.PathLike, data: bytes) -> None:
+    """Write ``data`` to ``path`` through a temporary file and os.replace: all or nothing."""
+    target = Path(path)
+    directory = target.parent if str(target.parent) else Path(".")
+    if not directory.is_dir():
+        raise RetunerError("output directory does not exist", file=str(path))
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.fchmod(fd, 0o666 & ~umask)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+    except BaseException as exc:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        if isinstance(exc, OSError):
+            raise RetunerError(f"cannot write: {exc.strerror or exc}", file=str(path)) from exc
+        raise
+
+
+def build(tuning, fmt: str, *, device: int, program: int, name: str,
+          bank: int | None = None, realtime: bool = True) -> tuple[bytes, list[int]]:
+    """The bytes of the export and the keys whose pitch had to be clamped."""
+    if fmt == "mts-bulk":
+        if bank is not None or not realtime:
+            raise RetunerError("--bank and --non-realtime apply to --format mts-single only",
+                               field="format")
+        return mts.bulk_tuning_dump_checked(tuning.cents, name, device=device, program=program)
+    changes = []
+    clamped = []
+    for key, cents in enumerate(tuning.cents):
+        if cents is None:
+            continue
+        if mts.encode_frequency_checked(cents)[1]:
+            clamped.append(key)
+        changes.append((key, cents))
+    msgs = mts.single_note_tuning_change(changes, device=device, program=program,
+                                         bank=bank, realtime=realtime)
+    return b"".join(bytes(m.bytes()) for m in msgs), clamped
+
+
+def _ranges(keys: list[int]) -> str:
+    """[0, 1, 2, 5] -> '0-2, 5'."""
+    parts = []
+    start = prev = None
+    for k in keys + [None]:
+        if start is not None and k == prev + 1:
+            prev = k
+            continue
+        if start is not None:
+            parts.append(str(start) if start == prev else f"{start}-{prev}")
+        start = prev = k
+    return ", ".join(parts)
+
+
+def run(args) -> int:
+    tuning = load_profile(args.profile, args.profiles_dir)
+    name = args.name if args.name is not None else tuning.id
+    if any(not (0x20 <= ord(ch) <= 0x7E) for ch in name):
+        raise RetunerError("the tuning name must be printable ASCII", field="name")
+    if len(name) > mts.NAME_LENGTH:
+        print(f"retuner: tuning name cut to {mts.NAME_LENGTH} characters: {name[:mts.NAME_LENGTH]!r}",
+              file=sys.stderr)
+    data, clamped = build(tuning, args.format, device=args.device, program=args.program, name=name,
+                          bank=args.bank, realtime=not args.non_realtime)
+    write_atomic(args.output, data)
+    if clamped:
+        print(f"retuner: {len(clamped)} key(s) outside the MIDI Tuning Standard range "
+              f"(8.1758 Hz .. 13289.7 Hz) clamped: {_ranges(clamped)}", file=sys.stderr)
+    print(f"wrote {args.output}: {args.format} of {tuning.id} ({len(data)} bytes)")
+    return 0
