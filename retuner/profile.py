@@ -352,7 +352,8 @@ def parse_profile(text: str, filename: str = "<profile>") -> Tuning:
         cents, where = build_keyboard(degrees, period, root=root, reference_key=ref_key, reference_hz=ref_hz,
                                       keymap=keymap, keymap_size=keymap_size, key_range=key_range)
     except ValueError as exc:
-        raise ctx.err(str(exc), "reference.key", doc, "reference" if "reference" in doc else None) from None
+        blame = next((k for k in ("reference", "keys", "keymap") if k in doc), None)
+        raise ctx.err(str(exc), "reference.key", doc, blame) from None
     return Tuning(id=pid, cents=tuple(cents), description=desc.strip(), source=source.strip(),
                   degrees=tuple(Degree(n, d) for n, d in zip(names, degrees)), period=period,
                   root=root, key_degree=tuple(where))
@@ -426,8 +427,4 @@ def load_profile(name: str, dirs: Sequence[Path | str] = ()) -> Tuning:
     found = _scan(_search_dirs(dirs))
     if name not in found:
         raise RetunerError(f"unknown profile {name!r}; 'retuner profiles' lists them", field="profile")
-    path, _ = found[name]
-    t = _read(path)
-    if t.id != name and not found[name][1]:
-        pass
-    return t
+    return _read(found[name][0])

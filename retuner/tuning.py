@@ -146,8 +146,13 @@ def beat_rate(f_low: float, f_high: float, p: int, q: int) -> float:
     return abs(q * f_high - p * f_low)
 
 
-def nearest_simple_ratio(cents: float, max_denominator: int = 32, tolerance: float = 15.0) -> Optional[Fraction]:
-    """The simplest ratio (smallest numerator+denominator) within ``tolerance`` cents, or None."""
+def nearest_simple_ratio(cents: float, max_denominator: int = 32, tolerance: float = 15.0,
+                         prime_limit: int = 7) -> Optional[Fraction]:
+    """The ratio within ``tolerance`` cents that best combines closeness and simplicity, or None.
+
+    Only ratios of primes up to ``prime_limit`` (7-limit by default) count as simple.
+    Score = error in cents + 2 * log2(p*q) (the Tenney height of p/q); lowest wins.
+    """
     best: Optional[Fraction] = None
     best_key = None
     for q in range(1, max_denominator + 1):
@@ -155,11 +160,11 @@ def nearest_simple_ratio(cents: float, max_denominator: int = 32, tolerance: flo
         if p <= 0:
             continue
         r = Fraction(p, q)
-        if r.denominator != q:
+        if r.denominator != q or max(_factorize(p * q) or {1: 1}) > prime_limit:
             continue
         err = abs(ratio_to_cents(r) - cents)
         if err <= tolerance:
-            key = (r.numerator + r.denominator, err)
+            key = (err + 2.0 * math.log2(r.numerator * r.denominator), err)
             if best_key is None or key < best_key:
                 best, best_key = r, key
     return best

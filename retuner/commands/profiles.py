@@ -1,0 +1,28 @@
+"""``retuner profiles``: list the tunings that can be loaded."""
+
+from __future__ import annotations
+
+from ..profile import list_profiles
+from ._common import add_profiles_dir, print_json
+
+NAME = "profiles"
+HELP = "list the available tunings (built-in and your own)"
+ORDER = 10
+
+
+def add_arguments(parser):
+    add_profiles_dir(parser)
+    parser.add_argument("--json", action="store_true", help='print [{"id": ..., "description": ...}, ...]')
+
+
+def run(args) -> int:
+    infos = list_profiles(args.profiles_dir)
+    if args.json:
+        print_json([{"id": p.id, "description": p.description, "source": p.source,
+                     "builtin": p.builtin, "path": str(p.path)} for p in infos])
+        return 0
+    width = max(len(p.id) for p in infos)
+    for p in infos:
+        mark = "" if p.builtin else "  (yours)"
+        print(f"{p.id:<{width}}  {p.description}{mark}")
+    return 0

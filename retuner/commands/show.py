@@ -1,0 +1,63 @@
+"""``retuner show ID``: a tuning as a table for a projector, or every key as JSON."""
+
+from __future__ import annotations
+
+from ..profile import load_profile
+from ..showtable import degree_rows, format_ratio, interval_rows
+from ..tuning import ratio_to_cents
+from ..tuning import NUM_KEYS
+from ._common import add_profiles_dir, print_json
+
+NAME = "show"
+HELP = "print a tuning: its degrees, and the size and beat rate of every third and fifth"
+ORDER = 20
+DESCRIPTION = (
+    "Print a tuning as a table. Beat rate of an interval near the just ratio p:q (upper:lower), "
+    "lower tone f1, upper tone f2: the p-th partial of the lower tone and the q-th partial of the "
+    "upper tone nearly coincide and beat at |q*f2 - p*f1| Hz.")
+
+
+def add_arguments(parser):
+    parser.add_argument("id", help="profile id (see 'retuner profiles') or a path to a profile file")
+    parser.add_argument("--octave", type=int, default=4, choices=range(0, 9), metavar="N",
+                        help="octave (scientific pitch notation, C4 = middle C) for Hz and beat rates; default 4")
+    parser.add_argument("--json", action="store_true", help="print every key's Hz and cents as JSON")
+    add_profiles_dir(parser)
+
+
+def run(args) -> int:
+    t = load_profile(args.id, args.profiles_dir)
+    if args.json:
+        print_json({
+            "id": t.id,
+            "description": t.description,
+            "source": t.source,
+            "keys": [{"key": k, "hz": t.hz(k), "cents": t.cents[k]} for k in range(NUM_KEYS)],
+        })
+        return 0
+    print(f"{t.id}: {t.description}")
+    if t.source:
+        print(f"source: {t.source}")
+    period = t.period.as_fraction
+    print(f"period: {format_ratio(period) if period is not None else ''} ({t.period.cents:.3f} cents), {len(t.degrees)} degrees, "
+          f"A4 (key 69) = {t.hz(69):.3f} Hz" if t.hz(69) else "")
+    print()
+    print(f"{'degree':>6}  {'name':<5} {'cents':>9} {'vs 12-EDO':>10}  {'ratio':<14} {'Hz (oct ' + str(args.octave) + ')':>12}")
+    for r in degree_rows(t, args.octave):
+        if r.ratio is None:
+            ratio = "-"
+        elif r.exact:
+            ratio = format_ratio(r.ratio)
+        else:
+            ratio = f"~{format_ratio(r.ratio)} {r.cents - ratio_to_cents(r.ratio):+.1f}"
+        hz = f"{r.hz:.3f}" if r.hz is not None else "unmapped"
+        print(f"{r.index:>6}  {r.name:<5} {r.cents:>9.3f} {r.from_edo12:>+10.3f}  {ratio:<14} {hz:>12}")
+    if t.is_twelve:
+        print()
+        print(f"intervals from each key of octave {args.octave} "
+              f"(deviation from just; beats = |q*f2 - p*f1| for the just ratio p:q)")
+        print(f"{'from':<4} {'interval':<12} {'to':<3} {'cents':>9} {'vs just':>9}  {'just':<4} {'beats/s':>8}")
+        for r in interval_rows(t, args.octave):
+            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {r.cents:>9.3f} {r.deviation:>+9.3f}  "
+                  f"{format_ratio(r.just):<4} {r.beat_hz:>8.2f}")
+    return 0
