@@ -22,10 +22,13 @@ Encoding rounds to the nearest fraction step (ties upward), carries into the
 semitone, and clamps to the encodable range; :func:`encode_frequency_checked`
 tells whether clamping happened.
 
-Bulk tuning dump checksum: the MTS text gives it as "XOR of 7E, <device ID>, nn,
-tt, <388 bytes>", i.e. every byte after F0 up to and including the last frequency
-data byte (7E, device ID, sub-IDs 08 01, tuning program, 16 name bytes, 384
-frequency data bytes), then masked to 7 bits (``& 0x7F``) so it is a data byte.
+Bulk tuning dump checksum: the MMA's MIDI Tuning text gives it as "XOR of 7E,
+<device ID>, nn, tt, <388 bytes>" (nn = the sub-IDs 08 01; the byte count is a
+known slip of that text, discussed on the tuning mailing list in June 2003, since
+16 name + 384 frequency bytes follow tt), and the MIDI Tuning Standard summary
+shipped with TiMidity++ (doc "readme.mts") states it as "XOR of all bytes excluding
+F0, F7, and chksum". Both mean: every byte after F0 up to and including the last
+frequency data byte, masked to 7 bits (``& 0x7F``) so it is a data byte.
 
 Return shape of :func:`single_note_tuning_change`: **always a list** of
 ``mido.Message('sysex')``, one message per at most 127 key changes (the count
