@@ -154,13 +154,21 @@ class PortSpec:
     name: Optional[str] = None        # the user's name or pattern (not virtual)
 
 
+def _index_of(rt, name: str) -> int:
+    # look the name up in this very client's list: another client's list may be in another order
+    names = rt.get_ports()
+    if name not in names:
+        raise RetunerError(f"port {name!r} is gone")
+    return names.index(name)
+
+
 class InputPort:
     """An open input; ``callback(msg)`` runs on the backend's thread for every parsed message.
 
     ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
-                 connect_to: Optional[str] = None, names: Sequence[str] = (),
+                 connect_to: Optional[str] = None,
                  callback: Callable[[mido.Message], None],
                  on_error: Optional[Callable[[Exception, list], None]] = None):
         self.backend = backend_word(backend)
@@ -173,10 +181,13 @@ class InputPort:
             if connect_to is None:
                 self._rt.open_virtual_port(port_name)
             else:
-                self._rt.open_port(list(names).index(connect_to), port_name)
+                self._rt.open_port(_index_of(self._rt, connect_to), port_name)
             # deliver system exclusive and timing clock, drop active sensing
             self._rt.ignore_types(sysex=False, timing=False, active_sense=True)
             self._rt.set_callback(self._on_bytes)
+        except RetunerError:
+            self._rt.delete()
+            raise
         except Exception as exc:
             self._rt.delete()
             raise _rt_error(exc, f"cannot open input {connect_to or port_name!r}", self.backend) from exc
@@ -216,7 +227,7 @@ class OutputPort:
     """An open output; ``send(msg)`` writes at once."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
-                 connect_to: Optional[str] = None, names: Sequence[str] = ()):
+                 connect_to: Optional[str] = None):
         self.backend = backend_word(backend)
         self.connected_to = connect_to
         self._rt = _new_out(self.backend, client_name)
@@ -224,7 +235,10 @@ class OutputPort:
             if connect_to is None:
                 self._rt.open_virtual_port(port_name)
             else:
-                self._rt.open_port(list(names).index(connect_to), port_name)
+                self._rt.open_port(_index_of(self._rt, connect_to), port_name)
+        except RetunerError:
+            self._rt.delete()
+            raise
         except Exception as exc:
             self._rt.delete()
             raise _rt_error(exc, f"cannot open output {connect_to or port_name!r}", self.backend) from exc

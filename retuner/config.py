@@ -1,0 +1,351 @@
+"""The daemon's configuration: a YAML file, built-in defaults, and command-line overrides.
+
+The file is ``--config FILE``, else ``$XDG_CONFIG_HOME/retuner/config.yaml``
+(``~/.config/retuner/config.yaml``) when it exists, else nothing (built-in
+defaults). Every field is optional::
+
+    profile: werckmeister-3        # the tuning to start with (id or path to a profile file)
+    profile_dirs: [~/tunings]      # more folders to look for profiles in
+    backend: alsa                  # alsa (ALSA sequencer) or jack
+    input: "Digital Piano"         # port to read from: exact name, part of it, or a shell pattern
+    output: "FLUID*"               # port to write to; a side without a name gets a port of our own
+    virtual: false                 # true: always create our own ports ("retuner-in:in", "retuner-out:out")
+    client_name: retuner           # base of our client names
+    engine:                        # engine settings (see 'retuner run --help' and the engine's docs)
+      mode: pool
+      ...
+    profiles: [edo12, meantone-quarter, werckmeister-3]   # program change N (1-based) selects the N-th
+    switch:
+      channel: 16                  # control channel (1..16) for program change and the A/B toggle; null = off
+      ab_cc: 80                    # this CC (value >= 64) toggles between the two profiles of 'ab'; null = off
+      ab: [meantone-quarter, edo12]
+    status_interval: 10            # minutes between status lines; 0 = none
+    port_poll: 0.5                 # seconds between looks for lost/returned ports
+    log_level: info                # debug, info, warning, error
+    control:                       # the control socket (JSON lines; see retuner.control)
+      enabled: true
+      path: null                   # default $XDG_RUNTIME_DIR/retuner/control.sock
+
+Channels are 1..16 here, as a user sees them. Errors are one line naming the
+file, the line and the field (exit status 2 from the command line).
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import os
+import types
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Optional
+
+from .errors import RetunerError
+
+LOG_LEVELS = ("debug", "info", "warning", "error")
+
+
+def default_config_path() -> Path:
+    base = os.environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
+    return Path(base) / "retuner" / "config.yaml"
+
+
+@dataclass
+class Switching:
+    channel: Optional[int] = None            # 1..16 or None
+    ab_cc: Optional[int] = None              # 0..127 or None
+    ab: Optional[tuple[str, str]] = None
+
+
+@dataclass
+class ControlSettings:
+    enabled: bool = True
+    path: Optional[str] = None
+
+
+@dataclass
+class Settings:
+    """Everything ``retuner run`` needs, after file + defaults + flags."""
+
+    source: Optional[str] = None             # the config file read, if any
+    profile: str = "edo12"
+    profile_dirs: list[str] = field(default_factory=list)
+    backend: str = "alsa"
+    input: Optional[str] = None
+    output: Optional[str] = None
+    virtual: bool = False
+    client_name: str = "retuner"
+    engine: dict[str, Any] = field(default_factory=dict)   # user-facing values (channels 1-based)
+    profiles: list[str] = field(default_factory=list)
+    switch: Switching = field(default_factory=Switching)
+    status_interval: float = 10.0            # minutes
+    port_poll: float = 0.5                   # seconds
+    log_level: str = "info"
+    control: ControlSettings = field(default_factory=ControlSettings)
+
+    def copy(self) -> "Settings":
+        return copy.deepcopy(self)
+
+
+# --------------------------------------------------------------------------- checking
+class _Where:
+    def __init__(self, filename: str):
+        self.filename = filename
+
+    def err(self, msg: str, fld: str, mapping: Any = None, key: Any = None) -> RetunerError:
+        line = None
+        lines = getattr(mapping, "lines", None)
+        if lines is not None:
+            line = lines.get(key, getattr(mapping, "line", None)) if key is not None else getattr(mapping, "line", None)
+        return RetunerError(msg, file=self.filename, line=line, field=fld)
+
+
+def _type_name(v: Any) -> str:
+    if v is None:
+        return "nothing (null)"
+    return {bool: "true/false", int: "a whole number", float: "a number", str: "text",
+            list: "a list"}.get(type(v), type(v).__name__)
+
+
+def _str(v, w, fld, m, k, allow_none=False):
+    if v is None and allow_none:
+        return None
+    if not isinstance(v, str) or not v.strip():
+        raise w.err(f"expected text, got {_type_name(v)}", fld, m, k)
+    return v
+
+
+def _bool(v, w, fld, m, k):
+    if not isinstance(v, bool):
+        raise w.err(f"expected true or false, got {v!r}", fld, m, k)
+    return v
+
+
+def _int(v, w, fld, m, k, lo, hi, allow_none=False):
+    if v is None and allow_none:
+        return None
+    if isinstance(v, bool) or not isinstance(v, int):
+        raise w.err(f"expected a whole number, got {_type_name(v)} {v!r}", fld, m, k)
+    if not lo <= v <= hi:
+        raise w.err(f"must be between {lo} and {hi}, got {v}", fld, m, k)
+    return v
+
+
+def _num(v, w, fld, m, k, lo, hi):
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise w.err(f"expected a number, got {_type_name(v)} {v!r}", fld, m, k)
+    if not lo <= v <= hi:
+        raise w.err(f"must be between {lo} and {hi}, got {v}", fld, m, k)
+    return float(v)
+
+
+def _str_list(v, w, fld, m, k):
+    if not isinstance(v, list) or not all(isinstance(x, str) and x for x in v):
+        raise w.err("expected a list of names", fld, m, k)
+    return list(v)
+
+
+def _mapping(v, w, fld, m, k):
+    if not isinstance(v, dict):
+        raise w.err(f"expected a mapping, got {_type_name(v)}", fld, m, k)
+    return v
+
+
+def _unknown(sub, allowed, w, prefix):
+    for k in sub:
+        if k not in allowed:
+            raise w.err(f"unknown field (expected one of: {', '.join(sorted(allowed))})",
+                        f"{prefix}{k}", sub, k)
+
+
+TOP_FIELDS = {"profile", "profile_dirs", "backend", "input", "output", "virtual", "client_name",
+              "engine", "mode", "profiles", "switch", "status_interval", "port_poll", "log_level",
+              "control"}
+
+
+def parse_config(text: str, filename: str = "<config>", base: Optional[Settings] = None) -> Settings:
+    """Parse and check a config file's text; fields not given keep ``base``'s (default: built-in) values."""
+    from .profile import load_yaml
+    from . import ports
+
+    w = _Where(filename)
+    data = load_yaml(text, filename)
+    s = (base or Settings()).copy()
+    s.source = filename
+    if data is None:
+        return s
+    if not isinstance(data, dict):
+        raise RetunerError("the config must be a mapping of fields", file=filename, line=1)
+    _unknown(data, TOP_FIELDS, w, "")
+    d = data
+    if "profile" in d:
+        s.profile = _str(d["profile"], w, "profile", d, "profile")
+    if "profile_dirs" in d:
+        s.profile_dirs = [os.path.expanduser(p) for p in _str_list(d["profile_dirs"], w, "profile_dirs", d, "profile_dirs")]
+    if "backend" in d:
+        b = _str(d["backend"], w, "backend", d, "backend")
+        try:
+            s.backend = ports.backend_word(b)
+        except RetunerError as exc:
+            raise w.err(exc.message, "backend", d, "backend") from None
+    for k in ("input", "output"):
+        if k in d:
+            setattr(s, k, _str(d[k], w, k, d, k, allow_none=True))
+    if "virtual" in d:
+        s.virtual = _bool(d["virtual"], w, "virtual", d, "virtual")
+    if "client_name" in d:
+        s.client_name = _str(d["client_name"], w, "client_name", d, "client_name")
+    if "engine" in d:
+        eng = _mapping(d["engine"], w, "engine", d, "engine")
+        s.engine = dict(s.engine)
+        s.engine.update(check_engine_settings(eng, w))
+    if "mode" in d:
+        s.engine = dict(s.engine)
+        s.engine.update(check_engine_settings({"mode": d["mode"]}, w, mapping=d, prefix=""))
+    if "profiles" in d:
+        s.profiles = _str_list(d["profiles"], w, "profiles", d, "profiles")
+        if len(s.profiles) > 128:
+            raise w.err("at most 128 profiles (one per program number)", "profiles", d, "profiles")
+    if "switch" in d:
+        sw = _mapping(d["switch"], w, "switch", d, "switch")
+        _unknown(sw, {"channel", "ab_cc", "ab"}, w, "switch.")
+        s.switch = dataclasses.replace(s.switch)
+        if "channel" in sw:
+            s.switch.channel = _int(sw["channel"], w, "switch.channel", sw, "channel", 1, 16, allow_none=True)
+        if "ab_cc" in sw:
+            s.switch.ab_cc = _int(sw["ab_cc"], w, "switch.ab_cc", sw, "ab_cc", 0, 127, allow_none=True)
+        if "ab" in sw:
+            if sw["ab"] is None:
+                s.switch.ab = None
+            else:
+                ab = _str_list(sw["ab"], w, "switch.ab", sw, "ab")
+                if len(ab) != 2:
+                    raise w.err(f"expected two profiles, got {len(ab)}", "switch.ab", sw, "ab")
+                s.switch.ab = (ab[0], ab[1])
+    if "status_interval" in d:
+        s.status_interval = _num(d["status_interval"], w, "status_interval", d, "status_interval", 0, 24 * 60)
+    if "port_poll" in d:
+        s.port_poll = _num(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
+    if "log_level" in d:
+        lv = _str(d["log_level"], w, "log_level", d, "log_level")
+        if lv not in LOG_LEVELS:
+            raise w.err(f"expected one of {', '.join(LOG_LEVELS)}, got {lv!r}", "log_level", d, "log_level")
+        s.log_level = lv
+    if "control" in d:
+        c = _mapping(d["control"], w, "control", d, "control")
+        _unknown(c, {"enabled", "path"}, w, "control.")
+        s.control = dataclasses.replace(s.control)
+        if "enabled" in c:
+            s.control.enabled = _bool(c["enabled"], w, "control.enabled", c, "enabled")
+        if "path" in c:
+            s.control.path = _str(c["path"], w, "control.path", c, "path", allow_none=True)
+    return s
+
+
+def load_config(path: Optional[str], *, required: bool = False) -> Settings:
+    """Read ``path`` (or the default file when ``path`` is None); built-in defaults when absent.
+
+    A file the user named explicitly (``required``) must exist."""
+    p = Path(path) if path else default_config_path()
+    if not p.is_file():
+        if required or path:
+            raise RetunerError("no such config file", file=str(p))
+        return Settings()
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RetunerError(f"cannot read: {exc}", file=str(p)) from None
+    return parse_config(text, str(p))
+
+
+# --------------------------------------------------------------------------- engine settings
+# The engine's settings are the fields of retuner.engine.EngineConfig. In files and on the
+# command line channels are 1..16; the engine (like mido) counts 0..15. A field whose name ends
+# in "channel" or "channels" holds channels.
+
+def _engine_config_class():
+    from .engine import EngineConfig  # noqa: WPS433 - the engine lands separately
+    return EngineConfig
+
+
+def engine_fields() -> dict[str, Any]:
+    """name -> type hint of every EngineConfig field."""
+    cls = _engine_config_class()
+    hints = typing.get_type_hints(cls)
+    return {f.name: hints.get(f.name, Any) for f in dataclasses.fields(cls)}
+
+
+def _is_channel_field(name: str) -> bool:
+    return name.endswith("channel") or name.endswith("channels")
+
+
+def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel: bool) -> Any:
+    origin = typing.get_origin(hint)
+    args = typing.get_args(hint)
+    if hint is Any:
+        return v
+    if origin in (typing.Union, types.UnionType):
+        if v is None and type(None) in args:
+            return None
+        others = [a for a in args if a is not type(None)]
+        errors = []
+        for a in others:
+            try:
+                return _check_value(v, a, w, fld, m, k, channel)
+            except RetunerError as exc:
+                errors.append(exc)
+        raise errors[0] if errors else w.err(f"unexpected value {v!r}", fld, m, k)
+    if origin is typing.Literal:
+        if v not in args:
+            raise w.err(f"expected one of {', '.join(map(str, args))}, got {v!r}", fld, m, k)
+        return v
+    if origin in (list, tuple, set, frozenset) or hint in (list, tuple):
+        if not isinstance(v, list):
+            raise w.err(f"expected a list, got {_type_name(v)}", fld, m, k)
+        item = args[0] if args else Any
+        out = [_check_value(x, item, w, fld, m, k, channel) for x in v]
+        return tuple(out) if (origin is tuple or hint is tuple) else (set(out) if origin in (set, frozenset) else out)
+    if hint is bool:
+        return _bool(v, w, fld, m, k)
+    if hint is int:
+        if channel:
+            return _int(v, w, fld, m, k, 1, 16)
+        return _int(v, w, fld, m, k, -(2 ** 31), 2 ** 31)
+    if hint is float:
+        return _num(v, w, fld, m, k, float("-inf"), float("inf"))
+    if hint is str:
+        return _str(v, w, fld, m, k)
+    if isinstance(hint, type) and issubclass(hint, __import__("enum").Enum):
+        try:
+            return hint(v).value if False else hint(v)
+        except ValueError:
+            raise w.err(f"expected one of {', '.join(str(e.value) for e in hint)}, got {v!r}", fld, m, k) from None
+    return v
+
+
+def check_engine_settings(eng: dict, w: Optional[_Where] = None, *, mapping: Any = None,
+                          prefix: str = "engine.") -> dict[str, Any]:
+    """Check user-facing engine settings against EngineConfig's fields and types."""
+    w = w or _Where("<settings>")
+    m = mapping if mapping is not None else eng
+    fields = engine_fields()
+    _unknown(eng, set(fields), w, prefix)
+    return {k: _check_value(v, fields[k], w, prefix + k, m, k, _is_channel_field(k)) for k, v in eng.items()}
+
+
+def engine_config(settings: Settings):
+    """An EngineConfig from the settings (channels converted to the engine's 0..15)."""
+    cls = _engine_config_class()
+    kw = {}
+    for k, v in settings.engine.items():
+        if _is_channel_field(k) and v is not None:
+            if isinstance(v, (list, tuple, set, frozenset)):
+                v = type(v)(c - 1 for c in v)
+            else:
+                v = v - 1
+        kw[k] = v
+    try:
+        return cls(**kw)
+    except (TypeError, ValueError) as exc:
+        raise RetunerError(f"bad engine settings: {exc}", file=settings.source, field="engine") from None

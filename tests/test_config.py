@@ -1,0 +1,109 @@
+"""The daemon's YAML config: defaults, fields, and one-line errors naming file, line and field."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+from retuner.config import Settings, load_config, parse_config, default_config_path
+from retuner.errors import RetunerError
+
+
+def _err(text: str) -> RetunerError:
+    with pytest.raises(RetunerError) as ei:
+        parse_config(textwrap.dedent(text), "cfg.yaml")
+    return ei.value
+
+
+def test_builtin_defaults_without_a_file(tmp_path, monkeypatch):
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
+    assert default_config_path() == tmp_path / "retuner" / "config.yaml"
+    s = load_config(None)
+    assert s == Settings()
+    assert s.profile == "edo12" and s.backend == "alsa" and s.source is None
+
+
+def test_default_file_is_read(tmp_path, monkeypatch):
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
+    (tmp_path / "retuner").mkdir()
+    (tmp_path / "retuner" / "config.yaml").write_text("profile: vallotti\nbackend: jack\n")
+    s = load_config(None)
+    assert (s.profile, s.backend) == ("vallotti", "jack")
+    assert s.source == str(tmp_path / "retuner" / "config.yaml")
+
+
+def test_named_file_must_exist(tmp_path):
+    with pytest.raises(RetunerError) as ei:
+        load_config(str(tmp_path / "nope.yaml"))
+    assert "nope.yaml" in str(ei.value)
+
+
+def test_full_config_parses():
+    s = parse_config(textwrap.dedent("""\
+        profile: werckmeister-3
+        profile_dirs: [/tmp/x]
+        backend: mido.backends.rtmidi/UNIX_JACK
+        input: "Digital Piano"
+        output: "FLUID*"
+        virtual: false
+        client_name: stage
+        profiles: [edo12, meantone-quarter, werckmeister-3]
+        switch: {channel: 16, ab_cc: 80, ab: [meantone-quarter, edo12]}
+        status_interval: 5
+        port_poll: 0.25
+        log_level: debug
+        control: {enabled: false, path: /tmp/sock}
+        """), "cfg.yaml")
+    assert s.backend == "jack"
+    assert s.input == "Digital Piano" and s.output == "FLUID*"
+    assert s.profiles == ["edo12", "meantone-quarter", "werckmeister-3"]
+    assert (s.switch.channel, s.switch.ab_cc, s.switch.ab) == (16, 80, ("meantone-quarter", "edo12"))
+    assert s.status_interval == 5.0 and s.port_poll == 0.25 and s.log_level == "debug"
+    assert s.control.enabled is False and s.control.path == "/tmp/sock"
+
+
+def test_unknown_field_names_file_line_field():
+    e = _err("""\
+        profile: edo12
+        backend: jack
+        outptu: FLUID
+        """)
+    assert (e.file, e.line, e.field) == ("cfg.yaml", 3, "outptu")
+    assert str(e).startswith("cfg.yaml:3: outptu: unknown field")
+    assert "\n" not in str(e)
+
+
+def test_wrong_types_name_line_and_field():
+    e = _err("profile: edo12\nvirtual: yes please\n")
+    assert (e.line, e.field) == (2, "virtual")
+    e = _err("switch:\n  channel: 17\n")
+    assert (e.line, e.field) == (2, "switch.channel") and "between 1 and 16" in e.message
+    e = _err("switch:\n  ab: [edo12]\n")
+    assert (e.line, e.field) == (2, "switch.ab")
+    e = _err("status_interval: soon\n")
+    assert (e.line, e.field) == (1, "status_interval")
+    e = _err("backend: coreaudio\n")
+    assert (e.line, e.field) == (1, "backend")
+    e = _err("\n\nswitch:\n  knob: 3\n")
+    assert (e.line, e.field) == (4, "switch.knob")
+    e = _err("profiles: edo12\n")
+    assert e.field == "profiles"
+
+
+def test_yaml_syntax_error_has_a_line():
+    e = _err("profile: edo12\nswitch: {channel: 3\n")
+    assert e.file == "cfg.yaml" and e.line is not None
+
+
+def test_cli_prints_one_line_and_exits_2(tmp_path):
+    cfg = tmp_path / "bad.yaml"
+    cfg.write_text("profile: edo12\nbackend: jack\nvolume: 11\n")
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--config", str(cfg)],
+                       capture_output=True, text=True, timeout=20)
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1
+    assert f"{cfg}:3: volume: unknown field" in lines[0]
