@@ -1,0 +1,364 @@
+"""Impurity, motion and drift, computed from an OUTPUT message stream.
+
+The stream is decoded the way a receiving synthesizer would hear it (not from
+the engine's internal state):
+
+* **pitch bend** (bend pool and MPE): a note on key k of channel c sounds at
+  ``100*k + bend/8192 * range * 100 * bend_scale`` cents, ``bend`` in
+  -8192..8191 (MIDI 1.0: centre 8192 on the wire), ``range`` in semitones from
+  RPN 0 (CC101=0, CC100=0, data entry CC6 semitones + CC38 cents) as sent in the
+  stream itself. Default range 2 semitones (MIDI 1.0 common practice); after an
+  MPE Configuration Message (RPN 6 on channel 1 or 16, MPE specification 2018)
+  the member channels default to 48 semitones and the manager to 2.
+  ``bend_scale`` lets a caller model a synth that plays bends at a different
+  size (e.g. 127/128).
+* **MIDI Tuning Standard**: per-key pitches from bulk tuning dumps and single
+  note tuning changes (decoded by :func:`retuner.mts.parse_sysex`), kept per
+  tuning program; a channel plays the program it selected with RPN 3 (and bank,
+  RPN 4), or, if it never selected one, the last program written. Real-time
+  changes retune sounding notes at once; non-real-time ones only later notes.
+  Any channel bend adds on top.
+
+Definitions (issue 6, so figures compare):
+
+* **impurity**: every pair of simultaneously sounding notes whose interval,
+  rounded to whole semitones and reduced by octaves, is a unison/octave, minor
+  or major third, fourth, fifth, minor or major sixth; its distance in cents
+  from 1/1 (2/1), 6/5, 5/4, 4/3, 3/2, 8/5, 5/3 (plus its whole octaves),
+  averaged weighted by the time the pair sounds.
+* **motion**: the sum of absolute pitch changes of notes while they sound,
+  divided by the number of notes.
+* **drift**: at each moment, the mean deviation from 12-EDO (cents from
+  ``100*key`` of the output key) of the sounding notes; reported as its
+  maximum absolute value, its final value and its time-weighted RMS.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Iterable, Optional, Sequence
+
+import mido
+
+from .tuning import Tuning
+
+# interval class (semitones mod 12) -> just ratio, for the consonances counted in impurity
+CONSONANT_RATIOS = {0: (1, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
+CONSONANT_CENTS = {c: 1200.0 * math.log2(p / q) for c, (p, q) in CONSONANT_RATIOS.items()}
+
+CC_RPN_MSB, CC_RPN_LSB, CC_NRPN_MSB, CC_NRPN_LSB = 101, 100, 99, 98
+CC_DATA_MSB, CC_DATA_LSB = 6, 38
+RPN_BEND_RANGE = (0, 0)
+RPN_MPE_CONFIG = (0, 6)
+RPN_TUNING_PROGRAM = (0, 3)
+RPN_TUNING_BANK = (0, 4)
+
+
+@dataclass
+class NoteTrack:
+    """One sounding note of the output: its key, channel, start, end and pitch steps."""
+
+    key: int
+    channel: int
+    start: float
+    end: Optional[float] = None
+    steps: list[tuple[float, float]] = field(default_factory=list)  # (time, cents) from start on
+
+    @property
+    def pitch(self) -> float:
+        return self.steps[-1][1]
+
+    @property
+    def motion(self) -> float:
+        return sum(abs(b[1] - a[1]) for a, b in zip(self.steps, self.steps[1:]))
+
+
+@dataclass
+class Decoded:
+    notes: list[NoteTrack]
+    bends_sent: int
+    channels_used: list[int]   # 1-based channels that carried notes
+    end_time: float
+
+
+# -- MIDI Tuning Standard part ---------------------------------------------------
+
+def _parse_mts(msg: mido.Message):
+    """MTS sysex -> (realtime, bank, program, [(key, cents|None)]) or None."""
+    try:
+        from .mts import is_mts, parse_sysex
+    except ImportError:  # pragma: no cover - mts.py is part of the package
+        return None
+    if not is_mts(msg):
+        return None
+    try:
+        m = parse_sysex(msg)
+    except ValueError:
+        return None
+    if m.kind == "bulk_dump" and m.checksum_ok is False:
+        return None
+    return m.realtime, m.bank, m.program, m.changes
+
+
+class _Channel:
+    __slots__ = ("bend", "range", "rpn", "tprog", "tbank", "pending_bank")
+
+    def __init__(self) -> None:
+        self.bend = 0
+        self.range = 2.0
+        self.rpn: Optional[tuple[int, int]] = None
+        self.tprog: Optional[int] = None
+        self.tbank: int = 0
+        self.pending_bank: Optional[int] = None
+
+
+def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 1.0,
+           bend_range: Optional[float] = None, exclude_channels: Sequence[int] = (),
+           end_time: Optional[float] = None) -> Decoded:
+    """Decode an output stream into sounding notes with their pitch over time.
+
+    ``bend_range`` (semitones) is the range assumed before the stream sets one
+    with RPN 0 (default 2); ``exclude_channels`` are 0-based (e.g. 9 for drums).
+    Notes still sounding at the end end at ``end_time`` (default: last event).
+    """
+    chans = [_Channel() for _ in range(16)]
+    if bend_range is not None:
+        for c in chans:
+            c.range = float(bend_range)
+    tables: dict[tuple[int, int], list[float]] = {}
+    last_prog: list[Optional[tuple[int, int]]] = [None]
+    sounding: dict[tuple[int, int], NoteTrack] = {}
+    done: list[NoteTrack] = []
+    bends = 0
+    used: set[int] = set()
+    t_last = 0.0
+    excl = set(exclude_channels)
+    bases: dict[int, float] = {}  # id(NoteTrack) -> tuning-table pitch of the sounding note
+
+    def table_for(ch: int) -> Optional[list[float]]:
+        c = chans[ch]
+        if c.tprog is not None:
+            return tables.get((c.tbank, c.tprog))
+        if last_prog[0] is not None:
+            return tables.get(last_prog[0])
+        return None
+
+    def base(ch: int, key: int) -> float:
+        tab = table_for(ch)
+        return tab[key] if tab is not None else 100.0 * key
+
+    def bend(ch: int) -> float:
+        c = chans[ch]
+        return c.bend / 8192.0 * c.range * 100.0 * bend_scale
+
+    def restep(t: float, pred) -> None:
+        for (ch, key), nt in sounding.items():
+            if pred(ch, key):
+                p = bases[id(nt)] + bend(ch)
+                if abs(p - nt.steps[-1][1]) > 1e-9:
+                    nt.steps.append((t, p))
+
+    for t, msg in stream:
+        t = float(t)
+        t_last = max(t_last, t)
+        typ = msg.type
+        if typ == "sysex":
+            parsed = _parse_mts(msg)
+            if parsed is None:
+                continue
+            realtime, bank, program, changes = parsed
+            pk = (bank or 0, program)
+            tab = tables.setdefault(pk, [100.0 * k for k in range(128)])
+            for key, c in changes:
+                if c is not None:
+                    tab[key] = c
+            last_prog[0] = pk
+            if realtime:
+                # real-time: sounding notes of this table take the new pitch at once
+                for (ch, key), nt in sounding.items():
+                    if table_for(ch) is tab:
+                        bases[id(nt)] = tab[key]
+                restep(t, lambda ch, key: table_for(ch) is tab)
+            # non-real-time: sounding notes keep their pitch; later notes use the new table
+            continue
+        if not hasattr(msg, "channel"):
+            continue
+        ch = msg.channel
+        if ch in excl:
+            continue
+        c = chans[ch]
+        if typ == "note_on" and msg.velocity > 0:
+            k = (ch, msg.note)
+            if k in sounding:  # re-strike of a sounding key: the old note ends
+                old = sounding.pop(k)
+                old.end = t
+                done.append(old)
+            b0 = base(ch, msg.note)
+            nt = NoteTrack(msg.note, ch, t, steps=[(t, b0 + bend(ch))])
+            bases[id(nt)] = b0
+            sounding[k] = nt
+            used.add(ch + 1)
+        elif typ == "note_off" or (typ == "note_on" and msg.velocity == 0):
+            nt = sounding.pop((ch, msg.note), None)
+            if nt is not None:
+                nt.end = t
+                done.append(nt)
+        elif typ == "pitchwheel":
+            bends += 1
+            c.bend = msg.pitch
+            restep(t, lambda cc, key: cc == ch)
+        elif typ == "control_change":
+            cc, v = msg.control, msg.value
+            if cc == CC_RPN_MSB:
+                c.rpn = (v, c.rpn[1] if c.rpn else 127)
+            elif cc == CC_RPN_LSB:
+                c.rpn = (c.rpn[0] if c.rpn else 127, v)
+            elif cc in (CC_NRPN_MSB, CC_NRPN_LSB):
+                c.rpn = None
+            elif cc == CC_DATA_MSB and c.rpn is not None:
+                if c.rpn == RPN_BEND_RANGE:
+                    c.range = float(v)  # the MSB resets the cents part
+                    restep(t, lambda cc2, key: cc2 == ch)
+                elif c.rpn == RPN_MPE_CONFIG and ch in (0, 15):
+                    members = range(1, 1 + v) if ch == 0 else range(15 - v, 15)
+                    for m in members:
+                        chans[m].range = 48.0
+                    c.range = 2.0
+                    restep(t, lambda cc2, key: True)
+                elif c.rpn == RPN_TUNING_PROGRAM:
+                    c.tprog = v
+                    if c.pending_bank is not None:
+                        c.tbank = c.pending_bank
+                elif c.rpn == RPN_TUNING_BANK:
+                    c.pending_bank = v
+            elif cc == CC_DATA_LSB and c.rpn == RPN_BEND_RANGE:
+                c.range = math.floor(c.range) + v / 100.0
+                restep(t, lambda cc2, key: cc2 == ch)
+            elif cc == 123 or cc == 120:  # all notes off / all sound off
+                for k in [k for k in sounding if k[0] == ch]:
+                    nt = sounding.pop(k)
+                    nt.end = t
+                    done.append(nt)
+
+    t_end = end_time if end_time is not None else t_last
+    for nt in sounding.values():
+        nt.end = max(t_end, nt.start)
+        done.append(nt)
+    done.sort(key=lambda n: (n.start, n.key, n.channel))
+    return Decoded(done, bends, sorted(used), t_end)
+
+
+# -- the measures ----------------------------------------------------------------
+
+def _sweep(notes: Sequence[NoteTrack]):
+    """Yield (t0, t1, [(key, cents)]) for every interval over which the sounding set is constant."""
+    ev: list[tuple[float, int, int, float]] = []  # (time, kind 0=change/start 1=end, id, cents)
+    for i, n in enumerate(notes):
+        for t, c in n.steps:
+            ev.append((t, 0, i, c))
+        ev.append((n.end if n.end is not None else n.start, -1, i, 0.0))
+    # ends before starts at the same instant; zero-length intervals carry no weight anyway
+    ev.sort(key=lambda e: (e[0], e[1]))
+    cur: dict[int, float] = {}
+    prev_t: Optional[float] = None
+    for t, kind, i, c in ev:
+        if prev_t is not None and t > prev_t and cur:
+            yield prev_t, t, [(notes[j].key, p) for j, p in cur.items()]
+        prev_t = t
+        if kind == -1:
+            cur.pop(i, None)
+        else:
+            cur[i] = c
+
+
+def pair_deviation(cents_low: float, cents_high: float) -> Optional[float]:
+    """Distance in cents from just of a consonant pair (None if not a counted consonance)."""
+    d = abs(cents_high - cents_low)
+    semis = int(round(d / 100.0))
+    cls, octs = semis % 12, semis // 12
+    if cls not in CONSONANT_CENTS:
+        return None
+    return d - (CONSONANT_CENTS[cls] + 1200.0 * octs)
+
+
+def impurity(notes: Sequence[NoteTrack]) -> tuple[float, float]:
+    """(time-weighted mean |deviation from just| of consonant pairs, total pair time)."""
+    tot = 0.0
+    wsum = 0.0
+    for t0, t1, snd in _sweep(notes):
+        dt = t1 - t0
+        ps = [p for _, p in snd]
+        for a in range(len(ps)):
+            for b in range(a + 1, len(ps)):
+                dev = pair_deviation(ps[a], ps[b])
+                if dev is not None:
+                    tot += dt * abs(dev)
+                    wsum += dt
+    return (tot / wsum if wsum > 0 else 0.0), wsum
+
+
+def motion(notes: Sequence[NoteTrack]) -> float:
+    """Sum of absolute pitch changes of notes while they sound, per note."""
+    if not notes:
+        return 0.0
+    return sum(n.motion for n in notes) / len(notes)
+
+
+def drift(notes: Sequence[NoteTrack]) -> dict:
+    """Mean deviation from 12-EDO of the sounding notes at each moment: max |.|, final, RMS."""
+    mx = 0.0
+    final = 0.0
+    sq = 0.0
+    tt = 0.0
+    for t0, t1, snd in _sweep(notes):
+        d = sum(p - 100.0 * k for k, p in snd) / len(snd)
+        dt = t1 - t0
+        mx = max(mx, abs(d))
+        final = d
+        sq += dt * d * d
+        tt += dt
+    return {"max": mx, "final": final, "rms": math.sqrt(sq / tt) if tt > 0 else 0.0}
+
+
+def worst_error(notes: Sequence[NoteTrack], tuning: Tuning) -> float:
+    """Largest |pitch - target| over every pitch any note took (for static tunings)."""
+    worst = 0.0
+    for n in notes:
+        target = tuning.cents[n.key]
+        if target is None:
+            continue
+        for _, c in n.steps:
+            worst = max(worst, abs(c - target))
+    return worst
+
+
+def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tuning] = None,
+           bend_scale: float = 1.0, bend_range: Optional[float] = None,
+           exclude_channels: Sequence[int] = (), key_map: Optional[dict] = None) -> dict:
+    """Every measure of an output stream, as a JSON-ready dict.
+
+    ``tuning`` (static profiles): adds ``worst_error_cents`` against it.
+    ``key_map`` is unused unless an output key differs from the input key
+    (then ``{output_key: input_key}``), for the worst-error check only.
+    """
+    dec = decode(stream, bend_scale=bend_scale, bend_range=bend_range, exclude_channels=exclude_channels)
+    imp, pair_time = impurity(dec.notes)
+    dr = drift(dec.notes)
+    out = {
+        "notes": len(dec.notes),
+        "channels_used": dec.channels_used,
+        "bends_sent": dec.bends_sent,
+        "impurity_cents": round(imp, 6),
+        "consonant_pair_seconds": round(pair_time, 6),
+        "motion_cents_per_note": round(motion(dec.notes), 6),
+        "drift_max_cents": round(dr["max"], 6),
+        "drift_final_cents": round(dr["final"], 6),
+        "drift_rms_cents": round(dr["rms"], 6),
+    }
+    if tuning is not None:
+        notes = dec.notes
+        if key_map:
+            notes = [NoteTrack(key_map.get(n.key, n.key), n.channel, n.start, n.end, n.steps) for n in notes]
+        out["worst_error_cents"] = round(worst_error(notes, tuning), 6)
+    return out

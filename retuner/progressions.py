@@ -1,0 +1,452 @@
+"""The project's own progressions, as timed note events and as MIDI files.
+
+All of these are written for this project (our own scenarios):
+
+* ``comma_pump(rounds)``: I-vi-ii-V-I in C major, 4 voices. Played legato with
+  common tones held, pure intervals against the held notes sink the pitch by a
+  syntonic comma (81/80, 21.5 cents) each round.
+* ``minor_cadences()``: i-iv-V-i cadences in a chain of minor keys.
+* ``dominant_chain()``: a chain of dominant sevenths, each resolving as V7 of
+  the next (circle of fifths).
+* ``chromatic_passage()``: a chromatic bass through diminished sevenths.
+* ``CHORALES``: four-part chorale-style settings of public-domain hymn tunes.
+  The tunes (Old Hundredth, Louis Bourgeois, Genevan Psalter 1551; Tallis'
+  Canon, Thomas Tallis c. 1567; Winchester New, Musikalisches Handbuch,
+  Hamburg 1690; St Anne, William Croft 1708) are transcribed from memory, and
+  the four-part harmonisations are written out by us in plain chorale style
+  (they are not copies of any edition).
+
+Every progression has a legato form (notes of a voice that repeat a key are
+held; for block chords, keys common to two chords are held) and a detached
+form (every note ends a little before the next chord; nothing is held).
+
+Events are ``(time_seconds, mido.Message)`` sorted by time, note-offs before
+note-ons at the same time.
+"""
+
+from __future__ import annotations
+
+import itertools
+from typing import Iterable, Optional, Sequence
+
+import mido
+
+Event = tuple[float, mido.Message]
+
+# -- block-chord progressions -------------------------------------------------
+
+# I-vi-ii-V-I, voiced so each change keeps the common tones on the same keys:
+# I->vi holds E4 and C5, vi->ii holds A4, ii->V holds D5, V->I holds G4.
+PUMP_ROUND = [
+    (48, 64, 67, 72),  # I   C3 E4 G4 C5
+    (45, 64, 69, 72),  # vi  A2 E4 A4 C5
+    (50, 65, 69, 74),  # ii  D3 F4 A4 D5
+    (43, 59, 67, 74),  # V   G2 B3 G4 D5
+]
+
+
+def comma_pump_chords(rounds: int = 8) -> list[tuple[int, ...]]:
+    return PUMP_ROUND * rounds + [PUMP_ROUND[0]]
+
+
+def _voice_lead(prev: Sequence[int], pcs: Sequence[int], need: Sequence[int]) -> tuple[int, ...]:
+    """Upper voices for pitch classes ``pcs``: least total motion from ``prev``.
+
+    Every pitch class in ``need`` must appear; voices stay distinct.
+    """
+    best = None
+    for combo in itertools.product(pcs, repeat=len(prev)):
+        if any(n not in combo for n in need):
+            continue
+        keys = []
+        for p, pc in zip(prev, combo):
+            k = p + ((pc - p) % 12)
+            if k - p > 6:
+                k -= 12
+            keys.append(k)
+        if len(set(keys)) < len(keys):
+            continue
+        if sorted(keys) != keys:
+            continue
+        cost = sum(abs(a - b) for a, b in zip(keys, prev))
+        if best is None or cost < best[0]:
+            best = (cost, tuple(keys))
+    assert best is not None
+    return best[1]
+
+
+def _chain(start_upper: Sequence[int], chords: Iterable[tuple[int, Sequence[int], Sequence[int]]],
+           bass_lo: int = 40) -> list[tuple[int, ...]]:
+    """Chords given as (bass pitch class, chord pitch classes, required classes)."""
+    out = []
+    upper = tuple(start_upper)
+    for bass_pc, pcs, need in chords:
+        bass = bass_lo + ((bass_pc - bass_lo) % 12)
+        upper = _voice_lead(upper, pcs, need)
+        out.append((bass,) + upper)
+    return out
+
+
+def minor_cadence_chords(keys: int = 6) -> list[tuple[int, ...]]:
+    """i-iv-V-i in A minor, then in the minor key a fourth higher, and so on."""
+    chords = []
+    for n in range(keys):
+        t = (9 + 5 * n) % 12  # tonic pitch class: A, D, G, C, F, Bb
+        i = (t, (t, t + 3, t + 7), (t + 3,))
+        iv = (t + 5, (t + 5, t + 8, t), (t + 8,))
+        v = (t + 7, (t + 7, t + 11, t + 2), (t + 11,))
+        chords += [i, iv, v, i]
+    chords = [(b % 12, tuple(p % 12 for p in pcs), tuple(x % 12 for x in need)) for b, pcs, need in chords]
+    return _chain((64, 69, 72), chords)
+
+
+def dominant_chain_chords(length: int = 12) -> list[tuple[int, ...]]:
+    """G7 C7 F7 Bb7 ... (root position; the fifth may be left out)."""
+    chords = []
+    for n in range(length):
+        r = (7 - 7 * n) % 12  # G, C, F, Bb, ...
+        chords.append((r, (r, (r + 4) % 12, (r + 7) % 12, (r + 10) % 12), ((r + 4) % 12, (r + 10) % 12)))
+    t = (r + 5) % 12  # the last dominant resolves to its tonic
+    chords.append((t, (t, (t + 4) % 12, (t + 7) % 12), ((t + 4) % 12,)))
+    return _chain((59, 62, 65), chords)
+
+
+def chromatic_passage_chords() -> list[tuple[int, ...]]:
+    """C C#dim7 Dm D#dim7 Em F F#dim7 C/G G7 C: a chromatic bass rising."""
+    spec = [
+        (0, (0, 4, 7), (4,)),
+        (1, (1, 4, 7, 10), (4, 10)),
+        (2, (2, 5, 9), (5,)),
+        (3, (3, 6, 9, 0), (6, 0)),
+        (4, (4, 7, 11), (7,)),
+        (5, (5, 9, 0), (9,)),
+        (6, (6, 9, 0, 3), (9, 3)),
+        (7, (0, 4, 7), (4,)),
+        (7, (7, 11, 2, 5), (11, 5)),
+        (0, (0, 4, 7), (4,)),
+    ]
+    return _chain((64, 67, 72), spec)
+
+
+def chord_events(chords: Sequence[Sequence[int]], *, legato: bool = True, seconds: float = 1.0,
+                 gap: float = 0.1, velocity: int = 80, channel: int = 0, start: float = 0.0) -> list[Event]:
+    """Block chords as note events. Legato: keys common to consecutive chords are held."""
+    ev: list[Event] = []
+    sounding: set[int] = set()
+    t = start
+    for chord in chords:
+        cs = set(chord)
+        if legato:
+            for k in sorted(sounding - cs):
+                ev.append((t, mido.Message("note_off", note=k, velocity=0, channel=channel)))
+            for k in sorted(cs - sounding):
+                ev.append((t, mido.Message("note_on", note=k, velocity=velocity, channel=channel)))
+            sounding = cs
+        else:
+            for k in sorted(cs):
+                ev.append((t, mido.Message("note_on", note=k, velocity=velocity, channel=channel)))
+            for k in sorted(cs):
+                ev.append((t + seconds - gap, mido.Message("note_off", note=k, velocity=0, channel=channel)))
+        t += seconds
+    for k in sorted(sounding):
+        ev.append((t, mido.Message("note_off", note=k, velocity=0, channel=channel)))
+    return sort_events(ev)
+
+
+def sort_events(ev: list[Event]) -> list[Event]:
+    return sorted(ev, key=lambda e: (e[0], 0 if _is_off(e[1]) else 1, e[1].note if hasattr(e[1], "note") else 0))
+
+
+def _is_off(m: mido.Message) -> bool:
+    return m.type == "note_off" or (m.type == "note_on" and m.velocity == 0)
+
+
+# -- chorales: voices written out -----------------------------------------------
+# Each voice is a list of (key, beats); key None is a rest. Soprano, alto, tenor, bass.
+# Note names are turned into keys by _n (C4 = 60).
+
+_PC = {"C": 0, "D": 2, "E": 4, "F": 5, "G": 7, "A": 9, "B": 11}
+
+
+def _n(name: str) -> int:
+    """'F#4' -> 66, 'Bb3' -> 58 (scientific pitch, C4 = 60)."""
+    pc = _PC[name[0]]
+    i = 1
+    while i < len(name) and name[i] in "#b":
+        pc += 1 if name[i] == "#" else -1
+        i += 1
+    return pc + 12 * (int(name[i:]) + 1)
+
+
+def _voice(text: str) -> list[tuple[Optional[int], float]]:
+    """'G4:1 G4:1 F#4:.5' -> [(67, 1.0), (67, 1.0), (66, 0.5)]; 'r:1' is a rest."""
+    out = []
+    for tok in text.split():
+        name, _, beats = tok.partition(":")
+        out.append((None if name == "r" else _n(name), float(beats or 1)))
+    return out
+
+
+# Old Hundredth (Genevan Psalter 1551, tune by Louis Bourgeois), G major; melody from
+# memory, harmonisation ours. Phrases of 8 notes, first and last of each phrase long.
+OLD_HUNDREDTH = {
+    "name": "old-hundredth",
+    "source": "tune: Old Hundredth, L. Bourgeois, Genevan Psalter 1551 (public domain), melody from memory; "
+              "four-part setting written for this project",
+    "beats_per_second": 1.5,
+    "voices": [
+        # soprano
+        "G4:2 G4:1 F#4:1 E4:1 D4:1 G4:1 A4:1 B4:2 "
+        "B4:2 B4:1 B4:1 A4:1 G4:1 C5:1 B4:1 A4:2 "
+        "G4:2 G4:1 F#4:1 E4:1 D4:1 G4:1 A4:1 B4:2 "
+        "A4:2 G4:1 E4:1 F#4:1 G4:1 G4:1 F#4:1 G4:2",
+        # alto
+        "D4:2 D4:1 D4:1 C4:1 B3:1 D4:1 D4:1 D4:2 "
+        "D4:2 D4:1 G4:1 F#4:1 G4:1 E4:1 D4:1 D4:2 "
+        "D4:2 D4:1 D4:1 C4:1 B3:1 D4:1 D4:1 D4:2 "
+        "D4:2 D4:1 C4:1 D4:1 D4:1 E4:1 D4:1 D4:2",
+        # tenor
+        "B3:2 B3:1 A3:1 G3:1 G3:1 B3:1 F#3:1 G3:2 "
+        "G3:2 G3:1 D4:1 D4:1 D4:1 C4:1 G3:1 F#3:2 "
+        "B3:2 B3:1 A3:1 G3:1 G3:1 B3:1 F#3:1 G3:2 "
+        "F#3:2 G3:1 G3:1 A3:1 B3:1 C4:1 A3:1 B3:2",
+        # bass
+        "G2:2 G2:1 D3:1 C3:1 G2:1 G2:1 D3:1 G2:2 "
+        "G2:2 G3:1 G3:1 D3:1 B2:1 A2:1 B2:1 D3:2 "
+        "G2:2 G2:1 D3:1 C3:1 G2:1 G2:1 D3:1 G2:2 "
+        "D3:2 E3:1 C3:1 D3:1 G2:1 C3:1 D3:1 G2:2",
+    ],
+}
+
+# Tallis' Canon (Thomas Tallis, c. 1567), G major; tune from memory, setting ours
+# (the tenor follows the melody a bar later as in the tune's canon, freely).
+TALLIS_CANON = {
+    "name": "tallis-canon",
+    "source": "tune: Tallis' Canon, T. Tallis c. 1567 (public domain), melody from memory; "
+              "four-part setting written for this project",
+    "beats_per_second": 1.6,
+    "voices": [
+        "G4:1 G4:1 F#4:1 G4:1 G4:1 A4:1 A4:1 B4:1 "
+        "G4:1 C5:1 C5:1 B4:1 B4:1 A4:1 A4:1 G4:1 "
+        "B4:1 A4:1 G4:1 C5:1 B4:1 A4:1 A4:1 G4:1 "
+        "D5:1 B4:1 G4:1 A4:1 B4:1 A4:1 G4:2",
+        "D4:1 D4:1 D4:1 D4:1 E4:1 E4:1 D4:1 D4:1 "
+        "D4:1 E4:1 E4:1 D4:1 G4:1 F#4:1 D4:1 D4:1 "
+        "G4:1 F#4:1 E4:1 E4:1 D4:1 E4:1 D4:1 D4:1 "
+        "F#4:1 G4:1 E4:1 E4:1 D4:1 D4:1 D4:2",
+        "B3:1 B3:1 A3:1 B3:1 C4:1 C4:1 A3:1 G3:1 "
+        "B3:1 G3:1 A3:1 G3:1 D4:1 D4:1 C4:1 B3:1 "
+        "D4:1 D4:1 B3:1 A3:1 G3:1 C4:1 B3:1 A3:1 "
+        "A3:1 D4:1 C4:1 C4:1 G3:1 F#3:1 B3:2",
+        "G2:1 G2:1 D3:1 G2:1 C3:1 A2:1 D3:1 G2:1 "
+        "G2:1 C3:1 A2:1 G2:1 G2:1 D3:1 F#2:1 G2:1 "
+        "G2:1 D3:1 E3:1 A2:1 B2:1 C3:1 D3:1 D3:1 "
+        "D3:1 G2:1 C3:1 A2:1 D3:1 D3:1 G2:2",
+    ],
+}
+
+# Winchester New (Musikalisches Handbuch, Hamburg 1690, as sung in English hymnals),
+# D major; tune from memory, setting ours.
+WINCHESTER_NEW = {
+    "name": "winchester-new",
+    "source": "tune: Winchester New, Musikalisches Handbuch, Hamburg 1690 (public domain), melody from memory; "
+              "four-part setting written for this project",
+    "beats_per_second": 1.6,
+    "voices": [
+        "D4:1 A4:1 F#4:1 G4:1 A4:1 B4:1 A4:1 G4:1 F#4:2 r:1 "
+        "A4:1 D5:1 C#5:1 B4:1 A4:1 G4:1 F#4:1 E4:2 r:1 "
+        "E4:1 F#4:1 G4:1 A4:1 B4:1 A4:1 G4:1 F#4:2 r:1 "
+        "A4:1 B4:1 G4:1 E4:1 F#4:1 E4:1 E4:1 D4:2",
+        "D4:1 D4:1 D4:1 D4:1 D4:1 D4:1 C#4:1 C#4:1 D4:2 r:1 "
+        "F#4:1 F#4:1 E4:1 E4:1 E4:1 D4:1 D4:1 C#4:2 r:1 "
+        "C#4:1 D4:1 D4:1 D4:1 D4:1 D4:1 C#4:1 D4:2 r:1 "
+        "D4:1 D4:1 D4:1 C#4:1 D4:1 D4:1 C#4:1 A3:2",
+        "F#3:1 F#3:1 A3:1 B3:1 A3:1 G3:1 A3:1 A3:1 A3:2 r:1 "
+        "A3:1 A3:1 A3:1 G#3:1 A3:1 B3:1 A3:1 A3:2 r:1 "
+        "A3:1 A3:1 B3:1 A3:1 G3:1 F#3:1 A3:1 A3:2 r:1 "
+        "F#3:1 G3:1 B3:1 A3:1 A3:1 B3:1 A3:1 F#3:2",
+        "D3:1 F#3:1 D3:1 B2:1 F#2:1 G2:1 A2:1 A2:1 D3:2 r:1 "
+        "D3:1 B2:1 A2:1 E3:1 C#3:1 B2:1 D3:1 A2:2 r:1 "
+        "A2:1 D3:1 B2:1 F#2:1 G2:1 D3:1 A2:1 D3:2 r:1 "
+        "D3:1 G2:1 E2:1 A2:1 D3:1 G2:1 A2:1 D2:2",
+    ],
+}
+
+# St Anne (William Croft, 1708), C major; tune from memory, setting ours.
+ST_ANNE = {
+    "name": "st-anne",
+    "source": "tune: St Anne, W. Croft 1708 (public domain), melody from memory; "
+              "four-part setting written for this project",
+    "beats_per_second": 1.5,
+    "voices": [
+        "G4:1 E4:1 A4:1 G4:1 C5:1 C5:1 B4:1 C5:2 "
+        "G4:1 A4:1 F4:1 E4:1 D4:1 C4:1 B3:1 C4:2 "
+        "E4:1 G4:1 G4:1 F#4:1 G4:1 E4:1 A4:1 D4:2 "
+        "D5:1 C5:1 A4:1 B4:1 G4:1 A4:1 B4:1 C5:2",
+        "E4:1 C4:1 C4:1 D4:1 E4:1 F4:1 D4:1 E4:2 "
+        "E4:1 C4:1 C4:1 C4:1 B3:1 A3:1 G3:1 G3:2 "
+        "C4:1 D4:1 E4:1 D4:1 D4:1 C4:1 C4:1 B3:2 "
+        "F4:1 E4:1 F4:1 F4:1 E4:1 F4:1 F4:1 E4:2",
+        "C4:1 G3:1 A3:1 B3:1 G3:1 A3:1 G3:1 G3:2 "
+        "C4:1 A3:1 A3:1 G3:1 G3:1 E3:1 F3:1 E3:2 "
+        "G3:1 B3:1 C4:1 A3:1 B3:1 G3:1 E3:1 G3:2 "
+        "A3:1 G3:1 C4:1 D4:1 C4:1 C4:1 D4:1 C4:2",
+        "C3:1 C3:1 F3:1 G3:1 C3:1 F3:1 G3:1 C3:2 "
+        "C3:1 F3:1 A2:1 C3:1 G2:1 A2:1 G2:1 C3:2 "
+        "C3:1 G2:1 C3:1 D3:1 G2:1 C3:1 C3:1 G2:2 "
+        "D3:1 E3:1 F3:1 D3:1 E3:1 F3:1 G3:1 C3:2",
+    ],
+}
+
+CHORALES = [OLD_HUNDREDTH, TALLIS_CANON, WINCHESTER_NEW, ST_ANNE]
+
+
+def voices_events(voices: Sequence[str], *, beats_per_second: float = 1.5, legato: bool = True,
+                  gap: float = 0.08, velocity: int = 80, channel: int = 0, start: float = 0.0) -> list[Event]:
+    """Voices written as text -> note events. Legato: a voice that repeats a key holds it."""
+    ev: list[Event] = []
+    spb = 1.0 / beats_per_second
+    for text in voices:
+        t = start
+        notes = _voice(text)
+        i = 0
+        while i < len(notes):
+            key, beats = notes[i]
+            dur = beats
+            j = i + 1
+            if legato and key is not None:
+                while j < len(notes) and notes[j][0] == key:
+                    dur += notes[j][1]
+                    j += 1
+            if key is not None:
+                on, off = t, t + dur * spb - (0.0 if legato else gap)
+                ev.append((on, mido.Message("note_on", note=key, velocity=velocity, channel=channel)))
+                ev.append((off, mido.Message("note_off", note=key, velocity=0, channel=channel)))
+            t += dur * spb
+            i = j
+    return sort_events(_fix_overlaps(ev))
+
+
+def _fix_overlaps(ev: list[Event]) -> list[Event]:
+    """Two voices on one key at once (unison): merge into one note (a keyboard has one key)."""
+    ev = sort_events(ev)
+    out: list[Event] = []
+    depth: dict[int, int] = {}
+    for t, m in ev:
+        k = m.note
+        if _is_off(m):
+            depth[k] = depth.get(k, 0) - 1
+            if depth[k] == 0:
+                out.append((t, m))
+        else:
+            depth[k] = depth.get(k, 0) + 1
+            if depth[k] == 1:
+                out.append((t, m))
+    return out
+
+
+def chorale_events(piece: dict, *, legato: bool = True) -> list[Event]:
+    return voices_events(piece["voices"], beats_per_second=piece["beats_per_second"], legato=legato)
+
+
+# -- the catalogue --------------------------------------------------------------
+
+def progression(name: str, *, legato: bool = True, rounds: int = 8) -> list[Event]:
+    """Events of a named progression: pump, minor-cadences, dominant-chain, chromatic, or a chorale name."""
+    if name == "pump":
+        return chord_events(comma_pump_chords(rounds), legato=legato)
+    if name == "minor-cadences":
+        return chord_events(minor_cadence_chords(), legato=legato)
+    if name == "dominant-chain":
+        return chord_events(dominant_chain_chords(), legato=legato)
+    if name == "chromatic":
+        return chord_events(chromatic_passage_chords(), legato=legato)
+    for p in CHORALES:
+        if p["name"] == name:
+            return chorale_events(p, legato=legato)
+    raise KeyError(name)
+
+
+PROGRESSIONS = ["pump", "minor-cadences", "dominant-chain", "chromatic"] + [p["name"] for p in CHORALES]
+
+
+def to_midifile(events: Sequence[Event], *, ticks_per_beat: int = 480, tempo: int = 500000) -> mido.MidiFile:
+    """Events -> a type 0 MIDI file (tempo 120 bpm by default)."""
+    mf = mido.MidiFile(type=0, ticks_per_beat=ticks_per_beat)
+    tr = mido.MidiTrack()
+    mf.tracks.append(tr)
+    tr.append(mido.MetaMessage("set_tempo", tempo=tempo, time=0))
+    last_tick = 0
+    for t, m in events:
+        tick = int(round(mido.second2tick(t, ticks_per_beat, tempo)))
+        tr.append(m.copy(time=tick - last_tick))
+        last_tick = tick
+    tr.append(mido.MetaMessage("end_of_track", time=0))
+    return mf
+
+
+# -- running the solver without the engine -------------------------------------------
+
+def simulate(events: Sequence[Event], config=None, reference=None, *, chord_window: Optional[float] = None):
+    """Run the adaptive solver over note events directly (no engine, no channels).
+
+    Notes starting within the chord window of a chord's first note are solved
+    together (tuned at the window's start, as if the window cost no time).
+    Returns a list of :class:`retuner.metrics.NoteTrack` (the ideal output).
+    """
+    from .adaptive import AdaptiveConfig, AdaptiveSolver
+    from .metrics import NoteTrack
+
+    cfg = config if config is not None else AdaptiveConfig()
+    solver = AdaptiveSolver(cfg, reference)
+    win = cfg.chord_window if chord_window is None else chord_window
+    sounding: dict[int, NoteTrack] = {}
+    done: list[NoteTrack] = []
+    pending: list[int] = []
+    t_first: Optional[float] = None
+
+    def flush(t_solve: float) -> None:
+        nonlocal pending, t_first
+        if not pending:
+            return
+        held = [(k, nt.steps[-1][1]) for k, nt in sounding.items() if k not in pending]
+        hc, nc = solver.solve(held, pending)
+        for (k, _), c in zip(held, hc):
+            nt = sounding[k]
+            if abs(c - nt.steps[-1][1]) > 1e-12:
+                nt.steps.append((t_solve, c))
+        for k, c in zip(pending, nc):
+            sounding[k] = NoteTrack(k, 0, t_first, steps=[(t_first, c)])
+        pending = []
+        t_first = None
+
+    for t, m in events:
+        if pending and t > t_first + win:
+            flush(t_first)
+        if m.type not in ("note_on", "note_off"):
+            continue
+        if _is_off(m):
+            if m.note in pending:
+                # a note that ends inside the window is still tuned with its chord
+                flush(t_first)
+            nt = sounding.pop(m.note, None)
+            if nt is not None:
+                nt.end = t
+                done.append(nt)
+        else:
+            if m.note in sounding:
+                nt = sounding.pop(m.note)
+                nt.end = t
+                done.append(nt)
+            if t_first is None:
+                t_first = t
+            if m.note not in pending:
+                pending.append(m.note)
+    if pending:
+        flush(t_first)
+    t_end = events[-1][0] if events else 0.0
+    for nt in sounding.values():
+        nt.end = t_end
+        done.append(nt)
+    done.sort(key=lambda n: (n.start, n.key))
+    return done
