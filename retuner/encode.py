@@ -1,0 +1,243 @@
+"""The wire: pitch bend and RPN messages, written down once as data.
+
+Every protocol number the engine sends lives in the tables below, with its
+source. Channels are 0-based here (as in mido); users see 1..16.
+
+Pitch bend (MIDI 1.0 Detailed Specification, "Pitch Bend Change"): a 14-bit
+value 0..16383 whose centre 8192 means "no bend"; the synth maps the distance
+from the centre linearly onto its pitch bend range (RPN 0, "Pitch Bend
+Sensitivity", semitones in data entry MSB and cents in data entry LSB), so that
+8192 steps above the centre would be the full range up and 8192 steps below it
+the full range down (the top value 16383 is one step short of the full range).
+
+Formula used by :func:`bend_value`::
+
+    value = 8192 + round(8192 * offset_cents / (range_cents * scale)),
+    clamped to 0..16383
+
+and its inverse, :func:`bend_cents`::
+
+    cents = (value - 8192) * range_cents / 8192
+
+``scale`` is the synth correction: a synth that plays a bend at ``scale`` times
+its specified size (one common synth plays it at 127/128) is sent a bend
+``1/scale`` times larger, so it sounds at the intended pitch. A pitch is exact to
+within half a bend step, ``range_cents / 16384`` (0.0122 cent at +-2 semitones,
+0.293 cent at +-48).
+"""
+
+from __future__ import annotations
+
+from typing import Optional, Sequence
+
+import mido
+from mido.messages.messages import Message
+
+# ---------------------------------------------------------------------------
+# Protocol numbers (tables)
+# ---------------------------------------------------------------------------
+#: Registered parameter numbers as (CC101 value = MSB, CC100 value = LSB).
+#: MIDI 1.0 Detailed Specification, "Registered Parameter Numbers" table
+#: (RPN 0 pitch bend sensitivity, 3 tuning program change, 4 tuning bank select;
+#: 127/127 = RPN null); RPN 6 = MPE Configuration Message (MPE specification,
+#: The MIDI Association, 2018).
+RPN: dict[str, tuple[int, int]] = {
+    "pitch_bend_sensitivity": (0, 0),
+    "fine_tuning": (0, 1),
+    "coarse_tuning": (0, 2),
+    "tuning_program": (0, 3),
+    "tuning_bank": (0, 4),
+    "modulation_depth": (0, 5),
+    "mpe_configuration": (0, 6),
+    "null": (127, 127),
+}
+RPN_PITCH_BEND_SENSITIVITY = RPN["pitch_bend_sensitivity"]
+RPN_TUNING_PROGRAM = RPN["tuning_program"]
+RPN_TUNING_BANK = RPN["tuning_bank"]
+RPN_MPE_CONFIGURATION = RPN["mpe_configuration"]
+RPN_NULL = RPN["null"]
+
+#: Control change numbers (MIDI 1.0 Detailed Specification, "Control Number
+#: Assignments" and "Channel Mode Messages").
+CC: dict[str, int] = {
+    "data_entry_msb": 6,
+    "data_entry_lsb": 38,
+    "sustain": 64,
+    "sostenuto": 66,
+    "data_increment": 96,
+    "data_decrement": 97,
+    "nrpn_lsb": 98,
+    "nrpn_msb": 99,
+    "rpn_lsb": 100,
+    "rpn_msb": 101,
+    "all_sound_off": 120,
+    "reset_all_controllers": 121,
+    "all_notes_off": 123,
+}
+CC_DATA_ENTRY_MSB = CC["data_entry_msb"]
+CC_DATA_ENTRY_LSB = CC["data_entry_lsb"]
+CC_SUSTAIN = CC["sustain"]
+CC_SOSTENUTO = CC["sostenuto"]
+CC_DATA_INCREMENT = CC["data_increment"]
+CC_DATA_DECREMENT = CC["data_decrement"]
+CC_NRPN_LSB = CC["nrpn_lsb"]
+CC_NRPN_MSB = CC["nrpn_msb"]
+CC_RPN_LSB = CC["rpn_lsb"]
+CC_RPN_MSB = CC["rpn_msb"]
+CC_ALL_SOUND_OFF = CC["all_sound_off"]
+CC_RESET_ALL_CONTROLLERS = CC["reset_all_controllers"]
+CC_ALL_NOTES_OFF = CC["all_notes_off"]
+#: Omni off/on, mono on, poly on (124..127) also turn all notes off (MIDI 1.0).
+CC_MODE_NOTES_OFF = (124, 125, 126, 127)
+
+#: 14-bit pitch bend (MIDI 1.0 Detailed Specification).
+BEND_CENTRE = 8192
+BEND_MIN = 0
+BEND_MAX = 16383
+#: A pedal (switch controller) reads as "on" from this value up (MIDI 1.0: 0-63 off, 64-127 on).
+PEDAL_ON = 64
+
+#: MPE specification (The MIDI Association, 2018): default pitch bend range of
+#: member channels and of the manager channel, in semitones.
+MPE_MEMBER_RANGE = 48
+MPE_MANAGER_RANGE = 2
+
+
+# ---------------------------------------------------------------------------
+# Fast message construction
+# ---------------------------------------------------------------------------
+def msg(type_: str, **fields) -> Message:
+    """A mido message built without mido's per-field checks (the hot path).
+
+    Costs about a fifth of ``mido.Message(...)``; callers pass valid values
+    only (every value here comes from clamped arithmetic or from an already
+    valid input message). Fields must be given in mido's order.
+    """
+    m = Message.__new__(Message)
+    d = vars(m)
+    d["type"] = type_
+    d.update(fields)
+    d["time"] = 0
+    return m
+
+
+def note_on(channel: int, note: int, velocity: int) -> Message:
+    return msg("note_on", channel=channel, note=note, velocity=velocity)
+
+
+def note_off(channel: int, note: int, velocity: int = 0) -> Message:
+    return msg("note_off", channel=channel, note=note, velocity=velocity)
+
+
+def control_change(channel: int, control: int, value: int) -> Message:
+    return msg("control_change", channel=channel, control=control, value=value)
+
+
+def pitchwheel(channel: int, value: int) -> Message:
+    """Pitch bend message for an unsigned 14-bit ``value`` (mido stores it signed)."""
+    return msg("pitchwheel", channel=channel, pitch=value - BEND_CENTRE)
+
+
+def with_channel(m: Message, channel: int) -> Message:
+    """A copy of channel message ``m`` on another channel (fast)."""
+    out = Message.__new__(Message)
+    d = vars(out)
+    d.update(vars(m))
+    d["channel"] = channel
+    return out
+
+
+# ---------------------------------------------------------------------------
+# RPN
+# ---------------------------------------------------------------------------
+def rpn(channel: int, number: Sequence[int], value_msb: int,
+        value_lsb: Optional[int] = None) -> list[Message]:
+    """Set a registered parameter: CC101 = MSB, CC100 = LSB, CC6 = value MSB,
+    [CC38 = value LSB], then RPN null (CC101 = 127, CC100 = 127) so a stray
+    data entry cannot change the parameter later (MIDI 1.0 Detailed
+    Specification, "Registered Parameter Numbers")."""
+    for v in (value_msb, value_lsb if value_lsb is not None else 0, number[0], number[1], channel):
+        if not isinstance(v, int):
+            raise TypeError("rpn() takes integers")
+    if not (0 <= channel <= 15):
+        raise ValueError(f"channel {channel} out of range 0..15")
+    for v in (number[0], number[1], value_msb) + ((value_lsb,) if value_lsb is not None else ()):
+        if not (0 <= v <= 127):
+            raise ValueError(f"data byte {v} out of range 0..127")
+    out = [control_change(channel, CC_RPN_MSB, number[0]),
+           control_change(channel, CC_RPN_LSB, number[1]),
+           control_change(channel, CC_DATA_ENTRY_MSB, value_msb)]
+    if value_lsb is not None:
+        out.append(control_change(channel, CC_DATA_ENTRY_LSB, value_lsb))
+    out.append(control_change(channel, CC_RPN_MSB, RPN_NULL[0]))
+    out.append(control_change(channel, CC_RPN_LSB, RPN_NULL[1]))
+    return out
+
+
+def bend_range_rpn(channel: int, range_cents: float, whole_semitones: bool = False) -> list[Message]:
+    """RPN 0 (pitch bend sensitivity) announcing ``range_cents``: semitones in
+    data entry MSB (CC6), cents in data entry LSB (CC38) unless
+    ``whole_semitones`` (for synths that ignore the cents part; the range is then
+    whole semitones and CC38 is left out)."""
+    semis, cents = split_range(range_cents, whole_semitones)
+    return rpn(channel, RPN_PITCH_BEND_SENSITIVITY, semis, None if whole_semitones else cents)
+
+
+def split_range(range_cents: float, whole_semitones: bool = False) -> tuple[int, int]:
+    """(semitones, cents) of a bend range as RPN 0 carries it (cents 0..99)."""
+    c = int(round(range_cents))
+    if whole_semitones:
+        c = int(round(range_cents / 100.0)) * 100
+    semis, cents = divmod(c, 100)
+    if not (0 <= semis <= 127):
+        raise ValueError(f"pitch bend range {range_cents} cents cannot be sent with RPN 0")
+    return semis, cents
+
+
+def mpe_configuration(manager: int, members: int) -> list[Message]:
+    """MPE Configuration Message: RPN 6 on the manager channel (0 = lower zone,
+    15 = upper zone), data entry MSB = number of member channels (0 turns the
+    zone off). MPE specification (The MIDI Association, 2018)."""
+    if manager not in (0, 15):
+        raise ValueError("an MPE manager channel is channel 1 or 16")
+    if not (0 <= members <= 15):
+        raise ValueError("an MPE zone has 0..15 member channels")
+    return rpn(manager, RPN_MPE_CONFIGURATION, members)
+
+
+# ---------------------------------------------------------------------------
+# Pitch bend arithmetic
+# ---------------------------------------------------------------------------
+def bend_value(offset_cents: float, range_cents: float, scale: float = 1.0) -> int:
+    """The unsigned 14-bit bend that raises a note by ``offset_cents``.
+
+    ``value = 8192 + round(8192 * offset_cents / (range_cents * scale))``,
+    clamped to 0..16383. ``scale`` is the synth correction (the fraction of the
+    specified bend size the synth actually plays; 1.0 for a correct synth).
+    """
+    v = BEND_CENTRE + round(BEND_CENTRE * offset_cents / (range_cents * scale))
+    if v < BEND_MIN:
+        return BEND_MIN
+    if v > BEND_MAX:
+        return BEND_MAX
+    return v
+
+
+def bend_cents(value: int, range_cents: float) -> float:
+    """Cents a correct synth bends for unsigned 14-bit ``value`` at ``range_cents``:
+    ``(value - 8192) * range_cents / 8192``."""
+    return (value - BEND_CENTRE) * range_cents / BEND_CENTRE
+
+
+def reachable(offset_cents: float, range_cents: float, scale: float = 1.0) -> bool:
+    """Whether ``offset_cents`` lies within the bend range (exactly, before clamping)."""
+    v = BEND_CENTRE + round(BEND_CENTRE * offset_cents / (range_cents * scale))
+    return BEND_MIN <= v <= BEND_MAX
+
+
+def is_valid(m: mido.Message) -> bool:
+    """Whether a message re-parses from its bytes to an equal message."""
+    try:
+        return mido.Message.from_bytes(m.bytes()) == m
+    except (ValueError, TypeError):
+        return False
