@@ -1,0 +1,134 @@
+"""``retuner ctl``: steer a running daemon through its control socket."""
+
+from __future__ import annotations
+
+import json
+import sys
+
+NAME = "ctl"
+HELP = "steer a running daemon: status, profiles, load, adaptive, reference, transpose, panic, subscribe"
+ORDER = 40
+DESCRIPTION = ("Speak to a running daemon over its control socket "
+               "($XDG_RUNTIME_DIR/retuner/control.sock unless --socket). "
+               "Exit status 1 when no daemon is running, 2 when it refuses the command.")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("--socket", metavar="PATH", help="control socket path")
+    parser.add_argument("--json", action="store_true", help="print the daemon's JSON replies as they are")
+    sub = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
+    sub.add_parser("status", help="tuning, counters, sounding notes")
+    sub.add_parser("profiles", help="list the profiles the daemon can load")
+    p = sub.add_parser("load", help="switch to a profile (sounding notes keep their pitch)")
+    p.add_argument("profile", metavar="ID", help="profile id or path")
+    p = sub.add_parser("adaptive", help="turn adaptive mode on or off")
+    p.add_argument("state", choices=["on", "off"])
+    p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="an adaptive setting (repeatable; value is YAML: 5, true, [1, 2])")
+    p = sub.add_parser("reference", help="set the reference pitch of A4 in Hz")
+    p.add_argument("hz", type=float, metavar="HZ")
+    p = sub.add_parser("transpose", help="move the tuning's root by N semitones (or shift by cents)")
+    p.add_argument("amount", metavar="N", help="semitones (whole number), or cents with a 'c' suffix: 12.5c")
+    sub.add_parser("panic", help="release every sounding note now")
+    p = sub.add_parser("subscribe", help="print live events, one per line, until interrupted")
+    p.add_argument("--count", type=int, default=0, metavar="N", help="stop after N events")
+
+
+def _request(args):
+    from ..errors import RetunerError
+    a = args.action
+    if a == "load":
+        return {"cmd": "load", "profile": args.profile}
+    if a == "adaptive":
+        req = {"cmd": "adaptive", "on": args.state == "on"}
+        if args.settings:
+            import yaml
+            settings = {}
+            for item in args.settings:
+                name, sep, value = item.partition("=")
+                if not sep or not name:
+                    raise RetunerError(f"--set expects NAME=VALUE, got {item!r}")
+                try:
+                    settings[name.strip()] = yaml.safe_load(value)
+                except yaml.YAMLError:
+                    raise RetunerError(f"--set {name}: value is not valid YAML") from None
+            req["settings"] = settings
+        return req
+    if a == "reference":
+        return {"cmd": "reference", "hz": args.hz}
+    if a == "transpose":
+        text = args.amount.strip()
+        try:
+            if text.lower().endswith("c"):
+                return {"cmd": "transpose", "cents": float(text[:-1])}
+            return {"cmd": "transpose", "semitones": int(text)}
+        except ValueError:
+            raise RetunerError(f"transpose: {text!r} is neither a whole number of semitones nor cents like 12.5c") from None
+    return {"cmd": a}
+
+
+def _fmt_status(r: dict) -> str:
+    lines = [f"tuning      {r.get('tuning')}" + (f" (from {r.get('base')})" if r.get("base") != r.get("tuning") else "")]
+    lines.append(f"reference   {'as the profile says' if r.get('reference') is None else str(r['reference']) + ' Hz (A4)'}")
+    lines.append(f"transpose   {r.get('transpose', 0)} semitones, {r.get('transpose_cents', 0.0):+.2f} cents")
+    lines.append(f"adaptive    {'on' if r.get('adaptive') else 'off'}")
+    lines.append(f"sounding    {r.get('sounding', 0)} notes")
+    for k, v in sorted((r.get("stats") or {}).items()):
+        lines.append(f"{k:<11} {v}")
+    ctl = r.get("control") or {}
+    if ctl:
+        lines.append("control     " + ", ".join(f"{k} {v}" for k, v in sorted(ctl.items())))
+    return "\n".join(lines)
+
+
+def _fmt(reply: dict) -> str:
+    cmd = reply.get("cmd")
+    if cmd == "status":
+        return _fmt_status(reply)
+    if cmd == "profiles":
+        rows = reply.get("profiles") or []
+        w = max([len(p["id"]) for p in rows] + [2])
+        return "\n".join(f"{p['id']:<{w}}  {p.get('description', '')}" for p in rows)
+    if cmd in ("load", "reference", "transpose", "adaptive"):
+        return (f"tuning {reply.get('tuning')}, reference "
+                f"{'profile' if reply.get('reference') is None else str(reply.get('reference')) + ' Hz'}, "
+                f"transpose {reply.get('transpose', 0)} st {reply.get('transpose_cents', 0.0):+.2f} c, "
+                f"adaptive {'on' if reply.get('adaptive') else 'off'}")
+    if cmd == "panic":
+        return f"released {reply.get('released', 0)} notes"
+    return json.dumps(reply)
+
+
+def run(args) -> int:
+    from ..control import ControlClient, NoDaemon
+    req = _request(args)
+    try:
+        with ControlClient(args.socket, timeout=5.0) as client:
+            client.send(req)
+            reply = client.read()
+            if reply is None:
+                raise NoDaemon("the daemon closed the connection")
+            if not reply.get("ok"):
+                print(json.dumps(reply) if args.json else f"retuner: daemon: {reply.get('error')}",
+                      file=sys.stdout if args.json else sys.stderr)
+                return 2
+            print(json.dumps(reply) if args.json else _fmt(reply), flush=True)
+            if args.action != "subscribe":
+                return 0
+            client.sock.settimeout(None)
+            seen = 0
+            while not args.count or seen < args.count:
+                ev = client.read()
+                if ev is None:
+                    break
+                seen += 1
+                print(json.dumps(ev), flush=True)
+            return 0
+    except NoDaemon as exc:
+        print(f"retuner: {exc}", file=sys.stderr)
+        return 1
+    except (TimeoutError, OSError) as exc:
+        if isinstance(exc, BrokenPipeError):
+            raise
+        print(f"retuner: the daemon did not answer: {exc}", file=sys.stderr)
+        return 1

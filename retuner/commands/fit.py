@@ -1,0 +1,71 @@
+"""``retuner fit``: the fixed 12-note tuning that suits a piece best."""
+
+from __future__ import annotations
+
+import sys
+
+NAME = "fit"
+HELP = "fit a fixed 12-note tuning to a piece (least impurity of its consonant intervals)"
+ORDER = 60
+DESCRIPTION = ("Compute the 12-note tuning (one pitch per pitch class, pure octaves) that minimises "
+               "the time-weighted deviation from just (mean absolute, or squared with --norm squares) "
+               "of the piece's sounding consonant intervals, write it as a profile, and compare its impurity with 12-EDO, "
+               "quarter-comma meantone and well temperaments on the same piece.")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("input", metavar="IN.mid", help="the piece (MIDI file)")
+    parser.add_argument("-o", "--output", metavar="FILE.yaml", required=True, help="profile to write")
+    parser.add_argument("--id", dest="profile_id", help="profile id (default: from the output file name)")
+    parser.add_argument("--reference", type=float, default=440.0, metavar="HZ",
+                        help="pitch of A4 in the written profile (default 440)")
+    parser.add_argument("--max-deviation", type=float, metavar="CENTS",
+                        help="no pitch class further than this from 12-EDO (A4 at the reference)")
+    parser.add_argument("--max-wolf", type=float, metavar="CENTS",
+                        help="no fifth of the 12 further than this from a pure 3/2 (at least 1.955)")
+    parser.add_argument("--norm", choices=["abs", "squares"], default="abs",
+                        help="abs (default): minimise the impurity itself, the time-weighted mean |deviation| "
+                             "(iteratively reweighted least squares); squares: plain weighted least squares")
+    parser.add_argument("--drum-channel", type=int, default=10, metavar="N",
+                        help="percussion channel left out (1..16, 0 = none; default 10)")
+    parser.add_argument("--compare", metavar="IDS",
+                        help="comma-separated profiles to compare (default: edo12, meantone-quarter, "
+                             "werckmeister-3, kirnberger-3, vallotti, young-2)")
+    parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
+                        help="more folders of profiles for --compare")
+
+
+def run(args) -> int:
+    from ..errors import RetunerError
+    from .. import fit
+    from ..profile import parse_profile
+    if not 0 <= args.drum_channel <= 16:
+        raise RetunerError("--drum-channel must be 1..16 or 0 for none", field="drum_channel")
+    if not (args.reference > 0):
+        raise RetunerError("--reference must be a positive frequency in Hz", field="reference")
+    notes = fit.read_notes(args.input, drum_channel=args.drum_channel - 1 if args.drum_channel else None)
+    weights = fit.pair_weights(notes)
+    if not weights:
+        raise RetunerError("the piece has no two notes sounding together in a consonant interval",
+                           file=args.input)
+    result = fit.fit_tuning(weights, max_deviation=args.max_deviation, max_wolf=args.max_wolf,
+                            norm=args.norm)
+    pid = args.profile_id or fit.profile_id_for(args.output)
+    text = fit.profile_yaml(result, profile_id=pid, source_name=args.input, reference_hz=args.reference)
+    parse_profile(text, args.output)         # what we write must load
+    fit.write_atomic(args.output, text)
+    ids = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else list(fit.COMPARE_PROFILES)
+    rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profiles_dir)
+    seconds = sum(weights.values())
+    print(f"{args.input}: {len(notes)} notes, {seconds:.1f} s of consonant pairs; wrote {args.output}")
+    print("offsets from 12-EDO (cents): " + "  ".join(
+        f"{n} {v:+.2f}" for n, v in zip(("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B"),
+                                         result.offsets)))
+    if result.active:
+        print("binding limits: " + ", ".join(result.active))
+    w = max(len(r[0]) for r in rows)
+    print(f"{'tuning':<{w}}  impurity (cents)")
+    for name, imp in rows:
+        print(f"{name:<{w}}  {imp:8.3f}")
+    sys.stdout.flush()
+    return 0

@@ -1,0 +1,995 @@
+"""The control socket: steer and watch a running daemon.
+
+A :class:`ControlServer` listens on a Unix stream socket (by default
+``$XDG_RUNTIME_DIR/retuner/control.sock``; the folder is made with mode 0700,
+the socket has mode 0600) and speaks **JSON lines**: each request is one JSON
+object on one line, each reply one JSON object on one line::
+
+    -> {"cmd": "status"}
+    <- {"ok": true, "cmd": "status", "tuning": "werckmeister-3", ...}
+    -> {"cmd": "load", "profile": "vallotti", "id": 7}
+    <- {"ok": true, "cmd": "load", "id": 7, "tuning": "vallotti"}
+    -> {"cmd": "nonsense"}
+    <- {"ok": false, "error": "unknown command 'nonsense' (known: ...)"}
+
+``id`` is optional and echoed. Commands (see :data:`COMMANDS`): ``status``,
+``profiles``, ``load`` (``profile``), ``adaptive`` (``on``: bool, optional
+``settings``: object), ``reference`` (``hz``: the pitch of A4), ``transpose``
+(``semitones`` and/or ``cents``), ``panic``, ``subscribe``. A subscribed client
+then receives event lines (``{"event": "note_on", ...}``, ``note_off``,
+``tuning``, ``counters``, ``panic``) until it disconnects.
+
+Threads. The server runs its own thread (a selector over non-blocking sockets);
+it parses and validates requests and does any slow preparation (reading a
+profile from disk) there. The daemon's engine thread only
+
+* drains the validated commands with :meth:`ControlServer.serve_pending`, which
+  applies each on the engine thread through ``handler.apply`` and queues the
+  reply, and
+* publishes events with :meth:`ControlServer.publish` (a lock-protected append
+  to a bounded queue plus, at most once per wake-up, one byte written to a pipe).
+
+Nothing the engine thread does waits for a client. Every queue is bounded:
+each subscriber has its own event queue that drops its oldest events when the
+client does not read (counted, reported in ``status`` and in ``counters``
+events); a client that floods has at most :attr:`MAX_INFLIGHT` commands waiting,
+after which the server stops reading from it until they are answered; a line
+longer than :attr:`MAX_LINE` bytes closes the connection after an error reply.
+
+Integration into a daemon (a few lines)::
+
+    ctl = EngineControl(engine_host)                  # see EngineControl
+    server = ControlServer(path, ctl, on_command=wake_main_loop)
+    server.start()
+    ...  # in the main loop, on the engine thread:
+    server.serve_pending()                            # apply queued commands
+    ctl.observe(now)                                  # publish note/counter events
+    ...
+    server.close()
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import logging
+import math
+import os
+import selectors
+import socket
+import stat
+import threading
+import time
+from collections import deque
+from dataclasses import dataclass, field
+from itertools import count
+from pathlib import Path
+from typing import Any, Callable, Optional
+
+from .errors import RetunerError
+
+log = logging.getLogger(__name__)
+
+SOCKET_NAME = "control.sock"
+
+#: command name -> allowed argument fields (besides "cmd" and "id")
+COMMANDS: dict[str, tuple[str, ...]] = {
+    "status": (),
+    "profiles": (),
+    "load": ("profile",),
+    "adaptive": ("on", "settings"),
+    "reference": ("hz",),
+    "transpose": ("semitones", "cents"),
+    "panic": (),
+    "subscribe": (),
+}
+
+
+def default_socket_path() -> Path:
+    """``$XDG_RUNTIME_DIR/retuner/control.sock`` (falls back to /tmp/retuner-UID/)."""
+    base = os.environ.get("XDG_RUNTIME_DIR")
+    if base:
+        return Path(base) / "retuner" / SOCKET_NAME
+    return Path(f"/tmp/retuner-{os.getuid()}") / SOCKET_NAME
+
+
+def _error(message: str, req_id: Any = None, cmd: Optional[str] = None) -> dict:
+    out: dict[str, Any] = {"ok": False, "error": message}
+    if cmd is not None:
+        out["cmd"] = cmd
+    if req_id is not None:
+        out["id"] = req_id
+    return out
+
+
+def _encode(obj: dict) -> bytes:
+    return (json.dumps(obj, separators=(",", ":"), allow_nan=False, default=str) + "\n").encode()
+
+
+@dataclass
+class Command:
+    """A validated request, waiting to be applied on the engine thread."""
+
+    name: str
+    args: dict
+    req_id: Any = None
+    data: Any = None          # whatever handler.prepare made ready (e.g. a loaded Tuning)
+    client: int = -1          # set by the server
+
+
+def parse_request(line: bytes | str) -> tuple[Optional[Command], Optional[dict]]:
+    """Parse and check one request line: (command, None) or (None, error reply).
+
+    Checks the JSON, that it is an object, the command name and that only the
+    command's own fields are present. Values are checked by the handler.
+    """
+    try:
+        text = line.decode("utf-8") if isinstance(line, (bytes, bytearray)) else line
+        obj = json.loads(text)
+    except (UnicodeDecodeError, ValueError) as exc:
+        return None, _error(f"malformed JSON: {exc}")
+    if not isinstance(obj, dict):
+        return None, _error("a request must be a JSON object such as {\"cmd\": \"status\"}")
+    req_id = obj.get("id")
+    if req_id is not None and (isinstance(req_id, bool) or not isinstance(req_id, (str, int, float))):
+        return None, _error("'id' must be a string or a number")
+    name = obj.get("cmd")
+    if not isinstance(name, str):
+        return None, _error("missing 'cmd' (a string)", req_id)
+    if name not in COMMANDS:
+        return None, _error(f"unknown command {name!r} (known: {', '.join(COMMANDS)})", req_id)
+    allowed = COMMANDS[name]
+    extra = sorted(k for k in obj if k not in ("cmd", "id") and k not in allowed)
+    if extra:
+        return None, _error(f"{name}: unknown field(s) {', '.join(extra)}"
+                            + (f" (allowed: {', '.join(allowed)})" if allowed else " (takes none)"),
+                            req_id, name)
+    args = {k: v for k, v in obj.items() if k in allowed}
+    return Command(name, args, req_id), None
+
+
+class Handler:
+    """What a control server needs from its daemon (see :class:`EngineControl`).
+
+    ``prepare`` runs on the server thread: check values, do slow work; return
+    the command to queue for the engine thread, or a dict to reply at once.
+    Raise :class:`RetunerError` for a bad value: the client gets an error reply
+    and nothing changes. ``apply`` runs on the engine thread and returns the reply.
+    """
+
+    def prepare(self, cmd: Command) -> Command | dict:  # pragma: no cover - interface
+        return cmd
+
+    def apply(self, cmd: Command) -> dict:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class _Client:
+    __slots__ = ("sock", "fd", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
+                 "dropped", "closing", "reading", "mask")
+
+    def __init__(self, sock: socket.socket):
+        self.sock = sock
+        self.fd = sock.fileno()
+        self.inbuf = bytearray()
+        self.out: deque[bytes] = deque()      # replies (never dropped) and events, in order
+        self.events = 0                       # how many items of ``out`` are events
+        self.outbuf = b""                     # the line being written
+        self.inflight = 0
+        self.subscribed = False
+        self.dropped = 0
+        self.closing = False                  # close once the output is written
+        self.reading = True
+        self.mask = 0
+
+
+class ControlServer:
+    """A JSON-lines control server on a Unix socket, run by its own thread."""
+
+    MAX_LINE = 64 * 1024         # bytes in one request line
+    MAX_INFLIGHT = 8             # commands of one client waiting for the engine thread
+    MAX_CLIENTS = 256
+    SUBSCRIBER_QUEUE = 512       # events kept per subscriber (drop-oldest)
+    CENTRAL_QUEUE = 8192         # events published but not yet fanned out (drop-oldest)
+    MAX_REPLY_BACKLOG = 64       # unread replies of one client before we stop reading from it
+
+    def __init__(self, path: str | os.PathLike | None, handler: Handler, *,
+                 on_command: Optional[Callable[[], None]] = None):
+        self.path = Path(path) if path else default_socket_path()
+        self.handler = handler
+        self.on_command = on_command
+        self._lock = threading.Lock()
+        self._pending: deque[Command] = deque()         # server -> engine thread
+        self._replies: list[tuple[int, int, bytes, bool]] = []   # (seq, client, line, subscribe)
+        self._events: deque[tuple[int, dict]] = deque(maxlen=self.CENTRAL_QUEUE)
+        self._seq = count()
+        self._wake_sent = False
+        self._stop = False
+        self._thread: Optional[threading.Thread] = None
+        self._sel: Optional[selectors.BaseSelector] = None
+        self._listener: Optional[socket.socket] = None
+        self._clients: dict[int, _Client] = {}
+        self._wake_r = self._wake_w = -1
+        self._inode: Optional[tuple[int, int]] = None
+        self.subscribers = 0      # read by the engine thread without the lock (an int: atomic)
+        self.counters = {"clients": 0, "connections": 0, "commands": 0, "errors": 0,
+                         "events": 0, "events_dropped": 0, "central_dropped": 0}
+
+    # ------------------------------------------------------------------ setup
+    def start(self) -> "ControlServer":
+        """Create the folder (0700) and socket (0600) and start the server thread."""
+        path = self.path
+        try:
+            if path.parent != Path("/"):
+                new_dir = not path.parent.exists()
+                path.parent.mkdir(mode=0o700, parents=True, exist_ok=True)
+                if new_dir or path.parent.name == "retuner":
+                    os.chmod(path.parent, 0o700)
+            self._remove_stale(path)
+            tmp = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}")
+            if len(os.fsencode(str(tmp))) > 107:
+                raise RetunerError("control socket path is too long for a Unix socket "
+                                   f"(at most 100 bytes): {path}")
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+            listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+            try:
+                listener.bind(str(tmp))
+                os.chmod(tmp, 0o600)      # before the socket is reachable under its name
+                os.rename(tmp, path)
+                listener.listen(128)
+                listener.setblocking(False)
+            except BaseException:
+                listener.close()
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+                raise
+        except OSError as exc:
+            raise RetunerError(f"cannot open control socket {path}: {exc.strerror or exc}") from None
+        st = os.stat(path)
+        self._inode = (st.st_dev, st.st_ino)
+        self._listener = listener
+        self._wake_r, self._wake_w = os.pipe()
+        os.set_blocking(self._wake_r, False)
+        os.set_blocking(self._wake_w, False)
+        self._sel = selectors.DefaultSelector()
+        self._sel.register(listener, selectors.EVENT_READ, None)
+        self._sel.register(self._wake_r, selectors.EVENT_READ, None)
+        self._thread = threading.Thread(target=self._run, name="retuner-control", daemon=True)
+        self._thread.start()
+        log.info("control socket at %s", path)
+        return self
+
+    @staticmethod
+    def _remove_stale(path: Path) -> None:
+        try:
+            st = os.lstat(path)
+        except FileNotFoundError:
+            return
+        if not stat.S_ISSOCK(st.st_mode):
+            raise RetunerError(f"control socket path exists and is not a socket: {path}")
+        probe = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+        probe.settimeout(0.5)
+        try:
+            probe.connect(str(path))
+        except OSError:
+            os.unlink(path)          # nobody listens: a leftover of a daemon that died
+            return
+        finally:
+            probe.close()
+        raise RetunerError(f"another daemon is already listening on {path}")
+
+    def close(self) -> None:
+        """Stop the thread, close every connection and remove the socket file."""
+        if self._thread is None:
+            return
+        self._stop = True
+        self._wake()
+        self._thread.join(timeout=2.0)
+        self._thread = None
+        for c in list(self._clients.values()):
+            try:
+                c.sock.close()
+            except OSError:
+                pass
+        self._clients.clear()
+        if self._sel is not None:
+            self._sel.close()
+        if self._listener is not None:
+            self._listener.close()
+        for fd in (self._wake_r, self._wake_w):
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        try:
+            st = os.stat(self.path)
+            if (st.st_dev, st.st_ino) == self._inode:
+                os.unlink(self.path)
+        except OSError:
+            pass
+
+    def __enter__(self) -> "ControlServer":
+        return self.start() if self._thread is None else self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # ------------------------------------------------- engine-thread interface
+    def has_pending(self) -> bool:
+        return bool(self._pending)
+
+    def serve_pending(self, limit: int = 64) -> int:
+        """Apply up to ``limit`` queued commands on the calling (engine) thread.
+
+        Each reply is queued for the server thread; a handler error becomes an
+        error reply and never escapes. Returns the number of commands applied.
+        """
+        n = 0
+        while n < limit:
+            try:
+                cmd = self._pending.popleft()
+            except IndexError:
+                break
+            n += 1
+            try:
+                reply = self.handler.apply(cmd)
+                reply = {"ok": True, "cmd": cmd.name, **(reply or {})}
+            except RetunerError as exc:
+                reply = _error(str(exc), None, cmd.name)
+            except Exception as exc:  # a daemon never dies on bad input
+                log.exception("control command %s failed", cmd.name)
+                reply = _error(f"internal error: {exc}", None, cmd.name)
+            if cmd.req_id is not None:
+                reply["id"] = cmd.req_id
+            try:
+                line = _encode(reply)
+            except (TypeError, ValueError) as exc:
+                line = _encode(_error(f"internal error: reply not encodable: {exc}", cmd.req_id, cmd.name))
+            subscribe = cmd.name == "subscribe" and reply.get("ok", False)
+            with self._lock:
+                self._replies.append((next(self._seq), cmd.client, line, subscribe))
+                wake = not self._wake_sent
+                self._wake_sent = True
+            if wake:
+                self._wake_write()
+        return n
+
+    def publish(self, event: dict) -> None:
+        """Queue an event for every subscriber; never blocks (drop-oldest when full).
+
+        Pass a fresh dict: it is encoded later on the server thread.
+        """
+        if not self.subscribers:
+            return
+        with self._lock:
+            if len(self._events) == self.CENTRAL_QUEUE:
+                self.counters["central_dropped"] += 1
+            self._events.append((next(self._seq), event))
+            wake = not self._wake_sent
+            self._wake_sent = True
+        if wake:
+            self._wake_write()
+
+    # ---------------------------------------------------------- server thread
+    def _wake_write(self) -> None:
+        try:
+            os.write(self._wake_w, b"\0")
+        except (BlockingIOError, OSError):
+            pass
+
+    def _wake(self) -> None:
+        with self._lock:
+            self._wake_sent = True
+        self._wake_write()
+
+    def _run(self) -> None:
+        sel = self._sel
+        assert sel is not None
+        while not self._stop:
+            try:
+                ready = sel.select(timeout=1.0)
+            except (InterruptedError, OSError):
+                continue
+            for key, mask in ready:
+                try:
+                    if key.fileobj is self._listener:
+                        self._accept()
+                    elif key.fileobj == self._wake_r:
+                        self._drain_wake()
+                    else:
+                        c = key.data
+                        if mask & selectors.EVENT_READ and c.fd in self._clients:
+                            self._read(c)
+                        if mask & selectors.EVENT_WRITE and c.fd in self._clients:
+                            self._write(c)
+                except Exception:  # never let one client take the server down
+                    log.exception("control server error")
+            try:
+                self._fan_out()
+            except Exception:
+                log.exception("control server error")
+
+    def _drain_wake(self) -> None:
+        try:
+            while os.read(self._wake_r, 4096):
+                pass
+        except (BlockingIOError, OSError):
+            pass
+
+    def _accept(self) -> None:
+        assert self._listener is not None
+        while True:
+            try:
+                sock, _ = self._listener.accept()
+            except (BlockingIOError, InterruptedError):
+                return
+            except OSError as exc:
+                if exc.errno in (errno.EMFILE, errno.ENFILE):
+                    log.warning("control socket: out of file descriptors")
+                return
+            if len(self._clients) >= self.MAX_CLIENTS:
+                try:
+                    sock.send(_encode(_error("too many control clients")))
+                except OSError:
+                    pass
+                sock.close()
+                continue
+            sock.setblocking(False)
+            c = _Client(sock)
+            self._clients[c.fd] = c
+            self.counters["connections"] += 1
+            self.counters["clients"] = len(self._clients)
+            self._update(c)
+
+    def _update(self, c: _Client) -> None:
+        """(Re)register a client for what it needs: reading unless throttled, writing if output."""
+        backlog = len(c.out) - c.events
+        c.reading = (not c.closing and c.inflight < self.MAX_INFLIGHT
+                     and backlog < self.MAX_REPLY_BACKLOG)
+        mask = (selectors.EVENT_READ if c.reading else 0) | \
+               (selectors.EVENT_WRITE if (c.out or c.outbuf) else 0)
+        if mask == c.mask:
+            return
+        assert self._sel is not None
+        if c.mask and mask:
+            self._sel.modify(c.sock, mask, c)
+        elif mask:
+            self._sel.register(c.sock, mask, c)
+        else:
+            self._sel.unregister(c.sock)
+        c.mask = mask
+
+    def _drop(self, c: _Client) -> None:
+        if self._clients.pop(c.fd, None) is None:
+            return
+        if c.mask:
+            try:
+                assert self._sel is not None
+                self._sel.unregister(c.sock)
+            except (KeyError, ValueError, OSError):
+                pass
+        if c.subscribed:
+            self.subscribers = max(0, self.subscribers - 1)
+        try:
+            c.sock.close()
+        except OSError:
+            pass
+        self.counters["clients"] = len(self._clients)
+
+    def _read(self, c: _Client) -> None:
+        try:
+            data = c.sock.recv(65536)
+        except (BlockingIOError, InterruptedError):
+            return
+        except OSError:
+            self._drop(c)
+            return
+        if not data:
+            if c.out or c.outbuf or c.inflight:
+                c.closing = True     # half-closed: still answer what was asked
+                self._update(c)
+            else:
+                self._drop(c)
+            return
+        c.inbuf += data
+        while not c.closing and c.inflight < self.MAX_INFLIGHT:
+            nl = c.inbuf.find(b"\n")
+            if nl < 0:
+                break
+            line = bytes(c.inbuf[:nl])
+            del c.inbuf[:nl + 1]
+            if line.strip():
+                self._request(c, line)
+        if len(c.inbuf) > self.MAX_LINE and b"\n" not in c.inbuf:
+            self._reply(c, _encode(_error(f"request line longer than {self.MAX_LINE} bytes")))
+            c.inbuf.clear()
+            c.closing = True
+        self._update(c)
+
+    def _request(self, c: _Client, line: bytes) -> None:
+        self.counters["commands"] += 1
+        cmd, err = parse_request(line)
+        if cmd is not None:
+            try:
+                prepared = self.handler.prepare(cmd)
+            except RetunerError as exc:
+                prepared = _error(str(exc), cmd.req_id, cmd.name)
+            except Exception as exc:
+                log.exception("control command %s failed", cmd.name)
+                prepared = _error(f"internal error: {exc}", cmd.req_id, cmd.name)
+            if isinstance(prepared, Command):
+                prepared.client = c.fd
+                c.inflight += 1
+                self._pending.append(prepared)
+                if self.on_command is not None:
+                    try:
+                        self.on_command()
+                    except Exception:
+                        log.exception("control on_command callback failed")
+                return
+            reply = prepared
+            if reply.get("ok", True) and "ok" not in reply:
+                reply = {"ok": True, "cmd": cmd.name, **reply}
+            if cmd.req_id is not None:
+                reply["id"] = cmd.req_id
+            err = reply
+        if not err.get("ok", False):
+            self.counters["errors"] += 1
+        self._reply(c, _encode(err))
+
+    def _reply(self, c: _Client, line: bytes) -> None:
+        c.out.append(line)
+        self._write(c)
+
+    def _push_event(self, c: _Client, line: bytes) -> None:
+        if c.events >= self.SUBSCRIBER_QUEUE:
+            # drop the oldest event (replies are kept)
+            for i, item in enumerate(c.out):
+                if item[:9] == b'{"event":':
+                    del c.out[i]
+                    c.events -= 1
+                    c.dropped += 1
+                    self.counters["events_dropped"] += 1
+                    break
+        c.out.append(line)
+        c.events += 1
+
+    def _fan_out(self) -> None:
+        with self._lock:
+            replies, self._replies = self._replies, []
+            events = self._events
+            self._events = deque(maxlen=self.CENTRAL_QUEUE)
+            self._wake_sent = False
+        if not replies and not events:
+            return
+        touched: set[int] = set()
+        ri = 0
+        ev_iter = iter(events)
+        ev = next(ev_iter, None)
+        while ri < len(replies) or ev is not None:
+            if ev is None or (ri < len(replies) and replies[ri][0] < ev[0]):
+                _, fd, line, subscribe = replies[ri]
+                ri += 1
+                c = self._clients.get(fd)
+                if c is None:
+                    continue
+                c.inflight -= 1
+                c.out.append(line)
+                if subscribe and not c.subscribed:
+                    c.subscribed = True
+                    self.subscribers += 1
+                touched.add(fd)
+            else:
+                subs = [c for c in self._clients.values() if c.subscribed]
+                if subs:
+                    try:
+                        line = _encode({"event": ev[1].pop("event", "event"), **ev[1]})
+                    except (TypeError, ValueError):
+                        line = b""
+                    if line:
+                        self.counters["events"] += 1
+                        for c in subs:
+                            self._push_event(c, line)
+                            touched.add(c.fd)
+                ev = next(ev_iter, None)
+        for fd in touched:
+            c = self._clients.get(fd)
+            if c is not None:
+                self._write(c)
+                if c.fd in self._clients:
+                    # more requests may be waiting in the input buffer
+                    if c.inbuf and c.inflight < self.MAX_INFLIGHT and b"\n" in c.inbuf:
+                        self._read_buffered(c)
+                    self._update(c)
+
+    def _read_buffered(self, c: _Client) -> None:
+        while not c.closing and c.inflight < self.MAX_INFLIGHT:
+            nl = c.inbuf.find(b"\n")
+            if nl < 0:
+                break
+            line = bytes(c.inbuf[:nl])
+            del c.inbuf[:nl + 1]
+            if line.strip():
+                self._request(c, line)
+
+    def _write(self, c: _Client) -> None:
+        while True:
+            if not c.outbuf:
+                if not c.out:
+                    break
+                line = c.out.popleft()
+                if line[:9] == b'{"event":':
+                    c.events -= 1
+                c.outbuf = line
+            try:
+                n = c.sock.send(c.outbuf)
+            except (BlockingIOError, InterruptedError):
+                break
+            except OSError:
+                self._drop(c)
+                return
+            c.outbuf = c.outbuf[n:]
+            if c.outbuf:
+                break
+        if c.closing and not c.out and not c.outbuf and not c.inflight:
+            self._drop(c)
+            return
+        self._update(c)
+
+    def stats(self) -> dict:
+        """Counters of the server (for ``status``)."""
+        out = dict(self.counters)
+        out["subscribers"] = self.subscribers
+        return out
+
+
+# ---------------------------------------------------------------------------
+# The commands, applied to an engine
+
+@dataclass
+class EngineHost:
+    """What :class:`EngineControl` needs from the daemon that owns the engine.
+
+    ``engine`` is the running engine (see retuner.engine); ``emit(messages)`` sends
+    output messages to the output port; ``clock()`` is the engine clock
+    (seconds, monotonic). ``tuning`` is the loaded profile; ``profile_dirs`` are
+    searched by ``load`` and ``profiles``. ``adaptive_config(settings)`` turns a
+    settings dict into the engine's adaptive configuration (None: use
+    ``retuner.adaptive``'s defaults). ``on_switch(tuning)`` is told about a
+    profile switch made from the socket (for logging and config state).
+    """
+
+    engine: Any
+    emit: Callable[[list], None]
+    tuning: Any
+    clock: Callable[[], float] = time.monotonic
+    profile_dirs: tuple = ()
+    adaptive_config: Optional[Callable[[dict], Any]] = None
+    on_switch: Optional[Callable[[Any], None]] = None
+    status_extra: Optional[Callable[[], dict]] = None
+
+
+def rotate_tuning(tuning, semitones: int):
+    """The tuning with its pattern moved up ``semitones`` keys (the root moves with it).
+
+    Key k plays what key k - n played, raised by n equal-tempered semitones, so
+    the intervals between keys are those of the tuning with its root n keys
+    higher. Keys whose source would lie outside 0..127 are mapped through the
+    tuning's period when it has whole-key periods (12-note tunings), else unmapped.
+    """
+    from .tuning import NUM_KEYS, Tuning
+    n = int(semitones)
+    if n == 0:
+        return tuning
+    cents = tuning.cents
+    size = tuning.size if getattr(tuning, "is_twelve", False) else None
+    out = []
+    for k in range(NUM_KEYS):
+        src = k - n
+        shift = 0.0
+        if size:
+            while src < 0:
+                src += 12
+                shift -= 1200.0
+            while src >= NUM_KEYS:
+                src -= 12
+                shift += 1200.0
+        if 0 <= src < NUM_KEYS and cents[src] is not None:
+            out.append(cents[src] + 100.0 * n + shift)
+        else:
+            out.append(None)
+    return Tuning(id=tuning.id, cents=tuple(out), description=tuning.description,
+                  source=tuning.source, degrees=tuning.degrees, period=tuning.period,
+                  root=tuning.root + n)
+
+
+class EngineControl(Handler):
+    """The control commands, applied to a daemon's engine (see :class:`EngineHost`).
+
+    The tuning in force is ``base`` (the loaded profile) with its root moved by
+    ``transpose`` semitones, the whole keyboard shifted so A4 (key 69) sounds at
+    ``reference`` Hz (None: as the profile says), then shifted by
+    ``transpose_cents``. Switching keeps sounding notes at their pitch (the
+    engine's set_tuning contract); new notes use the new tuning.
+    """
+
+    COUNTER_INTERVAL = 0.25   # seconds between counters events
+
+    def __init__(self, host: EngineHost, server: Optional[ControlServer] = None):
+        self.host = host
+        self.server = server
+        self.base = host.tuning
+        self.reference: Optional[float] = None
+        self.transpose = 0
+        self.transpose_cents = 0.0
+        self.adaptive: Optional[dict] = None
+        self.current = host.tuning
+        self._sounding: dict[tuple, dict] = {}
+        self._next_counters = 0.0
+        self._last_tuning_id: Optional[str] = None
+
+    # -------------------------------------------------------- server thread
+    def prepare(self, cmd: Command) -> Command | dict:
+        a = cmd.args
+        if cmd.name == "profiles":
+            from .profile import list_profiles
+            return {"ok": True, "cmd": "profiles",
+                    "profiles": [{"id": p.id, "description": p.description,
+                                  "builtin": bool(p.builtin)} for p in list_profiles(self.host.profile_dirs)]}
+        if cmd.name == "load":
+            pid = a.get("profile")
+            if not isinstance(pid, str) or not pid:
+                raise RetunerError("load: 'profile' must be a profile id or path", field="profile")
+            from .profile import load_profile
+            cmd.data = load_profile(pid, self.host.profile_dirs)   # slow part, off the engine thread
+        elif cmd.name == "adaptive":
+            on = a.get("on")
+            if not isinstance(on, bool):
+                raise RetunerError("adaptive: 'on' must be true or false", field="on")
+            settings = a.get("settings") or {}
+            if not isinstance(settings, dict):
+                raise RetunerError("adaptive: 'settings' must be an object", field="settings")
+            cmd.data = self._adaptive_config(settings) if on else None
+        elif cmd.name == "reference":
+            hz = a.get("hz")
+            if isinstance(hz, bool) or not isinstance(hz, (int, float)) or not math.isfinite(hz) \
+                    or not 200.0 <= hz <= 1000.0:
+                raise RetunerError("reference: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
+        elif cmd.name == "transpose":
+            if "semitones" not in a and "cents" not in a:
+                raise RetunerError("transpose: give 'semitones' and/or 'cents'")
+            st = a.get("semitones", 0)
+            ct = a.get("cents", 0.0)
+            if isinstance(st, bool) or not isinstance(st, int) or not -24 <= st <= 24:
+                raise RetunerError("transpose: 'semitones' must be a whole number from -24 to 24",
+                                   field="semitones")
+            if isinstance(ct, bool) or not isinstance(ct, (int, float)) or not math.isfinite(ct) \
+                    or not -1200.0 <= ct <= 1200.0:
+                raise RetunerError("transpose: 'cents' must be a number from -1200 to 1200", field="cents")
+        return cmd
+
+    def _adaptive_config(self, settings: dict):
+        if self.host.adaptive_config is not None:
+            return self.host.adaptive_config(settings)
+        from dataclasses import fields as dc_fields
+        from . import adaptive as _adaptive
+        cls = getattr(_adaptive, "AdaptiveConfig")
+        names = {f.name for f in dc_fields(cls)}
+        bad = sorted(k for k in settings if k not in names)
+        if bad:
+            raise RetunerError(f"adaptive: unknown setting(s) {', '.join(bad)} "
+                               f"(known: {', '.join(sorted(names))})", field="settings")
+        try:
+            return cls(**settings)
+        except (TypeError, ValueError) as exc:
+            raise RetunerError(f"adaptive: {exc}", field="settings") from None
+
+    # -------------------------------------------------------- engine thread
+    def _effective(self):
+        t = rotate_tuning(self.base, self.transpose)
+        if self.reference is not None:
+            t = t.with_reference_hz(self.reference)
+        if self.transpose_cents:
+            t = t.shifted(self.transpose_cents)
+        return t
+
+    def _switch(self, now: float) -> None:
+        tuning = self._effective()
+        out = self.host.engine.set_tuning(tuning, now)
+        self.current = tuning
+        if out:
+            self.host.emit(out)
+        self._publish({"event": "tuning", "t": now, **self._tuning_info()})
+        if self.host.on_switch is not None:
+            self.host.on_switch(tuning)
+
+    def _tuning_info(self) -> dict:
+        return {"tuning": self.current.id, "base": self.base.id, "reference": self.reference,
+                "transpose": self.transpose, "transpose_cents": self.transpose_cents,
+                "adaptive": self.adaptive is not None}
+
+    def apply(self, cmd: Command) -> dict:
+        now = self.host.clock()
+        a = cmd.args
+        name = cmd.name
+        if name == "status":
+            return self.status()
+        if name == "load":
+            old = self.base
+            self.base = cmd.data
+            try:
+                self._switch(now)
+            except Exception:
+                self.base = old
+                raise
+            return self._tuning_info()
+        if name == "reference":
+            old_ref = self.reference
+            self.reference = float(a["hz"])
+            try:
+                self._switch(now)
+            except Exception:
+                self.reference = old_ref
+                raise
+            return self._tuning_info()
+        if name == "transpose":
+            old = (self.transpose, self.transpose_cents)
+            self.transpose = int(a.get("semitones", 0))
+            self.transpose_cents = float(a.get("cents", 0.0))
+            try:
+                self._switch(now)
+            except Exception:
+                self.transpose, self.transpose_cents = old
+                raise
+            return self._tuning_info()
+        if name == "adaptive":
+            out = self.host.engine.set_adaptive(cmd.data, now)
+            self.adaptive = dict(a.get("settings") or {}) if cmd.data is not None else None
+            if out:
+                self.host.emit(out)
+            self._publish({"event": "adaptive", "t": now, "on": self.adaptive is not None,
+                           "settings": self.adaptive})
+            return self._tuning_info()
+        if name == "panic":
+            out = self.host.engine.release_all(now)
+            if out:
+                self.host.emit(out)
+            self._publish({"event": "panic", "t": now})
+            self.observe(now, force=True)
+            return {"released": sum(1 for m in out if getattr(m, "type", "") == "note_off")}
+        if name == "subscribe":
+            snap = self.status()
+            snap["notes"] = self._notes()
+            return snap
+        raise RetunerError(f"unknown command {name!r}")
+
+    def _notes(self) -> list[dict]:
+        from .tuning import cents_to_hz
+        out = []
+        for n in self.host.engine.sounding():
+            c = n.get("cents")
+            out.append({"key": n["key"], "cents": c, "channel": n.get("channel", 0) + 1,
+                        "hz": None if c is None else cents_to_hz(c)})
+        out.sort(key=lambda d: (d["cents"] if d["cents"] is not None else d["key"] * 100.0))
+        return out
+
+    def status(self) -> dict:
+        eng = self.host.engine
+        out = self._tuning_info()
+        out["stats"] = dict(getattr(eng, "stats", {}) or {})
+        out["sounding"] = len(eng.sounding())
+        if self.server is not None:
+            out["control"] = self.server.stats()
+        if self.host.status_extra is not None:
+            out.update(self.host.status_extra())
+        return out
+
+    def _publish(self, event: dict) -> None:
+        if self.server is not None:
+            self.server.publish(event)
+
+    def tuning_changed(self, tuning) -> None:
+        """Tell the control state about a switch the daemon made itself (program change, A/B CC)."""
+        self.base = tuning
+        self.current = self._effective() if (self.transpose or self.reference or self.transpose_cents) \
+            else tuning
+        self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
+
+    def observe(self, now: float, force: bool = False) -> None:
+        """Publish what changed since the last call: note on/off, pitch changes, counters.
+
+        Call on the engine thread after feeding or ticking the engine. Costs one
+        ``engine.sounding()`` call when anyone is subscribed, nothing otherwise.
+        """
+        server = self.server
+        if server is None or not server.subscribers:
+            self._sounding.clear()
+            return
+        from .tuning import cents_to_hz
+        now_notes = {}
+        for n in self.host.engine.sounding():
+            now_notes[(n.get("channel", 0), n["key"])] = n
+        old = self._sounding
+        for k, n in old.items():
+            if k not in now_notes:
+                server.publish({"event": "note_off", "t": now, "key": n["key"], "channel": k[0] + 1})
+        for k, n in now_notes.items():
+            prev = old.get(k)
+            c = n.get("cents")
+            if prev is None:
+                server.publish({"event": "note_on", "t": now, "key": n["key"], "channel": k[0] + 1,
+                                "cents": c, "hz": None if c is None else cents_to_hz(c),
+                                "velocity": n.get("velocity")})
+            elif prev.get("cents") != c:
+                server.publish({"event": "pitch", "t": now, "key": n["key"], "channel": k[0] + 1,
+                                "cents": c, "hz": None if c is None else cents_to_hz(c)})
+        self._sounding = {k: dict(v) for k, v in now_notes.items()}
+        if force or now >= self._next_counters:
+            self._next_counters = now + self.COUNTER_INTERVAL
+            stats = dict(getattr(self.host.engine, "stats", {}) or {})
+            stats["events_dropped"] = server.counters["events_dropped"]
+            server.publish({"event": "counters", "t": now, "tuning": self.current.id, **stats})
+
+
+# ---------------------------------------------------------------------------
+# The client side (used by ``retuner ctl`` and ``retuner watch``)
+
+class NoDaemon(Exception):
+    """No daemon listens on the control socket."""
+
+
+class ControlClient:
+    """A blocking JSON-lines client for the control socket."""
+
+    def __init__(self, path: str | os.PathLike | None = None, timeout: float = 5.0):
+        self.path = Path(path) if path else default_socket_path()
+        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+        self.sock.settimeout(timeout)
+        try:
+            self.sock.connect(str(self.path))
+        except (FileNotFoundError, ConnectionRefusedError) as exc:
+            self.sock.close()
+            raise NoDaemon(f"no daemon is running (nothing listens on {self.path})") from exc
+        except OSError as exc:
+            self.sock.close()
+            raise NoDaemon(f"cannot reach the daemon on {self.path}: {exc.strerror or exc}") from exc
+        self._buf = bytearray()
+
+    def close(self) -> None:
+        self.sock.close()
+
+    def __enter__(self) -> "ControlClient":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def send(self, obj: dict) -> None:
+        self.sock.sendall(_encode(obj))
+
+    def read(self) -> Optional[dict]:
+        """The next line as an object; None at end of stream."""
+        while True:
+            nl = self._buf.find(b"\n")
+            if nl >= 0:
+                line = bytes(self._buf[:nl])
+                del self._buf[:nl + 1]
+                return json.loads(line)
+            data = self.sock.recv(65536)
+            if not data:
+                return None
+            self._buf += data
+
+    def request(self, cmd: str, **args) -> dict:
+        self.send({"cmd": cmd, **args})
+        while True:
+            reply = self.read()
+            if reply is None:
+                raise NoDaemon("the daemon closed the connection")
+            if "event" not in reply:
+                return reply
