@@ -728,7 +728,7 @@ class EngineControl(Handler):
         self.transpose = 0
         self.transpose_cents = 0.0
         self.adaptive: Optional[dict] = None
-        self.current = host.tuning
+        self.current = getattr(host.engine, "tuning", None) or host.tuning
         self._sounding: dict[tuple, dict] = {}
         self._next_counters = 0.0
         self._last_tuning_id: Optional[str] = None
@@ -776,16 +776,11 @@ class EngineControl(Handler):
     def _adaptive_config(self, settings: dict):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
-        from dataclasses import fields as dc_fields
-        from . import adaptive as _adaptive
-        cls = getattr(_adaptive, "AdaptiveConfig")
-        names = {f.name for f in dc_fields(cls)}
-        bad = sorted(k for k in settings if k not in names)
-        if bad:
-            raise RetunerError(f"adaptive: unknown setting(s) {', '.join(bad)} "
-                               f"(known: {', '.join(sorted(names))})", field="settings")
+        from .adaptive import AdaptiveConfig
         try:
-            return cls(**settings)
+            return AdaptiveConfig.from_dict(settings, file="control socket")
+        except RetunerError:
+            raise
         except (TypeError, ValueError) as exc:
             raise RetunerError(f"adaptive: {exc}", field="settings") from None
 
@@ -878,7 +873,18 @@ class EngineControl(Handler):
         out.sort(key=lambda d: (d["cents"] if d["cents"] is not None else d["key"] * 100.0))
         return out
 
+    def _check_external_switch(self) -> None:
+        """The daemon switched profile itself (program change, A/B controller): follow it."""
+        t = getattr(self.host.engine, "tuning", None)
+        if t is not None and t is not self.current:
+            self.base = self.current = t
+            self.reference = None
+            self.transpose = 0
+            self.transpose_cents = 0.0
+            self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
+
     def status(self) -> dict:
+        self._check_external_switch()
         eng = self.host.engine
         out = self._tuning_info()
         out["stats"] = dict(getattr(eng, "stats", {}) or {})
@@ -910,6 +916,7 @@ class EngineControl(Handler):
         if server is None or not server.subscribers:
             self._sounding.clear()
             return
+        self._check_external_switch()
         from .tuning import cents_to_hz
         now_notes = {}
         for n in self.host.engine.sounding():

@@ -1,0 +1,55 @@
+"""``retuner watch``: a live view of the running daemon (notes, intervals, beat rates)."""
+
+from __future__ import annotations
+
+import sys
+
+NAME = "watch"
+HELP = "live view of a running daemon: sounding notes, intervals, beat rates, drift, counters"
+ORDER = 45
+DESCRIPTION = ("Show what the running daemon plays, refreshed 25 times a second: every sounding note "
+               "(name, key, cents from 12-EDO, Hz), every interval (size, deviation from just, beat "
+               "rate), drift, the loaded tuning and counters. Press q to quit. Exit status 1 when no "
+               "daemon is running.")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("--socket", metavar="PATH", help="control socket path")
+    parser.add_argument("--once", action="store_true", help="print the current state once and exit")
+    parser.add_argument("--plain", action="store_true",
+                        help="no full-screen view: print a plain frame whenever something changes")
+    parser.add_argument("--frames", type=int, default=0, metavar="N", help="with --plain: stop after N frames")
+    parser.add_argument("--fps", type=float, default=25.0, help="frames a second (default 25)")
+
+
+def run(args) -> int:
+    from ..control import NoDaemon
+    from ..errors import RetunerError
+    from .. import watch
+    if not 1.0 <= args.fps <= 120.0:
+        raise RetunerError("--fps must be from 1 to 120", field="fps")
+    try:
+        feed = watch.Feed(args.socket)
+    except NoDaemon as exc:
+        print(f"retuner: {exc}", file=sys.stderr)
+        return 1
+    except (OSError, RuntimeError) as exc:
+        print(f"retuner: cannot subscribe to the daemon: {exc}", file=sys.stderr)
+        return 1
+    try:
+        if args.once:
+            print("\n".join(feed.render(200, 1000)))
+            return 0
+        if args.plain or not sys.stdout.isatty():
+            watch.run_plain(feed, fps=args.fps, frames=args.frames)
+            return 0
+        try:
+            watch.run_curses(feed, fps=args.fps)
+        except Exception as exc:   # a terminal curses cannot drive: fall back to plain frames
+            if exc.__class__.__name__ != "error":
+                raise
+            print(f"retuner: full-screen view unavailable ({exc}); printing plain frames", file=sys.stderr)
+            watch.run_plain(feed, fps=args.fps, frames=args.frames)
+        return 0
+    finally:
+        feed.close()

@@ -1,0 +1,265 @@
+"""A live view of a running daemon, for a terminal (and a projector).
+
+The view is built from the control socket's subscription (see
+:mod:`retuner.control`): the daemon only queues events, so a slow terminal
+never touches the engine's timing (the server drops the oldest events of a
+subscriber that falls behind, and counts them).
+
+:class:`WatchState` folds the events into a snapshot; :func:`render` turns a
+snapshot into lines of text (a pure function, tested directly); :func:`run_curses`
+draws it with the standard library's curses (bold on the terminal's own
+colours, so contrast is the user's chosen one and no meaning rests on colour),
+at 25 frames a second. Everything is plain text, so it works over SSH.
+
+What is shown: the loaded tuning, reference, transpose, adaptive mode; the
+current drift (mean deviation of the sounding notes from 12-EDO, as the metrics
+define it); the counters; every sounding note (name, key, cents from 12-EDO,
+Hz), and every pair of sounding notes: its size in cents, the nearest just
+ratio of its interval class (octaves added), the deviation from it and the
+beat rate |q*f2 - p*f1| of the nearly coinciding partials (f2/f1 near p/q).
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Optional
+
+from .tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
+
+#: interval class -> (short name, just ratio): the consonances of the impurity
+#: metric (issue 6) and the usual 5-limit choices for the rest (common practice).
+INTERVALS: dict[int, tuple[str, Fraction]] = {
+    0: ("P1", Fraction(1, 1)), 1: ("m2", Fraction(16, 15)), 2: ("M2", Fraction(9, 8)),
+    3: ("m3", Fraction(6, 5)), 4: ("M3", Fraction(5, 4)), 5: ("P4", Fraction(4, 3)),
+    6: ("TT", Fraction(45, 32)), 7: ("P5", Fraction(3, 2)), 8: ("m6", Fraction(8, 5)),
+    9: ("M6", Fraction(5, 3)), 10: ("m7", Fraction(9, 5)), 11: ("M7", Fraction(15, 8)),
+}
+CONSONANT = {0, 3, 4, 5, 7, 8, 9}
+
+
+@dataclass
+class IntervalRow:
+    low: int
+    high: int
+    name: str
+    size: float            # cents
+    ratio: Fraction        # just ratio, octaves included (upper:lower)
+    deviation: float       # cents from the just ratio
+    beats: float           # Hz
+    consonant: bool
+
+
+def interval_rows(notes: list[dict]) -> list[IntervalRow]:
+    """Every pair of sounding notes, low to high (notes: dicts with key and cents)."""
+    ns = sorted((n for n in notes if n.get("cents") is not None), key=lambda n: (n["cents"], n["key"]))
+    rows = []
+    for i in range(len(ns)):
+        for j in range(i + 1, len(ns)):
+            a, b = ns[i], ns[j]
+            lo, hi = (a, b) if a["key"] <= b["key"] else (b, a)
+            d = hi["key"] - lo["key"]
+            name, r = INTERVALS[d % 12]
+            octaves = d // 12
+            ratio = r * 2 ** octaves
+            size = hi["cents"] - lo["cents"]
+            dev = size - ratio_to_cents(ratio)
+            f1, f2 = cents_to_hz(lo["cents"]), cents_to_hz(hi["cents"])
+            beats = beat_rate(f1, f2, ratio.numerator, ratio.denominator)
+            if octaves:
+                name = f"{name}+{octaves}o"
+            rows.append(IntervalRow(lo["key"], hi["key"], name, size, ratio, dev, beats, d % 12 in CONSONANT))
+    rows.sort(key=lambda r: (r.low, r.high))
+    return rows
+
+
+def drift(notes: list[dict]) -> Optional[float]:
+    """Mean deviation of the sounding notes from 12-EDO (cents), None when nothing sounds."""
+    devs = [n["cents"] - 100.0 * n["key"] for n in notes if n.get("cents") is not None]
+    return sum(devs) / len(devs) if devs else None
+
+
+@dataclass
+class WatchState:
+    """What the view shows, folded from the subscription's events."""
+
+    notes: dict[tuple[int, int], dict] = field(default_factory=dict)   # (channel, key) -> note
+    info: dict = field(default_factory=dict)          # tuning, base, reference, transpose, adaptive
+    counters: dict = field(default_factory=dict)
+    connected: bool = True
+    events: int = 0
+    message: str = ""
+
+    def snapshot(self, reply: dict) -> None:
+        """Start from the subscribe reply (a status plus the sounding notes)."""
+        self.notes = {(n.get("channel", 0), n["key"]): dict(n) for n in reply.get("notes") or []}
+        self.info = {k: reply.get(k) for k in ("tuning", "base", "reference", "transpose",
+                                               "transpose_cents", "adaptive")}
+        self.counters = dict(reply.get("stats") or {})
+
+    def apply(self, ev: dict) -> None:
+        self.events += 1
+        kind = ev.get("event")
+        k = (ev.get("channel", 0), ev.get("key"))
+        if kind == "note_on" or kind == "pitch":
+            n = self.notes.setdefault(k, {"key": ev["key"], "channel": ev.get("channel", 0)})
+            n["cents"] = ev.get("cents")
+            n["hz"] = ev.get("hz")
+        elif kind == "note_off":
+            self.notes.pop(k, None)
+        elif kind == "tuning":
+            for f in ("tuning", "base", "reference", "transpose", "transpose_cents", "adaptive"):
+                if f in ev:
+                    self.info[f] = ev[f]
+        elif kind == "adaptive":
+            self.info["adaptive"] = ev.get("on")
+        elif kind == "counters":
+            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "tuning")}
+            self.counters.update(c)
+            if ev.get("tuning"):
+                self.info["tuning"] = ev["tuning"]
+        elif kind == "panic":
+            self.message = "PANIC: all notes released"
+
+
+def _fmt_signed(v: Optional[float], digits: int = 2) -> str:
+    return "   --" if v is None else f"{v:+.{digits}f}"
+
+
+def render(state: WatchState, width: int = 100, height: int = 40) -> list[str]:
+    """The view as lines of at most ``width`` characters (a pure function of the state)."""
+    notes = sorted(state.notes.values(), key=lambda n: (n.get("cents") or 0.0, n["key"]))
+    info = state.info
+    ref = info.get("reference")
+    lines: list[str] = []
+    lines.append(f"TUNING  {info.get('tuning') or '?'}"
+                 + (f"  (from {info.get('base')})" if info.get("base") and info.get("base") != info.get("tuning") else "")
+                 + f"    A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
+                 + f"    TRANSPOSE {info.get('transpose') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
+                 + f"    ADAPTIVE {'ON' if info.get('adaptive') else 'OFF'}")
+    d = drift(notes)
+    c = state.counters
+    lines.append(f"DRIFT {_fmt_signed(d)} c    NOTES {c.get('notes', 0)}    STEALS {c.get('steals', 0)}"
+                 f"    RINGING RETUNES {c.get('ringing_retunes', 0)}    DROPPED EVENTS {c.get('events_dropped', 0)}"
+                 + ("" if state.connected else "    ** DISCONNECTED **"))
+    if state.message:
+        lines.append(state.message)
+    lines.append("")
+    lines.append(f"SOUNDING {len(notes)}")
+    lines.append(f"{'NOTE':<6}{'KEY':>5}{'CENTS vs 12-EDO':>18}{'HZ':>12}")
+    for n in notes:
+        c_ = n.get("cents")
+        dev = None if c_ is None else c_ - 100.0 * n["key"]
+        hz = n.get("hz") if n.get("hz") is not None else (None if c_ is None else cents_to_hz(c_))
+        lines.append(f"{note_name(n['key']):<6}{n['key']:>5}{_fmt_signed(dev):>18}"
+                     f"{'--' if hz is None else f'{hz:.2f}':>12}")
+    lines.append("")
+    rows = interval_rows(notes)
+    lines.append(f"INTERVALS {len(rows)}")
+    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'DEV c':>9}{'BEATS Hz':>10}")
+    for r in rows:
+        pair = f"{note_name(r.low)}-{note_name(r.high)}"
+        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+9.2f}"
+                     f"{r.beats:>10.2f}" + ("" if r.consonant else "  (dissonant)"))
+    if len(lines) > height:
+        hidden = len(lines) - (height - 1)
+        lines = lines[: height - 1] + [f"... {hidden} more lines (enlarge the window)"]
+    return [ln[:width] for ln in lines]
+
+
+# ---------------------------------------------------------------------------
+# Live loop
+
+class Feed:
+    """Reads the subscription on its own thread and keeps a :class:`WatchState`."""
+
+    def __init__(self, socket_path=None):
+        from .control import ControlClient
+        self.client = ControlClient(socket_path, timeout=5.0)
+        reply = self.client.request("subscribe")
+        if not reply.get("ok"):
+            raise RuntimeError(reply.get("error") or "subscribe refused")
+        self.state = WatchState()
+        self.state.snapshot(reply)
+        self.lock = threading.Lock()
+        self.version = 0
+        self.client.sock.settimeout(None)
+        self.thread = threading.Thread(target=self._run, name="retuner-watch", daemon=True)
+        self.thread.start()
+
+    def _run(self) -> None:
+        try:
+            while True:
+                ev = self.client.read()
+                if ev is None:
+                    break
+                with self.lock:
+                    self.state.apply(ev)
+                    self.version += 1
+        except (OSError, ValueError):
+            pass
+        with self.lock:
+            self.state.connected = False
+            self.version += 1
+
+    def render(self, width: int, height: int) -> list[str]:
+        with self.lock:
+            return render(self.state, width, height)
+
+    def close(self) -> None:
+        self.client.close()
+
+
+def run_curses(feed: Feed, fps: float = 25.0) -> None:
+    import curses
+
+    def main(scr) -> None:
+        curses.curs_set(0)
+        scr.nodelay(True)
+        try:
+            curses.use_default_colors()
+        except curses.error:
+            pass
+        period = 1.0 / fps
+        while True:
+            t0 = time.monotonic()
+            h, w = scr.getmaxyx()
+            lines = feed.render(max(20, w - 1), max(5, h))
+            scr.erase()
+            for y, ln in enumerate(lines[:h]):
+                attr = curses.A_BOLD
+                try:
+                    scr.addstr(y, 0, ln[: max(0, w - 1)], attr)
+                except curses.error:
+                    pass
+            scr.refresh()
+            ch = scr.getch()
+            if ch in (ord("q"), ord("Q"), 27):
+                return
+            time.sleep(max(0.0, period - (time.monotonic() - t0)))
+
+    curses.wrapper(main)
+
+
+def run_plain(feed: Feed, fps: float = 20.0, frames: int = 0, out=None) -> None:
+    """Print a frame whenever something changed (at most ``fps`` a second), no escape codes."""
+    import sys
+    out = out or sys.stdout
+    last = -1
+    shown = 0
+    while True:
+        with feed.lock:
+            v = feed.version
+            connected = feed.state.connected
+        if v != last:
+            last = v
+            print("\n".join(feed.render(200, 1000)), file=out)
+            print("-" * 40, file=out, flush=True)
+            shown += 1
+            if frames and shown >= frames:
+                return
+        if not connected:
+            return
+        time.sleep(1.0 / fps)
