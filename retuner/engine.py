@@ -80,7 +80,9 @@ from the first note-on of a group, then solved together:
 ``AdaptiveSolver.solve(held=[(key, cents), ...], new=[key, ...])`` returns the
 pitches of the held notes (they may move) and of the new ones. Moved held notes
 get new bends (each adaptive note has a channel of its own), then the new notes
-sound. ``solver.reset()`` is called before a solve when nothing sounds. A
+sound. Before each solve the solver is told which of its notes have ended
+(``solver.release(keys)``; it applies its own policy for silences), or, for a
+solver without ``release``, ``solver.reset()`` is called when nothing sounds. A
 note-off for a note still waiting in the window cancels it: nothing is sent.
 """
 
@@ -278,6 +280,7 @@ class Engine:
     def _make_solver(self, acfg: Any) -> None:
         from .adaptive import AdaptiveSolver  # adaptive mode only
         self._solver = AdaptiveSolver(acfg, self.tuning)
+        self._solver_keys: set[int] = set()
         self._window = float(getattr(acfg, "chord_window", 0.0) or 0.0)
 
     @property
@@ -751,8 +754,14 @@ class Engine:
             return
         n0 = len(out)
         held = self._sounding_notes()
-        if not held:
+        held_keys = {n.in_key for n in held}
+        ended = [k for k in self._solver_keys if k not in held_keys]
+        if hasattr(solver, "release"):
+            if ended:
+                solver.release(ended)   # the solver applies its silence policy itself
+        elif not held:
             solver.reset()
+        self._solver_keys = held_keys | {n.in_key for n in pend}
         held_new, new_cents = solver.solve(held=[(n.in_key, n.cents) for n in held],
                                            new=[n.in_key for n in pend])
         self.stats["chords_solved"] += 1
