@@ -21,6 +21,9 @@ defaults). Every field is optional::
       ab: [meantone-quarter, edo12]
     status_interval: 10            # minutes between status lines; 0 = none
     port_poll: 0.5                 # seconds between looks for lost/returned ports
+    setup_refresh: 5               # our own output port: send the setup (bend range...) again
+                                   # before a note-on after this many quiet seconds with nothing
+                                   # sounding or ringing, for a synth connected after the start; 0 = never
     log_level: info                # debug, info, warning, error
     control:                       # the control socket (JSON lines; see retuner.control)
       enabled: true
@@ -81,6 +84,7 @@ class Settings:
     switch: Switching = field(default_factory=Switching)
     status_interval: float = 10.0            # minutes
     port_poll: float = 0.5                   # seconds
+    setup_refresh: float = 5.0               # seconds; 0 = never (see the module doc)
     log_level: str = "info"
     control: ControlSettings = field(default_factory=ControlSettings)
 
@@ -161,7 +165,7 @@ def _unknown(sub, allowed, w, prefix):
 
 TOP_FIELDS = {"profile", "profile_dirs", "backend", "input", "output", "virtual", "client_name",
               "engine", "mode", "profiles", "switch", "status_interval", "port_poll", "log_level",
-              "control"}
+              "control", "setup_refresh"}
 
 
 def parse_config(text: str, filename: str = "<config>", base: Optional[Settings] = None) -> Settings:
@@ -227,6 +231,8 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         s.status_interval = _num(d["status_interval"], w, "status_interval", d, "status_interval", 0, 24 * 60)
     if "port_poll" in d:
         s.port_poll = _num(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
+    if "setup_refresh" in d:
+        s.setup_refresh = _num(d["setup_refresh"], w, "setup_refresh", d, "setup_refresh", 0, 3600)
     if "log_level" in d:
         lv = _str(d["log_level"], w, "log_level", d, "log_level")
         if lv not in LOG_LEVELS:
@@ -240,6 +246,17 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
             s.control.enabled = _bool(c["enabled"], w, "control.enabled", c, "enabled")
         if "path" in c:
             s.control.path = _str(c["path"], w, "control.path", c, "path", allow_none=True)
+    if s.engine:
+        try:
+            engine_config(s)          # the engine's own checks (e.g. a channel in pool and passthrough)
+        except RetunerError as exc:
+            eng = d.get("engine")
+            key = (exc.field or "").replace("engine.", "", 1)
+            if isinstance(eng, dict) and key in eng:
+                exc.line = eng.lines.get(key)
+            elif "mode" in d and key == "mode":
+                exc.line = d.lines.get("mode")
+            raise
     return s
 
 
@@ -276,8 +293,25 @@ def engine_fields() -> dict[str, Any]:
     return {f.name: hints.get(f.name, Any) for f in dataclasses.fields(cls)}
 
 
+CHANNEL_FIELDS = {"pool", "passthrough"}
+
+
 def _is_channel_field(name: str) -> bool:
-    return name.endswith("channel") or name.endswith("channels")
+    return name in CHANNEL_FIELDS or name.endswith("_channel") or name.endswith("_channels")
+
+
+def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
+    """``adaptive``: null/false (off), true (defaults) or a mapping of AdaptiveConfig fields."""
+    if v is None or v is False:
+        return None
+    if v is True:
+        v = {}
+    if not isinstance(v, dict):
+        raise w.err(f"expected true, false or a mapping of adaptive settings, got {_type_name(v)}", fld, m, k)
+    from .adaptive import AdaptiveConfig
+    names = {f.name for f in dataclasses.fields(AdaptiveConfig)}
+    _unknown(v, names, w, fld + ".")
+    return dict(v)
 
 
 def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel: bool) -> Any:
@@ -331,7 +365,18 @@ def check_engine_settings(eng: dict, w: Optional[_Where] = None, *, mapping: Any
     m = mapping if mapping is not None else eng
     fields = engine_fields()
     _unknown(eng, set(fields), w, prefix)
-    return {k: _check_value(v, fields[k], w, prefix + k, m, k, _is_channel_field(k)) for k, v in eng.items()}
+    out = {}
+    for k, v in eng.items():
+        if k == "adaptive":
+            out[k] = _adaptive_settings(v, w, prefix + k, m, k)
+        elif k == "mode":
+            from .engine import MODES
+            if v not in MODES:
+                raise w.err(f"expected one of {', '.join(MODES)}, got {v!r}", prefix + k, m, k)
+            out[k] = v
+        else:
+            out[k] = _check_value(v, fields[k], w, prefix + k, m, k, _is_channel_field(k))
+    return out
 
 
 def engine_config(settings: Settings):
@@ -344,8 +389,21 @@ def engine_config(settings: Settings):
                 v = type(v)(c - 1 for c in v)
             else:
                 v = v - 1
+        if k == "adaptive" and v is not None:
+            from .adaptive import AdaptiveConfig
+            try:
+                v = AdaptiveConfig(**v)
+            except (TypeError, ValueError) as exc:
+                raise RetunerError(f"bad adaptive settings: {exc}", file=settings.source,
+                                   field="engine.adaptive") from None
         kw[k] = v
     try:
-        return cls(**kw)
+        return cls(**kw).validate()
+    except RetunerError as exc:
+        if exc.file is None:
+            exc.file = settings.source
+        if exc.field and not exc.field.startswith("engine."):
+            exc.field = "engine." + exc.field
+        raise
     except (TypeError, ValueError) as exc:
         raise RetunerError(f"bad engine settings: {exc}", file=settings.source, field="engine") from None

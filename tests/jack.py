@@ -302,3 +302,44 @@ def decode(received: list[Received], default_range: float = 2.0) -> Decoder:
     for r in received:
         d.feed(r.t, r.msg)
     return d
+
+
+class NotifySocket:
+    """A Unix datagram socket standing in for the service manager's $NOTIFY_SOCKET (sd_notify(3))."""
+
+    def __init__(self, path: str):
+        import socket as _socket
+        self.path = path
+        self.sock = _socket.socket(_socket.AF_UNIX, _socket.SOCK_DGRAM)
+        self.sock.bind(path)
+        self.sock.settimeout(0.1)
+        self.messages: list[tuple[float, str]] = []
+        self._stop = False
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._stop:
+            try:
+                data = self.sock.recv(4096)
+            except OSError:
+                continue
+            now = time.monotonic()
+            for line in data.decode("utf-8", "replace").split("\n"):
+                self.messages.append((now, line))
+
+    def lines(self) -> list[str]:
+        return [m for _, m in list(self.messages)]
+
+    def wait_for(self, line: str, count: int = 1, timeout: float = 10.0) -> None:
+        end = time.monotonic() + timeout
+        while time.monotonic() < end:
+            if self.lines().count(line) >= count:
+                return
+            time.sleep(0.01)
+        raise AssertionError(f"{line!r} x{count} did not arrive within {timeout} s; got {self.lines()}")
+
+    def close(self) -> None:
+        self._stop = True
+        self._thread.join(1)
+        self.sock.close()

@@ -1,0 +1,127 @@
+"""``retuner run``: the live daemon between a keyboard and a synth."""
+
+from __future__ import annotations
+
+import argparse
+import os
+
+from .. import config as _config
+from ..errors import RetunerError
+from ._common import add_profiles_dir
+
+NAME = "run"
+HELP = "retune live: read a MIDI port, play the tuning on another (the daemon)"
+ORDER = 10
+DESCRIPTION = (
+    "Run the live daemon. Settings come from the config file (--config FILE, else "
+    "$XDG_CONFIG_HOME/retuner/config.yaml when it exists, else built-in defaults); the options "
+    "below override it. A side (input or output) without a port name gets a port of our own "
+    "(retuner-in:in, retuner-out:out). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
+    "release every note and stop. Channels are 1..16.")
+
+# command-line option -> engine setting (a field of retuner.engine.EngineConfig)
+ENGINE_OPTIONS = {
+    "mode": "mode",
+    "channels": "pool",
+    "bend_range": "bend_range",
+    "release_time": "release_time",
+    "bend_scale": "bend_scale",
+    "whole_semitones": "whole_semitone_range",
+    "thru_channels": "passthrough",
+}
+
+
+def _channels(text: str) -> list[int]:
+    """'1-9,11-16' -> [1..9, 11..16] (1-based, as the user sees channels)."""
+    out: list[int] = []
+    for part in text.split(","):
+        part = part.strip()
+        if not part:
+            continue
+        if "-" in part:
+            a, b = part.split("-", 1)
+            lo, hi = int(a), int(b)
+            out.extend(range(lo, hi + 1))
+        else:
+            out.append(int(part))
+    if not out or any(not 1 <= c <= 16 for c in out):
+        raise argparse.ArgumentTypeError("channels are 1..16, e.g. 1-9,11-16")
+    return out
+
+
+def add_arguments(parser):
+    parser.add_argument("--config", metavar="FILE",
+                        help="YAML config (default: $XDG_CONFIG_HOME/retuner/config.yaml if it exists)")
+    parser.add_argument("--profile", metavar="ID", help="tuning to play (profile id or file)")
+    add_profiles_dir(parser)
+    parser.add_argument("--backend", choices=("alsa", "jack"), help="MIDI system (default alsa)")
+    parser.add_argument("--input", metavar="NAME", help="port to read from: exact name, part of it, or a pattern")
+    parser.add_argument("--output", metavar="NAME", help="port to write to: exact name, part of it, or a pattern")
+    parser.add_argument("--virtual", action="store_true", default=None,
+                        help="create our own input and output ports, ignoring port names in the config")
+    parser.add_argument("--client-name", metavar="NAME", help="base of our client names (default retuner)")
+    g = parser.add_argument_group("engine")
+    g.add_argument("--mode", help="pool (per-note bend on a channel pool), mpe or mts")
+    g.add_argument("--channels", type=_channels, metavar="LIST",
+                   help="pool channels, e.g. 1-9,11-16 (default: all but 10)")
+    g.add_argument("--bend-range", type=float, metavar="SEMITONES", help="pitch bend range (default 2)")
+    g.add_argument("--release-time", type=float, metavar="SECONDS",
+                   help="a channel rings this long after its last note-off (default 2)")
+    g.add_argument("--bend-scale", type=float, metavar="FACTOR",
+                   help="the synth plays a bend at FACTOR of its size (e.g. 127/128 = 0.9921875)")
+    g.add_argument("--whole-semitones", action="store_true", default=None,
+                   help="the synth ignores the cents part of the bend range")
+    g.add_argument("--thru-channels", type=_channels, metavar="LIST",
+                   help="input channels passed through untouched (default 10)")
+    parser.add_argument("--control-channel", type=int, metavar="CH", choices=range(1, 17),
+                        help="program change N on this channel selects the N-th profile of the config")
+    parser.add_argument("--control-socket", metavar="PATH",
+                        help="control socket path (default $XDG_RUNTIME_DIR/retuner/control.sock)")
+    parser.add_argument("--no-control-socket", action="store_true", help="do not open the control socket")
+    parser.add_argument("--status-interval", type=float, metavar="MINUTES",
+                        help="minutes between status lines (0: none; default 10)")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="log every event (debug)")
+
+
+def _apply_flags(s: _config.Settings, args) -> _config.Settings:
+    s = s.copy()
+    for k in ("profile", "backend", "input", "output", "client_name"):
+        v = getattr(args, k, None)
+        if v is not None:
+            setattr(s, k, v)
+    if args.profiles_dir:
+        s.profile_dirs = list(s.profile_dirs) + list(args.profiles_dir)
+    if args.virtual:
+        s.virtual = True
+    eng = {}
+    for opt, fld in ENGINE_OPTIONS.items():
+        v = getattr(args, opt, None)
+        if v is not None:
+            eng[fld] = v
+    if eng:
+        checked = _config.check_engine_settings(eng, prefix="--")
+        s.engine = {**s.engine, **checked}
+    if args.control_channel is not None:
+        s.switch.channel = args.control_channel
+    if args.control_socket:
+        s.control.path = args.control_socket
+    if args.no_control_socket:
+        s.control.enabled = False
+    if args.status_interval is not None:
+        if args.status_interval < 0:
+            raise RetunerError("must be 0 or more", field="--status-interval")
+        s.status_interval = args.status_interval
+    return s
+
+
+def run(args) -> int:
+    from ..daemon import Daemon, setup_logging
+
+    def settings() -> _config.Settings:
+        return _apply_flags(_config.load_config(args.config), args)
+
+    s = settings()
+    setup_logging(s.log_level, args.verbose)
+    daemon = Daemon(s, reload_settings=settings)
+    daemon.verbose = args.verbose
+    return daemon.run()

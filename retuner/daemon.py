@@ -1,0 +1,558 @@
+"""The live daemon: the engine between real MIDI ports.
+
+Threads
+-------
+The engine is single-threaded and is only ever touched by the thread that runs
+:meth:`Daemon.run` (the *engine thread*). Everything else talks to it through
+one queue (:class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
+handler):
+
+* the backend's input callback stamps each parsed message with
+  ``time.monotonic()`` and puts ``("midi", t, msg)``;
+* a port watcher thread lists the backend's ports every ``port_poll`` seconds
+  (only when a port is named) and puts ``("ports", inputs, outputs)``;
+* signal handlers put ``("signal", signum)``;
+* the control socket (retuner.control) wakes the loop with ``("wake",)``.
+
+The loop waits on the queue with a timeout: the earliest of the engine's
+``next_deadline()``, the watchdog ping and the status line. Output is sent the
+moment the engine returns it.
+
+Hotplug
+-------
+A side with a port name (``--input``/``--output``) is connected to the first
+port that matches (see retuner.ports). When that port disappears the daemon
+keeps running and logs it once; notes held from a lost input are released
+(``engine.input_lost``); notes sounding on a lost output are forgotten
+(``engine.output_lost``), input is dropped while there is no output, and when
+the output returns the engine's setup is sent again (``engine.start``).
+
+Signals
+-------
+SIGHUP reloads the config file and the profiles (a bad one is logged and the old
+settings stay); SIGTERM and SIGINT release every sounding note
+(``engine.release_all``) and exit with status 0.
+
+Control socket
+--------------
+When ``control.enabled`` (default) the daemon starts retuner.control's server
+(``EngineControl`` + ``ControlServer``); the engine thread applies its commands
+(``serve_pending``) and publishes events (``observe``) on every wake-up.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import queue
+import signal
+import sys
+import threading
+import time
+from typing import Any, Callable, Optional
+
+from . import ports as _ports
+from .config import Settings, engine_config, load_config
+from .errors import RetunerError
+from .notify import Notifier
+
+log = logging.getLogger("retuner")
+
+# syslog priorities (RFC 5424) for journald's "<N>" line prefix (SyslogLevelPrefix=yes, the default)
+_PRIORITY = {logging.DEBUG: 7, logging.INFO: 6, logging.WARNING: 4, logging.ERROR: 3, logging.CRITICAL: 2}
+
+
+class _JournalFormatter(logging.Formatter):
+    def format(self, record: logging.LogRecord) -> str:
+        prio = _PRIORITY.get(record.levelno, 6)
+        return f"<{prio}>{super().format(record)}"
+
+
+def setup_logging(level: str = "info", verbose: int = 0, environ=None) -> None:
+    """Log to stderr; journald-friendly (no time stamps, priority prefix) under $JOURNAL_STREAM."""
+    env = os.environ if environ is None else environ
+    handler = logging.StreamHandler(sys.stderr)
+    if env.get("JOURNAL_STREAM"):
+        handler.setFormatter(_JournalFormatter("%(message)s"))
+    else:
+        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%H:%M:%S"))
+    root = logging.getLogger("retuner")
+    for h in list(root.handlers):
+        root.removeHandler(h)
+    root.addHandler(handler)
+    root.propagate = False
+    set_level(level, verbose)
+
+
+def set_level(level: str, verbose: int = 0) -> None:
+    lv = logging.DEBUG if verbose else getattr(logging, level.upper(), logging.INFO)
+    logging.getLogger("retuner").setLevel(lv)
+
+
+class Profiles:
+    """The tunings a configuration needs, loaded up front (no disk reads while switching)."""
+
+    def __init__(self, settings: Settings):
+        from .profile import load_profile
+
+        dirs = settings.profile_dirs
+
+        def load(name: str, fld: str):
+            try:
+                return load_profile(name, dirs)
+            except RetunerError as exc:
+                if exc.field is None:
+                    exc.field = fld
+                if exc.file is None and settings.source:
+                    exc.file = settings.source
+                raise
+
+        self.main = load(settings.profile, "profile")
+        self.listed = [load(n, f"profiles[{i}]") for i, n in enumerate(settings.profiles)]
+        self.ab = None
+        if settings.switch.ab:
+            self.ab = (load(settings.switch.ab[0], "switch.ab"), load(settings.switch.ab[1], "switch.ab"))
+
+
+class Daemon:
+    def __init__(self, settings: Settings, *,
+                 reload_settings: Optional[Callable[[], Settings]] = None,
+                 notifier: Optional[Notifier] = None):
+        self.settings = settings
+        self.reload_settings = reload_settings
+        self.notifier = notifier or Notifier()
+        self.q: "queue.SimpleQueue[tuple]" = queue.SimpleQueue()
+        self.profiles = Profiles(settings)
+        self.tuning = self.profiles.main
+        self.engine = self._new_engine(settings, self.tuning)
+        self.inp: Optional[_ports.InputPort] = None
+        self.outp: Optional[_ports.OutputPort] = None
+        self.lister: Optional[_ports.PortLister] = None
+        self._watcher: Optional[threading.Thread] = None
+        self._stop_watch = threading.Event()
+        self._lost_logged = {"input": False, "output": False}
+        self._ab_last = 0
+        self._last_out = float("-inf")
+        self._bad_input = 0
+        self._errors = 0
+        self.running = False
+        self.exit_status = 0
+        self.control = None         # retuner.control.EngineControl
+        self.control_server = None  # retuner.control.ControlServer
+        self.started_at = time.monotonic()
+
+    # ------------------------------------------------------------------ engine
+    @staticmethod
+    def _new_engine(settings: Settings, tuning):
+        from .engine import Engine
+        return Engine(tuning, engine_config(settings))
+
+    def emit(self, messages) -> None:
+        """Send engine output now (dropped while there is no output port)."""
+        if not messages:
+            return
+        outp = self.outp
+        debug = log.isEnabledFor(logging.DEBUG)
+        if outp is None:
+            if debug:
+                log.debug("no output: dropped %d messages", len(messages))
+            return
+        for m in messages:
+            try:
+                outp.send(m)
+            except Exception as exc:  # the port may vanish under us
+                self._errors += 1
+                log.warning("sending %s failed: %s", m, exc)
+                return
+            if debug:
+                log.debug("out %s", m)
+        self._last_out = time.monotonic()
+
+    # ------------------------------------------------------------------ ports
+    def _client(self, side: str) -> str:
+        return f"{self.settings.client_name}-{side}"
+
+    def _side_spec(self, side: str) -> Optional[str]:
+        """The port name/pattern for 'in'/'out', or None for a virtual port of our own."""
+        if self.settings.virtual:
+            return None
+        return self.settings.input if side == "in" else self.settings.output
+
+    def _on_midi(self, msg) -> None:                      # backend thread
+        self.q.put(("midi", time.monotonic(), msg))
+
+    def _on_bad_bytes(self, exc: Exception, data: list) -> None:   # backend thread
+        self.q.put(("bad", time.monotonic(), data, repr(exc)))
+
+    def _open_input(self, names: Optional[list[str]] = None) -> bool:
+        spec = self._side_spec("in")
+        backend = self.settings.backend
+        if spec is None:
+            self.inp = _ports.InputPort(backend, self._client("in"), "in",
+                                        callback=self._on_midi, on_error=self._on_bad_bytes)
+            log.info("input: our own port %s:in (%s)", self._client("in"), backend)
+            return True
+        if names is None:
+            names = self.lister.inputs() if self.lister else []
+        name = _ports.match_port(spec, names, exclude=[self.settings.client_name + "-"])
+        if name is None:
+            if not self._lost_logged["input"]:
+                log.warning("input %r: no such port (yet); waiting for it", spec)
+                self._lost_logged["input"] = True
+            return False
+        self.inp = _ports.InputPort(backend, self._client("in"), "in", connect_to=name,
+                                    callback=self._on_midi, on_error=self._on_bad_bytes)
+        self._lost_logged["input"] = False
+        log.info("input: connected to %s (%s)", name, backend)
+        return True
+
+    def _open_output(self, now: float, names: Optional[list[str]] = None) -> bool:
+        spec = self._side_spec("out")
+        backend = self.settings.backend
+        if spec is None:
+            self.outp = _ports.OutputPort(backend, self._client("out"), "out")
+            log.info("output: our own port %s:out (%s)", self._client("out"), backend)
+        else:
+            if names is None:
+                names = self.lister.outputs() if self.lister else []
+            name = _ports.match_port(spec, names, exclude=[self.settings.client_name + "-"])
+            if name is None:
+                if not self._lost_logged["output"]:
+                    log.warning("output %r: no such port (yet); waiting for it", spec)
+                    self._lost_logged["output"] = True
+                return False
+            self.outp = _ports.OutputPort(backend, self._client("out"), "out", connect_to=name)
+            self._lost_logged["output"] = False
+            log.info("output: connected to %s (%s)", name, backend)
+        self.emit(self.engine.start(now))
+        return True
+
+    def _open_ports(self, now: float) -> None:
+        named = self._side_spec("in") is not None or self._side_spec("out") is not None
+        if named and self.lister is None:
+            self.lister = _ports.PortLister(self.settings.backend, self._client("probe"))
+        self._open_output(now)
+        self._open_input()
+        if named:
+            self._start_watcher()
+
+    def _close_ports(self) -> None:
+        self._stop_watch.set()
+        if self._watcher is not None:
+            self._watcher.join(2)
+            self._watcher = None
+        for p in (self.inp, self.outp):
+            if p is not None:
+                p.close()
+        self.inp = self.outp = None
+        if self.lister is not None:
+            self.lister.close()
+            self.lister = None
+
+    def _start_watcher(self) -> None:
+        if self._watcher is not None:
+            return
+        self._stop_watch = threading.Event()
+        stop = self._stop_watch
+        lister = self.lister
+        interval = self.settings.port_poll
+
+        def watch():
+            while not stop.wait(interval):
+                try:
+                    self.q.put(("ports", lister.inputs(), lister.outputs()))
+                except Exception as exc:  # pragma: no cover - backend trouble
+                    log.debug("listing ports: %s", exc)
+
+        self._watcher = threading.Thread(target=watch, name="retuner-ports", daemon=True)
+        self._watcher.start()
+
+    def _check_ports(self, now: float, inputs: list[str], outputs: list[str]) -> None:
+        # output first: input is dropped while there is no output
+        spec = self._side_spec("out")
+        if spec is not None:
+            if self.outp is not None and self.outp.connected_to not in outputs:
+                log.warning("output %s is gone; notes sounding on it are forgotten; "
+                            "waiting for it to return", self.outp.connected_to)
+                self.outp.close()
+                self.outp = None
+                self.engine.output_lost(now)
+                self._lost_logged["output"] = True
+            elif self.outp is None:
+                try:
+                    self._open_output(now, outputs)
+                except RetunerError as exc:
+                    log.debug("reopening output: %s", exc)
+                    self.outp = None
+        spec = self._side_spec("in")
+        if spec is not None:
+            if self.inp is not None and self.inp.connected_to not in inputs:
+                log.warning("input %s is gone; releasing its notes; waiting for it to return",
+                            self.inp.connected_to)
+                self.inp.close()
+                self.inp = None
+                self.emit(self.engine.input_lost(now))
+                self._lost_logged["input"] = True
+            elif self.inp is None:
+                try:
+                    self._open_input(inputs)
+                except RetunerError as exc:
+                    log.debug("reopening input: %s", exc)
+                    self.inp = None
+
+    # ------------------------------------------------------------------ switching
+    def switch_to(self, tuning, now: float, why: str) -> None:
+        if self.control is not None:
+            self.control.tuning_changed(tuning)
+            effective = self.control.current
+        else:
+            effective = tuning
+        self.emit(self.engine.set_tuning(effective, now))
+        self.tuning = tuning
+        log.info("tuning: %s (%s)", tuning.id, why)
+
+    def _control_message(self, msg, now: float) -> bool:
+        """Handle program change / the A/B CC on the control channel; True when consumed."""
+        sw = self.settings.switch
+        ch = getattr(msg, "channel", None)
+        if ch is None:
+            return False
+        on_channel = sw.channel is not None and ch == sw.channel - 1
+        if msg.type == "program_change" and on_channel:
+            n = msg.program
+            if n < len(self.profiles.listed):
+                self.switch_to(self.profiles.listed[n], now, f"program change {n + 1}")
+            else:
+                log.warning("program change %d: the config lists %d profiles; ignored",
+                            n + 1, len(self.profiles.listed))
+            return True
+        if (msg.type == "control_change" and sw.ab_cc is not None and msg.control == sw.ab_cc
+                and self.profiles.ab is not None and (on_channel or sw.channel is None)):
+            pressed = msg.value >= 64
+            if pressed and self._ab_last < 64:
+                a, b = self.profiles.ab
+                target = b if (self.tuning is a or self.tuning.id == a.id) else a
+                self.switch_to(target, now, f"A/B switch CC{sw.ab_cc}")
+            self._ab_last = msg.value
+            return True
+        return False
+
+    # ------------------------------------------------------------------ events
+    def _handle_midi(self, t: float, msg) -> None:
+        if log.isEnabledFor(logging.DEBUG):
+            log.debug("in  %s", msg)
+        if self._control_message(msg, t):
+            return
+        if self.outp is None:
+            return          # no synth to play on: nothing is sent, nothing is remembered
+        if msg.type == "note_on" and msg.velocity and self._refresh_due(t):
+            # a synth may have been connected to our own port since the setup was sent
+            log.debug("sending the setup again before the first note after a pause")
+            self.emit(self.engine.start(t))
+        self.emit(self.engine.feed(t, msg))
+
+    def _refresh_due(self, t: float) -> bool:
+        every = self.settings.setup_refresh
+        if not every or self._side_spec("out") is not None:
+            return False
+        quiet = max(every, self.engine.config.release_time)   # never re-bend a ringing channel
+        return t - self._last_out >= quiet and not self.engine.sounding()
+
+    def _reload(self, now: float) -> None:
+        if self.reload_settings is None:
+            log.info("SIGHUP: nothing to reload")
+            return
+        self.notifier.reloading()
+        try:
+            new = self.reload_settings()
+            profiles = Profiles(new)
+            new_engine_cfg = engine_config(new)
+        except RetunerError as exc:
+            log.error("reload failed, keeping the running settings: %s", exc)
+            self.notifier.ready(status=f"reload failed: {exc}")
+            return
+        except Exception as exc:  # noqa: BLE001 - never die on a reload
+            log.exception("reload failed, keeping the running settings: %s", exc)
+            self.notifier.ready(status="reload failed")
+            return
+        old = self.settings
+        ports_changed = any(getattr(old, k) != getattr(new, k)
+                            for k in ("backend", "input", "output", "virtual", "client_name", "port_poll"))
+        self.settings = new
+        self.profiles = profiles
+        set_level(new.log_level, getattr(self, "verbose", 0))
+        if ports_changed:
+            log.info("port settings changed: releasing every note and reopening the ports")
+            self.emit(self.engine.release_all(now))
+            self._close_ports()
+        if new_engine_cfg != self.engine.config:
+            # a new layout releases everything and starts again; lighter changes keep notes sounding
+            self.emit(self.engine.reconfigure(new_engine_cfg, now))
+            log.info("engine settings changed")
+        if ports_changed:
+            try:
+                self._open_ports(now)
+            except RetunerError as exc:
+                log.error("reopening ports: %s", exc)
+        self.switch_to(profiles.main, now, "reload")
+        log.info("reloaded %s", new.source or "built-in defaults")
+        self.notifier.ready(status=self._status_text())
+
+    def _status_text(self) -> str:
+        st = dict(getattr(self.engine, "stats", {}) or {})
+        parts = [f"tuning {self.tuning.id}",
+                 f"{st.get('notes', 0)} notes",
+                 f"{st.get('steals', 0)} steals",
+                 f"{st.get('ringing_retunes', 0)} ringing retunes"]
+        for k in ("impurity", "drift"):
+            if k in st and st[k] is not None:
+                parts.append(f"{k} {st[k]:.2f} c" if isinstance(st[k], float) else f"{k} {st[k]}")
+        try:
+            parts.append(f"{len(self.engine.sounding())} sounding")
+        except Exception:  # pragma: no cover
+            pass
+        if self._bad_input:
+            parts.append(f"{self._bad_input} bad input")
+        if self._errors:
+            parts.append(f"{self._errors} errors")
+        return ", ".join(parts)
+
+    def status(self) -> dict:
+        """For the control socket's status command."""
+        return {"uptime": time.monotonic() - self.started_at,
+                "input": getattr(self.inp, "connected_to", None) if self.inp else None,
+                "output": getattr(self.outp, "connected_to", None) if self.outp else None,
+                "input_open": self.inp is not None, "output_open": self.outp is not None,
+                "backend": self.settings.backend, "config": self.settings.source,
+                "bad_input": self._bad_input, "errors": self._errors}
+
+    # ------------------------------------------------------------------ control socket
+    def _start_control(self) -> None:
+        if not self.settings.control.enabled:
+            return
+        try:
+            from .control import ControlServer, EngineControl, EngineHost
+            host = EngineHost(engine=self.engine, emit=self.emit, tuning=self.tuning,
+                              clock=time.monotonic, profile_dirs=tuple(self.settings.profile_dirs),
+                              on_switch=self._on_control_switch, status_extra=self.status)
+            ctl = EngineControl(host)
+            server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
+            ctl.server = server
+            server.start()
+        except Exception as exc:  # noqa: BLE001 - the daemon plays on without it
+            log.error("control socket not started: %s", exc)
+            return
+        self.control, self.control_server = ctl, server
+        log.info("control socket: %s", server.path)
+
+    def _on_control_switch(self, tuning) -> None:
+        self.tuning = getattr(self.control, "base", tuning)
+        log.info("tuning: %s (control socket)", tuning.id)
+
+    # ------------------------------------------------------------------ main loop
+    def _install_signals(self) -> dict:
+        old = {}
+        for s in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
+            old[s] = signal.signal(s, lambda signum, frame: self.q.put(("signal", signum)))
+        return old
+
+    def run(self) -> int:
+        old_handlers = self._install_signals()
+        now = time.monotonic()
+        try:
+            self._open_ports(now)
+            self._start_control()
+            self.running = True
+            status = self._status_text()
+            self.notifier.ready(status=status)
+            log.info("retuner running: %s", status)
+            self._loop()
+            return self.exit_status
+        finally:
+            self.running = False
+            self.notifier.stopping()
+            if self.control_server is not None:
+                try:
+                    self.control_server.close()
+                except Exception:  # pragma: no cover
+                    pass
+            self._close_ports()
+            for s, h in old_handlers.items():
+                signal.signal(s, h)
+
+    def _loop(self) -> None:
+        wd_interval = self.notifier.watchdog_interval
+        now = time.monotonic()
+        next_wd = now + wd_interval if wd_interval else None
+        if wd_interval:
+            self.notifier.watchdog()
+        status_every = self.settings.status_interval * 60.0
+        next_status = now + status_every if status_every > 0 else None
+        q = self.q
+        while True:
+            now = time.monotonic()
+            wake = [x for x in (self.engine.next_deadline(), next_wd, next_status) if x is not None]
+            timeout = max(0.0, min(wake) - now) if wake else 1.0
+            try:
+                item = q.get(timeout=min(timeout, 1.0))
+            except queue.Empty:
+                item = None
+            while item is not None:
+                if self._handle(item):
+                    return
+                try:
+                    item = q.get_nowait()
+                except queue.Empty:
+                    item = None
+            now = time.monotonic()
+            dl = self.engine.next_deadline()
+            if dl is not None and dl <= now:
+                try:
+                    self.emit(self.engine.tick(now))
+                except Exception:  # noqa: BLE001
+                    self._errors += 1
+                    log.exception("engine tick failed")
+            if self.control_server is not None:
+                try:
+                    self.control_server.serve_pending()
+                    self.control.observe(now)
+                except Exception:  # noqa: BLE001
+                    self._errors += 1
+                    log.exception("control socket")
+            if next_wd is not None and now >= next_wd:
+                self.notifier.watchdog()
+                next_wd = now + wd_interval
+            if next_status is not None and now >= next_status:
+                log.info("status: %s", self._status_text())
+                status_every = self.settings.status_interval * 60.0   # a reload may change it
+                next_status = now + status_every if status_every > 0 else None
+
+    def _handle(self, item: tuple) -> bool:
+        """Handle one queued event; True when the daemon must stop."""
+        kind = item[0]
+        try:
+            if kind == "midi":
+                self._handle_midi(item[1], item[2])
+            elif kind == "signal":
+                signum = item[1]
+                now = time.monotonic()
+                if signum == signal.SIGHUP:
+                    log.info("SIGHUP: reloading")
+                    self._reload(now)
+                    return False
+                log.info("%s: releasing every note and stopping", signal.Signals(signum).name)
+                self.emit(self.engine.release_all(now))
+                self.exit_status = 0
+                return True
+            elif kind == "ports":
+                self._check_ports(time.monotonic(), item[1], item[2])
+            elif kind == "bad":
+                self._bad_input += 1
+                if self._bad_input <= 10:
+                    log.warning("ignored input bytes %s: %s", item[2], item[3])
+            elif kind == "wake":
+                pass
+        except Exception as exc:  # noqa: BLE001 - a daemon never dies on bad input
+            self._errors += 1
+            log.exception("error handling %s: %s", item, exc)
+        return False

@@ -1,0 +1,366 @@
+"""The live daemon through a real JACK server (dummy backend): ports, pitches, signals, hotplug,
+notify, live switching. No mocks: `retuner run` is a subprocess, the test client is a JACK MIDI
+client written with python-rtmidi, wired with jack_connect.
+
+Sources for the checks:
+- pitch decoding (key + bend/8192 * range, RPN 0 = pitch bend sensitivity, a note-on with velocity 0
+  is a note-off, CC123 = all notes off): MIDI 1.0 Detailed Specification (MMA / The MIDI Association);
+- Werckmeister III: A. Werckmeister, Musicalische Temperatur (1691), as tabulated by J. M. Barbour,
+  Tuning and Temperament (1951): C-G, G-D, D-A and B-F# narrowed by 1/4 Pythagorean comma, the other
+  fifths pure; quarter-comma meantone (Aron 1523, Barbour ch. 3): every fifth 1/4 syntonic comma narrow,
+  chain Eb..G#; both tuned so that A4 = 440 Hz (ISO 16);
+- pure fifth 3/2 = 701.955 c, Pythagorean comma 3^12/2^19 = 23.460 c, syntonic comma 81/80 = 21.506 c
+  (computed here from the ratios);
+- sd_notify protocol: systemd's sd_notify(3) man page.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import random
+import signal
+import statistics
+import time
+import uuid
+
+import mido
+import pytest
+
+from jack import Daemon, NotifySocket, TestClient, decode
+
+FIFTH = 1200 * math.log2(3 / 2)
+PYTH_COMMA = 1200 * math.log2(3 ** 12 / 2 ** 19)
+SYNT_COMMA = 1200 * math.log2(81 / 80)
+LATENCY_FILE = "/tmp/retuner-jack-latency.json"
+
+
+def chain_pitch_classes(start_pc: int, fifths: list[float]) -> dict[int, float]:
+    """Pitch class -> cents above C (0..1200) of a chain of 12 notes from ``start_pc``."""
+    pos = [0.0]
+    for f in fifths:
+        pos.append(pos[-1] + f)
+    pcs = [(start_pc + 7 * i) % 12 for i in range(12)]
+    c = pos[pcs.index(0)]
+    return {pc: (p - c) % 1200.0 for pc, p in zip(pcs, pos)}
+
+
+def keyboard_target(pcs: dict[int, float]) -> dict[int, float]:
+    """Key -> cents above key 0 of 12-EDO, with A4 (key 69) at exactly 6900 c (440 Hz)."""
+    shift = 900.0 - pcs[9]
+    return {k: 1200 * (k // 12) + pcs[k % 12] + shift for k in range(128)}
+
+
+# Werckmeister III from Eb: Eb-Bb, Bb-F, F-C pure; C-G, G-D, D-A tempered; A-E, E-B pure; B-F# tempered;
+# F#-C#, C#-G# pure
+W3 = keyboard_target(chain_pitch_classes(3, [FIFTH] * 3 + [FIFTH - PYTH_COMMA / 4] * 3 + [FIFTH] * 2
+                                          + [FIFTH - PYTH_COMMA / 4] + [FIFTH] * 2))
+MEANTONE = keyboard_target(chain_pitch_classes(3, [FIFTH - SYNT_COMMA / 4] * 11))
+EDO12 = {k: 100.0 * k for k in range(128)}
+
+
+def half_step(range_semitones: float) -> float:
+    """Half of one 14-bit bend step in cents (MIDI 1.0: 8192 steps span the range)."""
+    return 100.0 * range_semitones / 8192 / 2
+
+
+def test_independent_tables_match_published_values():
+    # Barbour's table of Werckmeister III (cents from C, rounded): 0, 90, 192, 294, 390, 498, 588, 696,
+    # 792, 888, 996, 1092 (from memory, matches the definition above)
+    pcs = chain_pitch_classes(3, [FIFTH] * 3 + [FIFTH - PYTH_COMMA / 4] * 3 + [FIFTH] * 2
+                              + [FIFTH - PYTH_COMMA / 4] + [FIFTH] * 2)
+    assert [round(pcs[i]) for i in range(12)] == [0, 90, 192, 294, 390, 498, 588, 696, 792, 888, 996, 1092]
+    # quarter-comma meantone: pure major third C-E (386.314 c)
+    pcs = chain_pitch_classes(3, [FIFTH - SYNT_COMMA / 4] * 11)
+    assert pcs[4] == pytest.approx(1200 * math.log2(5 / 4), abs=1e-9)
+
+
+# ----------------------------------------------------------------------------- the daemon
+class Run:
+    """One daemon with its notify socket, wired to a test client."""
+
+    def __init__(self, jack_server, tmp_path, args, *, env_extra=None, wire_in=True, wire_out=True,
+                 client: TestClient | None = None):
+        self.server = jack_server
+        self.client_name = f"retuner-t{uuid.uuid4().hex[:6]}"
+        self.notify = NotifySocket(str(tmp_path / f"notify-{uuid.uuid4().hex[:6]}.sock"))
+        env = dict(jack_server.env)
+        env["NOTIFY_SOCKET"] = self.notify.path
+        env["XDG_CONFIG_HOME"] = str(tmp_path / "xdg-config")     # no user config, no user profiles
+        env.pop("JOURNAL_STREAM", None)
+        env.update(env_extra or {})
+        self.daemon = Daemon(["--backend", "jack", "--client-name", self.client_name,
+                              "--no-control-socket", "-v", *args],
+                             env, str(tmp_path / f"{self.client_name}.log"))
+        try:
+            self.notify.wait_for("READY=1", timeout=15)
+        except AssertionError:
+            self.daemon.stop()
+            raise AssertionError("daemon never became ready:\n" + self.daemon.log()[-3000:])
+        self.in_port = f"{self.client_name}-in:in"
+        self.out_port = f"{self.client_name}-out:out"
+        if client is not None:
+            if wire_in:
+                jack_server.connect(client.out_full, self.in_port)
+            if wire_out:
+                jack_server.connect(self.out_port, client.in_full)
+
+    def stop(self):
+        rc = self.daemon.stop()
+        self.notify.close()
+        return rc
+
+
+@pytest.fixture
+def runs():
+    started = []
+    yield started
+    for r in started:
+        r.stop()
+
+
+def start(runs, *a, **kw) -> Run:
+    r = Run(*a, **kw)
+    runs.append(r)
+    return r
+
+
+def note_ons(recs):
+    return [r for r in recs if r.msg.type == "note_on" and r.msg.velocity > 0]
+
+
+def note_offs(recs):
+    return [r for r in recs if r.msg.type == "note_off" or (r.msg.type == "note_on" and r.msg.velocity == 0)]
+
+
+def play_chord(client, keys, rng, channel=0, spread=(0.003, 0.025)):
+    """Press keys one after another with human spread; return {key: send time}."""
+    sent = {}
+    for k in keys:
+        sent[k] = client.send(mido.Message("note_on", channel=channel, note=k, velocity=rng.randint(50, 110)))
+        time.sleep(rng.uniform(*spread))
+    return sent
+
+
+def release(client, keys, rng, channel=0):
+    for k in rng.sample(list(keys), len(keys)):
+        client.send(mido.Message("note_off", channel=channel, note=k, velocity=64))
+        time.sleep(rng.uniform(0.0, 0.01))
+
+
+def assert_pitches(notes, target, rng_semitones=2.0):
+    for n in notes:
+        err = n.cents - target[n.key]
+        assert abs(err) <= half_step(rng_semitones) + 1e-9, \
+            f"key {n.key}: decoded {n.cents:.4f} c, target {target[n.key]:.4f} c, error {err:+.4f} c"
+
+
+# ----------------------------------------------------------------------------- tests
+def test_chords_arrive_at_their_werckmeister_pitch(jack_server, jack_client, tmp_path, runs):
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--profile", "werckmeister-3"], client=jack_client)
+    rng = random.Random(4)
+    chords = [[60, 64, 67], [62, 65, 69, 72], [59, 62, 67, 71], [57, 60, 64, 69], [61, 66, 70],
+              [63, 68, 72, 75], [48, 55, 64, 72, 76], [54, 58, 61, 66], [56, 60, 63, 68], [65, 69, 72, 77]]
+    sent_at: list[tuple[int, float]] = []
+    total = 0
+    for chord in chords:
+        sent = play_chord(jack_client, chord, rng)
+        sent_at += sorted(sent.items(), key=lambda kv: kv[1])
+        total += len(chord)
+        jack_client.wait_for(lambda r, n=total: len(note_ons(r)) >= n)
+        time.sleep(rng.uniform(0.05, 0.15))
+        release(jack_client, chord, rng)
+        jack_client.wait_for(lambda r, n=total: len(note_offs(r)) >= n)
+    recs = jack_client.messages()
+    d = decode(recs)
+    assert [n.key for n in d.notes] == [k for k, _ in sent_at]
+    assert_pitches(d.notes, W3, 2.0)
+    assert d.stuck() == []
+    # every channel used is a pool channel: never channel 10 (index 9), the default passthrough
+    assert 9 not in {n.channel for n in d.notes}
+    # latency through JACK (figures for the report; not a timed assertion)
+    arrivals = [r.t for r in note_ons(recs)]
+    lat = [(a - s) * 1000 for (_, s), a in zip(sent_at, arrivals)]
+    with open(LATENCY_FILE, "w") as fh:
+        json.dump({"n": len(lat), "median_ms": statistics.median(lat), "max_ms": max(lat),
+                   "min_ms": min(lat), "period_ms": 128 / 48000 * 1000}, fh)
+    print(f"note-on latency through JACK (2 hops, period 2.67 ms): median {statistics.median(lat):.2f} ms, "
+          f"max {max(lat):.2f} ms over {len(lat)} notes")
+
+
+def test_sigterm_releases_every_held_note_and_exits_0(jack_server, jack_client, tmp_path, runs):
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--profile", "werckmeister-3"], client=jack_client)
+    rng = random.Random(7)
+    keys = [48, 60, 64, 67, 70, 74]
+    play_chord(jack_client, keys, rng)
+    jack_client.send(mido.Message("control_change", control=64, value=127))   # sustain pedal down too
+    jack_client.wait_for(lambda r: len(note_ons(r)) >= len(keys))
+    d = decode(jack_client.messages())
+    assert len(d.stuck()) == len(keys)
+    sounding = {(n.channel, n.key) for n in d.stuck()}
+    run.daemon.signal(signal.SIGTERM)
+    assert run.daemon.wait(10) == 0
+    recs = jack_client.wait_for(lambda r: decode(r).stuck() == [], timeout=5)
+    # a note-off per sounding note, on its own channel and key (not only all-notes-off)
+    offs = {(r.msg.channel, r.msg.note) for r in note_offs(recs)}
+    assert sounding <= offs
+    # then all-notes-off (CC123) and the bend reset to centre on each pool channel used
+    used = {c for c, _ in sounding}
+    for c in used:
+        assert any(r.msg.type == "control_change" and r.msg.channel == c and r.msg.control == 123 for r in recs)
+        last_bend = [r.msg.pitch for r in recs if r.msg.type == "pitchwheel" and r.msg.channel == c][-1]
+        assert last_bend == 0
+    run.notify.wait_for("STOPPING=1", timeout=2)
+
+
+def test_hotplug_input_port_closes_and_returns(jack_server, tmp_path, runs):
+    client = TestClient(f"hot{uuid.uuid4().hex[:6]}")
+    try:
+        jack_server.wait_port(client.out_full)
+        run = start(runs, jack_server, tmp_path,
+                    ["--input", client.out_full, "--profile", "werckmeister-3"], client=client, wire_in=False)
+        # the daemon connected itself to the named port
+        end = time.monotonic() + 10
+        while run.in_port not in jack_server.connections(client.out_full) and time.monotonic() < end:
+            time.sleep(0.05)
+        assert run.in_port in jack_server.connections(client.out_full)
+        rng = random.Random(9)
+        play_chord(client, [60, 64, 67], rng)
+        client.wait_for(lambda r: len(note_ons(r)) >= 3)
+        # unplug while the chord is held: the daemon releases what the lost input held
+        client.close_out()
+        client.wait_for(lambda r: decode(r).stuck() == [], timeout=10)
+        log = run.daemon.log()
+        assert "is gone" in log
+        assert run.daemon.proc.poll() is None          # still running
+        # plug back in (same name): the daemon reconnects, notes flow again
+        client.open_out()
+        end = time.monotonic() + 10
+        while run.in_port not in jack_server.connections(client.out_full) and time.monotonic() < end:
+            time.sleep(0.05)
+        assert run.in_port in jack_server.connections(client.out_full), run.daemon.log()[-2000:]
+        client.clear()
+        play_chord(client, [62, 66, 69], rng)
+        client.wait_for(lambda r: len(note_ons(r)) >= 3)
+        release(client, [62, 66, 69], rng)
+        recs = client.wait_for(lambda r: len(note_offs(r)) >= 3)
+        d = decode(recs)
+        assert sorted(n.key for n in d.notes) == [62, 66, 69]
+        assert_pitches(d.notes, W3)
+        assert d.stuck() == []
+        assert run.daemon.log().count("is gone") == 1      # logged once
+    finally:
+        client.close()
+
+
+def _hold_and_read(client, key, rng):
+    """Play one key; its decoded note (the whole recording is decoded: a channel keeps its bend)."""
+    n0, f0 = len(note_ons(client.messages())), len(note_offs(client.messages()))
+    client.send(mido.Message("note_on", note=key, velocity=80))
+    client.wait_for(lambda r: len(note_ons(r)) > n0)
+    client.send(mido.Message("note_off", note=key))
+    recs = client.wait_for(lambda r: len(note_offs(r)) > f0)
+    return decode(recs).notes[n0]
+
+
+def test_sighup_with_a_broken_config_keeps_the_old_tuning(jack_server, jack_client, tmp_path, runs):
+    cfg = tmp_path / "retuner.yaml"
+    cfg.write_text("profile: werckmeister-3\n")
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--config", str(cfg)], client=jack_client)
+    rng = random.Random(1)
+    n = _hold_and_read(jack_client, 64, rng)
+    assert abs(n.cents - W3[64]) <= half_step(2)
+    # broken: an unknown field
+    cfg.write_text("profile: meantone-quarter\nprofil: edo12\n")
+    run.daemon.signal(signal.SIGHUP)
+    run.notify.wait_for("READY=1", count=2)          # sd_notify: RELOADING=1 ... READY=1 after a reload
+    assert "RELOADING=1" in run.notify.lines()
+    assert "reload failed" in run.daemon.log()
+    n = _hold_and_read(jack_client, 64, rng)
+    assert abs(n.cents - W3[64]) <= half_step(2)
+    # broken differently: a profile that does not exist
+    cfg.write_text("profile: no-such-tuning\n")
+    run.daemon.signal(signal.SIGHUP)
+    run.notify.wait_for("READY=1", count=3)
+    n = _hold_and_read(jack_client, 68, rng)
+    assert abs(n.cents - W3[68]) <= half_step(2)
+    # a good config does switch (so the checks above can fail)
+    cfg.write_text("profile: meantone-quarter\n")
+    run.daemon.signal(signal.SIGHUP)
+    run.notify.wait_for("READY=1", count=4)
+    n = _hold_and_read(jack_client, 68, rng)
+    assert abs(n.cents - MEANTONE[68]) <= half_step(2)
+    assert run.daemon.proc.poll() is None
+
+
+def test_ready_watchdog_stopping_on_notify_socket(jack_server, tmp_path, runs):
+    run = start(runs, jack_server, tmp_path, ["--virtual"], env_extra={"WATCHDOG_USEC": "200000"})
+    run.notify.wait_for("WATCHDOG=1", count=3, timeout=5)
+    lines = run.notify.lines()
+    assert lines.index("READY=1") < len(lines)
+    # READY=1 comes once the ports exist
+    ports = jack_server.lsp()
+    assert run.in_port in ports and run.out_port in ports
+    run.daemon.signal(signal.SIGTERM)
+    assert run.daemon.wait(10) == 0
+    run.notify.wait_for("STOPPING=1", timeout=2)
+    # watchdog pings at about half of WATCHDOG_USEC (0.1 s): several, not one per second
+    times = [t for t, m in run.notify.messages if m == "WATCHDOG=1"]
+    gaps = [b - a for a, b in zip(times, times[1:])]
+    assert gaps and statistics.median(gaps) < 0.2
+
+
+def test_program_change_and_ab_switch(jack_server, jack_client, tmp_path, runs):
+    cfg = tmp_path / "switch.yaml"
+    cfg.write_text("profile: werckmeister-3\n"
+                   "profiles: [edo12, meantone-quarter, werckmeister-3]\n"
+                   "switch: {channel: 16, ab_cc: 80, ab: [meantone-quarter, edo12]}\n")
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--config", str(cfg)], client=jack_client)
+    rng = random.Random(3)
+    # hold E4 in Werckmeister III
+    jack_client.send(mido.Message("note_on", note=64, velocity=90))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 1)
+    held = decode(recs).notes[0]
+    assert abs(held.cents - W3[64]) <= half_step(2)
+    n_before = len(recs)
+    # program change 2 (wire value 1) on channel 16 (wire 15) selects the 2nd profile: meantone-quarter
+    jack_client.send(mido.Message("program_change", channel=15, program=1))
+    jack_client.send(mido.Message("note_on", note=68, velocity=90))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 2)
+    d = decode(recs)
+    assert abs(d.notes[1].cents - MEANTONE[68]) <= half_step(2)
+    # the held note kept its pitch: no bend was sent on its channel after the switch
+    assert not [r for r in recs[n_before:] if r.msg.type == "pitchwheel" and r.msg.channel == held.channel]
+    # the program change was consumed, not passed to the synth
+    assert not [r for r in recs if r.msg.type == "program_change"]
+    # A/B: CC80 pressed toggles meantone-quarter -> edo12
+    jack_client.send(mido.Message("control_change", channel=15, control=80, value=127))
+    jack_client.send(mido.Message("control_change", channel=15, control=80, value=0))
+    jack_client.send(mido.Message("note_on", note=70, velocity=90))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 3)
+    assert abs(decode(recs).notes[2].cents - EDO12[70]) <= half_step(2)
+    # pressed again: back to meantone-quarter
+    jack_client.send(mido.Message("control_change", channel=15, control=80, value=127))
+    jack_client.send(mido.Message("note_on", note=75, velocity=90))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 4)
+    assert abs(decode(recs).notes[3].cents - MEANTONE[75]) <= half_step(2)
+    for k in (64, 68, 70, 75):
+        jack_client.send(mido.Message("note_off", note=k))
+    recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 4)
+    assert decode(recs).stuck() == []
+    log = run.daemon.log()
+    assert "tuning: meantone-quarter (program change 2)" in log
+    assert "tuning: edo12 (A/B switch CC80)" in log
+
+
+def test_bad_input_never_kills_the_daemon(jack_server, jack_client, tmp_path, runs):
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--profile", "werckmeister-3"], client=jack_client)
+    raw = jack_client.midi_out
+    # stray data bytes, a truncated note-on, an unterminated system exclusive, note-off for a key never played
+    for junk in ([0x40, 0x41], [0x90, 0x3C], [0xF0, 0x7E, 0x01], [0x80, 0x30, 0x00], [0xF7]):
+        raw.send_message(junk)
+    time.sleep(0.2)
+    n = _hold_and_read(jack_client, 66, random.Random(2))
+    assert abs(n.cents - W3[66]) <= half_step(2)
+    assert run.daemon.proc.poll() is None
