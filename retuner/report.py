@@ -1,0 +1,215 @@
+"""Reports of a conversion: JSON, a text summary, and a plot.
+
+Every measure is computed from the OUTPUT files' bytes (decoded as a synth
+would hear them, by :mod:`retuner.metrics`), not from the engine's state; the
+counters that only the engine knows (steals, ringing retunes) come from its
+``stats``. Fields:
+
+* ``notes``: notes decoded from the output; ``channels_used``: 1-based output
+  channels that played notes (percussion excluded);
+* ``steals``, ``ringing_retunes``: engine counters; ``bends_sent``: pitch bend
+  messages in the output;
+* ``worst_pitch_error_cents``: static profiles only: the largest distance of
+  any note's decoded pitch from the profile pitch of its key;
+* ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
+  ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.metrics`.
+
+The plot (``--plot``; matplotlib is an optional extra: ``pip install
+'retuner[plot]'``) shows each note as a line at its deviation from 12-EDO over
+the time it sounds, coloured by part, and the drift (mean deviation of the
+sounding notes) as a black step line.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Optional
+
+from .errors import RetunerError
+
+MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
+            "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
+            "drift_max_cents", "drift_final_cents", "drift_rms_cents")
+
+
+def require_matplotlib():
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        raise RetunerError("--plot needs matplotlib, which is not installed "
+                           "(pip install 'retuner[plot]')", field="--plot")
+
+
+def _decode(o, config):
+    from . import files, metrics
+    stream = files.output_stream(o.data, o.path)
+    return metrics.decode(stream, bend_scale=config.bend_scale,
+                          exclude_channels=tuple(config.passthrough))
+
+
+def _measures(dec, tuning, stats: dict) -> dict:
+    from . import metrics
+    imp, _ = metrics.impurity(dec.notes)
+    dr = metrics.drift(dec.notes)
+    rep = {
+        "notes": len(dec.notes),
+        "channels_used": list(dec.channels_used),
+        "steals": int(stats.get("steals", 0)),
+        "ringing_retunes": int(stats.get("ringing_retunes", 0)),
+        "bends_sent": int(dec.bends_sent),
+        "worst_pitch_error_cents": None,
+        "impurity_cents": round(imp, 4),
+        "motion_cents_per_note": round(metrics.motion(dec.notes), 4),
+        "drift_max_cents": round(dr["max"], 4),
+        "drift_final_cents": round(dr["final"], 4),
+        "drift_rms_cents": round(dr["rms"], 4),
+    }
+    if tuning is not None:
+        worst = 0.0
+        for n in dec.notes:
+            # the note's target: the profile pitch of the key that asked for it. With the
+            # nearest-key rule the output key can differ; take the closest mapped target.
+            tgt = tuning.cents[n.key] if 0 <= n.key < 128 else None
+            for _, c in n.steps:
+                err = abs(c - tgt) if tgt is not None else math.inf
+                if err > 50.0:  # played from another key: compare with the nearest target
+                    err = min(abs(c - x) for x in tuning.cents if x is not None)
+                worst = max(worst, err)
+        rep["worst_pitch_error_cents"] = round(worst, 4)
+    return rep
+
+
+def build_report(res, opts, decoded: Optional[list] = None) -> dict:
+    """The report of a conversion result (all output files)."""
+    config = opts.config
+    static = config.adaptive is None
+    files_rep = []
+    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    for o, dec in zip(res.outputs, decs):
+        r = {"file": o.path, "parts": [p + 1 for p in o.parts],
+             "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
+        r.update(_measures(dec, opts.tuning if static else None, o.stats))
+        files_rep.append(r)
+    top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
+           "adaptive": not static, "lookahead": bool(opts.lookahead),
+           "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
+    if len(files_rep) == 1:
+        top.update({k: v for k, v in files_rep[0].items() if k != "file"})
+    else:
+        top["notes"] = sum(f["notes"] for f in files_rep)
+        for k in ("steals", "ringing_retunes", "bends_sent"):
+            top[k] = sum(f[k] for f in files_rep)
+        for k in ("worst_pitch_error_cents", "drift_max_cents"):
+            vals = [f[k] for f in files_rep if f[k] is not None]
+            top[k] = max(vals) if vals else None
+        top["files"] = files_rep
+    return top
+
+
+def write_report(path: str, rep: dict) -> None:
+    from .files import write_atomic
+    write_atomic(path, (json.dumps(rep, indent=2) + "\n").encode())
+
+
+def text_summary(rep: dict) -> str:
+    lines = []
+    outs = ", ".join(rep["outputs"])
+    kind = "adaptive" + (" with lookahead" if rep.get("lookahead") else "") if rep.get("adaptive") else "static"
+    lines.append(f"{rep['input']} -> {outs}  ({rep['profile']}, {rep['mode']}, {kind})")
+    ch = rep.get("channels_used")
+    if ch is not None:
+        lines.append(f"  notes {rep['notes']}, channels used {len(ch)} ({','.join(map(str, ch))}), "
+                     f"steals {rep['steals']}, ringing retunes {rep['ringing_retunes']}, "
+                     f"bends sent {rep['bends_sent']}")
+    else:
+        lines.append(f"  notes {rep['notes']}, steals {rep['steals']}, ringing retunes "
+                     f"{rep['ringing_retunes']}, bends sent {rep['bends_sent']}")
+    if rep.get("worst_pitch_error_cents") is not None:
+        lines.append(f"  worst pitch error {rep['worst_pitch_error_cents']:.4f} c")
+    if "impurity_cents" in rep:
+        lines.append(f"  impurity {rep['impurity_cents']:.3f} c, motion {rep['motion_cents_per_note']:.3f} c/note, "
+                     f"drift max {rep['drift_max_cents']:.2f} c, final {rep['drift_final_cents']:.2f} c, "
+                     f"rms {rep['drift_rms_cents']:.2f} c")
+    for f in rep.get("files", []):
+        lines.append(f"  {f['file']}: parts {','.join(map(str, f['parts']))}: notes {f['notes']}, "
+                     f"impurity {f['impurity_cents']:.3f} c, motion {f['motion_cents_per_note']:.3f} c/note, "
+                     f"drift max {f['drift_max_cents']:.2f} c")
+    return "\n".join(lines)
+
+
+def drift_line(notes) -> tuple[list[float], list[float]]:
+    """(times, drift) step points: the mean deviation from 12-EDO of the sounding notes."""
+    ev = []
+    for i, n in enumerate(notes):
+        for t, c in n.steps:
+            ev.append((t, 1, i, c))
+        ev.append((n.end if n.end is not None else n.start, 0, i, 0.0))
+    ev.sort(key=lambda e: (e[0], e[1]))
+    cur: dict[int, float] = {}
+    xs: list[float] = []
+    ys: list[float] = []
+    for t, kind, i, c in ev:
+        if kind == 0:
+            cur.pop(i, None)
+        else:
+            cur[i] = c - 100.0 * notes[i].key
+        y = sum(cur.values()) / len(cur) if cur else math.nan
+        if xs and xs[-1] == t:
+            ys[-1] = y
+        else:
+            xs.append(t)
+            ys.append(y)
+    return xs, ys
+
+
+def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
+    """Draw every note's deviation from 12-EDO over time, coloured by part, with the drift line."""
+    require_matplotlib()
+    import io
+
+    import matplotlib
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+
+    config = opts.config
+    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    fig = Figure(figsize=(11, 5.5), dpi=100)
+    ax = fig.add_subplot(1, 1, 1)
+    cmap = matplotlib.colormaps["tab10"]
+    parts_seen: dict[int, int] = {}
+    all_notes = []
+    for o, dec in zip(res.outputs, decs):
+        part_of = {}
+        for p, chans in o.channels.items():
+            for c in chans:
+                part_of.setdefault(c, p)
+        for n in dec.notes:
+            p = part_of.get(n.channel, n.channel) if config.mode != "mts" else n.channel
+            col_i = parts_seen.setdefault(p, len(parts_seen))
+            colour = cmap(col_i % 10)
+            end = n.end if n.end is not None else n.start
+            pts = n.steps + [(end, n.steps[-1][1])]
+            xs, ys = [], []
+            for (t0, c0), (t1, _) in zip(pts, pts[1:]):
+                xs += [t0, t1]
+                ys += [c0 - 100.0 * n.key] * 2
+            ax.plot(xs, ys, color=colour, linewidth=2.0, solid_capstyle="butt")
+            all_notes.append(n)
+    dx, dy = drift_line(all_notes)
+    ax.step(dx, dy, where="post", color="black", linewidth=1.2)
+    ax.axhline(0.0, color="0.6", linewidth=0.8)
+    handles = [Line2D([], [], color=cmap(i % 10), linewidth=2, label=f"part {p + 1} (channel {p + 1})")
+               for p, i in sorted(parts_seen.items(), key=lambda kv: kv[1])]
+    handles.append(Line2D([], [], color="black", linewidth=1.2, label="drift (mean of sounding notes)"))
+    ax.legend(handles=handles, loc="upper right", fontsize=8)
+    ax.set_xlabel("time (s)")
+    ax.set_ylabel("deviation from 12-EDO (cents)")
+    ax.set_title(f"{res.input}: {opts.tuning.id}" + (" adaptive" if config.adaptive is not None else "")
+                 + (" + lookahead" if opts.lookahead else ""))
+    ax.grid(True, alpha=0.3)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    from .files import write_atomic
+    write_atomic(path, buf.getvalue())
