@@ -22,44 +22,65 @@ All pitches inside are deviations in cents from each key's own 12-EDO pitch.
 
 What we do differently (and why)
 --------------------------------
+The published scheme trades purity, motion and drift through the weights of
+one quadratic cost, so it either slides held notes a lot, stays impure, or
+drifts (see the figures in ``retuner bench --adaptive``). We keep its cost
+for *tuning a chord* and change how drift is shed:
+
 1. **The centre term acts on the gauge only.** The pull to the reference is a
    rank-one term on the *mean* deviation of the sounding notes,
-   ``mu * (mean_i (x_i - r_i))**2``, not a pull of each note to its tempered
-   pitch. A chord whose targets are consistent (a major triad 4:5:6, a minor
-   triad 10:12:15) therefore comes out exactly pure *and* exactly centred on the
-   reference; a per-note pull would bend it towards 12-EDO.
-2. **Re-centring through new notes, spread over events.** With held notes
-   frozen ("fixed-held") the common-mode freedom is spent on the new notes
-   only: they land slightly off pure against held notes, which moves the
-   centre back. With "limited", a held note moves by at most ``max_motion``
-   cents per event, so a re-centring is spread over several events instead of
-   one audible slide; the new notes are then re-solved against the clipped held
-   pitches so the chord stays as pure as the limit allows.
-3. **A hard drift limit.** If the solution's centre is further than
-   ``max_drift`` from the reference, the whole chord is first shifted as far as
-   the held notes' motion allowance permits (intervals stay pure), then the rest
-   is taken by the new notes alone.
-4. **Ambiguous interval classes chosen by context.** Some classes have more
+   ``mu * (mean_i (x_i - r_i) - aim)**2``, not a pull of each note to its
+   tempered pitch. A chord whose targets are consistent (a major triad 4:5:6,
+   a minor triad 10:12:15) comes out exactly pure *and*, struck from silence,
+   exactly centred on the reference; a per-note pull would bend it.
+2. **Pure first, re-centre only when needed.** Each event is first solved
+   with the sounding notes held where they are (new notes pure against them).
+   Only if that leaves the centre outside a window around the aim is the cost
+   solved again with the centre term.
+3. **Held notes move together.** When held notes must move ("limited"), they
+   move as one rigid block by a single shift ``u`` (cost
+   ``motion_weight * n_held * u**2``), so intervals among held notes stay as
+   pure as they were and every cent of motion buys a cent of re-centring.
+   The shift is limited to ``max_motion`` per event; the new notes take the
+   rest (a little impurity against the held notes).
+4. **Re-centre where it is cheap.** The window grows by ``window_per_held``
+   for every held note beyond the first, so events where several notes would
+   have to move are left alone (within the drift limit), and the solver
+   re-centres at events with a single held note.
+5. **Anticipation.** An exponential average of how far the pure chain moves
+   the centre per event (the comma pump sinks about 5.4 cents per chord) sets
+   the aim on the other side of the reference (``anticipate``, at most
+   ``aim_limit``), so the costly events find room to drift.
+6. **A hard drift limit.** If the centre would still be beyond ``max_drift``,
+   the whole chord shifts within the held notes' remaining allowance, then
+   the new notes alone take the rest.
+7. **Ambiguous interval classes chosen by context.** Some classes have more
    than one just candidate (minor seventh 9/5 or 16/9, and 7/4 in the 7-limit
    table; major second 9/8 or 10/9; tritone 45/32 or 64/45; minor third 6/5 or
-   7/6 in the 7-limit table). After a first solve with each class's first
-   candidate, every ambiguous pair takes the candidate nearest to what the rest
-   of the chord implies, and the system is solved again (at most twice). In a
-   ii7 chord D-F-A-C this gives D-C = 9/5; in a V7 chord with the 7-limit
-   table it lets D-F become 7/6 so the chord is 4:5:6:7.
-5. **Silence.** With the "reset" policy the solver forgets everything when
-   nothing sounds: the next chord is pure and exactly centred. Without it, the
-   notes that sounded last are kept as fixed "ghost" partners (weight
+   7/6 in the 7-limit table). After a solve with each class's first
+   candidate, every ambiguous pair takes the candidate nearest to what the
+   rest of the chord implies, and the system is solved again (at most twice).
+   In a ii7 chord D-F-A-C this gives D-C = 9/5; with the 7-limit table a
+   dominant seventh can settle on 4:5:6:7.
+8. **Silence.** With "+reset" the solver forgets everything when nothing
+   sounds: the next chord is pure and exactly centred. Without it, the notes
+   that sounded last are kept as fixed "ghost" partners (weight
    ``memory_weight``) for the first chord after a silence, so a detached
-   passage keeps its melodic intervals pure while the centre term and drift
-   limit keep it near the reference.
+   passage keeps its melodic intervals near pure.
 
-Costs of the policies (see ``AdaptiveConfig``): "fixed-held" never slides a
-sounding note, but drift can only be shed through impurity of new notes against
-held ones, so a long chain of held common tones (the comma pump) either drifts
-or becomes impure; "limited" sheds drift by small slides of held notes (motion)
-and keeps impurity low; "reset" costs nothing in legato but recentres detached
-playing abruptly (melodic intervals across a silence are not kept pure).
+The policy "free" is the published form (every held note its own motion
+cost, centre pulled to the reference at every event), kept for comparison.
+
+Costs of the policies: "fixed-held" never slides a sounding note, but drift
+can only be shed through impurity of new notes against held ones, so a long
+chain of held common tones (the comma pump) becomes impure at the drift
+limit; "limited" sheds drift by small rigid slides of held notes (motion,
+at most ``max_motion`` cents per event) and keeps impurity low; "+reset" costs
+nothing in legato playing but re-centres detached playing abruptly (melodic
+intervals across a silence are not kept pure).
+
+The defaults were chosen on the project's own progressions (comma pump and
+four chorales in :mod:`retuner.progressions`), so they fit that material best.
 
 The default chord window is 0.02 s: notes arriving within 20 ms of the first
 note of a chord are solved together, so every note of a chord is delayed by up
@@ -173,19 +194,38 @@ class AdaptiveConfig:
     centre_weight: mu, cost of the centre's distance from the reference.
     memory_weight: weight of the previous chord's notes after a silence
         (without "reset"); 0 disables memory.
+    window: cents; while the centre of a chord tuned pure against the held
+        notes lies within this distance of the aim, nothing is re-centred
+        (no motion, no impurity spent on drift); beyond it the solver
+        re-centres to the window's edge.
+    window_per_held: cents added to the window for every held note beyond
+        the first: re-centring where several notes would have to move is
+        left for cheaper events (still within the drift limit).
+    anticipate, trend_rate, aim_limit: the aim is
+        ``clamp(-anticipate * trend, -aim_limit, aim_limit)`` where trend is
+        an exponential average (rate ``trend_rate``) of how far the pure
+        chain moves the centre per event; 0 anticipation aims at the
+        reference itself.
+    drift_margin: cents kept between the window and ``max_drift``.
     """
 
     chord_window: float = 0.02
     policy: str = "limited+reset"
-    max_drift: float = 5.0
-    max_motion: float = 1.5
+    max_drift: float = 4.8
+    max_motion: float = 6.0
     limit: str = "5"
     intervals: dict = field(default_factory=dict)
     weights: dict = field(default_factory=dict)
     reference: str = "edo12"
     motion_weight: float = 2.0
-    centre_weight: float = 1.0
+    centre_weight: float = 16.0
     memory_weight: float = 0.5
+    window: float = 2.0
+    window_per_held: float = 10.0
+    anticipate: float = 2.0
+    trend_rate: float = 0.05
+    aim_limit: float = 4.0
+    drift_margin: float = 0.5
 
     # -- derived ----------------------------------------------------------
     @property
@@ -231,6 +271,12 @@ class AdaptiveConfig:
         num("motion_weight", 0.0, 1e6)
         num("centre_weight", 0.0, 1e6)
         num("memory_weight", 0.0, 1e6)
+        num("window", 0.0, 1200.0)
+        num("window_per_held", 0.0, 1200.0)
+        num("anticipate", 0.0, 100.0)
+        num("trend_rate", 0.0, 1.0)
+        num("aim_limit", 0.0, 1200.0)
+        num("drift_margin", 0.0, 1200.0)
         if not isinstance(self.policy, str):
             raise RetunerError(f"expected a policy name, got {self.policy!r}", file=file, field="adaptive.policy")
         parts = [p.strip() for p in self.policy.split("+")]
@@ -315,7 +361,8 @@ class AdaptiveSolver:
             for m, v in enumerate(vals):
                 dev = v - 100.0 * o  # deviation of the just interval from 12-EDO
                 cand[idx, m] = dev if d >= 0 else -dev
-        self._cand = cand
+        self._cand = np.where(np.isnan(cand), 1e9, cand)
+        self._ncand = ncand
         self._tau0 = cand[:, 0].copy()
         self._ambig = ~np.isnan(cand[:, 1]) if ncand > 1 else np.zeros(255, bool)
         self._w = np.array([weights[int(abs(d)) % 12] for d in diffs], dtype=float)
@@ -342,7 +389,9 @@ class AdaptiveSolver:
         self._last: dict[int, float] = {}   # key -> deviation, notes we placed that sounded last
         self._ghosts: dict[int, float] = {}
         self._drift = 0.0
+        self._trend = 0.0
         self._sounding = False
+        self._pair_cache = None
 
     @property
     def drift(self) -> float:
@@ -354,13 +403,81 @@ class AdaptiveSolver:
         return 100.0 * key + float(self._ref[key])
 
     # -- the system -----------------------------------------------------------
-    def _system(self, keys: np.ndarray, tau: np.ndarray, W: np.ndarray):
-        """Pair part of the normal equations: (L, b)."""
-        L = -W
-        np.fill_diagonal(L, 0.0)
-        L[np.diag_indices_from(L)] = W.sum(axis=1) - np.diag(W)
-        b = -(W * tau).sum(axis=1)
-        return L, b
+    def _lsq(self, tau: np.ndarray, W: np.ndarray, how: str, cur: np.ndarray, nh: int, ng: int,
+             lam: float, mu: float, target: float, ref: np.ndarray) -> np.ndarray:
+        """Minimise the cost for one parametrisation of the held notes.
+
+        Notes are ordered held (nh), ghosts (ng), new. ``how``: "fixed" (held
+        notes stay at ``cur``), "rigid" (held notes move together by one
+        shift u, cost ``lam * nh * u**2``) or "free" (each held note moves,
+        cost ``lam * (x_h - c_h)**2``: the published form). Ghosts never move.
+        The centre term is ``mu * (mean over sounding notes of (x - ref) - target)**2``.
+        """
+        n = W.shape[0]
+        # pair part of the normal equations: A x = b with A the weighted Laplacian
+        # (cached while tau and W stay the same objects)
+        pc = self._pair_cache
+        if pc is not None and pc[0] is tau and pc[1] is W:
+            A, b = pc[2], pc[3]
+        else:
+            A = -W
+            A.flat[::n + 1] = W.sum(axis=1)
+            b = -(W * tau).sum(axis=1)   # tau is antisymmetric, W symmetric
+            self._pair_cache = (tau, W, A, b)
+        # centre (rank one, over sounding notes only)
+        m = n - ng
+        if mu > 0 and m > 0:
+            c = mu / (m * m)
+            if ng:
+                sm = np.ones(n)
+                sm[nh:nh + ng] = 0.0
+                A = A + c * np.outer(sm, sm)
+                b = b + c * sm * (float(ref @ sm) + m * target)
+            else:
+                A = A + c
+                b = b + c * (float(ref.sum()) + m * target)
+        f = nh + ng
+        nn = n - f
+        if nn == 0 and how != "free":
+            return cur.copy()
+        if how == "fixed" or (how == "rigid" and nh == 0):
+            r = b[f:] - A[f:, :f] @ cur[:f] if f else b[f:]
+            x = cur.copy()
+            Mf = A[f:, f:].copy()
+            Mf.flat[::nn + 1] += 1e-9
+            x[f:] = np.linalg.solve(Mf, r)
+            return x
+        if how == "rigid":
+            # unknowns: the new notes and one common shift u of the held notes
+            M = np.empty((nn + 1, nn + 1))
+            M[:nn, :nn] = A[f:, f:]
+            col = A[f:, :nh].sum(axis=1)
+            M[:nn, nn] = col
+            M[nn, :nn] = col
+            M[nn, nn] = A[:nh, :nh].sum() + lam * nh + 1e-9
+            resid = b - A[:, :f] @ cur[:f]
+            r = np.empty(nn + 1)
+            r[:nn] = resid[f:]
+            r[nn] = resid[:nh].sum()
+            z = np.linalg.solve(M, r)
+            x = cur.copy()
+            x[:nh] += z[nn]
+            x[f:] = z[:nn]
+            return x
+        # free: every held note is an unknown with its own motion cost
+        A = A.copy()
+        A.flat[:nh * (n + 1):n + 1] += lam
+        b = b.copy()
+        b[:nh] += lam * cur[:nh]
+        x = cur.copy()
+        if ng:
+            idx = np.r_[0:nh, f:n]
+            gi = slice(nh, f)
+            r = b[idx] - A[idx, gi] @ cur[gi]
+            x[idx] = np.linalg.solve(A[np.ix_(idx, idx)] + 1e-9 * np.eye(len(idx)), r)
+        else:
+            x[:] = np.linalg.solve(A + 1e-9 * np.eye(n), b)
+        return x
 
     def _targets(self, keys: np.ndarray):
         D = keys[None, :] - keys[:, None] + 127
@@ -369,129 +486,137 @@ class AdaptiveSolver:
     # -- public ---------------------------------------------------------------
     def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
         cfg = self.config
-        held = list(held)
-        new = list(new)
+        held_in = [(int(k), float(c)) for k, c in held]
+        new = list(dict.fromkeys(int(k) for k in new))
+        # a held key that is also struck anew is not solved twice: it keeps its pitch
+        solve_idx = [i for i, (k, _) in enumerate(held_in) if k not in new]
+        held = [held_in[i] for i in solve_idx]
         if not new and not held:
-            self._note_silence()
-            return [], []
-        # drop notes beyond the size we solve densely: keep the newest
+            if not held_in:
+                self._note_silence()
+            return [c for _, c in held_in], []
+        # beyond MAX_NOTES: the oldest held notes stay where they are (not solved);
+        # new notes beyond MAX_NOTES are tuned in a second solve against the first ones
+        skip: list[tuple[int, float]] = []
+        overflow: list[int] = []
+        if len(new) > MAX_NOTES:
+            new, overflow = new[:MAX_NOTES], new[MAX_NOTES:]
         if len(held) + len(new) > MAX_NOTES:
             extra = len(held) + len(new) - MAX_NOTES
-            kept_held = held[extra:] if extra <= len(held) else []
-            result_held_skip = held[:len(held) - len(kept_held)]
-        else:
-            kept_held, result_held_skip = held, []
-        if not held:
+            skip, held = held[:extra], held[extra:]
+            solve_idx = solve_idx[extra:]
+        if not held and not skip:
             self._note_silence()
-        hk = [k for k, _ in kept_held]
-        hdev = [c - 100.0 * k for k, c in kept_held]
-        ghosts = []
-        if not kept_held and self._ghosts and not cfg.reset_on_silence and cfg.memory_weight > 0:
+        hk = [k for k, _ in held]
+        ghosts: list[tuple[int, float]] = []
+        if not held and not skip and self._ghosts and not cfg.reset_on_silence and cfg.memory_weight > 0:
             ghosts = [(k, d) for k, d in self._ghosts.items() if k not in new][: MAX_NOTES - len(new)]
         gk = [k for k, _ in ghosts]
-        keys = np.array(hk + gk + list(new), dtype=int)
+        keys = np.array(hk + gk + new, dtype=int)
         nh, ng, nn = len(hk), len(gk), len(new)
         n = nh + ng + nn
         cur = np.zeros(n)
-        cur[:nh] = hdev
+        cur[:nh] = [c - 100.0 * k for k, c in held]
         cur[nh:nh + ng] = [d for _, d in ghosts]
         ref = self._ref[keys]
-        mode = cfg.held_mode
-        lam = np.zeros(n)
-        fixed = np.zeros(n, bool)
-        fixed[nh:nh + ng] = True
-        if mode == "fixed-held":
-            fixed[:nh] = True
-        else:
-            lam[:nh] = cfg.motion_weight
         D, tau, W = self._targets(keys)
         if ng:
-            # ghosts: weak partners, no pairs among themselves, not counted in the centre
             gi = slice(nh, nh + ng)
             W[:, gi] *= cfg.memory_weight
             W[gi, :] *= cfg.memory_weight
             W[gi, gi] = 0.0
-        np.fill_diagonal(W, 0.0)
-        # centre over sounding notes only (ghosts excluded): implement by solving with
-        # mu on the mean of sounding notes; ghosts have ref = their value (no pull)
-        x = self._solve_centre(keys, fixed, cur, tau, W, lam, ref, nh, ng)
-        # context choice among ambiguous candidates (at most two passes)
-        amb = self._ambig[D]
-        np.fill_diagonal(amb, False)
+        W.flat[::n + 1] = 0.0
+        mode = cfg.held_mode
+        lam, mu, band = cfg.motion_weight, cfg.centre_weight, cfg.aim_limit
+        sound = np.ones(n, bool)
+        sound[nh:nh + ng] = False
+
+        ref_sum = float(ref.sum()) - float(ref[nh:nh + ng].sum())
+        m_sound = n - ng
+
+        def centre_of(x: np.ndarray) -> float:
+            return (float(x.sum()) - float(x[nh:nh + ng].sum()) - ref_sum) / m_sound
+
+        if mode == "free":
+            def first():
+                return self._lsq(tau, W, "free", cur, nh, ng, lam, mu, 0.0, ref)
+        else:
+            def first():
+                # pure against the notes that sound; from silence, centred on the reference
+                return self._lsq(tau, W, "fixed", cur, nh, ng, lam, mu if nh + ng == 0 else 0.0, 0.0, ref)
+        x = first()
+        # context choice among ambiguous candidates (at most two more passes)
+        amb = self._ambig[D]   # the diagonal (unison) has one candidate only
         if amb.any():
             for _ in range(2):
                 diff = x[None, :] - x[:, None]
-                cand = self._cand[D]  # (n, n, C)
-                err = np.abs(cand - diff[:, :, None])
-                err = np.where(np.isnan(err), np.inf, err)
-                choice = np.argmin(err, axis=2)
-                new_tau = np.take_along_axis(cand, choice[:, :, None], axis=2)[:, :, 0]
-                new_tau = np.where(amb, new_tau, tau)
-                if np.allclose(new_tau, tau):
+                cand = self._cand[D].reshape(n * n, self._ncand)
+                choice = np.argmin(np.abs(cand - diff.reshape(n * n, 1)), axis=1)
+                new_tau = np.where(amb, cand[np.arange(n * n), choice].reshape(n, n), tau)
+                if float(np.abs(new_tau - tau).max()) < 1e-9:
                     break
                 tau = new_tau
-                x = self._solve_centre(keys, fixed, cur, tau, W, lam, ref, nh, ng)
-        # limited: clip held motion, then re-solve the new notes against it
-        if mode == "limited" and nh:
+                x = first()
+        if mode != "free" and nh + ng > 0:
+            c0 = centre_of(x)
+            # the pure chain's drift per event (exponential average): re-centre past the
+            # reference against it, so events where moving is dear can drift for free
+            if nh:
+                self._trend += cfg.trend_rate * ((c0 - self._drift) - self._trend)
+            aim = max(-band, min(band, -cfg.anticipate * self._trend))
+            half = cfg.window + cfg.window_per_held * max(0, nh - 1)
+            edge = max(0.0, cfg.max_drift - cfg.drift_margin)
+            lo, hi = max(-edge, aim - half), min(edge, aim + half)
+            if not (lo <= c0 <= hi):
+                # re-centre towards the window: held notes move together (limited)
+                # or not at all (fixed-held), the new notes take the rest
+                how = "rigid" if (mode == "limited" and nh) else "fixed"
+                tgt = lo if c0 < lo else hi
+                x = self._lsq(tau, W, how, cur, nh, ng, lam, mu, tgt, ref)
+                if how == "rigid":
+                    u = float(x[0] - cur[0])
+                    if abs(u) > cfg.max_motion + 1e-12:
+                        cur2 = cur.copy()
+                        cur2[:nh] += math.copysign(cfg.max_motion, u)
+                        x = self._lsq(tau, W, "fixed", cur2, nh, ng, lam, mu, tgt, ref)
+        elif mode == "free" and nh and cfg.max_motion < 1200:
             dx = x[:nh] - cur[:nh]
-            lim = cfg.max_motion
-            if np.any(np.abs(dx) > lim + 1e-12):
-                fx = fixed.copy()
-                fx[:nh] = True
+            if np.any(np.abs(dx) > cfg.max_motion + 1e-12):
                 cur2 = cur.copy()
-                cur2[:nh] = cur[:nh] + np.clip(dx, -lim, lim)
-                x = self._solve_centre(keys, fx, cur2, tau, W, np.zeros(n), ref, nh, ng)
+                cur2[:nh] = cur[:nh] + np.clip(dx, -cfg.max_motion, cfg.max_motion)
+                x = self._lsq(tau, W, "fixed", cur2, nh, ng, lam, mu, 0.0, ref)
         # hard drift limit
-        sound = np.ones(n, bool)
-        sound[nh:nh + ng] = False
-        centre = float(np.mean(x[sound] - ref[sound]))
-        if cfg.max_drift >= 0 and abs(centre) > cfg.max_drift + 1e-9:
+        centre = centre_of(x)
+        if abs(centre) > cfg.max_drift + 1e-9 and nn:
             excess = centre - math.copysign(cfg.max_drift, centre)
-            # whole-chord shift within the held notes' allowance
-            if nh == 0 or mode == "free":
+            moved = float(np.max(np.abs(x[:nh] - cur[:nh]))) if nh else 0.0
+            if nh == 0:
                 allow = abs(excess)
-            elif mode == "limited":
-                moved = np.abs(x[:nh] - cur[:nh])
-                allow = max(0.0, float(np.min(cfg.max_motion - moved)))
-            else:
+            elif mode == "fixed-held":
                 allow = 0.0
+            else:
+                allow = max(0.0, cfg.max_motion - moved)
             u = math.copysign(min(abs(excess), allow), excess)
             x[:nh] -= u
             x[nh + ng:] -= u
             rest = excess - u
-            if abs(rest) > 1e-12 and nn:
+            if abs(rest) > 1e-12:
                 x[nh + ng:] -= rest * (nh + nn) / nn
-            centre = float(np.mean(x[sound] - ref[sound]))
+            centre = centre_of(x)
         self._drift = centre
-        # remember
         out_held = [float(100.0 * k + d) for k, d in zip(hk, x[:nh])]
         out_new = [float(100.0 * k + d) for k, d in zip(new, x[nh + ng:])]
         self._last = {int(k): float(d) for k, d in zip(hk, x[:nh])}
         self._last.update({int(k): float(d) for k, d in zip(new, x[nh + ng:])})
         self._ghosts = {}
-        self._sounding = True
-        if result_held_skip:
-            out_held = [float(c) for _, c in result_held_skip] + out_held
-        return out_held, out_new
-
-    def _solve_centre(self, keys, fixed, cur, tau, W, lam, ref, nh, ng):
-        # centre over sounding notes only (ghosts excluded): a rank-one term on a mask
-        n = len(keys)
-        A, b = self._system(keys, tau, W)
-        A = A + np.diag(lam)
-        b = b + lam * cur
-        s = np.ones(n)
-        s[nh:nh + ng] = 0.0
-        m = s.sum()
-        c = self.config.centre_weight / (m * m)
-        A = A + c * np.outer(s, s)
-        b = b + c * s * float((ref * s).sum())
-        free = ~fixed
-        x = cur.copy()
-        Aff = A[np.ix_(free, free)] + 1e-9 * np.eye(int(free.sum()))
-        bf = b[free] - A[np.ix_(free, fixed)] @ cur[fixed]
-        x[free] = np.linalg.solve(Aff, bf)
-        return x
+        if overflow:
+            h2 = list(zip(new, out_new))
+            _, o2 = self.solve(h2, overflow)
+            out_new += o2
+        result = [c for _, c in held_in]
+        for i, c in zip(solve_idx, out_held):
+            result[i] = c
+        return result, out_new
 
     def _note_silence(self) -> None:
         """Nothing sounds: keep the last notes as ghosts (unless resetting)."""
@@ -501,6 +626,7 @@ class AdaptiveSolver:
         if self.config.reset_on_silence:
             self._ghosts = {}
             self._drift = 0.0
+            self._trend = 0.0
 
     def release(self, keys: Sequence[int]) -> None:
         """Optional: tell the solver notes have ended (keeps memory for silences)."""
