@@ -506,9 +506,10 @@ class ControlServer:
             if line.strip():
                 self._request(c, line)
         if len(c.inbuf) > self.MAX_LINE and b"\n" not in c.inbuf:
-            self._reply(c, _encode(_error(f"request line longer than {self.MAX_LINE} bytes")))
             c.inbuf.clear()
             c.closing = True
+            self._reply(c, _encode(_error(f"request line longer than {self.MAX_LINE} bytes")))
+            return
         self._update(c)
 
     def _request(self, c: _Client, line: bytes) -> None:
@@ -787,6 +788,9 @@ class EngineControl(Handler):
     # -------------------------------------------------------- engine thread
     def _effective(self):
         t = rotate_tuning(self.base, self.transpose)
+        a4, a4_new = self.base.cents[69], t.cents[69]
+        if self.transpose and a4 is not None and a4_new is not None:
+            t = t.shifted(a4 - a4_new)        # A4 keeps its pitch; the pattern moves around it
         if self.reference is not None:
             t = t.with_reference_hz(self.reference)
         if self.transpose_cents:

@@ -1,0 +1,509 @@
+"""The control socket against the control server alone, driving a real (sans-I/O) engine.
+
+A small "engine thread" here plays the daemon's part exactly as retuner/daemon.py
+does: it feeds MIDI to a real retuner.engine.Engine, ticks it, drains
+``server.serve_pending()`` and calls ``EngineControl.observe``. The tests speak
+JSON lines over a real Unix socket. (The same commands against the real daemon
+on the JACK fixture are in test_control_daemon.py.)
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import queue
+import shutil
+import socket
+import stat
+import tempfile
+import threading
+import time
+
+import mido
+import pytest
+
+from retuner.control import (COMMANDS, ControlClient, ControlServer, EngineControl, EngineHost,
+                             default_socket_path)
+from retuner.engine import Engine, EngineConfig
+from retuner.errors import RetunerError
+from retuner.profile import list_profiles, load_profile
+from retuner.tuning import hz_to_cents, ratio_to_cents
+from fractions import Fraction
+
+BEND_STEP = 200.0 / 8192     # cents per bend step at the default range of 2 semitones (MIDI 1.0 spec)
+
+
+class Rig:
+    """Engine + EngineControl + ControlServer, with an engine thread like the daemon's."""
+
+    def __init__(self, profile: str = "werckmeister-3", path: str | None = None):
+        self.dir = tempfile.mkdtemp(prefix="rtc")
+        self.path = path or os.path.join(self.dir, "retuner", "control.sock")
+        self.engine = Engine(load_profile(profile), EngineConfig())
+        self.out: list[mido.Message] = []
+        self.midi: "queue.SimpleQueue" = queue.SimpleQueue()
+        self.calls: "queue.SimpleQueue" = queue.SimpleQueue()
+        host = EngineHost(engine=self.engine, emit=self.out.extend, tuning=self.engine.tuning,
+                          clock=time.monotonic)
+        self.ctl = EngineControl(host)
+        self.server = ControlServer(self.path, self.ctl)
+        self.ctl.server = self.server
+        self.server.start()
+        self.out.extend(self.engine.start(time.monotonic()))
+        self.stop = False
+        self.thread = threading.Thread(target=self._loop, daemon=True)
+        self.thread.start()
+
+    def _loop(self) -> None:
+        while not self.stop:
+            now = time.monotonic()
+            try:
+                while True:
+                    msg = self.midi.get_nowait()
+                    self.out.extend(self.engine.feed(now, msg))
+            except queue.Empty:
+                pass
+            try:
+                while True:
+                    fn = self.calls.get_nowait()
+                    fn()
+            except queue.Empty:
+                pass
+            dl = self.engine.next_deadline()
+            if dl is not None and dl <= now:
+                self.out.extend(self.engine.tick(now))
+            self.server.serve_pending()
+            self.ctl.observe(now)
+            time.sleep(0.001)
+
+    def play(self, *keys: int, on: bool = True) -> None:
+        for k in keys:
+            self.midi.put(mido.Message("note_on" if on else "note_off", note=k, velocity=80 if on else 0))
+
+    def on_engine(self, fn) -> None:
+        """Run fn on the engine thread and wait for it."""
+        done = threading.Event()
+        self.calls.put(lambda: (fn(), done.set()))
+        assert done.wait(10)
+
+    def notes(self) -> dict[int, float]:
+        """Sounding key -> cents, from a subscribe snapshot over the socket."""
+        with ControlClient(self.path) as c:
+            r = c.request("subscribe")
+        assert r["ok"], r
+        return {n["key"]: n["cents"] for n in r["notes"]}
+
+    def wait_notes(self, keys, timeout: float = 5.0) -> dict[int, float]:
+        end = time.monotonic() + timeout
+        while True:
+            n = self.notes()
+            if set(n) == set(keys):
+                return n
+            assert time.monotonic() < end, f"sounding {sorted(n)}, want {sorted(keys)}"
+            time.sleep(0.01)
+
+    def close(self) -> None:
+        self.stop = True
+        self.thread.join(5)
+        self.server.close()
+        shutil.rmtree(self.dir, ignore_errors=True)
+
+
+@pytest.fixture
+def rig():
+    r = Rig()
+    try:
+        yield r
+    finally:
+        r.close()
+
+
+def raw(path: str) -> socket.socket:
+    s = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    s.settimeout(10)
+    s.connect(path)
+    return s
+
+
+def read_line(s: socket.socket, buf: bytearray) -> dict:
+    while b"\n" not in buf:
+        data = s.recv(65536)
+        assert data, "connection closed"
+        buf += data
+    nl = buf.index(b"\n")
+    line = bytes(buf[:nl])
+    del buf[:nl + 1]
+    return json.loads(line)
+
+
+# --------------------------------------------------------------------------- socket
+
+
+def test_socket_permissions_default_path(monkeypatch):
+    base = tempfile.mkdtemp(prefix="rtx")
+    try:
+        monkeypatch.setenv("XDG_RUNTIME_DIR", base)
+        path = default_socket_path()
+        assert str(path) == os.path.join(base, "retuner", "control.sock")
+        os.makedirs(os.path.join(base, "retuner"), mode=0o755)   # a folder left too open is tightened
+        os.chmod(os.path.join(base, "retuner"), 0o755)
+        srv = ControlServer(None, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        try:
+            assert stat.S_ISSOCK(os.stat(path).st_mode)
+            assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
+            assert stat.S_IMODE(os.stat(path.parent).st_mode) == 0o700
+            # a second server on the same live socket is refused, the first keeps it
+            with pytest.raises(RetunerError, match="already listening"):
+                ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+            assert os.path.exists(path)
+        finally:
+            srv.close()
+        assert not os.path.exists(path)      # removed on close
+    finally:
+        shutil.rmtree(base, ignore_errors=True)
+
+
+def test_stale_socket_is_replaced_and_new_folder_is_private():
+    base = tempfile.mkdtemp(prefix="rtx")
+    try:
+        path = os.path.join(base, "sub", "ctl.sock")
+        os.makedirs(os.path.dirname(path))
+        dead = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+        dead.bind(path)
+        dead.close()                                   # a leftover of a daemon that died
+        srv = ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        try:
+            assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
+            with ControlClient(path) as c:
+                r = c.request("nonsense")
+            assert r["ok"] is False and "unknown command" in r["error"]
+        finally:
+            srv.close()
+        fresh = os.path.join(base, "new", "retuner", "c.sock")
+        srv = ControlServer(fresh, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        try:
+            assert stat.S_IMODE(os.stat(os.path.dirname(fresh)).st_mode) == 0o700
+        finally:
+            srv.close()
+        with open(os.path.join(base, "plain"), "w") as fh:
+            fh.write("x")
+        with pytest.raises(RetunerError, match="not a socket"):
+            ControlServer(os.path.join(base, "plain"), EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+    finally:
+        shutil.rmtree(base, ignore_errors=True)
+
+
+# --------------------------------------------------------------------------- commands
+
+
+def test_status_and_profiles(rig):
+    with ControlClient(rig.path) as c:
+        st = c.request("status", id=7)
+        assert st["ok"] and st["id"] == 7 and st["cmd"] == "status"
+        assert st["tuning"] == "werckmeister-3" and st["adaptive"] is False
+        assert st["reference"] is None and st["transpose"] == 0
+        assert "notes" in st["stats"] and st["sounding"] == 0
+        pr = c.request("profiles")
+    assert pr["ok"]
+    assert [p["id"] for p in pr["profiles"]] == [p.id for p in list_profiles()]
+    assert "werckmeister-3" in {p["id"] for p in pr["profiles"]}
+
+
+def test_load_switches_new_notes_and_keeps_sounding_ones(rig):
+    rig.play(60)
+    before = rig.wait_notes([60])[60]
+    # Werckmeister III: C is 11.73 c above 12-EDO C when A = 440 (Barbour 1951, table; from memory)
+    assert before - 6000 == pytest.approx(11.73, abs=0.05)
+    with ControlClient(rig.path) as c:
+        r = c.request("load", profile="vallotti")
+    assert r["ok"] and r["tuning"] == "vallotti" and r["base"] == "vallotti"
+    rig.play(64)
+    n = rig.wait_notes([60, 64])
+    assert n[60] == before                       # a sounding note keeps its pitch
+    # Vallotti C-E: four fifths narrowed by 1/6 Pythagorean comma, less two octaves
+    # (definition: Vallotti 1779 via Barbour 1951): 4*(701.955 - 23.460/6) - 2400 = 392.18 c
+    pyth = ratio_to_cents(Fraction(3 ** 12, 2 ** 19))
+    want_e = 4 * (ratio_to_cents(Fraction(3, 2)) - pyth / 6) - 2400
+    c_vallotti = load_profile("vallotti").cents[60]
+    assert n[64] - c_vallotti == pytest.approx(want_e, abs=BEND_STEP)
+    with ControlClient(rig.path) as c:
+        bad = c.request("load", profile="no-such-profile")
+        st = c.request("status")
+    assert bad["ok"] is False and "no-such-profile" in bad["error"]
+    assert st["tuning"] == "vallotti"
+
+
+def test_reference_sets_a4(rig):
+    with ControlClient(rig.path) as c:
+        r = c.request("reference", hz=442.0)
+        assert r["ok"] and r["reference"] == 442.0
+        rig.play(69)
+        n = rig.wait_notes([69])
+        # cents of 442 Hz above key 0 of 12-EDO at A4 = 440 Hz (ISO 16): 6900 + 1200*log2(442/440)
+        assert n[69] == pytest.approx(6900 + 1200 * math.log2(442 / 440), abs=BEND_STEP)
+        for bad in ({"hz": "loud"}, {"hz": 5}, {"hz": True}, {}):
+            e = c.request("reference", **bad)
+            assert e["ok"] is False, bad
+        assert c.request("status")["reference"] == 442.0
+
+
+def test_transpose_moves_the_root():
+    rig = Rig("just-5limit")
+    try:
+        fifth = ratio_to_cents(Fraction(3, 2))
+        rig.play(62, 69)
+        n = rig.wait_notes([62, 69])
+        # just intonation on C: D = 9/8, A = 5/3, so D-A is 40/27, a comma short of a fifth
+        assert n[69] - n[62] == pytest.approx(ratio_to_cents(Fraction(40, 27)), abs=2 * BEND_STEP)
+        rig.play(62, 69, on=False)
+        rig.wait_notes([])
+        with ControlClient(rig.path) as c:
+            r = c.request("transpose", semitones=2)
+        assert r["ok"] and r["transpose"] == 2
+        rig.play(62, 66, 69)
+        n = rig.wait_notes([62, 66, 69])
+        # the scale now starts on D: D-F#-A is a pure 4:5:6 triad
+        assert n[69] - n[62] == pytest.approx(fifth, abs=2 * BEND_STEP)
+        assert n[66] - n[62] == pytest.approx(ratio_to_cents(Fraction(5, 4)), abs=2 * BEND_STEP)
+        # A4 still sounds at its reference pitch (key 69 = 440 Hz in the profile)
+        assert n[69] == pytest.approx(6900.0, abs=BEND_STEP)
+        rig.play(62, 66, 69, on=False)
+        rig.wait_notes([])
+        with ControlClient(rig.path) as c:
+            assert c.request("transpose", semitones=2, cents=10.0)["ok"]
+            for bad in ({"semitones": 1.5}, {"semitones": 99}, {"cents": "x"}, {}):
+                assert c.request("transpose", **bad)["ok"] is False, bad
+        rig.play(69)
+        n = rig.wait_notes([69])
+        assert n[69] == pytest.approx(6910.0, abs=BEND_STEP)
+    finally:
+        rig.close()
+
+
+def test_adaptive_on_and_off(rig):
+    third = ratio_to_cents(Fraction(5, 4))
+    with ControlClient(rig.path) as c:
+        bad = c.request("adaptive", on=True, settings={"policy": "whatever"})
+        assert bad["ok"] is False
+        assert c.request("adaptive", on="yes")["ok"] is False
+        assert c.request("status")["adaptive"] is False
+        r = c.request("adaptive", on=True, settings={"chord_window": 0.01})
+        assert r["ok"] and r["adaptive"] is True
+    rig.play(60, 64, 67)
+    n = rig.wait_notes([60, 64, 67])
+    # adaptive just intonation: a major triad struck from silence is 4:5:6 (issue 6)
+    assert n[64] - n[60] == pytest.approx(third, abs=2 * BEND_STEP)
+    rig.play(60, 64, 67, on=False)
+    rig.wait_notes([])
+    with ControlClient(rig.path) as c:
+        assert c.request("adaptive", on=False)["adaptive"] is False
+    rig.play(60, 64)
+    n = rig.wait_notes([60, 64])
+    # back to Werckmeister III: C-E = 390.225 c (Barbour 1951; from memory)
+    assert n[64] - n[60] == pytest.approx(390.225, abs=2 * BEND_STEP)
+
+
+def test_panic_releases_everything(rig):
+    rig.play(60, 64, 67)
+    rig.wait_notes([60, 64, 67])
+    start = len(rig.out)
+    with ControlClient(rig.path) as c:
+        r = c.request("panic")
+    assert r["ok"] and r["released"] == 3
+    assert rig.notes() == {}
+    offs = {(m.channel, m.note) for m in rig.out[start:]
+            if m.type == "note_off" or (m.type == "note_on" and m.velocity == 0)}
+    assert {k for _, k in offs} == {60, 64, 67}
+    # all notes off (CC 123, MIDI 1.0 channel mode message) on the channels used
+    assert any(m.type == "control_change" and m.control == 123 for m in rig.out[start:])
+
+
+def test_subscribe_streams_note_and_counter_events(rig):
+    with ControlClient(rig.path) as c:
+        snap = c.request("subscribe")
+        assert snap["ok"] and snap["notes"] == []
+        rig.play(60, 67)
+        got: dict[int, dict] = {}
+        kinds = set()
+        while len(got) < 2 or "counters" not in kinds:
+            ev = c.read()
+            kinds.add(ev["event"])
+            if ev["event"] == "note_on":
+                got[ev["key"]] = ev
+        # Werckmeister III C-G: a fifth narrowed by 1/4 Pythagorean comma, 696.09 c (Barbour; from memory)
+        assert got[67]["cents"] - got[60]["cents"] == pytest.approx(696.09, abs=2 * BEND_STEP)
+        assert got[60]["hz"] == pytest.approx(261.626 * 2 ** (11.73 / 1200), abs=0.02)
+        rig.play(60, on=False)
+        while True:
+            ev = c.read()
+            if ev["event"] == "note_off":
+                assert ev["key"] == 60
+                break
+        c.send({"cmd": "load", "profile": "edo12"})
+        while True:
+            ev = c.read()
+            if ev.get("event") == "tuning":
+                assert ev["tuning"] == "edo12"
+                break
+
+
+def test_malformed_and_unknown_requests_change_nothing(rig):
+    rig.play(60)
+    rig.wait_notes([60])
+    s = raw(rig.path)
+    buf = bytearray()
+    with ControlClient(rig.path) as c:
+        before = c.request("status")
+    bad_lines = [
+        b"{not json\n", b"[1, 2]\n", b"\"status\"\n", b"{}\n", b"{\"cmd\": 5}\n",
+        b"{\"cmd\": \"explode\"}\n", b"{\"cmd\": \"status\", \"extra\": 1}\n",
+        b"{\"cmd\": \"load\"}\n", b"{\"cmd\": \"load\", \"profile\": 12}\n",
+        b"{\"cmd\": \"load\", \"profile\": \"../../etc/passwd\"}\n",
+        b"{\"cmd\": \"panic\", \"now\": true}\n", b"\xff\xfe\n",
+        b"{\"cmd\": \"status\", \"id\": [1]}\n",
+    ]
+    for line in bad_lines:
+        s.sendall(line)
+        r = read_line(s, buf)
+        assert r["ok"] is False and r["error"], line
+    s.sendall(b"{\"cmd\": \"status\", \"id\": \"x\"}\n")
+    after = read_line(s, buf)
+    s.close()
+    assert after["ok"] and after["id"] == "x"
+    for k in ("tuning", "reference", "transpose", "transpose_cents", "adaptive", "sounding"):
+        assert after[k] == before[k], k
+    assert after["stats"] == before["stats"]
+    assert set(COMMANDS) == {"status", "profiles", "load", "adaptive", "reference", "transpose",
+                             "panic", "subscribe"}
+
+
+def test_too_long_line_is_refused_and_closed(rig):
+    s = raw(rig.path)
+    buf = bytearray()
+    s.sendall(b"{\"cmd\": \"status\", \"x\": \"" + b"a" * (ControlServer.MAX_LINE + 10))
+    r = read_line(s, buf)
+    assert r["ok"] is False and "longer than" in r["error"]
+    assert s.recv(10) == b""          # closed by the server
+    s.close()
+
+
+def test_half_closed_client_still_gets_its_reply(rig):
+    s = raw(rig.path)
+    s.sendall(b"{\"cmd\": \"status\"}\n")
+    s.shutdown(socket.SHUT_WR)
+    buf = bytearray()
+    assert read_line(s, buf)["tuning"] == "werckmeister-3"
+    s.close()
+
+
+def test_a_subscriber_that_never_reads_costs_bounded_memory(rig):
+    slow = raw(rig.path)
+    slow.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)
+    slow.sendall(b"{\"cmd\": \"subscribe\"}\n")
+    end = time.monotonic() + 10
+    while rig.server.subscribers < 1:
+        assert time.monotonic() < end, "subscription not registered"
+        time.sleep(0.005)
+    total = 20000
+
+    def burst():
+        for i in range(total):
+            rig.server.publish({"event": "test", "n": i})
+    rig.on_engine(burst)       # the engine thread publishes; it must come back (never blocks)
+    # the server stays responsive to others
+    with ControlClient(rig.path) as c:
+        st = c.request("status")
+    assert st["ok"]
+    end = time.monotonic() + 10
+    while rig.server.stats()["events_dropped"] == 0 and time.monotonic() < end:
+        time.sleep(0.01)
+    stats = rig.server.stats()
+    assert stats["events_dropped"] > 0
+    assert stats["subscribers"] == 1
+    # queued per client never exceeds the bound
+    for c in list(rig.server._clients.values()):
+        assert c.events <= ControlServer.SUBSCRIBER_QUEUE
+    # when it finally reads, it gets the subscribe reply first and then the newest events, in order
+    slow.settimeout(10)
+    buf = bytearray()
+    first = read_line(slow, buf)
+    assert first["ok"] and first["cmd"] == "subscribe"
+    ns = []
+    while True:
+        ev = read_line(slow, buf)
+        if ev["event"] == "test":
+            ns.append(ev["n"])
+            if ev["n"] == total - 1:
+                break
+    assert ns == sorted(ns) and len(ns) < total
+    slow.close()
+
+
+def test_a_flooding_client_is_throttled_and_loses_no_reply(rig):
+    flood = raw(rig.path)
+    n = 3000
+    payload = b"{\"cmd\": \"status\"}\n" * n
+    sender = threading.Thread(target=flood.sendall, args=(payload,), daemon=True)
+    sender.start()
+    # while it floods (and does not read), another client is served and the queue stays bounded
+    for _ in range(20):
+        with ControlClient(rig.path) as c:
+            assert c.request("status")["ok"]
+        assert len(rig.server._pending) <= ControlServer.MAX_INFLIGHT * 2
+    buf = bytearray()
+    got = 0
+    while got < n:
+        r = read_line(flood, buf)
+        assert r["ok"] and r["cmd"] == "status"
+        got += 1
+    sender.join(10)
+    flood.close()
+
+
+def test_hundred_concurrent_clients(rig):
+    errors: list[str] = []
+    barrier = threading.Barrier(100)
+
+    def client(i: int) -> None:
+        try:
+            with ControlClient(rig.path, timeout=20) as c:
+                barrier.wait(20)
+                for j in range(5):
+                    r = c.request("status", id=i * 10 + j)
+                    if not (r["ok"] and r["id"] == i * 10 + j):
+                        errors.append(f"{i}: {r}")
+                r = c.request("profiles")
+                if not r["ok"]:
+                    errors.append(f"{i}: {r}")
+                r = c.request("bogus")
+                if r["ok"]:
+                    errors.append(f"{i}: bogus accepted")
+        except Exception as exc:  # noqa: BLE001
+            errors.append(f"{i}: {exc!r}")
+
+    threads = [threading.Thread(target=client, args=(i,)) for i in range(100)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(60)
+    assert errors == []
+    assert rig.server.stats()["connections"] >= 100
+
+
+def test_engine_errors_become_error_replies(rig):
+    class Boom(Exception):
+        pass
+
+    def bad_set_tuning(*a, **k):
+        raise Boom("synth on fire")
+    real = rig.engine.set_tuning
+    rig.on_engine(lambda: setattr(rig.engine, "set_tuning", bad_set_tuning))
+    try:
+        with ControlClient(rig.path) as c:
+            r = c.request("load", profile="vallotti")
+            assert r["ok"] is False and "synth on fire" in r["error"]
+            st = c.request("status")
+        assert st["tuning"] == "werckmeister-3" and st["base"] == "werckmeister-3"
+    finally:
+        rig.on_engine(lambda: setattr(rig.engine, "set_tuning", real))
