@@ -27,9 +27,11 @@ Channel choice for a note that needs tuning bend ``b`` on output key ``k``
    channels whose notes have all been released by the player (sounding only
    because a pedal holds them), the one whose last release is oldest; *then
    oldest held* — otherwise the channel whose most recent note-on is oldest.
-   The engine sends a note-off for each stolen note first (and lifts the pedal on
-   that channel alone if pedalled notes must be silenced), then the bend, then
-   the new note-on. Every stolen note is counted.
+   The engine sends a note-off for each stolen note first; if a pedal would keep
+   a stolen note sounding, it lifts that pedal on this channel alone and presses
+   it again (bend pool), or sends all-sound-off to that member channel alone
+   (MPE, where the pedals live on the manager channel); then the bend, then the
+   new note-on. Every stolen note is counted.
 """
 
 from __future__ import annotations

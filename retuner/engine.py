@@ -471,19 +471,24 @@ class Engine:
             if n.down:
                 out.append(E.note_off(c, n.out_key, 0))
                 self._forget_fifo(n)
-            elif self._sustain.get(n.dom):
+            # a pedal down would keep the note sounding after its note-off
+            if self._sustain.get(n.dom):
                 sus = True
-            else:
+            if n.sost and self._sostenuto.get(n.dom):
                 sost = True
             n.alive = False
             self.stats["steals"] += 1
+        if self.mode == "mpe" and (sus or sost):
+            # the zone's pedals live on the manager channel: silence this member alone
+            out.append(E.control_change(c, E.CC_ALL_SOUND_OFF, 0))
+            sus = sost = False
         if sus:
             out.append(E.control_change(c, E.CC_SUSTAIN, 0))
-        if sost and self._sostenuto.get(0):
+        if sost:
             out.append(E.control_change(c, E.CC_SOSTENUTO, 0))
         if sus:
             out.append(E.control_change(c, E.CC_SUSTAIN, 127))
-        if sost and self._sostenuto.get(0):
+        if sost:
             out.append(E.control_change(c, E.CC_SOSTENUTO, 127))
         pool.notes[c] = []
         pool.last_off[c] = t

@@ -104,19 +104,17 @@ class SynthModel:
                 self.range[c] = (self.range[c] // 100) * 100 + val
             elif cc == 64:
                 self.sustain[c] = val >= 64
-                if not self.sustain[c]:
-                    self.voices[c] = [v for v in self.voices[c] if v.down or (v.sost and self.sostenuto[c])]
+                self._pedal_changed()
             elif cc == 66:
                 on = val >= 64
                 if on and not self.sostenuto[c]:
-                    for v in self.voices[c]:
-                        if v.down:
-                            v.sost = True
-                elif not on:
-                    self.voices[c] = [v for v in self.voices[c] if v.down or self.sustain[c]]
-                    for v in self.voices[c]:
-                        v.sost = False
+                    chans = range(16) if c == self.mpe_manager else [c]
+                    for ch in chans:
+                        for v in self.voices[ch]:
+                            if v.down:
+                                v.sost = True
                 self.sostenuto[c] = on
+                self._pedal_changed()
             elif cc == 120:
                 self.voices[c] = []
             elif cc in (123, 124, 125, 126, 127):
@@ -132,10 +130,27 @@ class SynthModel:
                     v.sost = False
                 self.rpn[c] = (127, 127)
 
+    def _pedals(self, c):
+        """(sustain, sostenuto) acting on channel c. MPE specification (The MIDI
+        Association, 2018): pedals on the manager channel act on the whole zone."""
+        m = self.mpe_manager
+        if m is not None and c != m:
+            return self.sustain[c] or self.sustain[m], self.sostenuto[c] or self.sostenuto[m]
+        return self.sustain[c], self.sostenuto[c]
+
     def _release(self, c, v):
         v.down = False
-        if not (self.sustain[c] or (v.sost and self.sostenuto[c])):
+        sus, sost = self._pedals(c)
+        if not (sus or (v.sost and sost)):
             self.voices[c].remove(v)
+
+    def _pedal_changed(self):
+        for c in range(16):
+            sus, sost = self._pedals(c)
+            self.voices[c] = [v for v in self.voices[c] if v.down or sus or (v.sost and sost)]
+            if not sost:
+                for v in self.voices[c]:
+                    v.sost = False
 
     def pitch(self, c, v) -> float:
         p = v.key * 100.0 + self.bend[c] / 8192.0 * self.range[c]

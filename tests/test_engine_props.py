@@ -1,0 +1,174 @@
+"""Property tests over random performances (hypothesis), checked with the synth model.
+
+Properties (issue 3):
+* every output message is valid MIDI (its bytes re-parse to the same message);
+* every output note-on is released on its channel once the input releases it
+  (or after all-notes-off / all-sound-off), pedals included: when the player
+  has let go of everything, nothing sounds;
+* a key is never held twice on one channel (so each note-off is unambiguous);
+* every sounding note decodes (key + bend/8192 * range) to within half a bend
+  step of its profile pitch whenever the player's wheel is centred;
+* with a 12-note profile and fewer notes sounding than pool channels there is no
+  ringing retune and no steal.
+"""
+
+from __future__ import annotations
+
+import random
+
+import mido
+from hypothesis import given, settings, strategies as st
+
+from retuner.engine import Engine, EngineConfig
+from retuner.profile import load_profile
+from retuner.tuning import Tuning
+
+from test_engine import SynthModel, half_step
+
+PROFILES = {name: load_profile(name) for name in
+            ("meantone-quarter", "werckmeister-3", "just-5limit", "edo19", "edo31", "bohlen-pierce")}
+_holes = [100.0 * k + (k % 5) * 3.0 for k in range(128)]
+for _k in range(0, 128, 7):
+    _holes[_k] = None
+PROFILES["holes"] = Tuning.from_cents("holes", _holes)
+
+# one event: (op selector, a, b, time step in ms)
+EVENT = st.tuples(st.integers(0, 99), st.integers(0, 127), st.integers(0, 127), st.integers(0, 60))
+
+
+def perform(events, *, in_channels=(0, 1), wheel=True, pedals=True, panic=True, rng_keys=(36, 96),
+            double_press=True):
+    """Turn raw tuples into a performance the player could play; returns (t, msg) list."""
+    out = []
+    held: list[tuple[int, int]] = []
+    t = 0.0
+    for sel, a, b, dt in events:
+        t += dt / 1000.0
+        ch = in_channels[a % len(in_channels)]
+        if sel < 45:
+            k = rng_keys[0] + b % (rng_keys[1] - rng_keys[0])
+            if not double_press and (ch, k) in held:
+                continue
+            held.append((ch, k))
+            out.append((t, mido.Message("note_on", channel=ch, note=k, velocity=1 + a % 127)))
+        elif sel < 85:
+            if held:
+                ch, k = held.pop(b % len(held))
+                if a % 3 == 0:
+                    out.append((t, mido.Message("note_on", channel=ch, note=k, velocity=0)))
+                else:
+                    out.append((t, mido.Message("note_off", channel=ch, note=k, velocity=a)))
+        elif sel < 90 and pedals:
+            out.append((t, mido.Message("control_change", channel=ch, control=64 if b % 3 else 66,
+                                        value=127 if a % 2 else 0)))
+        elif sel < 94 and wheel:
+            out.append((t, mido.Message("pitchwheel", channel=ch, pitch=0 if a % 3 == 0 else (b * 129) - 8192)))
+        elif sel < 96:
+            out.append((t, mido.Message("polytouch", channel=ch, note=b, value=a)))
+        elif sel < 97:
+            out.append((t, mido.Message("control_change", channel=ch, control=1, value=a)))
+        elif sel < 98:
+            out.append((t, mido.Message("program_change", channel=ch, program=a)))
+        elif panic:
+            cc = (123, 120, 121)[a % 3]
+            out.append((t, mido.Message("control_change", channel=ch, control=cc, value=0)))
+            held = [(c, k) for c, k in held if c != ch] if cc != 121 else held
+            if cc != 121:
+                # the player's keyboard sends no note-offs for what it cleared; and for the
+                # engine, everything it was sent on the pool counts as released
+                held = []
+    return out, held, t
+
+
+def check_stream(engine, tuning, perf, held, t_end, synth=None):
+    s = synth or SynthModel(mpe_manager=engine._manager if engine.mode == "mpe" else None)
+    s.feed(engine.start(0.0))
+    step = engine.bend_range_cents / 16384.0
+    for t, m in perf:
+        s.feed(engine.feed(t, m))
+        d = engine.next_deadline()
+        if d is not None and d <= t:
+            s.feed(engine.tick(t))
+        assert not s.problems, s.problems
+        if not any(engine._wheel.values()):
+            for c, v in s.sounding():
+                # decoded from the output alone: key*100 + bend/8192*range
+                p = s.pitch(c, v)
+                # which key did the player press? the engine keeps the pitch it gave the note
+                tgt = _target_of(engine, c, v, tuning)
+                assert abs(p - tgt) <= step + 1e-9, (t, m, c, v.key, p, tgt)
+    # the player lets go of everything
+    t = t_end + 0.1
+    for ch, k in held:
+        s.feed(engine.feed(t, mido.Message("note_off", channel=ch, note=k)))
+    for ch in range(16):
+        s.feed(engine.feed(t, mido.Message("control_change", channel=ch, control=64, value=0)))
+        s.feed(engine.feed(t, mido.Message("control_change", channel=ch, control=66, value=0)))
+    s.feed(engine.tick(t + 10))
+    assert not s.problems, s.problems
+    assert s.count() == 0, [(c, v.key) for c, v in s.sounding()]
+    assert engine.sounding() == []
+    return s
+
+
+def _target_of(engine, c, v, tuning):
+    """Profile pitch of the input key whose note sounds as voice v on channel c."""
+    for n in engine.pool.notes[c]:
+        if n.out_key == v.key:
+            return tuning.cents[n.in_key]
+    raise AssertionError(f"synth sounds key {v.key} on channel {c}, the engine knows no such note")
+
+
+@settings(max_examples=40, deadline=None)
+@given(events=st.lists(EVENT, min_size=50, max_size=400),
+       profile=st.sampled_from(sorted(PROFILES)),
+       pool_size=st.sampled_from([1, 3, 6, 15]),
+       release=st.sampled_from([0.0, 0.5, 2.0]))
+def test_random_streams_pool(events, profile, pool_size, release):
+    tu = PROFILES[profile]
+    pool = tuple(c for c in range(16) if c != 9)[:pool_size]
+    e = Engine(tu, EngineConfig(pool=pool, release_time=release))
+    perf, held, t_end = perform(events)
+    check_stream(e, tu, perf, held, t_end)
+
+
+@settings(max_examples=25, deadline=None)
+@given(events=st.lists(EVENT, min_size=50, max_size=400),
+       profile=st.sampled_from(["meantone-quarter", "edo19", "holes"]),
+       members=st.sampled_from([2, 5, 15]), zone=st.sampled_from(["lower", "upper"]))
+def test_random_streams_mpe(events, profile, members, zone):
+    tu = PROFILES[profile]
+    e = Engine(tu, EngineConfig(mode="mpe", mpe_members=members, mpe_zone=zone))
+    perf, held, t_end = perform(events)
+    check_stream(e, tu, perf, held, t_end)
+
+
+@settings(max_examples=30, deadline=None)
+@given(events=st.lists(EVENT, min_size=100, max_size=400),
+       profile=st.sampled_from(["meantone-quarter", "werckmeister-3", "just-5limit", "kirnberger-3"]))
+def test_twelve_note_profile_never_rings_or_steals_below_pool_size(events, profile):
+    tu = load_profile(profile)
+    e = Engine(tu, EngineConfig())
+    perf, held, t_end = perform(events, in_channels=(0,), panic=False, double_press=False)
+    s = SynthModel()
+    s.feed(e.start(0.0))
+    pool_size = len(e.config.pool)
+    for t, m in perf:
+        before = e.stats["ringing_retunes"], e.stats["steals"]
+        sounding_before = len(e.sounding())
+        s.feed(e.feed(t, m))
+        if sounding_before < pool_size:
+            assert (e.stats["ringing_retunes"], e.stats["steals"]) == before
+
+
+def test_long_random_performance_thousands_of_events():
+    """A 6000-event performance (seeded), two input channels, small pool: steals happen."""
+    rng = random.Random(1234)
+    events = [(rng.randrange(100), rng.randrange(128), rng.randrange(128), rng.randrange(40))
+              for _ in range(6000)]
+    tu = PROFILES["werckmeister-3"]
+    e = Engine(tu, EngineConfig(pool=(0, 1, 2, 3, 4, 5), release_time=1.0))
+    perf, held, t_end = perform(events)
+    assert len(perf) > 5000
+    check_stream(e, tu, perf, held, t_end)
+    assert e.stats["steals"] > 0 and e.stats["notes"] > 2000
