@@ -1,0 +1,232 @@
+"""MPE and MIDI Tuning Standard output modes of the engine (issue 5, items 1-2)."""
+
+from __future__ import annotations
+
+import mido
+import pytest
+
+from retuner import encode as E
+from retuner.engine import Engine, EngineConfig
+from retuner.profile import load_profile
+from retuner.tuning import Tuning
+
+from test_engine import CC, OFF, ON, WHEEL, SynthModel
+
+
+# ---------------------------------------------------------------------------
+# MPE
+# ---------------------------------------------------------------------------
+def mpe(tuning=None, **kw):
+    e = Engine(tuning or load_profile("edo31"), EngineConfig(mode="mpe", **kw))
+    s = SynthModel(mpe_manager=e.config.mpe_manager())
+    s.feed(e.start(0.0))
+    return e, s
+
+
+def rpn_values(out, channel):
+    """{(msb, lsb): data entry MSB} set on a channel, read as a receiver would."""
+    sel, vals = None, {}
+    for m in out:
+        if m.type != "control_change" or m.channel != channel:
+            continue
+        if m.control == 101:
+            sel = (m.value, None)
+        elif m.control == 100 and sel is not None:
+            sel = (sel[0], m.value)
+        elif m.control == 6 and sel is not None:
+            vals[sel] = m.value
+    return vals
+
+
+def test_mpe_start_lower_zone():
+    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe"))
+    out = e.start(0.0)
+    # MPE specification (The MIDI Association, 2018): the MPE Configuration Message is
+    # RPN 6 on the manager channel (channel 1 = lower zone), data entry MSB = member count.
+    assert [m.bytes() for m in out[:3]] == [[0xB0, 101, 0], [0xB0, 100, 6], [0xB0, 6, 15]]
+    # member channels 2..16 get a pitch bend range of 48 semitones, the manager 2 (RPN 0)
+    for c in range(1, 16):
+        assert rpn_values(out, c)[(0, 0)] == 48
+    assert rpn_values(out, 0)[(0, 0)] == 2
+
+
+def test_mpe_start_upper_zone():
+    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe", mpe_zone="upper", mpe_members=7))
+    out = e.start(0.0)
+    assert [m.bytes() for m in out[:3]] == [[0xBF, 101, 0], [0xBF, 100, 6], [0xBF, 6, 7]]
+    members = [c for c in range(16) if rpn_values(out, c).get((0, 0)) == 48]
+    assert members == list(range(8, 15))      # channels 9..15 (1-based), below the manager 16
+    assert rpn_values(out, 15)[(0, 0)] == 2
+
+
+@pytest.mark.parametrize("profile", ["edo31", "meantone-quarter", "bohlen-pierce"])
+def test_mpe_pitches_within_half_step_at_range_48(profile):
+    tu = load_profile(profile)
+    e, s = mpe(tu)
+    for k in tu.mapped_keys():
+        s.feed(e.feed(k * 0.01, ON(k)))
+        (c, v), = s.last_on
+        assert c != 0 and v.key == k                  # on a member, from its own key
+        assert abs(s.pitch(c, v) - tu.cents[k]) <= 4800 / 16384 + 1e-9
+        s.feed(e.feed(k * 0.01 + 0.005, OFF(k)))
+    assert not s.problems
+
+
+def test_mpe_never_shares_a_member():
+    e, s = mpe(load_profile("meantone-quarter"))
+    a = e.feed(0.0, ON(60))[-1].channel
+    b = e.feed(0.0, ON(72))[-1].channel     # same bend as 60, still its own member
+    assert a != b
+
+
+def test_mpe_zone_messages_on_manager():
+    e, s = mpe()
+    for m in (CC(64, 127), CC(66, 127), CC(1, 40), CC(7, 100), WHEEL(1234),
+              mido.Message("program_change", channel=0, program=5),
+              mido.Message("aftertouch", channel=0, value=20)):
+        out = e.feed(0.0, m)
+        assert [x.channel for x in out] == [0], m
+        assert out[0].bytes()[1:] == m.bytes()[1:]    # wheel range 2 = manager range 2: same value
+
+
+def test_mpe_poly_pressure_becomes_member_channel_pressure():
+    e, s = mpe()
+    ch = e.feed(0.0, ON(60))[-1].channel
+    out = e.feed(0.1, mido.Message("polytouch", channel=0, note=60, value=77))
+    assert out == [E.msg("aftertouch", channel=ch, value=77)]
+
+
+def test_mpe_wheel_adds_to_every_note_through_manager():
+    tu = load_profile("edo31")
+    e, s = mpe(tu)
+    s.feed(e.feed(0.0, ON(60)) + e.feed(0.0, ON(64)) + e.feed(0.1, WHEEL(4096)))
+    for c, v in s.sounding():
+        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 100.0)) <= 4800 / 16384 + 200 / 16384
+
+
+def test_mpe_steal_when_members_exhausted():
+    e, s = mpe(load_profile("meantone-quarter"), mpe_members=2)
+    s.feed(e.feed(0.0, ON(60)) + e.feed(0.1, ON(62)))
+    out = e.feed(0.2, ON(64))
+    s.feed(out)
+    assert out[0].type == "note_off" and out[0].note == 60     # oldest held, note-off first
+    assert e.stats["steals"] == 1 and s.count() == 2 and not s.problems
+
+
+def test_mpe_passthrough_channel_is_not_used_as_member():
+    e, s = mpe(Tuning.equal12())
+    used = set()
+    for k in range(40, 60):
+        used.add(e.feed(k, ON(k))[-1].channel)
+    assert 9 not in used and 0 not in used
+
+
+# ---------------------------------------------------------------------------
+# MIDI Tuning Standard
+# ---------------------------------------------------------------------------
+def parse_single_note(m):
+    """Decode a single note tuning change from its bytes, written from the MIDI Tuning
+    Standard (MMA, 1992; bank form from CA-020), single note tuning change:
+      F0 7F <dev> 08 02 <program> <count> [<key> xx yy zz]* F7     (real-time)
+      F0 7F|7E <dev> 08 07 <bank> <program> <count> [<key> xx yy zz]* F7
+    frequency = xx semitones + (yy*128 + zz) / 16384 semitone above key 0."""
+    b = m.bytes()
+    assert b[0] == 0xF0 and b[-1] == 0xF7 and b[3] == 0x08
+    body = b[1:-1]
+    rt, dev, sub2 = body[0], body[1], body[3]
+    if sub2 == 0x02:
+        bank, prog, count, rest = None, body[4], body[5], body[6:]
+    else:
+        assert sub2 == 0x07
+        bank, prog, count, rest = body[4], body[5], body[6], body[7:]
+    assert len(rest) == 4 * count
+    keys = {}
+    for i in range(count):
+        k, xx, yy, zz = rest[4 * i:4 * i + 4]
+        keys[k] = (xx + (yy * 128 + zz) / 16384) * 100.0
+    return {"realtime": rt == 0x7F, "device": dev, "bank": bank, "program": prog, "keys": keys}
+
+
+def mts(tuning=None, **kw):
+    e = Engine(tuning or load_profile("werckmeister-3"), EngineConfig(mode="mts", **kw))
+    return e, e.start(0.0)
+
+
+def test_mts_start_selects_tuning_and_sends_all_keys():
+    tu = load_profile("werckmeister-3")
+    e, out = mts(tu)
+    for c in range(16):
+        vals = rpn_values(out, c)
+        if c == 9:
+            assert vals == {}      # the passthrough channel is left alone
+        else:
+            # MIDI 1.0: RPN 4 tuning bank select, RPN 3 tuning program change
+            assert vals[(0, 4)] == 0 and vals[(0, 3)] == 0
+    tuned = {}
+    for m in out:
+        if m.type == "sysex":
+            p = parse_single_note(m)
+            assert p["realtime"] and p["device"] == 0x7F and p["program"] == 0 and p["bank"] is None
+            tuned.update(p["keys"])
+    assert sorted(tuned) == list(range(128))
+    for k, c in tuned.items():
+        assert abs(c - tu.cents[k]) <= 100 / 16384 / 2 + 1e-9
+
+
+def test_mts_bank_form_and_options():
+    e, out = mts(mts_bank=3, mts_program=5, mts_device_id=0x10, mts_realtime=False)
+    sx = [parse_single_note(m) for m in out if m.type == "sysex"]
+    assert sx and all(p["bank"] == 3 and p["program"] == 5 and p["device"] == 0x10 and not p["realtime"]
+                      for p in sx)
+    assert rpn_values(out, 0) == {(0, 4): 3, (0, 3): 5}
+    # bank select comes before the program change (the program change activates the bank)
+    cc = [(m.control, m.value) for m in out if m.type == "control_change" and m.channel == 0]
+    assert cc.index((100, 4)) < cc.index((100, 3))
+
+
+def test_mts_notes_stay_on_input_channels_without_bends():
+    e, out = mts()
+    for ch in (0, 3):
+        o = e.feed(0.0, ON(60, ch=ch))
+        assert o == [ON(60, ch=ch)]
+    assert e.feed(0.1, WHEEL(500, ch=3)) == [WHEEL(500, ch=3)]
+    assert e.feed(0.1, CC(64, 127, ch=3)) == [CC(64, 127, ch=3)]
+    assert e.feed(0.2, OFF(60, ch=3)) == [OFF(60, ch=3)]
+
+
+def test_mts_switch_retunes_silent_keys_now_and_sounding_keys_at_next_note_on():
+    a, b = load_profile("werckmeister-3"), load_profile("meantone-quarter")
+    e, _ = mts(a)
+    e.feed(0.0, ON(64))
+    out = e.set_tuning(b, 0.1)
+    keys = {}
+    for m in out:
+        keys.update(parse_single_note(m)["keys"])
+    assert 64 not in keys and 60 in keys and abs(keys[60] - b.cents[60]) < 0.01
+    e.feed(0.2, OFF(64))
+    out = e.feed(0.3, ON(64))
+    assert out[-1] == ON(64) and len(out) == 2
+    p = parse_single_note(out[0])
+    assert list(p["keys"]) == [64] and abs(p["keys"][64] - b.cents[64]) < 0.01
+    assert e.feed(0.4, ON(60)) == [ON(60)]   # already tuned: nothing extra
+
+
+def test_mts_unmapped_key_dropped():
+    cents = [100.0 * k for k in range(128)]
+    cents[50] = None
+    e, out = mts(Tuning.from_cents("holes", cents))
+    keys = {}
+    for m in out:
+        if m.type == "sysex":
+            keys.update(parse_single_note(m)["keys"])
+    assert 50 not in keys and len(keys) == 127
+    assert e.feed(0.0, ON(50)) == [] and e.feed(0.1, OFF(50)) == []
+
+
+def test_mts_release_all():
+    e, _ = mts()
+    e.feed(0.0, ON(60, ch=2))
+    out = e.release_all(0.1)
+    assert out[0] == E.note_off(2, 60, 0)
+    chans = {m.channel for m in out if m.type == "control_change" and m.control == 123}
+    assert chans == {c for c in range(16) if c != 9}
