@@ -469,6 +469,7 @@ class ConvertResult:
     input: str
     outputs: list[Output]
     split: bool = False
+    lookahead: Optional[dict] = None    # what the lookahead planner chose, and the live figures
 
     @property
     def stats(self) -> dict:
@@ -689,14 +690,24 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
     tuning = opts.tuning
     merged = merged_events(song)
     secs = event_seconds(song, merged)
-    pas = frozenset(config.passthrough)
     groups = plan_groups(song, merged, secs, tuning, config)
-    plan = None
-    if opts.lookahead:
-        if config.adaptive is None:
-            raise RetunerError("--lookahead works with --adaptive", field="lookahead")
-        from . import lookahead
-        plan = lookahead.plan_song(song, merged, secs, tuning, config)
+    if not opts.lookahead:
+        outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
+        return ConvertResult(song.path, outputs, len(groups) > 1)
+    if config.adaptive is None:
+        raise RetunerError("--lookahead needs --adaptive", field="lookahead")
+    from . import lookahead
+    live = _render(song, merged, secs, groups, tuning, config, out_path, None)
+    chosen = lookahead.choose(
+        song, merged, secs, tuning, config, live,
+        lambda plan: _render(song, merged, secs, groups, tuning, config, out_path, plan))
+    res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
+    res.lookahead = chosen.summary
+    return res
+
+
+def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[Output]:
+    pas = frozenset(config.passthrough)
     outputs = []
     split = len(groups) > 1
     for gi, (parts, cfgs) in enumerate(groups):
@@ -704,10 +715,10 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
         shared = None
         for p in parts:
             cfg = cfgs[p]
-            if plan is not None:
-                e = plan.engine(tuning, cfg)
-            elif cfg is config and shared is not None:
+            if cfg is config and shared is not None:
                 e = shared
+            elif plan is not None:
+                e = plan.engine(tuning, cfg)
             else:
                 e = _make_engine(tuning, cfg)
             if cfg is config:
@@ -727,7 +738,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
                 stats[k] = stats.get(k, 0) + v
         path = split_name(out_path, gi + 1) if split else str(out_path)
         outputs.append(Output(path, parts, channels, data, stats))
-    return ConvertResult(song.path, outputs, split)
+    return outputs
 
 
 def convert_file(in_path: str | os.PathLike, out_path: str | os.PathLike, opts: ConvertOptions) -> ConvertResult:
