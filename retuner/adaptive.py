@@ -250,6 +250,24 @@ class AdaptiveConfig:
             out[c] = tuple(_ratio_cents(x, file=None, field_name=f"adaptive.intervals.{k}") for x in vs)
         return out
 
+    def septimal(self) -> dict[int, Optional[int]]:
+        """Interval class -> index of its first candidate whose ratio involves the prime 7."""
+        base = LIMIT7 if str(self.limit) == "7" else LIMIT5
+        raw: dict[int, tuple] = {c: tuple(rs) for c, rs in base.items()}
+        for k, v in (self.intervals or {}).items():
+            raw[_class_key(k, file=None, field_name="adaptive.intervals")] = \
+                tuple(v) if isinstance(v, (list, tuple)) else (v,)
+        out: dict[int, Optional[int]] = {}
+        for c, rs in raw.items():
+            out[c] = None
+            for i, r in enumerate(rs):
+                if isinstance(r, str):
+                    f = Fraction(r.strip())
+                    if f.numerator % 7 == 0 or f.denominator % 7 == 0:
+                        out[c] = i
+                        break
+        return out
+
     def weight_table(self) -> dict[int, float]:
         out = dict(DEFAULT_WEIGHTS)
         for k, v in (self.weights or {}).items():
@@ -363,6 +381,12 @@ class AdaptiveSolver:
                 cand[idx, m] = dev if d >= 0 else -dev
         self._cand = np.where(np.isnan(cand), 1e9, cand)
         self._ncand = ncand
+        # the septimal start: each class's first candidate with the prime 7 (if any)
+        sep = cfg.septimal()
+        self._has7 = np.array([sep[abs(int(d)) % 12] is not None for d in diffs])
+        self._tau7 = np.array([cand[i, sep[abs(int(d)) % 12]] if sep[abs(int(d)) % 12] is not None
+                               else cand[i, 0] for i, d in enumerate(diffs)])
+        self._use7 = bool(self._has7.any())
         self._tau0 = cand[:, 0].copy()
         self._ambig = ~np.isnan(cand[:, 1]) if ncand > 1 else np.zeros(255, bool)
         self._w = np.array([weights[int(abs(d)) % 12] for d in diffs], dtype=float)
@@ -479,6 +503,12 @@ class AdaptiveSolver:
             x[:] = np.linalg.solve(A + 1e-9 * np.eye(n), b)
         return x
 
+    def _first(self, tau, W, mode, cur, nh, ng, lam, mu, ref):
+        if mode == "free":
+            return self._lsq(tau, W, "free", cur, nh, ng, lam, mu, 0.0, ref)
+        # pure against the notes that sound; from silence, centred on the reference
+        return self._lsq(tau, W, "fixed", cur, nh, ng, lam, mu if nh + ng == 0 else 0.0, 0.0, ref)
+
     def _targets(self, keys: np.ndarray):
         D = keys[None, :] - keys[:, None] + 127
         return D, self._tau0[D].copy(), self._w[D].copy()
@@ -537,26 +567,43 @@ class AdaptiveSolver:
         def centre_of(x: np.ndarray) -> float:
             return (float(x.sum()) - float(x[nh:nh + ng].sum()) - ref_sum) / m_sound
 
-        if mode == "free":
-            def first():
-                return self._lsq(tau, W, "free", cur, nh, ng, lam, mu, 0.0, ref)
-        else:
-            def first():
-                # pure against the notes that sound; from silence, centred on the reference
-                return self._lsq(tau, W, "fixed", cur, nh, ng, lam, mu if nh + ng == 0 else 0.0, 0.0, ref)
-        x = first()
+        x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
         # context choice among ambiguous candidates (at most two more passes)
         amb = self._ambig[D]   # the diagonal (unison) has one candidate only
         if amb.any():
-            for _ in range(2):
-                diff = x[None, :] - x[:, None]
-                cand = self._cand[D].reshape(n * n, self._ncand)
-                choice = np.argmin(np.abs(cand - diff.reshape(n * n, 1)), axis=1)
-                new_tau = np.where(amb, cand[np.arange(n * n), choice].reshape(n, n), tau)
-                if float(np.abs(new_tau - tau).max()) < 1e-9:
-                    break
-                tau = new_tau
-                x = first()
+            def refine(x, tau):
+                for _ in range(2):
+                    diff = x[None, :] - x[:, None]
+                    cand = self._cand[D].reshape(n * n, self._ncand)
+                    choice = np.argmin(np.abs(cand - diff.reshape(n * n, 1)), axis=1)
+                    new_tau = np.where(amb, cand[np.arange(n * n), choice].reshape(n, n), tau)
+                    if float(np.abs(new_tau - tau).max()) < 1e-9:
+                        break
+                    tau = new_tau
+                    x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
+                return x, tau
+            x, tau = refine(x, tau)
+            septimal = amb & self._has7[D]
+            if self._use7 and septimal.any():
+                # further starts from the septimal candidates of the pairs of one note that
+                # lies a minor seventh above another (the seventh of a 4:5:6:7 chord); the
+                # cheapest consistent choice wins
+                def cost(x, t):
+                    return float((W * (x[None, :] - x[:, None] - t) ** 2).sum())
+                best = cost(x, tau)
+                sevenths = [j for j in range(n) if np.any(np.mod(keys[j] - keys, 12) == 10)][:2]
+                for j in sevenths:
+                    mask = np.zeros((n, n), bool)
+                    mask[j, :] = True
+                    mask[:, j] = True
+                    mask &= septimal
+                    if not mask.any():
+                        continue
+                    tau7 = np.where(mask, self._tau7[D], tau)
+                    x7, tau7 = refine(self._first(tau7, W, mode, cur, nh, ng, lam, mu, ref), tau7)
+                    c7 = cost(x7, tau7)
+                    if c7 < best - 1e-9:
+                        x, tau, best = x7, tau7, c7
         if mode != "free" and nh + ng > 0:
             c0 = centre_of(x)
             # the pure chain's drift per event (exponential average): re-centre past the
