@@ -126,3 +126,47 @@ def test_mts_built_from_mts_module_plays_werckmeister3(tmp_path):
     print("corrected pitch errors (key, cents):", errors)
     bad = [e for e in errors if abs(e[1]) > 1.5]
     assert not bad, f"corrected pitch errors (key, cents): {errors}"
+
+
+def _mts_table(path) -> dict[int, float]:
+    """Key -> cents as the synth's key table ends up after every MTS message in the file
+    (decoded with the layout of the MIDI Tuning Standard, 'Single Note Tuning Change')."""
+    table: dict[int, float] = {}
+    for msg in mido.MidiFile(str(path)):
+        if msg.type == "sysex" and mts.is_mts(msg):
+            parsed = mts.parse_sysex(msg)
+            assert parsed.kind == "single_note" and parsed.device in (0, 0x7F) and parsed.program == 0
+            for k, c in parsed.changes:
+                if c is not None:
+                    table[k] = c
+    return table
+
+
+def test_convert_mode_mts_plays_werckmeister3_on_fluidsynth(tmp_path):
+    import subprocess
+    import sys
+
+    tuning = load_profile("werckmeister-3")
+    ev_ref, notes = _melody_events(False)
+    src = write_midi(tmp_path / "piece.mid", ev_ref)
+    out = tmp_path / "piece-mts.mid"
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", str(src), "-o", str(out),
+                        "--profile", "werckmeister-3", "--mode", "mts", "-q"],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    # on the wire: every played key's table entry is its profile pitch within half a unit
+    table = _mts_table(out)
+    for _, _, _, key, _ in notes:
+        assert abs(table[key] - tuning.cents[key]) <= 100 / 16384 / 2 + 1e-9
+    # and through the synth: untuned input vs MTS output, same key, program, velocity, window
+    ref_wav = render(src, tmp_path / "ref.wav")
+    mts_wav = render(out, tmp_path / "mts.wav")
+    errors = []
+    for on, _, _, key, _ in notes:
+        target = werckmeister3_deviation(key % 12)
+        f_ref = measure_pitch(ref_wav, on + READ_FROM, READ_S, expected_hz=key_hz(key))
+        f_mts = measure_pitch(mts_wav, on + READ_FROM, READ_S, expected_hz=key_hz(key + target / 100))
+        errors.append((key, round(cents(f_mts, f_ref) - target, 3)))
+    print("convert --mode mts, corrected pitch errors (key, cents):", errors)
+    bad = [e for e in errors if abs(e[1]) > 1.5]
+    assert not bad, f"corrected pitch errors (key, cents): {errors}"
