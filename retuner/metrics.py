@@ -47,6 +47,9 @@ from .tuning import Tuning
 CONSONANT_RATIOS = {0: (1, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
 CONSONANT_CENTS = {c: 1200.0 * math.log2(p / q) for c, (p, q) in CONSONANT_RATIOS.items()}
 
+# events closer than this (seconds) count as simultaneous (float rounding of event times)
+TIME_EPS = 1e-9
+
 CC_RPN_MSB, CC_RPN_LSB, CC_NRPN_MSB, CC_NRPN_LSB = 101, 100, 99, 98
 CC_DATA_MSB, CC_DATA_LSB = 6, 38
 RPN_BEND_RANGE = (0, 0)
@@ -263,9 +266,10 @@ def _sweep(notes: Sequence[NoteTrack]):
     cur: dict[int, float] = {}
     prev_t: Optional[float] = None
     for t, kind, i, c in ev:
-        if prev_t is not None and t > prev_t and cur:
+        if prev_t is not None and t > prev_t + TIME_EPS and cur:
             yield prev_t, t, [(notes[j].key, p) for j, p in cur.items()]
-        prev_t = t
+        if prev_t is None or t > prev_t + TIME_EPS:
+            prev_t = t
         if kind == -1:
             cur.pop(i, None)
         else:
@@ -305,8 +309,13 @@ def motion(notes: Sequence[NoteTrack]) -> float:
     return sum(n.motion for n in notes) / len(notes)
 
 
-def drift(notes: Sequence[NoteTrack]) -> dict:
-    """Mean deviation from 12-EDO of the sounding notes at each moment: max |.|, final, RMS."""
+def drift(notes: Sequence[NoteTrack], settle: float = 0.0) -> dict:
+    """Mean deviation from 12-EDO of the sounding notes at each moment: max |.|, final, RMS.
+
+    ``settle`` > 0: the maximum only counts moments lasting at least that many
+    seconds (a chord window leaves held notes alone for a few milliseconds;
+    this tells those moments apart). RMS and final are unaffected.
+    """
     mx = 0.0
     final = 0.0
     sq = 0.0
@@ -314,7 +323,8 @@ def drift(notes: Sequence[NoteTrack]) -> dict:
     for t0, t1, snd in _sweep(notes):
         d = sum(p - 100.0 * k for k, p in snd) / len(snd)
         dt = t1 - t0
-        mx = max(mx, abs(d))
+        if dt >= settle:
+            mx = max(mx, abs(d))
         final = d
         sq += dt * d * d
         tt += dt
@@ -335,10 +345,13 @@ def worst_error(notes: Sequence[NoteTrack], tuning: Tuning) -> float:
 
 def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tuning] = None,
            bend_scale: float = 1.0, bend_range: Optional[float] = None,
-           exclude_channels: Sequence[int] = (), key_map: Optional[dict] = None) -> dict:
+           exclude_channels: Sequence[int] = (), key_map: Optional[dict] = None,
+           settle: float = 0.05) -> dict:
     """Every measure of an output stream, as a JSON-ready dict.
 
     ``tuning`` (static profiles): adds ``worst_error_cents`` against it.
+    ``drift_max_settled_cents`` is the drift maximum over moments lasting at
+    least ``settle`` seconds (``drift_max_cents`` counts every moment, as defined).
     ``key_map`` is unused unless an output key differs from the input key
     (then ``{output_key: input_key}``), for the worst-error check only.
     """
@@ -355,6 +368,7 @@ def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tun
         "drift_max_cents": round(dr["max"], 6),
         "drift_final_cents": round(dr["final"], 6),
         "drift_rms_cents": round(dr["rms"], 6),
+        "drift_max_settled_cents": round(drift(dec.notes, settle)["max"], 6),
     }
     if tuning is not None:
         notes = dec.notes

@@ -307,7 +307,7 @@ def voices_events(voices: Sequence[str], *, beats_per_second: float = 1.5, legat
     ev: list[Event] = []
     spb = 1.0 / beats_per_second
     for text in voices:
-        t = start
+        beat = 0.0  # whole and half beats add exactly in binary floating point
         notes = _voice(text)
         i = 0
         while i < len(notes):
@@ -319,10 +319,11 @@ def voices_events(voices: Sequence[str], *, beats_per_second: float = 1.5, legat
                     dur += notes[j][1]
                     j += 1
             if key is not None:
-                on, off = t, t + dur * spb - (0.0 if legato else gap)
+                on = start + beat * spb
+                off = start + (beat + dur) * spb - (0.0 if legato else gap)
                 ev.append((on, mido.Message("note_on", note=key, velocity=velocity, channel=channel)))
                 ev.append((off, mido.Message("note_off", note=key, velocity=0, channel=channel)))
-            t += dur * spb
+            beat += dur
             i = j
     return sort_events(_fix_overlaps(ev))
 
