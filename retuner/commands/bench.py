@@ -1,0 +1,60 @@
+"""``retuner bench``: latency and economy of the engine on a generated performance."""
+
+from __future__ import annotations
+
+from ..bench import JSON_KEYS, measure, performance, performance_names
+from ..engine import EngineConfig, MODES
+from ..errors import RetunerError
+from ..profile import load_profile
+from ._common import add_profiles_dir, print_json
+
+NAME = "bench"
+HELP = "play a generated performance through the engine and print latency and message figures"
+ORDER = 80
+DESCRIPTION = (
+    "Play a seeded, generated performance (at least 10 000 note events, chords of up to 8 voices, "
+    "sustain pedal, wheel) through the engine in this process and print the latency of each event "
+    "(p50/p99/max, microseconds), messages sent per note-on, ringing retunes and steals.")
+
+
+def add_arguments(parser):
+    parser.add_argument("--profile", default="meantone-quarter", metavar="ID",
+                        help="profile id or path (default meantone-quarter)")
+    parser.add_argument("--mode", choices=MODES, default="pool", help="output mode (default pool)")
+    parser.add_argument("--adaptive", action="store_true", help="adaptive mode with default settings")
+    parser.add_argument("--performance", default="generated", metavar="NAME",
+                        help="what to play: 'generated' (default) or a progression name")
+    parser.add_argument("--events", type=int, default=10000, metavar="N",
+                        help="note events (note-ons + note-offs) at least (default 10000)")
+    parser.add_argument("--seed", type=int, default=1, help="seed of the generated performance (default 1)")
+    parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
+    add_profiles_dir(parser)
+
+
+def run(args) -> int:
+    tuning = load_profile(args.profile, args.profiles_dir)
+    adaptive = None
+    if args.adaptive:
+        from ..adaptive import AdaptiveConfig
+        adaptive = AdaptiveConfig()
+    if args.performance not in performance_names():
+        raise RetunerError(f"unknown performance {args.performance!r} "
+                           f"(one of {', '.join(performance_names())})", field="--performance")
+    if args.events < 1:
+        raise RetunerError("must be at least 1", field="--events")
+    events = performance(args.performance, n_note_events=args.events, seed=args.seed)
+    res = measure(tuning, EngineConfig(mode=args.mode, adaptive=adaptive), events)
+    if args.json:
+        print_json({k: res[k] for k in JSON_KEYS})
+        return 0
+    print(f"profile {tuning.id}, mode {args.mode}{' adaptive' if adaptive else ''}, "
+          f"performance {args.performance} (seed {args.seed}): {res['events']} events, "
+          f"{res['note_events']} note events")
+    print(f"latency per event: p50 {res['p50_us']:.1f} us, p99 {res['p99_us']:.1f} us, "
+          f"max {res['max_us']:.1f} us (mean {res['mean_us']:.1f} us)")
+    print(f"messages per note-on: {res['messages_per_note_on']:.3f} "
+          f"({res['messages_out']} messages out, {res['bends_sent']} bends)")
+    print(f"ringing retunes: {res['ringing_retunes']} "
+          f"({res['ringing_retunes_below_pool']} while fewer notes sounded than pool channels)")
+    print(f"steals: {res['steals']}")
+    return 0
