@@ -1,0 +1,404 @@
+"""`retuner convert` on files of our own: pitches, ticks, meta events, percussion, parts.
+
+Outputs are decoded here independently of retuner (mido reads the file; a small decoder
+below applies the MIDI 1.0 rules), and targets are computed independently:
+12-EDO from pretty_midi.note_number_to_hz, quarter-comma meantone from its published
+definition (every fifth narrowed by 1/4 syntonic comma, chain Eb..G#: J. Murray Barbour,
+Tuning and Temperament, 1951, ch. 3), reference A4 = 440 Hz (ISO 16).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+from fractions import Fraction
+from pathlib import Path
+
+import mido
+import pretty_midi
+import pytest
+
+from data import midigen
+
+# MIDI 1.0 Detailed Specification: RPN 0 = pitch bend sensitivity (CC101 = 0, CC100 = 0,
+# data entry MSB CC6 = semitones, LSB CC38 = cents); 14-bit bend, centre 8192.
+CC_RPN_MSB, CC_RPN_LSB, CC_DATA_MSB, CC_DATA_LSB = 101, 100, 6, 38
+
+
+def run_cli(*args, cwd=None):
+    return subprocess.run([sys.executable, "-m", "retuner", *map(str, args)],
+                          capture_output=True, text=True, cwd=cwd, timeout=120)
+
+
+# -- independent targets --------------------------------------------------------------------
+def edo12_cents(key):
+    """Cents above key 0 of 12-EDO at A4 = 440 Hz, from pretty_midi's Hz."""
+    hz = pretty_midi.note_number_to_hz(key)
+    return 1200 * math.log2(hz / (440.0 * 2 ** (-69 / 12)))
+
+
+def meantone_quarter_cents(key):
+    """Quarter-comma meantone: fifth = 3/2 * (81/80) ** (-1/4) (Barbour 1951); chain Eb..G#
+    (positions -3..8 from C); A4 = 440 Hz."""
+    fifth = 1200 * math.log2(1.5) - 0.25 * 1200 * math.log2(81 / 80)
+    pos = {0: 0, 7: 1, 2: 2, 9: 3, 4: 4, 11: 5, 6: 6, 1: 7, 8: 8, 5: -1, 10: -2, 3: -3}
+
+    def above_c(pc):
+        return (pos[pc] * fifth) % 1200.0
+
+    octave, pc = divmod(key, 12)
+    return 1200 * octave + above_c(pc) + (6900 - (1200 * 5 + above_c(9)))
+
+
+# -- an independent decoder -------------------------------------------------------------------
+def decode(path, exclude=(9,)):
+    """Notes of a file as a synth hears them: (on_tick, off_tick, channel, key, cents) sorted,
+    plus the bend range per channel (from RPN 0; 2 semitones if never set, MIDI 1.0 default)."""
+    mf = mido.MidiFile(path)
+    ev = []
+    for ti, tr in enumerate(mf.tracks):
+        tick = 0
+        for i, m in enumerate(tr):
+            tick += m.time
+            ev.append((tick, ti, i, m))
+    ev.sort(key=lambda e: (e[0], e[1], e[2]))
+    rng = [200.0] * 16
+    rpn = [None] * 16
+    bend = [0] * 16
+    sounding = {}
+    notes = []
+    for tick, _, _, m in ev:
+        if m.is_meta or not hasattr(m, "channel") or m.channel in exclude:
+            continue
+        c = m.channel
+        if m.type == "control_change":
+            if m.control == CC_RPN_MSB:
+                rpn[c] = (m.value, rpn[c][1] if rpn[c] else 127)
+            elif m.control == CC_RPN_LSB:
+                rpn[c] = (rpn[c][0] if rpn[c] else 127, m.value)
+            elif m.control == CC_DATA_MSB and rpn[c] == (0, 0):
+                rng[c] = 100.0 * m.value
+            elif m.control == CC_DATA_LSB and rpn[c] == (0, 0):
+                rng[c] = 100.0 * (rng[c] // 100) + m.value
+        elif m.type == "pitchwheel":
+            bend[c] = m.pitch
+        elif m.type == "note_on" and m.velocity > 0:
+            assert (c, m.note) not in sounding, "a key struck twice on one channel"
+            sounding[(c, m.note)] = [tick, None, c, m.note, 100.0 * m.note + bend[c] / 8192.0 * rng[c]]
+        elif m.type in ("note_on", "note_off"):
+            n = sounding.pop((c, m.note))
+            n[1] = tick
+            notes.append(tuple(n))
+    assert not sounding, f"notes never released: {sounding}"
+    return sorted(notes), rng
+
+
+def input_notes(path, exclude=(9,)):
+    """(on_tick, off_tick, channel, key) of the input file (FIFO note-off matching)."""
+    mf = mido.MidiFile(path)
+    ev = []
+    for ti, tr in enumerate(mf.tracks):
+        tick = 0
+        for i, m in enumerate(tr):
+            tick += m.time
+            ev.append((tick, ti, i, m))
+    ev.sort(key=lambda e: (e[0], e[1], e[2]))
+    open_ = {}
+    out = []
+    for tick, _, _, m in ev:
+        if m.is_meta or not hasattr(m, "channel") or m.channel in exclude:
+            continue
+        if m.type == "note_on" and m.velocity > 0:
+            open_.setdefault((m.channel, m.note), []).append(tick)
+        elif m.type in ("note_on", "note_off"):
+            on = open_[(m.channel, m.note)].pop(0)
+            out.append((on, tick, m.channel, m.note))
+    return sorted(out)
+
+
+def meta_events(path):
+    """Per track: (absolute tick, type, bytes) of every meta event except end of track."""
+    mf = mido.MidiFile(path)
+    out = []
+    for tr in mf.tracks:
+        tick = 0
+        lst = []
+        for m in tr:
+            tick += m.time
+            if m.is_meta and m.type != "end_of_track":
+                lst.append((tick, m.type, bytes(m.bytes())))
+        out.append(lst)
+    return out
+
+
+HALF_STEP_2 = 200.0 / 16384  # half a bend step at +-2 semitones, in cents (0.0122 c)
+
+
+def match_notes(inp, out, target, tol=HALF_STEP_2 + 1e-9):
+    """Every input note has an output note with the same key, the same on and off tick,
+    at its target pitch. Returns the worst error."""
+    assert len(inp) == len(out)
+    pool = {}
+    for n in out:
+        pool.setdefault((n[0], n[1], n[3]), []).append(n)
+    worst = 0.0
+    for on, off, ch, key in inp:
+        cands = pool.get((on, off, key))
+        assert cands, f"no output note for key {key} at ticks {on}-{off}"
+        n = cands.pop()
+        err = abs(n[4] - target(key))
+        worst = max(worst, err)
+        assert err <= tol, f"key {key} at tick {on}: {n[4]:.4f} c, target {target(key):.4f} c"
+    return worst
+
+
+# -- tests ------------------------------------------------------------------------------------
+def test_targets_are_what_the_sources_say():
+    # pretty_midi: key 69 = 440 Hz (ISO 16); 12-EDO key k = 100 k cents above key 0
+    assert edo12_cents(69) == pytest.approx(6900.0, abs=1e-9)
+    assert edo12_cents(60) == pytest.approx(6000.0, abs=1e-9)
+    # quarter-comma meantone: pure major third C-E (5/4 = 386.314 c, handbook value) and
+    # the fifth 696.578 c (Barbour 1951, from memory)
+    assert meantone_quarter_cents(64) - meantone_quarter_cents(60) == pytest.approx(386.3137, abs=1e-3)
+    assert meantone_quarter_cents(67) - meantone_quarter_cents(60) == pytest.approx(696.5784, abs=1e-3)
+    assert meantone_quarter_cents(69) == pytest.approx(6900.0, abs=1e-9)
+
+
+@pytest.mark.parametrize("profile,target", [("edo12", edo12_cents), ("meantone-quarter", meantone_quarter_cents)])
+@pytest.mark.parametrize("type_", [0, 1])
+def test_round_trip_same_notes_same_ticks_exact_pitches(tmp_path, profile, target, type_):
+    src = tmp_path / "piece.mid"
+    midigen.four_part_piece(src, type_=type_)
+    dst = tmp_path / "out.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", profile, "-q")
+    assert r.returncode == 0, r.stderr
+    assert r.stderr == ""
+    out, rng = decode(dst)
+    inp = input_notes(src)
+    assert len(inp) == sum(len(v) for v in midigen.VOICES)
+    # the bend range announced with RPN 0 is +-2 semitones on every channel used
+    assert {rng[n[2]] for n in out} == {200.0}
+    worst = match_notes(inp, out, target)
+    assert worst <= HALF_STEP_2
+    mo = mido.MidiFile(dst)
+    assert mo.type == type_ and mo.ticks_per_beat == midigen.TPB
+    assert len(mo.tracks) == len(mido.MidiFile(src).tracks)
+    # meta events (tempo, time signature, markers, lyrics, track names) kept in place
+    assert meta_events(dst) == meta_events(src)
+
+
+def test_four_part_piece_in_meantone_note_by_note_with_original_timing(tmp_path):
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    dst = tmp_path / "hymn-mt.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--report", tmp_path / "r.json")
+    assert r.returncode == 0, r.stderr
+    inp = input_notes(src)
+    out, _ = decode(dst)
+    match_notes(inp, out, meantone_quarter_cents)
+    # timing in seconds too: the output's own tempo map gives each note the input's time
+    pm_in = pretty_midi.PrettyMIDI(str(src))
+    pm_out = pretty_midi.PrettyMIDI(str(dst))
+    t_in = sorted((round(n.start, 9), round(n.end, 9), n.pitch) for i in pm_in.instruments for n in i.notes)
+    t_out = sorted((round(n.start, 9), round(n.end, 9), n.pitch) for i in pm_out.instruments for n in i.notes)
+    assert t_in == t_out
+    rep = json.loads((tmp_path / "r.json").read_text())
+    assert rep["notes"] == len(inp)
+    assert rep["worst_pitch_error_cents"] <= HALF_STEP_2
+    assert rep["steals"] == 0
+    # the summary on stdout names the measures
+    assert "impurity" in r.stdout and "steals" in r.stdout
+
+
+def test_arrangement_drums_byte_for_byte_parts_on_their_own_channels(tmp_path):
+    src = tmp_path / "band.mid"
+    drum_events = midigen.arrangement(src)
+    dst = tmp_path / "band-out.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "-q")
+    assert r.returncode == 0, r.stderr
+    raw = dst.read_bytes()
+    # drums: every event at its tick with the same bytes (mido decodes running status)
+    mo = mido.MidiFile(dst)
+    drums_out = []
+    for tr in mo.tracks:
+        tick = 0
+        for m in tr:
+            tick += m.time
+            if not m.is_meta and getattr(m, "channel", None) == 9:
+                drums_out.append((tick, bytes(m.bytes())))
+    assert drums_out == drum_events
+    # every other note decodes to its target, tick-exact, with the sustain pedal in play
+    inp = input_notes(src)
+    out, _ = decode(dst)
+    match_notes(inp, out, meantone_quarter_cents)
+    assert meta_events(dst) == meta_events(src)
+    # each part on its own output channels: no channel carries notes of two parts, and
+    # each part's program change reaches every channel that plays its notes
+    part_of_track = {1: 0, 2: 1, 3: 2}
+    prog = {0: 0, 1: 48, 2: 32}
+    chans_of = {}
+    programs = {}
+    for ti, tr in enumerate(mo.tracks):
+        for m in tr:
+            if m.type == "note_on" and m.velocity and m.channel != 9:
+                chans_of.setdefault(part_of_track[ti], set()).add(m.channel)
+            if m.type == "program_change":
+                programs.setdefault(m.channel, set()).add(m.program)
+    parts = list(chans_of.values())
+    for a in range(len(parts)):
+        for b in range(a + 1, len(parts)):
+            assert not parts[a] & parts[b]
+    for p, chans in chans_of.items():
+        assert 9 not in chans
+        for c in chans:
+            assert programs.get(c) == {prog[p]}
+    # the strings' volume controller reaches the strings' channels only
+    vol = {m.channel for tr in mo.tracks for m in tr if m.type == "control_change" and m.control == 7}
+    assert vol and vol <= chans_of[1]
+    assert raw[:4] == b"MThd"
+
+
+def test_split_output_when_parts_need_more_channels_than_a_port(tmp_path):
+    src = tmp_path / "wide.mid"
+    midigen.wide_arrangement(src)
+    dst = tmp_path / "wide-out.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "-q")
+    assert r.returncode == 0, r.stderr
+    assert not dst.exists()
+    outs = sorted(tmp_path.glob("wide-out-part*.mid"))
+    assert [p.name for p in outs][:2] == ["wide-out-part1.mid", "wide-out-part2.mid"]
+    # said in one line
+    lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "wide-out-part1.mid" in lines[0]
+    inp = input_notes(src)
+    total = 0
+    for p in outs:
+        mo = mido.MidiFile(p)
+        assert mo.tracks[0].name == "Conductor"
+        out, _ = decode(p)
+        chans = {n[2] for n in out}
+        assert 9 not in chans and len(chans) <= 15
+        parts_here = {ti for ti, tr in enumerate(mo.tracks) for m in tr if m.type == "note_on"}
+        mine = [n for n in inp if n[2] + 1 in parts_here]
+        match_notes(mine, out, meantone_quarter_cents)
+        total += len(out)
+    assert total == len(inp)
+
+
+def test_tempo_map_drives_the_engine_clock(tmp_path):
+    """With one pool channel and a 1 s release time, the second note of a pair (D4 after C4,
+    different bends in meantone) re-bends a ringing channel when the one-beat rest is shorter than
+    1 s (tempo 120: 0.5 s) but not when it is longer (tempo 30: 2 s). Same ticks, other tempo."""
+    counts = {}
+    for name, tempos in (("fast", (500000, 500000)), ("mixed", (500000, 2000000)), ("slow", (2000000, 2000000))):
+        src = tmp_path / f"{name}.mid"
+        midigen.tempo_pairs(src, tempos)
+        dst = tmp_path / f"{name}-out.mid"
+        rep = tmp_path / f"{name}.json"
+        r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--channels", "1",
+                    "--release-time", "1", "--report", rep, "-q")
+        assert r.returncode == 0, r.stderr
+        counts[name] = json.loads(rep.read_text())["ringing_retunes"]
+        match_notes(input_notes(src), decode(dst)[0], meantone_quarter_cents)
+    # each pair starts after a long rest (8 beats), so only the D4 of a pair can ring-retune
+    assert counts == {"fast": 2, "mixed": 1, "slow": 0}
+
+
+@pytest.mark.parametrize("kind", midigen.MALFORMED)
+def test_malformed_file_one_line_exit_2_no_output(tmp_path, kind):
+    good = tmp_path / "good.mid"
+    midigen.four_part_piece(good, type_=0)
+    bad = tmp_path / f"{kind}.mid"
+    bad.write_bytes(midigen.malformed(kind, good.read_bytes()))
+    outdir = tmp_path / "out"
+    outdir.mkdir()
+    dst = outdir / "x.mid"
+    r = run_cli("convert", bad, "-o", dst, "--profile", "edo12")
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1, r.stderr
+    assert f"{kind}.mid" in lines[0]
+    assert "Traceback" not in r.stderr
+    assert list(outdir.iterdir()) == []  # nothing written, no temporary file left
+
+
+def test_failed_conversion_leaves_an_existing_output_untouched(tmp_path):
+    good = tmp_path / "good.mid"
+    midigen.four_part_piece(good, type_=0)
+    bad = tmp_path / "bad.mid"
+    bad.write_bytes(midigen.malformed("truncated", good.read_bytes()))
+    dst = tmp_path / "out.mid"
+    dst.write_bytes(b"previous contents")
+    r = run_cli("convert", bad, "-o", dst)
+    assert r.returncode == 2
+    assert dst.read_bytes() == b"previous contents"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["bad.mid", "good.mid", "out.mid"]
+
+
+def test_mts_mode_notes_stay_on_their_channels_and_decode(tmp_path):
+    """MIDI Tuning Standard single note tuning change (MIDI 1.0 specification, MTS section):
+    F0 7F dev 08 02 prog n [key xx yy zz]... F7, frequency = semitone xx + (yy*128+zz)/16384."""
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    dst = tmp_path / "mts.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--mode", "mts", "-q")
+    assert r.returncode == 0, r.stderr
+    mo = mido.MidiFile(dst)
+    table = {}
+    ev = []
+    for tr in mo.tracks:
+        tick = 0
+        for m in tr:
+            tick += m.time
+            ev.append((tick, m))
+    ev.sort(key=lambda e: e[0])
+    notes = []
+    for tick, m in ev:
+        if m.type == "sysex" and list(m.data[:1]) == [0x7F] and list(m.data[2:4]) == [8, 2]:
+            n = m.data[5]
+            for i in range(n):
+                key, xx, yy, zz = m.data[6 + 4 * i: 10 + 4 * i]
+                table[key] = 100.0 * xx + 100.0 * (yy * 128 + zz) / 16384
+        elif m.type == "note_on" and m.velocity:
+            notes.append((tick, m.channel, m.note, table[m.note]))
+    inp = [(on, ch, key) for on, off, ch, key in input_notes(src)]
+    assert sorted((t, c, k) for t, c, k, _ in notes) == sorted(inp)
+    for _, _, key, cents in notes:
+        # half a frequency-data step: 100/16384/2 cent (MTS)
+        assert abs(cents - meantone_quarter_cents(key)) <= 100 / 32768 + 1e-9
+
+
+def test_plot_is_a_valid_png(tmp_path):
+    import matplotlib.image
+    src = tmp_path / "band.mid"
+    midigen.arrangement(src)
+    png = tmp_path / "plot.png"
+    r = run_cli("convert", src, "-o", tmp_path / "o.mid", "--profile", "edo12", "--adaptive",
+                "--plot", png, "-q")
+    assert r.returncode == 0, r.stderr
+    data = png.read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, ISO/IEC 15948)
+    img = matplotlib.image.imread(str(png))
+    assert img.ndim == 3 and img.shape[0] > 100 and img.shape[1] > 100
+    # not a blank picture: several distinct colours (the parts and the drift line)
+    flat = {tuple(px) for px in img.reshape(-1, img.shape[2])[::97].tolist()}
+    assert len(flat) > 5
+
+
+def test_report_json_fields(tmp_path):
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src)
+    rep = tmp_path / "r.json"
+    r = run_cli("convert", src, "-o", tmp_path / "o.mid", "--adaptive", "--report", rep)
+    assert r.returncode == 0, r.stderr
+    d = json.loads(rep.read_text())
+    for k in ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
+              "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
+              "drift_max_cents", "drift_final_cents", "drift_rms_cents"):
+        assert k in d
+    assert d["notes"] == len(input_notes(src))
+    assert d["adaptive"] is True and d["worst_pitch_error_cents"] is None
+    assert all(1 <= c <= 16 and c != 10 for c in d["channels_used"])
