@@ -92,9 +92,9 @@ def minor_cadence_chords(keys: int = 6) -> list[tuple[int, ...]]:
     chords = []
     for n in range(keys):
         t = (9 + 5 * n) % 12  # tonic pitch class: A, D, G, C, F, Bb
-        i = (t, (t, t + 3, t + 7), (t + 3,))
-        iv = (t + 5, (t + 5, t + 8, t), (t + 8,))
-        v = (t + 7, (t + 7, t + 11, t + 2), (t + 11,))
+        i = (t, (t, t + 3, t + 7), (t + 3, t + 7))
+        iv = (t + 5, (t + 5, t + 8, t), (t + 8, t))
+        v = (t + 7, (t + 7, t + 11, t + 2), (t + 11, t + 2))
         chords += [i, iv, v, i]
     chords = [(b % 12, tuple(p % 12 for p in pcs), tuple(x % 12 for x in need)) for b, pcs, need in chords]
     return _chain((64, 69, 72), chords)
