@@ -59,19 +59,22 @@ MOTION_VALUE = 1.3
 #: centre mainly through its drift limit, planned over the piece
 CENTRE_VALUE = 0.01
 DRIFT_AIM = 1.0
+#: shortest stretch of time a centre term is weighted with (seconds)
+MIN_STRETCH = 0.05
 #: motion values tried in turn until the plan beats live playing (see choose())
 MOTION_VALUES = (1.3, 1.0, 1.6, 0.7, 2.0, 3.0)
 
 
 class _Note:
-    __slots__ = ("id", "part", "key", "on", "end", "s0", "s1", "var0")
+    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0")
 
     def __init__(self, id_, part, key, on):
         self.id = id_
         self.part = part
         self.key = key
         self.on = on
-        self.end = math.inf
+        self.end = math.inf     # stops sounding (note-off, or the pedal's release after it)
+        self.off = math.inf     # note-off (key up)
         self.s0 = 0
         self.s1 = -1
         self.var0 = -1
@@ -104,6 +107,7 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
             q = fifo.get((ch, raw[1]))
             if q:
                 n = q.pop(0)
+                n.off = t
                 if pedal.get(ch):
                     pedalled.setdefault(ch, []).append(n)
                 else:
@@ -120,7 +124,7 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
                 for (c, k), q in list(fifo.items()):
                     if c == ch:
                         for n in q:
-                            n.end = t
+                            n.end = n.off = t
                         del fifo[(c, k)]
                 for n in pedalled.pop(ch, []):
                     n.end = t
@@ -128,6 +132,7 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
     for n in notes:
         if n.end == math.inf:
             n.end = max(end, n.on)
+        n.off = min(n.off, n.end)
     return notes
 
 
@@ -418,12 +423,24 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
     mi = np.array(mi, dtype=int)
     mj = np.array(mj, dtype=int)
     # centre: per segment the variables and the weight
+    # (the drift is measured over every stretch in which the set of sounding notes is constant,
+    # so a segment in which some notes end early gets one centre term per such stretch)
     seg_vars = []
     for s in range(s0, s1):
-        idx = np.array([loc[(n.id, s)] for n in seg_notes[s]], dtype=int)
-        r = float(np.mean([ref[n.key] for n in seg_notes[s]])) if len(idx) else 0.0
-        dur = max(seg_end[s] - onsets[s], 1e-3)
-        seg_vars.append((idx, dur, r))
+        ns = seg_notes[s]
+        if not ns:
+            continue
+        ts, te = onsets[s], seg_end[s]
+        cuts = sorted({ts, te} | {n.end for n in ns if ts < n.end < te} | {n.off for n in ns if ts < n.off < te})
+        for a, b in zip(cuts, cuts[1:]):
+            # notes sounding (pedal included), and notes whose key is down: a decoder that
+            # ignores the pedal hears the latter; the centre is kept for both views
+            for sub in {tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a)}:
+                if not sub:
+                    continue
+                idx = np.array([loc[(n.id, s)] for n in sub], dtype=int)
+                r = float(np.mean([ref[n.key] for n in sub]))
+                seg_vars.append((idx, max(b - a, MIN_STRETCH), r))
     mu = np.full(len(seg_vars), mu0)
     # L1 weights (impurity and motion are measured as sums of absolute values):
     # iteratively reweighted least squares, starting from the plain quadratic solution

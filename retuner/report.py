@@ -213,3 +213,124 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     fig.savefig(buf, format="png")
     from .files import write_atomic
     write_atomic(path, buf.getvalue())
+
+
+# ---------------------------------------------------------------------------
+# Comparing tunings on one piece
+# ---------------------------------------------------------------------------
+#: consonances whose beat rates are shown (interval class -> just ratio upper:lower), the
+#: impurity set of retuner.metrics (common practice of 5-limit just intonation)
+BEAT_RATIOS = {0: (2, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
+CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: "fifth",
+               8: "minor sixth", 9: "major sixth"}
+
+
+def _segments(notes):
+    """(t0, t1, [(key, cents)]) over which the sounding set is constant."""
+    ev = []
+    for i, n in enumerate(notes):
+        for t, c in n.steps:
+            ev.append((t, 1, i, c))
+        ev.append((n.end if n.end is not None else n.start, 0, i, 0.0))
+    ev.sort(key=lambda e: (e[0], e[1]))
+    cur: dict[int, float] = {}
+    prev = None
+    for t, kind, i, c in ev:
+        if prev is not None and t > prev and cur:
+            yield prev, t, [(notes[j].key, p) for j, p in cur.items()]
+        prev = t
+        if kind == 0:
+            cur.pop(i, None)
+        else:
+            cur[i] = c
+
+
+def pair_times(notes) -> dict:
+    """(low key, high key) -> [seconds sounding together, sum of beat rate * seconds] for the
+    consonant pairs (a whole octave and more counts as an octave's multiple: compound 2:1 only
+    for octaves; other compound intervals are reduced to their simple form for the ratio)."""
+    from .tuning import beat_rate, cents_to_hz
+    acc: dict = {}
+    for t0, t1, snd in _segments(notes):
+        dt = t1 - t0
+        snd = sorted(snd, key=lambda kp: (kp[1], kp[0]))
+        for a in range(len(snd)):
+            for b in range(a + 1, len(snd)):
+                (k1, c1), (k2, c2) = snd[a], snd[b]
+                d = k2 - k1
+                if d <= 0 or d % 12 not in BEAT_RATIOS or d > 24:
+                    continue
+                p, q = BEAT_RATIOS[d % 12]
+                octs = d // 12
+                if d % 12 == 0:
+                    p, q = 2 ** octs, 1
+                else:
+                    p *= 2 ** octs
+                g = math.gcd(p, q)
+                p, q = p // g, q // g
+                rate = beat_rate(cents_to_hz(c1), cents_to_hz(c2), p, q)
+                e = acc.setdefault((k1, k2), [0.0, 0.0, (p, q)])
+                e[0] += dt
+                e[1] += rate * dt
+    return acc
+
+
+def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dict:
+    """Impurity, motion, drift and beat rates of the piece's most frequent consonant key pairs,
+    per tuning (static), and for adaptive tuning live and with lookahead when
+    ``adaptive_config`` is given (reference: the first tuning)."""
+    from . import files, metrics
+    from .tuning import note_name
+    rows = []
+    runs = [(t.id, t, config.replace(adaptive=None), False) for t in tunings]
+    if adaptive_config is not None:
+        runs.append(("adaptive", tunings[0], config.replace(adaptive=adaptive_config), False))
+        runs.append(("adaptive+lookahead", tunings[0], config.replace(adaptive=adaptive_config), True))
+    decoded = []
+    for name, tun, cfg, la in runs:
+        res = files.convert_song(song, "compare.mid", files.ConvertOptions(tun, cfg, lookahead=la))
+        notes = []
+        for o in res.outputs:
+            notes += metrics.decode(files.output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
+                                    exclude_channels=tuple(cfg.passthrough)).notes
+        decoded.append((name, tun, notes))
+    # the piece's most frequent consonant pairs (by time sounding together), from the first run
+    base = pair_times(decoded[0][2])
+    chosen = sorted(base.items(), key=lambda kv: (-kv[1][0], kv[0]))[:top]
+    intervals = []
+    for (k1, k2), (secs, _, (p, q)) in chosen:
+        intervals.append({"low": k1, "high": k2, "name": f"{note_name(k1)}-{note_name(k2)}",
+                          "interval": CLASS_NAMES[(k2 - k1) % 12] + (" +8ve" if k2 - k1 > 12 else ""),
+                          "ratio": f"{p}/{q}", "seconds": round(secs, 3)})
+    for name, tun, notes in decoded:
+        imp, _ = metrics.impurity(notes)
+        dr = metrics.drift(notes)
+        pt = pair_times(notes)
+        beats = []
+        for iv in intervals:
+            e = pt.get((iv["low"], iv["high"]))
+            beats.append(round(e[1] / e[0], 3) if e and e[0] > 0 else None)
+        rows.append({"tuning": name, "impurity_cents": round(imp, 3),
+                     "motion_cents_per_note": round(metrics.motion(notes), 3),
+                     "drift_max_cents": round(dr["max"], 3), "beat_rates_hz": beats})
+    return {"input": song.path, "intervals": intervals, "tunings": rows}
+
+
+def compare_text(c: dict) -> str:
+    heads = [f"{iv['name']} {iv['ratio']}" for iv in c["intervals"]]
+    w = max([len(r["tuning"]) for r in c["tunings"]] + [6])
+    lines = [f"{c['input']}: beat rates (Hz) of the most frequent consonant pairs, "
+             f"time-weighted while they sound"]
+    head = f"{'tuning':<{w}}  {'impurity':>9}  {'motion':>9}  {'drift':>8}"
+    for h in heads:
+        head += f"  {h:>12}"
+    lines.append(head)
+    for r in c["tunings"]:
+        line = (f"{r['tuning']:<{w}}  {r['impurity_cents']:>7.2f} c  {r['motion_cents_per_note']:>7.2f} c"
+                f"  {r['drift_max_cents']:>6.2f} c")
+        for b in r["beat_rates_hz"]:
+            line += f"  {('-' if b is None else f'{b:.2f}'):>12}"
+        lines.append(line)
+    lines.append("impurity: mean distance of consonant pairs from just; motion: cents per note; "
+                 "drift: largest mean deviation from 12-EDO")
+    return "\n".join(lines)

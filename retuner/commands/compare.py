@@ -1,0 +1,60 @@
+"""``retuner compare``: how a piece sounds in several tunings, to choose one."""
+
+from __future__ import annotations
+
+from ..errors import RetunerError
+from ._common import add_profiles_dir, print_json
+
+NAME = "compare"
+HELP = "compare tunings on a MIDI file: impurity, motion, drift and beat rates of its main intervals"
+ORDER = 32
+DESCRIPTION = (
+    "Convert a MIDI file in memory with each tuning and measure the output: impurity (mean "
+    "distance of consonant pairs from just, weighted by time), motion (cents per note), drift "
+    "(largest mean deviation from 12-EDO) and the beat rates of the piece's most frequent "
+    "consonant key pairs. Beat rate of an interval near the just ratio p:q (upper:lower), lower "
+    "tone f1, upper tone f2: |q*f2 - p*f1| Hz. With --adaptive, adaptive tuning (live, and with "
+    "lookahead) is added, its reference being the first tuning listed.")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("input", metavar="IN.mid")
+    parser.add_argument("--profiles", default="edo12,meantone-quarter,werckmeister-3", metavar="LIST",
+                        help="comma-separated profile ids or files (default edo12,meantone-quarter,werckmeister-3)")
+    parser.add_argument("--adaptive", action="store_true", help="add adaptive tuning (live and lookahead)")
+    parser.add_argument("--top", type=int, default=5, metavar="N", help="how many intervals (default 5)")
+    parser.add_argument("--passthrough-channels", default="10", metavar="LIST",
+                        help="input channels left out, e.g. percussion (default 10; 'none')")
+    parser.add_argument("--json", action="store_true", help="print JSON")
+    add_profiles_dir(parser)
+
+
+def run(args) -> int:
+    from .. import files, report
+    from ..engine import EngineConfig
+    from ..profile import load_profile
+    from .convert import _channels_or_none
+
+    names = [n.strip() for n in args.profiles.split(",") if n.strip()]
+    if not names:
+        raise RetunerError("give at least one profile", field="--profiles")
+    if not 1 <= args.top <= 50:
+        raise RetunerError("must be 1..50", field="--top")
+    import argparse
+    try:
+        pas = tuple(sorted(c - 1 for c in _channels_or_none(args.passthrough_channels)))
+    except argparse.ArgumentTypeError as exc:
+        raise RetunerError(str(exc), field="--passthrough-channels")
+    tunings = [load_profile(n, args.profiles_dir) for n in names]
+    song = files.read_smf(args.input)
+    cfg = EngineConfig(passthrough=pas, pool=tuple(c for c in range(16) if c not in pas)).validate()
+    acfg = None
+    if args.adaptive:
+        from ..adaptive import AdaptiveConfig
+        acfg = AdaptiveConfig()
+    c = report.compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)
+    if args.json:
+        print_json(c)
+    else:
+        print(report.compare_text(c))
+    return 0
