@@ -571,15 +571,20 @@ class AdaptiveSolver:
         # context choice among ambiguous candidates (at most two more passes)
         amb = self._ambig[D]   # the diagonal (unison) has one candidate only
         if amb.any():
+            iu, ju = np.nonzero(np.triu(amb))
+            cand_u = self._cand[D[iu, ju]]          # (pairs, candidates)
+            rows = np.arange(len(iu))
+
             def refine(x, tau):
                 for _ in range(2):
-                    diff = x[None, :] - x[:, None]
-                    cand = self._cand[D].reshape(n * n, self._ncand)
-                    choice = np.argmin(np.abs(cand - diff.reshape(n * n, 1)), axis=1)
-                    new_tau = np.where(amb, cand[np.arange(n * n), choice].reshape(n, n), tau)
-                    if float(np.abs(new_tau - tau).max()) < 1e-9:
+                    diff = x[ju] - x[iu]
+                    choice = np.argmin(np.abs(cand_u - diff[:, None]), axis=1)
+                    vals = cand_u[rows, choice]
+                    if float(np.abs(vals - tau[iu, ju]).max()) < 1e-9:
                         break
-                    tau = new_tau
+                    tau = tau.copy()
+                    tau[iu, ju] = vals
+                    tau[ju, iu] = -vals
                     x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
                 return x, tau
             x, tau = refine(x, tau)

@@ -451,3 +451,141 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
         done.append(nt)
     done.sort(key=lambda n: (n.start, n.key))
     return done
+
+
+# -- retuner bench --adaptive ---------------------------------------------------------
+
+def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, mode: str = "pool"):
+    """Play events through a fresh engine (as the daemon would) and return its output stream."""
+    from .engine import Engine, EngineConfig
+    from .tuning import Tuning
+
+    eng = Engine(tuning or Tuning.equal12(), EngineConfig(mode=mode, adaptive=adaptive))
+    out: list[Event] = [(0.0, m) for m in eng.start(0.0)]
+    for t, m in events:
+        d = eng.next_deadline()
+        while d is not None and d <= t:
+            out += [(d, x) for x in eng.tick(d)]
+            d = eng.next_deadline()
+        out += [(t, x) for x in eng.feed(t, m)]
+    d = eng.next_deadline()
+    while d is not None:
+        out += [(d, x) for x in eng.tick(d)]
+        d2 = eng.next_deadline()
+        if d2 is not None and d2 <= d:
+            break
+        d = d2
+    return out
+
+
+def _figures(stream) -> dict:
+    from .metrics import report
+    r = report(stream)
+    return {"impurity": r["impurity_cents"], "motion": r["motion_cents_per_note"],
+            "drift_max": r["drift_max_cents"], "drift_max_settled": r["drift_max_settled_cents"],
+            "drift_final": r["drift_final_cents"], "drift_rms": r["drift_rms_cents"], "notes": r["notes"]}
+
+
+def bench_setups() -> dict:
+    """The tunings compared by ``adaptive_bench``: name -> (tuning id, AdaptiveConfig or None)."""
+    from .adaptive import AdaptiveConfig
+    return {
+        "adaptive": ("edo12", AdaptiveConfig()),
+        "edo12": ("edo12", None),
+        "meantone-quarter": ("meantone-quarter", None),
+        "plain-least-squares": ("edo12", AdaptiveConfig(policy="free+reset", max_drift=1200.0,
+                                                        max_motion=1200.0, motion_weight=2.0,
+                                                        centre_weight=1.0)),
+        "fixed-held": ("edo12", AdaptiveConfig(policy="fixed-held+reset")),
+    }
+
+
+def solver_timing(events: int = 5000, voices: int = 8, seed: int = 1) -> dict:
+    """Wall time of ``AdaptiveSolver.solve`` per event with ``voices`` sounding notes.
+
+    Each event releases two of the sounding notes and strikes two new ones (from a
+    diatonic set, so the chords are musical), the rest are held at the pitches the
+    solver gave them.
+    """
+    import random
+    import time
+
+    from .adaptive import AdaptiveConfig, AdaptiveSolver
+
+    rng = random.Random(seed)
+    solver = AdaptiveSolver(AdaptiveConfig())
+    scale = [k for k in range(40, 88) if k % 12 in (0, 2, 4, 5, 7, 9, 11)]
+    keys = sorted(rng.sample(scale, voices))
+    _, cents = solver.solve([], keys)
+    sounding = dict(zip(keys, cents))
+    lat = []
+    clock = time.perf_counter_ns
+    for _ in range(events):
+        for k in rng.sample(sorted(sounding), 2):
+            del sounding[k]
+        new = rng.sample([k for k in scale if k not in sounding], 2)
+        held = list(sounding.items())
+        t0 = clock()
+        h, n = solver.solve(held, new)
+        lat.append(clock() - t0)
+        sounding = dict(zip([k for k, _ in held], h))
+        sounding.update(zip(new, n))
+    lat.sort()
+
+    def pct(q):
+        return round(lat[min(len(lat) - 1, max(0, int(-(-q * len(lat) // 100)) - 1))] / 1000.0, 1)
+
+    return {"voices": voices, "events": events, "p50_us": pct(50), "p99_us": pct(99),
+            "max_us": round(lat[-1] / 1000.0, 1)}
+
+
+def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 5000) -> dict:
+    """Figures for ``retuner bench --adaptive``: the comma pump and the chorales through the
+    engine, measured from its output (retuner.metrics), for adaptive mode and for the
+    tunings it is compared with; and the solver's time per event with 8 voices."""
+    from .profile import load_profile
+
+    setups = bench_setups()
+    pump = progression("pump", legato=True, rounds=rounds)
+    out: dict = {"pump": {}, "chorales": {}, "solver": solver_timing(solver_events)}
+    for name, (tid, acfg) in setups.items():
+        tuning = load_profile(tid)
+        out["pump"][name] = _figures(run_through_engine(pump, tuning, adaptive=acfg, mode=mode))
+        per = [_figures(run_through_engine(chorale_events(p), tuning, adaptive=acfg, mode=mode))
+               for p in CHORALES]
+        avg = {k: round(sum(f[k] for f in per) / len(per), 6) for k in per[0] if k != "notes"}
+        avg["drift_max_worst"] = max(f["drift_max"] for f in per)
+        avg["drift_max_settled_worst"] = max(f["drift_max_settled"] for f in per)
+        avg["pieces"] = len(per)
+        out["chorales"][name] = avg
+    p = out["pump"]["adaptive"]
+    c = out["chorales"]["adaptive"]
+    out["goals"] = {
+        "pump_impurity<=1.0": p["impurity"] <= 1.0,
+        "pump_motion<=1.5": p["motion"] <= 1.5,
+        "pump_drift<=5": p["drift_max"] <= 5.0,
+        "pump_drift_settled<=5": p["drift_max_settled"] <= 5.0,
+        "chorale_impurity<=0.8": c["impurity"] <= 0.8,
+        "chorale_motion<=0.3": c["motion"] <= 0.3,
+        "chorale_drift<=5": c["drift_max_worst"] <= 5.0,
+        "chorale_drift_settled<=5": c["drift_max_settled_worst"] <= 5.0,
+        "solver_p99<=150us": out["solver"]["p99_us"] <= 150.0,
+    }
+    return out
+
+
+def format_adaptive_bench(res: dict) -> str:
+    lines = []
+    s = res["solver"]
+    lines.append(f"adaptive solver, {s['voices']} voices, {s['events']} events: p50 {s['p50_us']} us, "
+                 f"p99 {s['p99_us']} us, max {s['max_us']} us")
+    for title, key in (("comma pump (legato, 4 voices)", "pump"),
+                       (f"chorales (average of {len(CHORALES)})", "chorales")):
+        lines.append(f"{title}: impurity c | motion c/note | drift max c (settled >= 50 ms) | drift final c")
+        for name, f in res[key].items():
+            dm = f.get("drift_max_worst", f["drift_max"])
+            ds = f.get("drift_max_settled_worst", f["drift_max_settled"])
+            lines.append(f"  {name:22s} {f['impurity']:7.3f} | {f['motion']:6.3f} | {dm:7.2f} ({ds:6.2f}) | "
+                         f"{f['drift_final']:7.2f}")
+    lines.append("goals: " + ", ".join(f"{k} {'yes' if v else 'NO'}" for k, v in res["goals"].items()))
+    return "\n".join(lines)

@@ -45,7 +45,11 @@ def run(args) -> int:
     events = performance(args.performance, n_note_events=args.events, seed=args.seed)
     res = measure(tuning, EngineConfig(mode=args.mode, adaptive=adaptive), events)
     if args.json:
-        print_json({k: res[k] for k in JSON_KEYS})
+        figs = {k: res[k] for k in JSON_KEYS}
+        if args.adaptive:  # the adaptive goals: progressions measured from the output
+            from ..progressions import adaptive_bench
+            figs["adaptive"] = adaptive_bench(mode=args.mode)
+        print_json(figs)
         return 0
     print(f"profile {tuning.id}, mode {args.mode}{' adaptive' if adaptive else ''}, "
           f"performance {args.performance} (seed {args.seed}): {res['events']} events, "
@@ -57,4 +61,7 @@ def run(args) -> int:
     print(f"ringing retunes: {res['ringing_retunes']} "
           f"({res['ringing_retunes_below_pool']} while fewer notes sounded than pool channels)")
     print(f"steals: {res['steals']}")
+    if args.adaptive:
+        from ..progressions import adaptive_bench, format_adaptive_bench
+        print(format_adaptive_bench(adaptive_bench(mode=args.mode)))
     return 0
