@@ -604,6 +604,78 @@ def _channel_list(chans: Iterable[int]) -> str:
     return ",".join(str(c + 1) for c in chans)
 
 
+def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool, avail: int) -> tuple[dict, dict]:
+    """Per part: the channels it needs at least (most notes with different bends sounding at
+    once, pedal included: with fewer it would steal) and the channels it wishes for (one per
+    bend value it ever uses: then every note finds a channel already bent right, and no
+    channel is re-bent while ringing). Static tunings share a channel among notes with one bend;
+    in adaptive mode every note has a bend of its own."""
+    want = set(parts)
+    dev_cache: dict[int, object] = {}
+
+    def bend_of(key: int):
+        d = dev_cache.get(key)
+        if d is None:
+            c = tuning.cents[key]
+            d = dev_cache[key] = None if c is None else round(c - 100.0 * key, 4)
+        return d
+
+    sounding: dict[int, dict] = {p: {} for p in parts}    # part -> {bend: count}
+    keys_down: dict[int, dict] = {p: {} for p in parts}   # part -> {key: [bends]}
+    pedal_held: dict[int, list] = {p: [] for p in parts}
+    pedal: dict[int, bool] = {}
+    poly: dict[int, int] = {p: 0 for p in parts}
+    most: dict[int, int] = {p: 1 for p in parts}
+    used: dict[int, set] = {p: set() for p in parts}
+
+    def drop(p: int, b) -> None:
+        snd = sounding[p]
+        snd[b] -= 1
+        if not snd[b]:
+            del snd[b]
+        poly[p] -= 1
+
+    for _, _, kind, raw in merged:
+        if kind != CHANNEL:
+            continue
+        st = raw[0]
+        p = st & 0x0F
+        if p not in want:
+            continue
+        hi = st & 0xF0
+        if hi == 0x90 and raw[2]:
+            b = bend_of(raw[1])
+            if b is None:
+                continue
+            b = (b, raw[1]) if adaptive else b
+            snd = sounding[p]
+            snd[b] = snd.get(b, 0) + 1
+            keys_down[p].setdefault(raw[1], []).append(b)
+            used[p].add(b)
+            poly[p] += 1
+            n = poly[p] if adaptive else len(snd)
+            if n > most[p]:
+                most[p] = n
+        elif hi == 0x80 or hi == 0x90:
+            q = keys_down[p].get(raw[1])
+            if q:
+                b = q.pop(0)
+                if pedal.get(p):
+                    pedal_held[p].append(b)
+                else:
+                    drop(p, b)
+        elif hi == 0xB0 and raw[1] == 64:
+            down = raw[2] >= 64
+            if pedal.get(p) and not down:
+                for b in pedal_held[p]:
+                    drop(p, b)
+                pedal_held[p] = []
+            pedal[p] = down
+    need_min = {p: max(1, min(most[p], avail)) for p in parts}
+    wish = {p: max(need_min[p], min(avail, len(used[p]) if not adaptive else 2 * most[p])) for p in parts}
+    return need_min, wish
+
+
 def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, config) -> list[tuple[list[int], dict]]:
     """Share the output channels among the parts (see the module docstring).
 
@@ -619,32 +691,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
         return [([p], {p: config}) for p in parts]
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
-    # each part alone with the whole pool: how many channels it uses (wish), and at most at once (minimum)
-    need_min: dict[int, int] = {}
-    wish: dict[int, int] = {}
-    for p in parts:
-        e = _make_engine(tuning, config.replace(pool=tuple(pool)))
-        e.start(0.0)
-        used: set[int] = set()
-        most = 1
-        for idx, (tick, ti, kind, raw) in enumerate(merged):
-            if kind != CHANNEL or raw[0] & 0x0F != p:
-                continue
-            t = secs[idx]
-            d = e.next_deadline()
-            while d is not None and d <= t:
-                for m in e.tick(d):
-                    if m.type == "note_on":
-                        used.add(m.channel)
-                d = e.next_deadline()
-            for m in e.feed(t, raw_to_message(raw)):
-                if m.type == "note_on":
-                    used.add(m.channel)
-            busy = len(e.pool.busy())
-            if busy > most:
-                most = busy
-        need_min[p] = min(most, avail)
-        wish[p] = max(min(len(used), avail), need_min[p])
+    need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)
     # groups: first fit, largest minimum first
     groups: list[list[int]] = []
     for p in sorted(parts, key=lambda q: (-need_min[q], q)):
@@ -889,3 +936,113 @@ def convert_batch(src_dir: str | os.PathLike, dst_dir: str | os.PathLike, opts: 
         print(f"converted {ok} of {len(results)} files into {dst}"
               + (f"; {len(failed)} failed" if failed else ""))
     return 1 if failed else 0
+
+
+# ---------------------------------------------------------------------------
+# Speed
+# ---------------------------------------------------------------------------
+def _bench_file(path: str, events: int, seed: int = 1) -> int:
+    """Write a generated arrangement of about ``events`` events: a piano part (chords of 1..4
+    notes, sustain pedal, some wheel), a bass part and drums. Returns the event count."""
+    import random
+    rnd = random.Random(seed)
+    tpb = 480
+    piano: list = []
+    bass: list = []
+    drums: list = []
+    tick = 0
+    n = 0
+    scale = [0, 2, 4, 5, 7, 9, 11]
+    while n < events:
+        root = 48 + rnd.choice(scale)
+        size = rnd.randint(1, 4)
+        keys = sorted({root + 12 + rnd.choice(scale) + 12 * rnd.randint(0, 1) for _ in range(size)})
+        length = rnd.choice((120, 240, 480))
+        for k in keys:
+            piano.append((tick, bytes((0x90, k, rnd.randint(40, 110)))))
+            piano.append((tick + length - 10, bytes((0x80, k, 0))))
+        bass.append((tick, bytes((0x91, root - 12, 90))))
+        bass.append((tick + length - 5, bytes((0x81, root - 12, 0))))
+        drums.append((tick, bytes((0x99, 36 if rnd.random() < 0.5 else 42, 100))))
+        drums.append((tick + 60, bytes((0x89, 36, 0))))
+        n += 2 * len(keys) + 4
+        if rnd.random() < 0.05:
+            piano.append((tick, bytes((0xB0, 64, 127))))
+            piano.append((tick + length, bytes((0xB0, 64, 0))))
+            n += 2
+        if rnd.random() < 0.05:
+            for i in range(4):
+                v = 8192 + (i - 2) * 500
+                piano.append((tick + i * 20, bytes((0xE0, v & 0x7F, v >> 7))))
+            piano.append((tick + 100, bytes((0xE0, 0, 64))))
+            n += 5
+        tick += length
+    tracks = []
+    cond = [(0, b"\xFF\x51\x03\x07\xA1\x20"), (0, b"\xFF\x58\x04\x04\x02\x18\x08")]
+    tracks.append((cond, tick))
+    for evs in (piano, bass, drums):
+        evs.sort(key=lambda e: e[0])
+        tracks.append((evs, tick + tpb))
+    with open(path, "wb") as fh:
+        fh.write(serialize(1, tpb, tracks))
+    return n
+
+
+def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quarter",
+                        batch_files: int = 8, batch_events: int = 12_000,
+                        jobs: Optional[Sequence[int]] = None, repeat: int = 3) -> dict:
+    """Measure file conversion speed: converting a generated file of about ``events`` events
+    against mido loading and saving the same file (goal: at most 2x), and a batch of
+    ``batch_files`` files with 1 worker and with more (goal: scales with workers).
+    Best of ``repeat`` runs for the single file. Returns the figures (seconds)."""
+    import shutil
+    import time
+
+    from .engine import EngineConfig
+    from .profile import load_profile
+
+    tmp = tempfile.mkdtemp(prefix="retuner-bench-")
+    try:
+        src = os.path.join(tmp, "big.mid")
+        n = _bench_file(src, events)
+        tuning = load_profile(profile)
+        opts = ConvertOptions(tuning, EngineConfig())
+
+        def best(fn):
+            ts = []
+            for _ in range(repeat):
+                t0 = time.perf_counter()
+                fn()
+                ts.append(time.perf_counter() - t0)
+            return min(ts)
+
+        def mido_round_trip():
+            mf = mido.MidiFile(src)
+            mf.save(os.path.join(tmp, "mido.mid"))
+
+        t_mido = best(mido_round_trip)
+        t_conv = best(lambda: convert_file(src, os.path.join(tmp, "out.mid"), opts))
+        out = {"events": n, "profile": profile, "mido_load_save_s": round(t_mido, 4),
+               "convert_s": round(t_conv, 4), "ratio": round(t_conv / t_mido, 3),
+               "events_per_s": round(n / t_conv)}
+        # batch scaling
+        bdir = os.path.join(tmp, "batch")
+        os.mkdir(bdir)
+        for i in range(batch_files):
+            _bench_file(os.path.join(bdir, f"f{i}.mid"), batch_events, seed=i + 2)
+        cpus = os.cpu_count() or 1
+        jobs = list(jobs) if jobs else sorted({1, min(2, cpus), cpus})
+        times = {}
+        import io as _io
+        for j in jobs:
+            odir = os.path.join(tmp, f"out{j}")
+            t0 = time.perf_counter()
+            convert_batch(bdir, odir, opts, jobs=j, quiet=True, stream=_io.StringIO())
+            times[j] = time.perf_counter() - t0
+        out["batch"] = {"files": batch_files, "events_per_file": batch_events,
+                        "seconds_by_jobs": {str(j): round(t, 3) for j, t in times.items()},
+                        "speedup": {str(j): round(times[jobs[0]] / t, 2) for j, t in times.items()},
+                        "cpus": cpus}
+        return out
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)

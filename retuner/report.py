@@ -94,6 +94,8 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
            "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
+    if getattr(res, "lookahead", None):
+        top["lookahead_check"] = res.lookahead   # the plan against live playing of the same file
     if len(files_rep) == 1:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:

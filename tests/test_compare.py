@@ -1,0 +1,56 @@
+"""`retuner compare`: per tuning impurity, motion, drift and beat rates of the piece's most
+frequent consonant pairs. Beat rate of an interval near p:q (upper:lower): |q*f2 - p*f1|
+(the p-th partial of the lower tone against the q-th of the upper one; common practice)."""
+
+from __future__ import annotations
+
+import json
+import math
+import subprocess
+import sys
+
+import pretty_midi
+
+from data import midigen
+
+
+def test_compare_json_beat_rates_by_hand(tmp_path):
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src)
+    r = subprocess.run([sys.executable, "-m", "retuner", "compare", src, "--profiles",
+                        "edo12,meantone-quarter,werckmeister-3", "--json", "--adaptive"],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    names = [t["tuning"] for t in d["tunings"]]
+    assert names == ["edo12", "meantone-quarter", "werckmeister-3", "adaptive", "adaptive+lookahead"]
+    assert len(d["intervals"]) == 5
+    edo = d["tunings"][0]
+    assert edo["motion_cents_per_note"] == 0 and edo["drift_max_cents"] == 0
+    # 12-EDO beat rates by hand, frequencies from pretty_midi
+    for iv, rate in zip(d["intervals"], edo["beat_rates_hz"]):
+        p, q = map(int, iv["ratio"].split("/"))
+        f1 = pretty_midi.note_number_to_hz(iv["low"])
+        f2 = pretty_midi.note_number_to_hz(iv["high"])
+        assert math.gcd(p, q) == 1
+        assert abs(rate - abs(q * f2 - p * f1)) < 0.01
+    # quarter-comma meantone has pure major thirds: a 5/4 pair does not beat (within a bend step)
+    mt = d["tunings"][1]
+    for iv, rate in zip(d["intervals"], mt["beat_rates_hz"]):
+        if iv["ratio"] == "5/4":
+            assert rate < 0.01
+    # 12-EDO impurity of a triad-based piece: several cents (issue 6: about 8 c on chorales)
+    assert 4 < edo["impurity_cents"] < 12
+    assert d["tunings"][4]["impurity_cents"] < edo["impurity_cents"]
+
+
+def test_compare_text_and_bad_profile(tmp_path):
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src)
+    r = subprocess.run([sys.executable, "-m", "retuner", "compare", src, "--profiles", "edo12,vallotti"],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    assert "vallotti" in r.stdout and "impurity" in r.stdout
+    r = subprocess.run([sys.executable, "-m", "retuner", "compare", src, "--profiles", "edo12,no-such-tuning"],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
