@@ -41,8 +41,16 @@ groups that fit (first-fit, largest first) and each group is written to its own
 file, ``OUT-part1.mid``, ``OUT-part2.mid``, ... (one line on stderr says so);
 each such file holds the conductor track, the percussion and the group's parts,
 and plays on its own. MTS mode keeps notes on their own channels: one engine,
-no sharing needed. In MPE mode a zone belongs to one part: the first part gets
-the lower zone, the next the upper zone, further parts go to further files.
+no sharing needed. In MPE mode a zone belongs to one part: a file holds two
+parts, the first in the lower zone (manager channel 1, members 2..8), the second
+in the upper zone (manager channel 16, members 15..9, channel 10 left to
+percussion); a third part starts the next file. A single part keeps the whole
+configured zone.
+
+Adaptive mode without ``--lookahead`` runs one engine per part, as a daemon per
+part would: each part is tuned against itself (for a file with one part -- a
+keyboard performance -- that is exactly the live daemon). With ``--lookahead``
+the plan tunes all parts together (see :mod:`retuner.lookahead`).
 """
 
 from __future__ import annotations
@@ -687,8 +695,18 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     if config.mode == "mts" or len(parts) <= 1:
         return [(parts, {p: config for p in parts})]
     if config.mode == "mpe":
-        # one MPE zone per part: every part in a file of its own (lower zone, the configured members)
-        return [([p], {p: config}) for p in parts]
+        # one MPE zone per part: two parts per file, the first in the lower zone (manager
+        # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
+        out = []
+        for i in range(0, len(parts), 2):
+            pair = parts[i:i + 2]
+            if len(pair) == 1:
+                out.append((pair, {pair[0]: config if len(parts) == 1 else
+                                   config.replace(mpe_zone="lower", mpe_members=min(config.mpe_members, 7))}))
+            else:
+                out.append((pair, {pair[0]: config.replace(mpe_zone="lower", mpe_members=7),
+                                   pair[1]: config.replace(mpe_zone="upper", mpe_members=7)}))
+        return out
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
     need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)

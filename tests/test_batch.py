@@ -57,3 +57,29 @@ def test_batch_empty_folder_is_an_error(tmp_path):
     r = subprocess.run([sys.executable, "-m", "retuner", "convert", tmp_path / "in", "-o", tmp_path / "out"],
                        capture_output=True, text=True, timeout=60)
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_progress_bar_on_a_terminal():
+    from retuner.files import _Progress
+
+    class Tty:
+        def __init__(self):
+            self.text = ""
+
+        def isatty(self):
+            return True
+
+        def write(self, s):
+            self.text += s
+
+        def flush(self):
+            pass
+
+    out = Tty()
+    p = _Progress(3, out)
+    p.update("a.mid", None)
+    p.update("b.mid", "b.mid: truncated")
+    p.update("c.mid", None)
+    assert "\r\x1b[K[##########" in out.text and "3/3" in out.text and out.text.endswith("\n")
+    assert "retuner: b.mid: truncated\n" in out.text
+    assert p.failed == 1

@@ -402,3 +402,31 @@ def test_report_json_fields(tmp_path):
     assert d["notes"] == len(input_notes(src))
     assert d["adaptive"] is True and d["worst_pitch_error_cents"] is None
     assert all(1 <= c <= 16 and c != 10 for c in d["channels_used"])
+
+
+def test_mpe_two_parts_per_file_one_zone_each(tmp_path):
+    """MPE specification (The MIDI Association, 2018): MPE Configuration Message = RPN 6 on the
+    manager channel (1 for the lower zone, 16 for the upper), data entry MSB = member count;
+    member pitch bend range 48 semitones by default, set here with RPN 0 on each member."""
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    dst = tmp_path / "mpe.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--mode", "mpe", "-q")
+    assert r.returncode == 0, r.stderr
+    outs = [tmp_path / "mpe-part1.mid", tmp_path / "mpe-part2.mid"]
+    assert all(p.exists() for p in outs) and not dst.exists()
+    inp = input_notes(src)
+    for i, p in enumerate(outs):
+        mo = mido.MidiFile(p)
+        cc = [(m.channel, m.control, m.value) for tr in mo.tracks for m in tr if m.type == "control_change"]
+        for manager in (0, 15):
+            k = cc.index((manager, CC_RPN_LSB, 6))
+            assert cc[k - 1] == (manager, CC_RPN_MSB, 0) and cc[k + 1] == (manager, CC_DATA_MSB, 7)
+        out, rng = decode(p)
+        members_lower = {n[2] for n in out if n[2] < 8}
+        members_upper = {n[2] for n in out if n[2] >= 8}
+        assert members_lower and members_upper and 0 not in members_lower and 15 not in members_upper
+        assert {rng[n[2]] for n in out} == {4800.0}
+        mine = [n for n in inp if n[2] in (2 * i, 2 * i + 1)]
+        # half a bend step at +-48 semitones: 4800/16384 c
+        match_notes(mine, out, meantone_quarter_cents, tol=4800 / 16384 + 1e-9)

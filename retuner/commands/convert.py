@@ -128,7 +128,15 @@ def build_options(args):
         for opt in ("policy", "chord_window", "max_drift", "max_motion", "limit", "reference"):
             if getattr(args, opt) is not None:
                 raise RetunerError("adaptive settings need --adaptive", field="--" + opt.replace("_", "-"))
-    cfg = EngineConfig(**kw).validate()
+    try:
+        cfg = EngineConfig(**kw).validate()
+    except RetunerError as exc:
+        opt = {"pool": "--channels", "passthrough": "--passthrough-channels"}.get(exc.field or "")
+        if opt:
+            exc.field = opt
+        elif exc.field:
+            exc.field = "--" + exc.field.replace("_", "-")
+        raise
     return ConvertOptions(tuning, cfg, lookahead=args.lookahead,
                           want_report=bool(args.report or args.plot or not args.quiet))
 
@@ -148,8 +156,10 @@ def run(args) -> int:
     res = files.convert_file(args.input, args.output, opts)
     if res.split:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
-        print(f"retuner: the parts need more channels than one port has: "
-              f"wrote {len(res.outputs)} files ({names})", file=sys.stderr)
+        why = ("in MPE mode a port holds two parts (one per zone)" if opts.config.mode == "mpe"
+               else "the parts need more channels than one port has")
+        print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own",
+              file=sys.stderr)
     summary = rp.build_report(res, opts)
     if args.report:
         rp.write_report(args.report, summary)
