@@ -105,3 +105,55 @@ def test_cli_lookahead_report(tmp_path):
     r2 = subprocess.run([sys.executable, "-m", "retuner", "convert", src, "-o", tmp_path / "o2.mid",
                          "--lookahead"], capture_output=True, text=True)
     assert r2.returncode == 2 and "--adaptive" in r2.stderr
+
+
+def test_convert_adaptive_is_the_live_engine_on_the_same_performance(tmp_path):
+    """`convert --adaptive` == the engine driven live: the times a live player of the file
+    would produce (mido's own playback times, seconds from its tempo handling) fed to a fresh
+    engine with timers honoured give the same messages, each at the file position of its time."""
+    from retuner.engine import Engine
+
+    src = tmp_path / "pump.mid"
+    mf = to_midifile(progression("pump", legato=True, rounds=2))
+    # a tempo change half way, so the clock is not a plain scale of ticks
+    tr = mf.tracks[0]
+    tick = 0
+    for i, m in enumerate(tr):
+        tick += m.time
+        if tick >= 4 * 960:
+            tr.insert(i, mido.MetaMessage("set_tempo", tempo=800000, time=0))
+            break
+    mf.save(src)
+    dst = tmp_path / "out.mid"
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", src, "-o", dst, "--adaptive", "-q"],
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    # live: mido plays the file (delta seconds), the engine gets those times
+    eng = Engine(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()))
+    live = [(0.0, m) for m in eng.start(0.0)]
+    t = 0.0
+    for m in mido.MidiFile(src):
+        t += m.time
+        if m.is_meta:
+            continue
+        d = eng.next_deadline()
+        while d is not None and d <= t:
+            live += [(d, x) for x in eng.tick(d)]
+            d = eng.next_deadline()
+        live += [(t, x) for x in eng.feed(t, m)]
+    d = eng.next_deadline()
+    while d is not None:
+        live += [(d, x) for x in eng.tick(d)]
+        d = eng.next_deadline()
+    # the file: every channel message with its time in seconds (mido's playback again)
+    got = []
+    t = 0.0
+    for m in mido.MidiFile(dst):
+        t += m.time
+        if not m.is_meta:
+            got.append((t, m))
+    assert [bytes(m.bytes()) for _, m in got] == [bytes(m.bytes()) for _, m in live]
+    # times agree within half a tick (a timer's output lands on the nearest tick)
+    half_tick = 0.8 / 480 / 2 + 1e-9  # a tick at 800000 us per beat, 480 ticks per beat
+    for (ta, _), (tb, _) in zip(got, live):
+        assert abs(ta - tb) <= half_tick
