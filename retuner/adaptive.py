@@ -91,6 +91,7 @@ may first be tuned against a partial chord and then move).
 
 from __future__ import annotations
 
+import logging
 import math
 from dataclasses import dataclass, field, fields
 from fractions import Fraction
@@ -129,6 +130,8 @@ DEFAULT_WEIGHTS: dict[int, float] = {
 POLICIES = ("fixed-held", "limited", "free")
 REFERENCES = ("edo12", "profile")
 MAX_NOTES = 16
+
+log = logging.getLogger(__name__)
 
 
 def _ratio_cents(value: Any, *, file: Optional[str], field_name: str) -> float:
@@ -515,6 +518,21 @@ class AdaptiveSolver:
 
     # -- public ---------------------------------------------------------------
     def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
+        """Pitches (cents above key 0 of 12-EDO) for the held notes and the new ones.
+
+        Never raises on a numerical failure: held notes then keep their pitch and
+        new notes take their reference pitch.
+        """
+        try:
+            h, n = self._solve(held, new)
+        except (np.linalg.LinAlgError, ValueError, FloatingPointError):
+            h, n = None, None
+        if h is None or not all(map(math.isfinite, h)) or not all(map(math.isfinite, n)):
+            log.warning("adaptive solver failed on held=%r new=%r; using reference pitches", held, new)
+            return [float(c) for _, c in held], [self.reference_cents(int(k)) for k in new]
+        return h, n
+
+    def _solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
         cfg = self.config
         held_in = [(int(k), float(c)) for k, c in held]
         new = list(dict.fromkeys(int(k) for k in new))
@@ -561,8 +579,10 @@ class AdaptiveSolver:
         sound = np.ones(n, bool)
         sound[nh:nh + ng] = False
 
-        ref_sum = float(ref.sum()) - float(ref[nh:nh + ng].sum())
-        m_sound = n - ng
+        # notes left unsolved (beyond MAX_NOTES) still count in the centre
+        skip_dev = sum(c - 100.0 * k - float(self._ref[k]) for k, c in skip)
+        ref_sum = float(ref.sum()) - float(ref[nh:nh + ng].sum()) - skip_dev
+        m_sound = n - ng + len(skip)
 
         def centre_of(x: np.ndarray) -> float:
             return (float(x.sum()) - float(x[nh:nh + ng].sum()) - ref_sum) / m_sound
@@ -653,7 +673,7 @@ class AdaptiveSolver:
             x[nh + ng:] -= u
             rest = excess - u
             if abs(rest) > 1e-12:
-                x[nh + ng:] -= rest * (nh + nn) / nn
+                x[nh + ng:] -= rest * m_sound / nn
             centre = centre_of(x)
         self._drift = centre
         out_held = [float(100.0 * k + d) for k, d in zip(hk, x[:nh])]
@@ -663,7 +683,7 @@ class AdaptiveSolver:
         self._ghosts = {}
         if overflow:
             h2 = list(zip(new, out_new))
-            _, o2 = self.solve(h2, overflow)
+            _, o2 = self._solve(h2, overflow)
             out_new += o2
         result = [c for _, c in held_in]
         for i, c in zip(solve_idx, out_held):

@@ -332,3 +332,36 @@ def test_config_from_dict_accepts_names_and_ratios():
     table = cfg.table()
     assert abs(table[10][0] - cents(7, 4)) < 1e-9 and abs(table[6][0] - 590.0) < 1e-9
     assert cfg.weight_table()[2] == 0.5
+
+
+@settings(max_examples=60, deadline=None)
+@given(policy=st.sampled_from(["limited+reset", "limited", "fixed-held+reset", "free+reset"]),
+       limit=st.sampled_from(["5", "7"]),
+       events=st.lists(st.tuples(st.lists(st.integers(21, 108), min_size=0, max_size=6, unique=True),
+                                 st.integers(0, 3)), min_size=1, max_size=12))
+def test_solver_invariants_on_random_performances(policy, limit, events):
+    """Lengths match, pitches are finite and near their keys, fixed-held is exact,
+    limited respects max_motion, and the centre stays within max_drift (definition
+    of the drift limit; no external value involved)."""
+    cfg = AdaptiveConfig(policy=policy, limit=limit, max_drift=4.0, max_motion=3.0)
+    s = AdaptiveSolver(cfg)
+    sounding: dict[int, float] = {}
+    for new_keys, n_release in events:
+        for k in sorted(sounding)[:n_release]:
+            del sounding[k]
+        new = [k for k in new_keys if k not in sounding]
+        held = list(sounding.items())
+        out_h, out_n = s.solve(held, new)
+        assert len(out_h) == len(held) and len(out_n) == len(new)
+        for (k, c0), c1 in zip(held, out_h):
+            assert math.isfinite(c1)
+            if policy.startswith("fixed-held"):
+                assert c1 == c0
+            elif policy.startswith("limited"):
+                assert abs(c1 - c0) <= 3.0 + 1e-9
+        for k, c in zip(new, out_n):
+            assert math.isfinite(c) and abs(c - 100 * k) < 100
+        sounding.update((k, c) for (k, _), c in zip(held, out_h))
+        sounding.update(zip(new, out_n))
+        if new and not policy.startswith("free"):
+            assert abs(centre(list(sounding), list(sounding.values()))) <= 4.0 + 1e-6
