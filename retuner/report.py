@@ -197,12 +197,16 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
             for (t0, c0), (t1, _) in zip(pts, pts[1:]):
                 xs += [t0, t1]
                 ys += [c0 - 100.0 * n.key] * 2
-            ax.plot(xs, ys, color=colour, linewidth=2.0, solid_capstyle="butt")
+            # parts drawn thinner one after another, so a note doubled in another part
+            # (octaves tuned alike) stays visible under it
+            ax.plot(xs, ys, color=colour, linewidth=max(1.2, 5.0 - 1.3 * col_i), solid_capstyle="butt",
+                    zorder=2 + col_i)
             all_notes.append(n)
     dx, dy = drift_line(all_notes)
-    ax.step(dx, dy, where="post", color="black", linewidth=1.2)
+    ax.step(dx, dy, where="post", color="black", linewidth=1.2, zorder=50)
     ax.axhline(0.0, color="0.6", linewidth=0.8)
-    handles = [Line2D([], [], color=cmap(i % 10), linewidth=2, label=f"part {p + 1} (channel {p + 1})")
+    handles = [Line2D([], [], color=cmap(i % 10), linewidth=max(1.2, 5.0 - 1.3 * i),
+                      label=f"part {p + 1} (channel {p + 1})")
                for p, i in sorted(parts_seen.items(), key=lambda kv: kv[1])]
     handles.append(Line2D([], [], color="black", linewidth=1.2, label="drift (mean of sounding notes)"))
     ax.legend(handles=handles, loc="upper right", fontsize=8)
