@@ -616,7 +616,10 @@ class AdaptiveSolver:
                 def cost(x, t):
                     return float((W * (x[None, :] - x[:, None] - t) ** 2).sum())
                 best = cost(x, tau)
-                sevenths = [j for j in range(n) if np.any(np.mod(keys[j] - keys, 12) == 10)][:2]
+                # a seventh j over a root i (j - i = 10 mod 12) whose major third is present
+                pcs = set(int(k) % 12 for k in keys)
+                sevenths = [j for j in range(n)
+                            if (int(keys[j]) - 10) % 12 in pcs and (int(keys[j]) - 6) % 12 in pcs][:2]
                 for j in sevenths:
                     mask = np.zeros((n, n), bool)
                     mask[j, :] = True
@@ -671,7 +674,8 @@ class AdaptiveSolver:
             u = math.copysign(min(abs(excess), allow), excess)
             x[:nh] -= u
             x[nh + ng:] -= u
-            rest = excess - u
+            c1 = centre_of(x)   # (notes beyond MAX_NOTES did not move)
+            rest = c1 - math.copysign(cfg.max_drift, c1) if abs(c1) > cfg.max_drift else 0.0
             if abs(rest) > 1e-12:
                 x[nh + ng:] -= rest * m_sound / nn
             centre = centre_of(x)
