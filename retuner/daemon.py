@@ -443,7 +443,6 @@ class Daemon:
             log.error("control socket not started: %s", exc)
             return
         self.control, self.control_server = ctl, server
-        log.info("control socket: %s", server.path)
 
     def _on_control_switch(self, tuning) -> None:
         self.tuning = getattr(self.control, "base", tuning)

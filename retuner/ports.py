@@ -25,6 +25,7 @@ import fnmatch
 import logging
 import re
 import threading
+import time
 from dataclasses import dataclass
 from typing import Callable, Optional, Sequence
 
@@ -68,9 +69,9 @@ def _rt_error(exc: Exception, what: str, backend: str) -> RetunerError:
     return RetunerError(f"{what}: {exc}{hint}", field="backend")
 
 
-def _new_in(backend: str, client_name: str) -> rtmidi.MidiIn:
+def _new_in(backend: str, client_name: str, queue_size: int = 1024) -> rtmidi.MidiIn:
     try:
-        return rtmidi.MidiIn(_api(backend), client_name)
+        return rtmidi.MidiIn(_api(backend), client_name, queue_size)
     except rtmidi.SystemError as exc:  # type: ignore[attr-defined]
         raise _rt_error(exc, f"cannot open the {backend_word(backend)} MIDI system", backend) from exc
 
@@ -163,20 +164,32 @@ def _index_of(rt, name: str) -> int:
 
 
 class InputPort:
-    """An open input; ``callback(msg)`` runs on the backend's thread for every parsed message.
+    """An open input; ``callback(msg)`` runs on a backend thread for every parsed message.
 
-    ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse."""
+    ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse.
+
+    ALSA: python-rtmidi's own input thread calls us. JACK: python-rtmidi would call us from
+    JACK's process thread, which then has to wait for Python's global interpreter lock (up to
+    ``sys.getswitchinterval()``, 5 ms by default, longer than a period) and can make the whole
+    JACK graph miss its deadline. So under JACK the process thread only queues the bytes
+    (python-rtmidi's own queue, in C) and a reader thread of ours collects them every
+    ``poll`` seconds (default 0.5 ms; JACK itself delivers once per period)."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
                  connect_to: Optional[str] = None,
                  callback: Callable[[mido.Message], None],
-                 on_error: Optional[Callable[[Exception, list], None]] = None):
+                 on_error: Optional[Callable[[Exception, list], None]] = None,
+                 poll: Optional[float] = None):
         self.backend = backend_word(backend)
         self.connected_to = connect_to
         self._callback = callback
         self._on_error = on_error
-        self._parser = mido.Parser()
-        self._rt = _new_in(self.backend, client_name)
+        if poll is None and self.backend == "jack":
+            poll = 0.0005
+        self._poll = poll
+        self._reader: Optional[threading.Thread] = None
+        self._stop = threading.Event()
+        self._rt = _new_in(self.backend, client_name, queue_size=4096)
         try:
             if connect_to is None:
                 self._rt.open_virtual_port(port_name)
@@ -184,7 +197,12 @@ class InputPort:
                 self._rt.open_port(_index_of(self._rt, connect_to), port_name)
             # deliver system exclusive and timing clock, drop active sensing
             self._rt.ignore_types(sysex=False, timing=False, active_sense=True)
-            self._rt.set_callback(self._on_bytes)
+            if self._poll:
+                self._reader = threading.Thread(target=self._read_loop, name=f"retuner-{port_name}",
+                                                daemon=True)
+                self._reader.start()
+            else:
+                self._rt.set_callback(self._on_bytes)
         except RetunerError:
             self._rt.delete()
             raise
@@ -196,14 +214,10 @@ class InputPort:
     def _on_bytes(self, event, data=None) -> None:
         raw, _delta = event
         try:
-            if raw and raw[0] < 0xF0 and len(raw) <= 3:
-                msg = mido.Message.from_bytes(raw)
-                self._callback(msg)
-                return
-            # system exclusive (possibly long) and other system messages
-            self._parser.feed(raw)
-            for msg in self._parser:
-                self._callback(msg)
+            # python-rtmidi delivers one whole message per event (a system exclusive message
+            # complete from F0 to F7), so each event parses on its own; anything else is refused
+            msg = mido.Message.from_bytes(raw)
+            self._callback(msg)
         except Exception as exc:  # never let bad bytes kill the backend thread
             if self._on_error is not None:
                 try:
@@ -211,10 +225,25 @@ class InputPort:
                 except Exception:
                     pass
 
+    def _read_loop(self) -> None:
+        rt, stop, poll, on_bytes = self._rt, self._stop, self._poll, self._on_bytes
+        while not stop.is_set():
+            try:
+                event = rt.get_message()
+            except Exception:  # pragma: no cover - the port went away under us
+                event = None
+            if event is None:
+                time.sleep(poll)
+            else:
+                on_bytes(event)
+
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
+        self._stop.set()
+        if self._reader is not None:
+            self._reader.join(1)
         try:
             self._rt.cancel_callback()
             self._rt.close_port()
@@ -243,14 +272,22 @@ class OutputPort:
             self._rt.delete()
             raise _rt_error(exc, f"cannot open output {connect_to or port_name!r}", self.backend) from exc
         self.closed = False
+        self._last_send = float("-inf")
 
     def send(self, msg: mido.Message) -> None:
         self._rt.send_message(msg.bytes())
+        self._last_send = time.monotonic()
 
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
+        if self.backend == "jack":
+            # JACK hands queued events over once per period; closing at once would drop the last
+            # ones (the note-offs of a shutdown). 0.25 s covers long periods and a late process cycle.
+            wait = 0.25 - (time.monotonic() - self._last_send)
+            if wait > 0:
+                time.sleep(wait)
         try:
             self._rt.close_port()
             self._rt.delete()

@@ -14,6 +14,12 @@ from jack import JackServer, JackError, TestClient  # tests/ is on sys.path (roo
 def jack_server():
     """A private JACK server (dummy backend, 48 kHz, 128-frame periods) for the whole session.
 
+    Started as ``jackd --no-realtime -S -n NAME -d dummy -r 48000 -p 128``. ``-S`` (synchronous
+    mode) makes the server wait for every client in each cycle: without it, on a loaded machine
+    (measured here: two CPUs busy with other test runs, hundreds of "client was not finished"
+    xruns per minute) a client descheduled past its 2.7 ms deadline loses the MIDI events of that
+    cycle, and the tests would fail at random for reasons outside retuner.
+
     ``JACK_DEFAULT_SERVER`` names it in this process's environment (so python-rtmidi clients
     in the tests reach it) and in ``server.env`` for subprocesses."""
     name = f"retuner-test-{os.getpid()}-{uuid.uuid4().hex[:6]}"

@@ -59,7 +59,7 @@ class JackServer:
                 raise JackError(f"{tool} is not installed (it comes with jackd2)")
         self._log = open(self.log_path, "wb")
         self.proc = subprocess.Popen(
-            [jackd, "--no-realtime", "-n", self.name, "-d", "dummy",
+            [jackd, "--no-realtime", "-S", "-n", self.name, "-d", "dummy",
              "-r", str(self.rate), "-p", str(self.period)],
             stdout=self._log, stderr=subprocess.STDOUT, env=self.env,
             start_new_session=True)
@@ -142,7 +142,11 @@ class TestClient:
             self.midi_in = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, client_name + "-rec")
             self.midi_in.open_virtual_port(in_port)
             self.midi_in.ignore_types(sysex=False, timing=False, active_sense=True)
-            self.midi_in.set_callback(self._on_bytes)
+            # poll from a thread of ours: a Python callback would run in JACK's process thread and
+            # wait there for the interpreter lock, making the client miss JACK's deadline
+            self._stop = threading.Event()
+            self._reader = threading.Thread(target=self._read_loop, daemon=True)
+            self._reader.start()
 
     # JACK names: "<client>:<port>"
     @property
@@ -162,6 +166,14 @@ class TestClient:
             self.midi_out.close_port()
             self.midi_out.delete()
             self.midi_out = None
+
+    def _read_loop(self) -> None:
+        while not self._stop.is_set():
+            ev = self.midi_in.get_message()
+            if ev is None:
+                time.sleep(0.0005)
+            else:
+                self._on_bytes(ev)
 
     def _on_bytes(self, event, data=None) -> None:
         raw, _ = event
@@ -199,7 +211,8 @@ class TestClient:
     def close(self) -> None:
         self.close_out()
         if self.midi_in is not None:
-            self.midi_in.cancel_callback()
+            self._stop.set()
+            self._reader.join(1)
             self.midi_in.close_port()
             self.midi_in.delete()
             self.midi_in = None
