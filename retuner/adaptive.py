@@ -557,9 +557,10 @@ class AdaptiveSolver:
             self._note_silence()
         hk = [k for k, _ in held]
         ghosts: list[tuple[int, float]] = []
+        memory: list[tuple[int, float]] = []
         if not held and not skip and self._ghosts and not cfg.reset_on_silence and cfg.memory_weight > 0:
-            ghosts = [(k, d) for k, d in self._ghosts.items() if k not in new][: MAX_NOTES - len(new)]
-        gk = [k for k, _ in ghosts]
+            memory = [(k, d) for k, d in self._ghosts.items() if k not in new]
+        gk: list[int] = []   # ghosts do not enter the system: see "memory" below
         keys = np.array(hk + gk + new, dtype=int)
         nh, ng, nn = len(hk), len(gk), len(new)
         n = nh + ng + nn
@@ -660,6 +661,21 @@ class AdaptiveSolver:
                 cur2 = cur.copy()
                 cur2[:nh] = cur[:nh] + np.clip(dx, -cfg.max_motion, cfg.max_motion)
                 x = self._lsq(tau, W, "fixed", cur2, nh, ng, lam, mu, 0.0, ref)
+        if memory and nn:
+            # after a silence: the new chord, pure and centred, moves as one block towards
+            # pure intervals with the notes that sounded last (weighted by class), as far
+            # as the drift limit (less its margin) allows
+            mk = np.array([k for k, _ in memory])
+            md = np.array([d for _, d in memory])
+            kn = keys[nh:]
+            Dm = kn[None, :] - mk[:, None] + 127          # (memory, new)
+            wm = self._w[Dm] * cfg.memory_weight
+            resid = self._tau0[Dm] - (x[None, nh:] - md[:, None])
+            c = centre_of(x)
+            shift = float((wm * resid).sum()) / (float(wm.sum()) + 1e-12)
+            edge = max(0.0, cfg.max_drift - cfg.drift_margin)
+            shift = max(-edge - c, min(edge - c, shift))   # the centre stays inside the margin
+            x[nh:] += shift
         # hard drift limit
         centre = centre_of(x)
         if abs(centre) > cfg.max_drift + 1e-9 and nn:
