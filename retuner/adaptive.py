@@ -63,10 +63,11 @@ for *tuning a chord* and change how drift is shed:
    In a ii7 chord D-F-A-C this gives D-C = 9/5; with the 7-limit table a
    dominant seventh can settle on 4:5:6:7.
 8. **Silence.** With "+reset" the solver forgets everything when nothing
-   sounds: the next chord is pure and exactly centred. Without it, the notes
-   that sounded last are kept as fixed "ghost" partners (weight
-   ``memory_weight``) for the first chord after a silence, so a detached
-   passage keeps its melodic intervals near pure.
+   sounds: the next chord is pure and exactly centred. Without it, the next
+   chord is first tuned pure and centred, then moved as one block towards
+   pure intervals with the notes that sounded last (``memory_weight``), as
+   far as the drift limit allows: a detached passage keeps its melodic
+   intervals near pure and its chords exactly pure.
 
 The policy "free" is the published form (every held note its own motion
 cost, centre pulled to the reference at every event), kept for comparison.
@@ -195,8 +196,9 @@ class AdaptiveConfig:
     motion_weight: lambda, cost of moving a held note (per cent squared,
         relative to a pair weight of 1).
     centre_weight: mu, cost of the centre's distance from the reference.
-    memory_weight: weight of the previous chord's notes after a silence
-        (without "reset"); 0 disables memory.
+    memory_weight: 0..1, how far the first chord after a silence (without
+        "reset") moves towards pure intervals with the notes that sounded
+        last (1 = all the way, within the drift limit; 0 = no memory).
     window: cents; while the centre of a chord tuned pure against the held
         notes lies within this distance of the aim, nothing is re-centred
         (no motion, no impurity spent on drift); beyond it the solver
@@ -222,7 +224,7 @@ class AdaptiveConfig:
     reference: str = "edo12"
     motion_weight: float = 2.0
     centre_weight: float = 16.0
-    memory_weight: float = 0.5
+    memory_weight: float = 1.0
     window: float = 2.0
     window_per_held: float = 10.0
     anticipate: float = 2.0
@@ -291,7 +293,7 @@ class AdaptiveConfig:
         num("max_motion", 0.0, 1200.0)
         num("motion_weight", 0.0, 1e6)
         num("centre_weight", 0.0, 1e6)
-        num("memory_weight", 0.0, 1e6)
+        num("memory_weight", 0.0, 1.0)
         num("window", 0.0, 1200.0)
         num("window_per_held", 0.0, 1200.0)
         num("anticipate", 0.0, 100.0)
@@ -669,10 +671,10 @@ class AdaptiveSolver:
             md = np.array([d for _, d in memory])
             kn = keys[nh:]
             Dm = kn[None, :] - mk[:, None] + 127          # (memory, new)
-            wm = self._w[Dm] * cfg.memory_weight
+            wm = self._w[Dm]
             resid = self._tau0[Dm] - (x[None, nh:] - md[:, None])
             c = centre_of(x)
-            shift = float((wm * resid).sum()) / (float(wm.sum()) + 1e-12)
+            shift = cfg.memory_weight * float((wm * resid).sum()) / (float(wm.sum()) + 1e-12)
             edge = max(0.0, cfg.max_drift - cfg.drift_margin)
             shift = max(-edge - c, min(edge - c, shift))   # the centre stays inside the margin
             x[nh:] += shift
