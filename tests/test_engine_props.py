@@ -80,7 +80,7 @@ def perform(events, *, in_channels=(0, 1), wheel=True, pedals=True, panic=True, 
     return out, held, t
 
 
-def check_stream(engine, tuning, perf, held, t_end, synth=None):
+def check_stream(engine, tuning, perf, held, t_end, synth=None, target=None):
     s = synth or SynthModel(mpe_manager=engine._manager if engine.mode == "mpe" else None)
     s.feed(engine.start(0.0))
     step = engine.bend_range_cents / 16384.0
@@ -95,7 +95,7 @@ def check_stream(engine, tuning, perf, held, t_end, synth=None):
                 # decoded from the output alone: key*100 + bend/8192*range
                 p = s.pitch(c, v)
                 # which key did the player press? the engine keeps the pitch it gave the note
-                tgt = _target_of(engine, c, v, tuning)
+                tgt = (target or _target_of)(engine, c, v, tuning)
                 assert abs(p - tgt) <= step + 1e-9, (t, m, c, v.key, p, tgt)
     # the player lets go of everything
     t = t_end + 0.1
@@ -172,3 +172,90 @@ def test_long_random_performance_thousands_of_events():
     assert len(perf) > 5000
     check_stream(e, tu, perf, held, t_end)
     assert e.stats["steals"] > 0 and e.stats["notes"] > 2000
+
+
+def _given_pitch(engine, c, v, tuning):
+    """The pitch the engine gave the note (adaptive: the solver's)."""
+    for n in engine.pool.notes[c]:
+        if n.out_key == v.key:
+            return n.cents
+    raise AssertionError(f"synth sounds key {v.key} on channel {c}, the engine knows no such note")
+
+
+@settings(max_examples=15, deadline=None)
+@given(events=st.lists(EVENT, min_size=50, max_size=300),
+       mode=st.sampled_from(["pool", "mpe"]),
+       pool_size=st.sampled_from([4, 15]),
+       window=st.sampled_from([0.0, 0.02]))
+def test_random_streams_adaptive(events, mode, pool_size, window):
+    """Adaptive mode with the real solver: valid, nothing stuck, and every sounding note
+    decodes to the pitch the solver gave it (within half a bend step)."""
+    from retuner.adaptive import AdaptiveConfig
+    tu = PROFILES["meantone-quarter"]
+    pool = tuple(c for c in range(16) if c != 9)[:pool_size]
+    e = Engine(tu, EngineConfig(mode=mode, pool=pool, mpe_members=pool_size,
+                                adaptive=AdaptiveConfig(chord_window=window)))
+    perf, held, t_end = perform(events)
+    check_stream(e, tu, perf, held, t_end, target=_given_pitch)
+
+
+class MtsSynth:
+    """A synth's key table under the MIDI Tuning Standard, from single note tuning
+    changes (layout per the MTS, see test_engine_modes.parse_single_note), plus
+    which keys sound on which channel."""
+
+    def __init__(self):
+        self.table = [100.0 * k for k in range(128)]   # 12-EDO until told otherwise
+        self.sounding: dict[tuple[int, int], int] = {}
+        self.problems: list[str] = []
+
+    def feed(self, msgs, check=None):
+        from test_engine_modes import parse_single_note
+        for m in msgs:
+            if mido.Message.from_bytes(m.bytes()) != m:
+                self.problems.append(f"invalid {m}")
+            if m.type == "sysex":
+                for k, c in parse_single_note(m)["keys"].items():
+                    self.table[k] = c
+            elif m.type == "note_on" and m.velocity:
+                self.sounding[(m.channel, m.note)] = self.sounding.get((m.channel, m.note), 0) + 1
+                if check:
+                    check(m, self.table[m.note])
+            elif m.type in ("note_on", "note_off"):
+                n = self.sounding.get((m.channel, m.note), 0)
+                if not n:
+                    self.problems.append(f"note-off for silent {m}")
+                elif n == 1:
+                    del self.sounding[(m.channel, m.note)]
+                else:
+                    self.sounding[(m.channel, m.note)] = n - 1
+
+
+@settings(max_examples=25, deadline=None)
+@given(events=st.lists(EVENT, min_size=50, max_size=300),
+       profiles=st.lists(st.sampled_from(["meantone-quarter", "werckmeister-3", "edo19", "holes"]),
+                         min_size=1, max_size=3))
+def test_random_streams_mts(events, profiles):
+    """MTS mode, profile switches in the middle: every note-on meets its key tuned to
+    the current profile's pitch (to half an MTS step, 0.0031 cent); the key-down
+    notes on the synth match the player's."""
+    tunings = [PROFILES[p] for p in profiles]
+    e = Engine(tunings[0], EngineConfig(mode="mts"))
+    s = MtsSynth()
+    s.feed(e.start(0.0))
+    perf, held, t_end = perform(events, wheel=False, pedals=False, panic=False)
+    cur = [tunings[0]]
+
+    def check(m, cents):
+        assert abs(cents - cur[0].cents[m.note]) <= 100 / 16384 / 2 + 1e-9, (m, cents)
+
+    switch_at = {len(perf) * (i + 1) // (len(tunings) + 1): tu for i, tu in enumerate(tunings[1:])}
+    for i, (t, m) in enumerate(perf):
+        if i in switch_at:
+            cur[0] = switch_at[i]
+            s.feed(e.set_tuning(cur[0], t))
+        s.feed(e.feed(t, m), check)
+        assert not s.problems, s.problems
+    for ch, k in held:
+        s.feed(e.feed(t_end + 1, mido.Message("note_off", channel=ch, note=k)))
+    assert s.sounding == {} and not s.problems
