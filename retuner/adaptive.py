@@ -421,6 +421,7 @@ class AdaptiveSolver:
         self._trend = 0.0
         self._sounding = False
         self._pair_cache = None
+        self._triu: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
     @property
     def drift(self) -> float:
@@ -587,14 +588,22 @@ class AdaptiveSolver:
         ref_sum = float(ref.sum()) - float(ref[nh:nh + ng].sum()) - skip_dev
         m_sound = n - ng + len(skip)
 
-        def centre_of(x: np.ndarray) -> float:
-            return (float(x.sum()) - float(x[nh:nh + ng].sum()) - ref_sum) / m_sound
+        if ng:
+            def centre_of(x: np.ndarray) -> float:
+                return (float(x.sum()) - float(x[nh:nh + ng].sum()) - ref_sum) / m_sound
+        else:
+            def centre_of(x: np.ndarray) -> float:
+                return (float(x.sum()) - ref_sum) / m_sound
 
         x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
         # context choice among ambiguous candidates (at most two more passes)
         amb = self._ambig[D]   # the diagonal (unison) has one candidate only
         if amb.any():
-            iu, ju = np.nonzero(np.triu(amb))
+            tri = self._triu.get(n)
+            if tri is None:
+                tri = self._triu[n] = np.triu_indices(n, 1)
+            sel = amb[tri]
+            iu, ju = tri[0][sel], tri[1][sel]
             cand_u = self._cand[D[iu, ju]]          # (pairs, candidates)
             rows = np.arange(len(iu))
 
