@@ -37,6 +37,8 @@ and the steal policy; :mod:`retuner.encode` for the bend formula).
   sum is **clamped** to 0..16383 (a note already bent far by its tuning can then
   not follow the wheel all the way). Wheel changes are sent to busy and
   ringing channels; an idle channel gets the right value when next used.
+* The pool is one instrument: the wheel and the pedals are those last sent on
+  any retuned input channel.
 * Sustain (CC64) and sostenuto (CC66), channel pressure, program change and all
   other controllers go to every pool channel; polyphonic pressure to the note's
   channel; all-notes-off (CC123, and CC124-127), all-sound-off (CC120) and
@@ -198,6 +200,13 @@ class EngineConfig:
 
     def replace(self, **kw) -> "EngineConfig":
         return dataclasses.replace(self, **kw)
+
+
+def _finite(x: Any) -> bool:
+    try:
+        return math.isfinite(x)
+    except TypeError:
+        return False
 
 
 class Engine:
@@ -767,8 +776,19 @@ class Engine:
         elif not held:
             solver.reset()
         self._solver_keys = held_keys | {n.in_key for n in pend}
-        held_new, new_cents = solver.solve(held=[(n.in_key, n.cents) for n in held],
-                                           new=[n.in_key for n in pend])
+        try:
+            held_new, new_cents = solver.solve(held=[(n.in_key, n.cents) for n in held],
+                                               new=[n.in_key for n in pend])
+            held_new, new_cents = list(held_new), list(new_cents)
+        except Exception:  # the engine must never die on a solver failure
+            log.exception("adaptive solver failed: the chord keeps static pitches")
+            held_new, new_cents = [], []
+        # robust against short or non-finite answers: held notes stay, new notes get the profile
+        if len(held_new) != len(held):
+            held_new = [n.cents for n in held]
+        held_new = [c if _finite(c) else n.cents for n, c in zip(held, held_new)]
+        new_cents = [new_cents[i] if i < len(new_cents) and _finite(new_cents[i])
+                     else self._plan[n.in_key][2] for i, n in enumerate(pend)]
         self.stats["chords_solved"] += 1
         if self.mode == "mts":
             moved = []

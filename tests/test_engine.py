@@ -714,3 +714,15 @@ def test_human_timing_spread_chord_with_pedal_and_wheel():
         s.feed(e.feed(t, m))
     assert s.count() == 0 and not s.problems
     assert e.stats["ringing_retunes"] == 0 and e.stats["steals"] == 0
+
+
+def test_reconfigure_new_pool_releases_and_starts_again():
+    e, s = started()
+    s.feed(e.feed(0.0, ON(60)))
+    out = e.reconfigure(e.config.replace(pool=(0, 1, 2)), 0.1)
+    s.feed(out)
+    assert s.count() == 0 and not s.problems
+    assert {m.channel for m in out if m.type == "control_change" and m.control == 6} >= {0, 1, 2}
+    assert e.feed(0.2, OFF(60)) == []
+    assert e.feed(0.3, ON(62))[-1].channel in (0, 1, 2)
+    assert e.reconfigure(e.config.replace(), 0.4) == []     # nothing changed: nothing sent

@@ -177,3 +177,32 @@ def test_real_solver_major_triad_is_just(mode):
     step = e.bend_range_cents / 16384
     assert abs((p[64] - p[60]) - 1200 * math.log2(5 / 4)) <= 2 * step
     assert abs((p[67] - p[60]) - 1200 * math.log2(3 / 2)) <= 2 * step
+
+
+class ShortSolver(FakeSolver):
+    """Answers for only the first new note; NaN for held notes (a misbehaving solver)."""
+
+    def solve(self, held, new):
+        self.calls.append(("solve", list(held), list(new)))
+        return [float("nan") for _ in held], [100.0 * k + 7.0 for k in new[:1]]
+
+
+class BrokenSolver(FakeSolver):
+    def solve(self, held, new):
+        raise RuntimeError("boom")
+
+
+@pytest.mark.parametrize("cls", [ShortSolver, BrokenSolver])
+def test_misbehaving_solver_never_loses_a_note(monkeypatch, cls):
+    monkeypatch.setattr(adaptive, "AdaptiveSolver", cls)
+    e, s = engine(pool=(0, 1, 2))
+    for k in (60, 64, 67, 72):
+        s.feed(e.feed(0.0, ON(k)))
+    s.feed(e.tick(0.02))
+    # three channels, four notes: the oldest is stolen; the rest sound at the profile's pitch
+    assert sorted(v.key for _, v in s.sounding()) == [64, 67, 72]
+    for c, v in s.sounding():
+        assert abs(s.pitch(c, v) - 100.0 * v.key) <= 200 / 16384
+    for k in (60, 64, 67, 72):
+        s.feed(e.feed(0.5, OFF(k)))
+    assert s.count() == 0 and not s.problems
