@@ -89,11 +89,18 @@ class JackServer:
         r = subprocess.run(["jack_lsp"], env=self.env, capture_output=True, text=True, timeout=10)
         return [line.strip() for line in r.stdout.splitlines() if line.strip()]
 
-    def connect(self, src: str, dst: str) -> None:
-        r = subprocess.run(["jack_connect", src, dst], env=self.env, capture_output=True,
-                           text=True, timeout=10)
-        if r.returncode != 0:
-            raise JackError(f"jack_connect {src} {dst}: {r.stdout}{r.stderr}")
+    def connect(self, src: str, dst: str, attempts: int = 3) -> None:
+        # jack_connect is a JACK client of its own; on a loaded machine opening it occasionally
+        # fails ("Cannot start Jack client listener"), so a failure is tried again before it counts
+        for i in range(attempts):
+            r = subprocess.run(["jack_connect", src, dst], env=self.env, capture_output=True,
+                               text=True, timeout=10)
+            if r.returncode == 0:
+                return
+            if dst in self.connections(src):
+                return
+            time.sleep(0.2)
+        raise JackError(f"jack_connect {src} {dst}: {r.stdout}{r.stderr}")
 
     def connections(self, port: str) -> list[str]:
         r = subprocess.run(["jack_lsp", "-c", port], env=self.env, capture_output=True, text=True, timeout=10)
@@ -139,14 +146,25 @@ class TestClient:
         if open_out:
             self.open_out()
         if open_in:
-            self.midi_in = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, client_name + "-rec")
-            self.midi_in.open_virtual_port(in_port)
-            self.midi_in.ignore_types(sysex=False, timing=False, active_sense=True)
-            # poll from a thread of ours: a Python callback would run in JACK's process thread and
-            # wait there for the interpreter lock, making the client miss JACK's deadline
-            self._stop = threading.Event()
-            self._reader = threading.Thread(target=self._read_loop, daemon=True)
-            self._reader.start()
+            self.open_in()
+
+    def open_in(self) -> None:
+        self.midi_in = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, self.client_name + "-rec")
+        self.midi_in.open_virtual_port(self.in_port_name)
+        self.midi_in.ignore_types(sysex=False, timing=False, active_sense=True)
+        # poll from a thread of ours: a Python callback would run in JACK's process thread and
+        # wait there for the interpreter lock, making the client miss JACK's deadline
+        self._stop = threading.Event()
+        self._reader = threading.Thread(target=self._read_loop, args=(self.midi_in, self._stop), daemon=True)
+        self._reader.start()
+
+    def close_in(self) -> None:
+        if self.midi_in is not None:
+            self._stop.set()
+            self._reader.join(1)
+            self.midi_in.close_port()
+            self.midi_in.delete()
+            self.midi_in = None
 
     # JACK names: "<client>:<port>"
     @property
@@ -167,9 +185,9 @@ class TestClient:
             self.midi_out.delete()
             self.midi_out = None
 
-    def _read_loop(self) -> None:
-        while not self._stop.is_set():
-            ev = self.midi_in.get_message()
+    def _read_loop(self, midi_in, stop) -> None:
+        while not stop.is_set():
+            ev = midi_in.get_message()
             if ev is None:
                 time.sleep(0.0005)
             else:
@@ -210,12 +228,7 @@ class TestClient:
 
     def close(self) -> None:
         self.close_out()
-        if self.midi_in is not None:
-            self._stop.set()
-            self._reader.join(1)
-            self.midi_in.close_port()
-            self.midi_in.delete()
-            self.midi_in = None
+        self.close_in()
 
 
 class Daemon:

@@ -107,3 +107,28 @@ def test_cli_prints_one_line_and_exits_2(tmp_path):
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1
     assert f"{cfg}:3: volume: unknown field" in lines[0]
+
+
+def test_flags_override_the_file(tmp_path):
+    from retuner.cli import build_parser
+    from retuner.commands import run as run_cmd
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("profile: vallotti\nbackend: alsa\ninput: Piano\n"
+                   "engine: {pool: [1, 2, 3], bend_range: 12}\nswitch: {channel: 3}\n")
+    args = build_parser().parse_args(["run", "--config", str(cfg), "--profile", "edo19", "--backend", "jack",
+                                      "--channels", "1-4,6", "--bend-scale", "0.9921875",
+                                      "--control-channel", "16", "--virtual"])
+    s = run_cmd._apply_flags(load_config(args.config), args)
+    assert (s.profile, s.backend, s.input, s.virtual) == ("edo19", "jack", "Piano", True)
+    assert s.engine["pool"] == (1, 2, 3, 4, 6) and s.engine["bend_range"] == 12.0
+    assert s.engine["bend_scale"] == 0.9921875
+    assert s.switch.channel == 16
+    from retuner.config import engine_config
+    ec = engine_config(s)
+    # channels are 1-based for the user, 0-based in the engine (mido's numbering)
+    assert ec.pool == (0, 1, 2, 3, 5) and ec.bend_range == 12.0
+    # a bad flag value is one line naming the option
+    args = build_parser().parse_args(["run", "--mode", "surround"])
+    with pytest.raises(RetunerError) as ei:
+        run_cmd._apply_flags(Settings(), args)
+    assert ei.value.field == "--mode"

@@ -182,14 +182,31 @@ def test_chords_arrive_at_their_werckmeister_pitch(jack_server, jack_client, tmp
     # latency through JACK (figures for the report; not a timed assertion)
     arrivals = [r.t for r in note_ons(recs)]
     lat = [(a - s) * 1000 for (_, s), a in zip(sent_at, arrivals)]
+    # the same path without the daemon: the test client's output wired straight to its input
+    loop = TestClient(f"loop{uuid.uuid4().hex[:6]}")
+    try:
+        jack_server.wait_port(loop.in_full)
+        jack_server.connect(loop.out_full, loop.in_full)
+        sent = []
+        for i, k in enumerate([60, 62, 64, 65, 67, 69, 71, 72] * 3):
+            sent.append(loop.send(mido.Message("note_on", note=k, velocity=80)))
+            time.sleep(rng.uniform(0.003, 0.025))
+        got = loop.wait_for(lambda r: len(r) >= len(sent))
+        direct = [(r.t - s) * 1000 for s, r in zip(sent, got)]
+    finally:
+        loop.close()
+    figures = {"n": len(lat), "median_ms": statistics.median(lat), "max_ms": max(lat), "min_ms": min(lat),
+               "direct_median_ms": statistics.median(direct), "direct_max_ms": max(direct),
+               "period_ms": 128 / 48000 * 1000}
     with open(LATENCY_FILE, "w") as fh:
-        json.dump({"n": len(lat), "median_ms": statistics.median(lat), "max_ms": max(lat),
-                   "min_ms": min(lat), "period_ms": 128 / 48000 * 1000}, fh)
-    print(f"note-on latency through JACK (2 hops, period 2.67 ms): median {statistics.median(lat):.2f} ms, "
-          f"max {max(lat):.2f} ms over {len(lat)} notes")
+        json.dump(figures, fh)
+    print(f"note-on latency through the daemon (2 JACK hops, period 2.67 ms): median {figures['median_ms']:.2f} ms, "
+          f"max {figures['max_ms']:.2f} ms over {len(lat)} notes; one hop without the daemon: median "
+          f"{figures['direct_median_ms']:.2f} ms, max {figures['direct_max_ms']:.2f} ms")
 
 
-def test_sigterm_releases_every_held_note_and_exits_0(jack_server, jack_client, tmp_path, runs):
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+def test_sigterm_releases_every_held_note_and_exits_0(sig, jack_server, jack_client, tmp_path, runs):
     run = start(runs, jack_server, tmp_path, ["--virtual", "--profile", "werckmeister-3"], client=jack_client)
     rng = random.Random(7)
     keys = [48, 60, 64, 67, 70, 74]
@@ -199,8 +216,10 @@ def test_sigterm_releases_every_held_note_and_exits_0(jack_server, jack_client, 
     d = decode(jack_client.messages())
     assert len(d.stuck()) == len(keys)
     sounding = {(n.channel, n.key) for n in d.stuck()}
-    run.daemon.signal(signal.SIGTERM)
+    t_sig = time.monotonic()
+    run.daemon.signal(sig)
     assert run.daemon.wait(10) == 0
+    print(f"{signal.Signals(sig).name} to exit: {(time.monotonic() - t_sig) * 1000:.0f} ms")
     recs = jack_client.wait_for(lambda r: decode(r).stuck() == [], timeout=5)
     # a note-off per sounding note, on its own channel and key (not only all-notes-off)
     offs = {(r.msg.channel, r.msg.note) for r in note_offs(recs)}
@@ -364,3 +383,59 @@ def test_bad_input_never_kills_the_daemon(jack_server, jack_client, tmp_path, ru
     n = _hold_and_read(jack_client, 66, random.Random(2))
     assert abs(n.cents - W3[66]) <= half_step(2)
     assert run.daemon.proc.poll() is None
+
+
+def test_hotplug_output_port_closes_and_returns(jack_server, tmp_path, runs):
+    client = TestClient(f"hoo{uuid.uuid4().hex[:6]}")
+    try:
+        jack_server.wait_port(client.in_full)
+        run = start(runs, jack_server, tmp_path,
+                    ["--output", client.in_full, "--profile", "werckmeister-3"], client=client, wire_out=False)
+        end = time.monotonic() + 10
+        while run.out_port not in jack_server.connections(client.in_full) and time.monotonic() < end:
+            time.sleep(0.05)
+        assert run.out_port in jack_server.connections(client.in_full)
+        rng = random.Random(11)
+        play_chord(client, [60, 64], rng)
+        client.wait_for(lambda r: len(note_ons(r)) >= 2)
+        # the synth goes away with its sounding notes
+        client.close_in()
+        end = time.monotonic() + 10
+        while "is gone" not in run.daemon.log() and time.monotonic() < end:
+            time.sleep(0.05)
+        assert "output" in run.daemon.log().split("is gone")[0].splitlines()[-1]
+        release(client, [60, 64], rng)           # released while there is no synth: nothing to send
+        play_chord(client, [67], rng)            # played while there is no synth: dropped
+        release(client, [67], rng)
+        time.sleep(0.3)
+        client.clear()
+        client.open_in()
+        end = time.monotonic() + 10
+        while run.out_port not in jack_server.connections(client.in_full) and time.monotonic() < end:
+            time.sleep(0.05)
+        assert run.out_port in jack_server.connections(client.in_full), run.daemon.log()[-2000:]
+        # on reconnect the setup is sent again: RPN 0 (pitch bend sensitivity) on the pool channels
+        recs = client.wait_for(lambda r: any(x.msg.type == "control_change" and x.msg.control == 6 for x in r))
+        assert any(x.msg.type == "control_change" and x.msg.control == 101 and x.msg.value == 0 for x in recs)
+        play_chord(client, [62, 66, 69], rng)
+        client.wait_for(lambda r: len(note_ons(r)) >= 3)
+        release(client, [62, 66, 69], rng)
+        recs = client.wait_for(lambda r: len(note_offs(r)) >= 3)
+        d = decode(recs)
+        assert sorted(n.key for n in d.notes) == [62, 66, 69]      # nothing of the lost time comes back
+        assert_pitches(d.notes, W3)
+        assert d.stuck() == []
+        assert run.daemon.log().count("is gone") == 1
+        assert run.daemon.proc.poll() is None
+    finally:
+        client.close()
+
+
+def test_status_line_every_interval(jack_server, tmp_path, runs):
+    # 0.005 minutes = 0.3 s
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--status-interval", "0.005"])
+    end = time.monotonic() + 10
+    while run.daemon.log().count("status: tuning edo12") < 2 and time.monotonic() < end:
+        time.sleep(0.05)
+    line = [l for l in run.daemon.log().splitlines() if "status: tuning" in l][0]
+    assert "notes" in line and "steals" in line and "ringing retunes" in line
