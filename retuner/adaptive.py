@@ -598,16 +598,21 @@ class AdaptiveSolver:
         x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
         # context choice among ambiguous candidates (at most two more passes)
         amb = self._ambig[D]   # the diagonal (unison) has one candidate only
-        if amb.any():
+        if amb.any() and (mode == "free" or amb[:, nh + ng:].any()):
             tri = self._triu.get(n)
             if tri is None:
                 tri = self._triu[n] = np.triu_indices(n, 1)
             sel = amb[tri]
+            if mode != "free":
+                # pairs of two held notes are constant unless held notes move one by one
+                sel &= tri[1] >= nh + ng
             iu, ju = tri[0][sel], tri[1][sel]
             cand_u = self._cand[D[iu, ju]]          # (pairs, candidates)
             rows = np.arange(len(iu))
 
             def refine(x, tau):
+                if not len(iu):
+                    return x, tau
                 for _ in range(2):
                     diff = x[ju] - x[iu]
                     choice = np.argmin(np.abs(cand_u - diff[:, None]), axis=1)
