@@ -4,7 +4,7 @@ Method
 ------
 This is the least-squares method published by Stange, Wick and Hinrichsen,
 "Playing music in just intonation: a dynamically adaptive tuning scheme",
-*Computer Music Journal* 42(3), 2018: at each event the pitches of all sounding
+*Computer Music Journal* (2018): at each event the pitches of all sounding
 notes minimise a quadratic cost made of
 
 * one term per pair of sounding notes, ``w_ij (x_j - x_i - t_ij)**2``, where
@@ -16,6 +16,8 @@ notes minimise a quadratic cost made of
   note ``h`` at current pitch ``c_h``): moving sounding notes costs;
 * a term pulling the tuning centre back to a reference (12-EDO at the
   profile's reference pitch by default, or the loaded profile's own pitches).
+  The profile's reference pitch is read off its key 69 (A4): a profile tuned
+  with a different reference key is taken at the pitch its A4 has.
 
 The system is small (at most 16 notes) and dense; it is solved with numpy.
 All pitches inside are deviations in cents from each key's own 12-EDO pitch.
