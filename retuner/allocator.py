@@ -18,7 +18,8 @@ Channel choice for a note that needs tuning bend ``b`` on output key ``k``
    (a note-off must stop exactly one note, so one key is never held twice on one
    channel); the first such channel in pool order;
 2. **same bend**: a free (ringing or idle) channel already at bend ``b``: no
-   bend message needed; the one silent longest;
+   bend message needed; the one used most recently (this keeps the pool
+   compact: a 12-note tuning stays on at most 12 channels, the rest stay spare);
 3. **idle**: an idle channel, the one silent longest; its bend is changed;
 4. **ringing retune**: a ringing channel, the one silent longest (its tail is
    the quietest); counted as a ringing retune. This never happens while an idle
@@ -103,7 +104,7 @@ class Pool:
         cbend = self.bend
         last_off = self.last_off
         same: Optional[int] = None
-        same_off = math.inf
+        same_off = -math.inf
         idle: Optional[int] = None
         idle_off = math.inf
         ring: Optional[int] = None
@@ -121,7 +122,7 @@ class Pool:
                 continue
             lo = last_off[c]
             if cbend[c] == bend:
-                if lo < same_off or same is None:
+                if lo > same_off or same is None:
                     same, same_off = c, lo
             elif t - lo >= release:
                 if lo < idle_off or idle is None:

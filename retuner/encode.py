@@ -121,29 +121,72 @@ def msg(type_: str, **fields) -> Message:
     return m
 
 
+_new = Message.__new__
+
+
 def note_on(channel: int, note: int, velocity: int) -> Message:
-    return msg("note_on", channel=channel, note=note, velocity=velocity)
+    m = _new(Message)
+    d = m.__dict__
+    d["type"] = "note_on"
+    d["channel"] = channel
+    d["note"] = note
+    d["velocity"] = velocity
+    d["time"] = 0
+    return m
 
 
 def note_off(channel: int, note: int, velocity: int = 0) -> Message:
-    return msg("note_off", channel=channel, note=note, velocity=velocity)
+    m = _new(Message)
+    d = m.__dict__
+    d["type"] = "note_off"
+    d["channel"] = channel
+    d["note"] = note
+    d["velocity"] = velocity
+    d["time"] = 0
+    return m
 
 
 def control_change(channel: int, control: int, value: int) -> Message:
-    return msg("control_change", channel=channel, control=control, value=value)
+    m = _new(Message)
+    d = m.__dict__
+    d["type"] = "control_change"
+    d["channel"] = channel
+    d["control"] = control
+    d["value"] = value
+    d["time"] = 0
+    return m
 
 
 def pitchwheel(channel: int, value: int) -> Message:
     """Pitch bend message for an unsigned 14-bit ``value`` (mido stores it signed)."""
-    return msg("pitchwheel", channel=channel, pitch=value - BEND_CENTRE)
+    m = _new(Message)
+    d = m.__dict__
+    d["type"] = "pitchwheel"
+    d["channel"] = channel
+    d["pitch"] = value - BEND_CENTRE
+    d["time"] = 0
+    return m
 
 
 def with_channel(m: Message, channel: int) -> Message:
     """A copy of channel message ``m`` on another channel (fast)."""
-    out = Message.__new__(Message)
-    d = vars(out)
-    d.update(vars(m))
+    out = _new(Message)
+    d = out.__dict__
+    d.update(m.__dict__)
     d["channel"] = channel
+    return out
+
+
+def on_channels(m: Message, channels) -> list[Message]:
+    """Copies of channel message ``m`` on each of ``channels`` (fast)."""
+    src = m.__dict__
+    out = []
+    for c in channels:
+        x = _new(Message)
+        d = x.__dict__
+        d.update(src)
+        d["channel"] = c
+        out.append(x)
     return out
 
 

@@ -385,7 +385,7 @@ class Engine:
     def _zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
         """A zone-wide message on the channels that carry it for pedal domain ``dom``."""
         if self.mode == "pool":
-            return [E.with_channel(msg, c) for c in self._out_channels]
+            return E.on_channels(msg, self._out_channels)
         if self.mode == "mpe":
             return [E.with_channel(msg, self._manager)]
         return [E.with_channel(msg, dom)]
@@ -636,7 +636,7 @@ class Engine:
         """Channel mode messages reach every output channel of the domain."""
         if self.mode == "mts":
             return [msg]
-        return [E.with_channel(msg, c) for c in self._all_channels()]
+        return E.on_channels(msg, self._all_channels())
 
     def _silence(self, t: float, dom: int, hard: bool) -> None:
         """All-sound-off (hard) or all-notes-off for pedal domain ``dom``."""
@@ -701,12 +701,25 @@ class Engine:
             return
         old = self._wheel_units
         self._update_wheel_units()
-        if self._wheel_units == old:
+        units = self._wheel_units
+        if units == old:
             return
         pool = self.pool
+        notes, last_off, bend, sent = pool.notes, pool.last_off, pool.bend, self._sent
+        rel = pool.release_time
+        n = 0
         for c in pool.channels:
-            if pool.notes[c] or t - pool.last_off[c] < pool.release_time:
-                self._send_bend(c, out)
+            if notes[c] or t - last_off[c] < rel:
+                v = bend[c] + units
+                if v < 0:
+                    v = 0
+                elif v > 16383:
+                    v = 16383
+                if sent[c] != v:
+                    sent[c] = v
+                    out.append(E.pitchwheel(c, v))
+                    n += 1
+        self.stats["bends_sent"] += n
 
     def _poly(self, ch: int, msg: mido.Message, out: list) -> None:
         if self.mode == "mts":

@@ -42,11 +42,11 @@ def test_same_bend_then_idle_then_ringing():
     assert p.choose(7000, 60, 10.0, share=True) == (2, RINGING)     # all ring: silent longest (9.0)
 
 
-def test_same_bend_prefers_silent_longest():
+def test_same_bend_prefers_most_recently_used():
     p = Pool([0, 1, 2], release_time=2.0)
     p.bend.update({0: 8000, 1: 8000, 2: 8000})
     p.last_off.update({0: 3.0, 1: 1.0, 2: 2.0})
-    assert p.choose(8000, 60, 10.0, share=True) == (1, SAME_BEND)
+    assert p.choose(8000, 60, 10.0, share=True) == (0, SAME_BEND)
 
 
 def test_idle_beats_ringing_with_right_bend_absent():

@@ -27,6 +27,9 @@ def add_arguments(parser):
     parser.add_argument("--events", type=int, default=10000, metavar="N",
                         help="note events (note-ons + note-offs) at least (default 10000)")
     parser.add_argument("--seed", type=int, default=1, help="seed of the generated performance (default 1)")
+    parser.add_argument("--clock", choices=("wall", "cpu"), default="wall",
+                        help="time each event by the wall clock (default) or by this thread's CPU time "
+                             "(steadier on a busy machine)")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
     add_profiles_dir(parser)
 
@@ -43,7 +46,7 @@ def run(args) -> int:
     if args.events < 1:
         raise RetunerError("must be at least 1", field="--events")
     events = performance(args.performance, n_note_events=args.events, seed=args.seed)
-    res = measure(tuning, EngineConfig(mode=args.mode, adaptive=adaptive), events)
+    res = measure(tuning, EngineConfig(mode=args.mode, adaptive=adaptive), events, clock=args.clock)
     if args.json:
         figs = {k: res[k] for k in JSON_KEYS}
         if args.adaptive:  # the adaptive goals: progressions measured from the output
@@ -54,7 +57,7 @@ def run(args) -> int:
     print(f"profile {tuning.id}, mode {args.mode}{' adaptive' if adaptive else ''}, "
           f"performance {args.performance} (seed {args.seed}): {res['events']} events, "
           f"{res['note_events']} note events")
-    print(f"latency per event: p50 {res['p50_us']:.1f} us, p99 {res['p99_us']:.1f} us, "
+    print(f"latency per event ({args.clock} clock): p50 {res['p50_us']:.1f} us, p99 {res['p99_us']:.1f} us, "
           f"max {res['max_us']:.1f} us (mean {res['mean_us']:.1f} us)")
     print(f"messages per note-on: {res['messages_per_note_on']:.3f} "
           f"({res['messages_out']} messages out, {res['bends_sent']} bends)")
