@@ -370,3 +370,22 @@ def test_solver_invariants_on_random_performances(policy, limit, events):
         sounding.update(zip(new, out_n))
         if new and not policy.startswith("free"):
             assert abs(centre(list(sounding), list(sounding.values()))) <= 4.0 + 1e-6
+
+
+def test_reference_profile_centres_on_the_profiles_own_pitches():
+    # quarter-comma meantone, computed here from its definition (fifth = 3/2 * (81/80)**(-1/4),
+    # Barbour 1951): C major from silence must centre on the meantone pitches of its keys
+    fifth = 1200 * math.log2(1.5) - SYNTONIC / 4
+    pcs = {}
+    for i in range(-3, 9):  # Eb .. G#
+        pcs[(7 * i) % 12] = (i * fifth) % 1200
+    offset = 6900 - (6000 + pcs[9])  # A4 (key 69) = 440 Hz, i.e. 6900 c above key 0
+    cents = [1200 * (k // 12) + pcs[k % 12] + offset for k in range(128)]
+    tun = Tuning.from_cents("mt", cents)
+    assert abs(tun.cents[69] - 6900) < 1e-9 and abs(tun.deviation(64) - (-13.686 + 10.265)) < 0.01
+    s = AdaptiveSolver(AdaptiveConfig(reference="profile"), tun)
+    keys = [60, 64, 67]
+    _, out = s.solve([], keys)
+    want_centre = sum(tun.deviation(k) for k in keys) / 3
+    assert abs(centre(keys, out) - want_centre) < 0.05
+    assert abs(out[1] - out[0] - MAJOR_THIRD) < 0.05
