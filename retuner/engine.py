@@ -38,7 +38,9 @@ and the steal policy; :mod:`retuner.encode` for the bend formula).
   not follow the wheel all the way). Wheel changes are sent to busy and
   ringing channels; an idle channel gets the right value when next used.
 * The pool is one instrument: the wheel and the pedals are those last sent on
-  any retuned input channel.
+  any retuned input channel, and channel mode messages (all-notes-off,
+  all-sound-off, reset-all-controllers) from any retuned input channel act on
+  the whole pool.
 * Sustain (CC64) and sostenuto (CC66), channel pressure, program change and all
   other controllers go to every pool channel; polyphonic pressure to the note's
   channel; all-notes-off (CC123, and CC124-127), all-sound-off (CC120) and
@@ -995,6 +997,8 @@ class Engine:
         self._deadline = None
         for n in self.pool.clear(None):
             n.alive = False
+        for c in self.pool.channels:
+            self.pool.last_off[c] = NEG_INF     # nothing rings on a device that is gone
         self._fifo.clear()
         self._sent = {c: None for c in range(16)}
         self._mts_enc = [None] * 128

@@ -662,15 +662,18 @@ def test_input_lost_releases_held_notes_pedal_and_wheel():
 
 
 def test_output_lost_then_start_again():
-    e, s = started()
+    e, s = started(distinct_tuning(), pool=(0, 1))
     e.feed(0.0, ON(60))
+    e.feed(0.01, ON(62))
+    e.feed(0.02, OFF(62))        # channel 1 rings
     e.output_lost(0.1)
     assert e.sounding() == []
     s2 = SynthModel()
     s2.feed(e.start(0.2))
     assert e.feed(0.3, OFF(60)) == []        # the note went with the device
-    s2.feed(e.feed(0.4, ON(61)) + e.feed(0.5, OFF(61)))
+    s2.feed(e.feed(0.4, ON(61)) + e.feed(0.41, ON(63)) + e.feed(0.5, OFF(61)) + e.feed(0.5, OFF(63)))
     assert s2.count() == 0 and not s2.problems
+    assert e.stats["ringing_retunes"] == 0      # nothing rings on the new device
 
 
 def test_deterministic():
