@@ -51,7 +51,7 @@ def run(args) -> int:
         figs = {k: res[k] for k in JSON_KEYS}
         if args.adaptive:  # the adaptive goals: progressions measured from the output
             from ..progressions import adaptive_bench
-            figs["adaptive"] = adaptive_bench(mode=args.mode)
+            figs["adaptive"] = adaptive_bench(mode=args.mode, clock=args.clock)
         print_json(figs)
         return 0
     print(f"profile {tuning.id}, mode {args.mode}{' adaptive' if adaptive else ''}, "
@@ -66,5 +66,5 @@ def run(args) -> int:
     print(f"steals: {res['steals']}")
     if args.adaptive:
         from ..progressions import adaptive_bench, format_adaptive_bench
-        print(format_adaptive_bench(adaptive_bench(mode=args.mode)))
+        print(format_adaptive_bench(adaptive_bench(mode=args.mode, clock=args.clock)))
     return 0
