@@ -165,12 +165,13 @@ class Handler:
 
 
 class _Client:
-    __slots__ = ("sock", "fd", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
+    __slots__ = ("sock", "fd", "id", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
                  "dropped", "closing", "reading", "mask")
 
-    def __init__(self, sock: socket.socket):
+    def __init__(self, sock: socket.socket, cid: int):
         self.sock = sock
         self.fd = sock.fileno()
+        self.id = cid
         self.inbuf = bytearray()
         self.out: deque[bytes] = deque()      # replies (never dropped) and events, in order
         self.events = 0                       # how many items of ``out`` are events
@@ -208,10 +209,13 @@ class ControlServer:
         self._thread: Optional[threading.Thread] = None
         self._sel: Optional[selectors.BaseSelector] = None
         self._listener: Optional[socket.socket] = None
-        self._clients: dict[int, _Client] = {}
+        self._clients: dict[int, _Client] = {}     # client id -> client
+        self._ids = count(1)
         self._wake_r = self._wake_w = -1
         self._inode: Optional[tuple[int, int]] = None
-        self.subscribers = 0      # read by the engine thread without the lock (an int: atomic)
+        # subscribers, counted from the moment the engine thread answers "subscribe" (so no event
+        # published after that answer is lost); changed under the lock, read without it
+        self.subscribers = 0
         self.counters = {"clients": 0, "connections": 0, "commands": 0, "errors": 0,
                          "events": 0, "events_dropped": 0, "central_dropped": 0}
 
@@ -353,6 +357,8 @@ class ControlServer:
             subscribe = cmd.name == "subscribe" and reply.get("ok", False)
             with self._lock:
                 self._replies.append((next(self._seq), cmd.client, line, subscribe))
+                if subscribe:
+                    self.subscribers += 1
                 wake = not self._wake_sent
                 self._wake_sent = True
             if wake:
@@ -403,9 +409,9 @@ class ControlServer:
                         self._drain_wake()
                     else:
                         c = key.data
-                        if mask & selectors.EVENT_READ and c.fd in self._clients:
+                        if mask & selectors.EVENT_READ and c.id in self._clients:
                             self._read(c)
-                        if mask & selectors.EVENT_WRITE and c.fd in self._clients:
+                        if mask & selectors.EVENT_WRITE and c.id in self._clients:
                             self._write(c)
                 except Exception:  # never let one client take the server down
                     log.exception("control server error")
@@ -440,8 +446,8 @@ class ControlServer:
                 sock.close()
                 continue
             sock.setblocking(False)
-            c = _Client(sock)
-            self._clients[c.fd] = c
+            c = _Client(sock, next(self._ids))
+            self._clients[c.id] = c
             self.counters["connections"] += 1
             self.counters["clients"] = len(self._clients)
             self._update(c)
@@ -465,7 +471,7 @@ class ControlServer:
         c.mask = mask
 
     def _drop(self, c: _Client) -> None:
-        if self._clients.pop(c.fd, None) is None:
+        if self._clients.pop(c.id, None) is None:
             return
         if c.mask:
             try:
@@ -474,7 +480,8 @@ class ControlServer:
             except (KeyError, ValueError, OSError):
                 pass
         if c.subscribed:
-            self.subscribers = max(0, self.subscribers - 1)
+            with self._lock:
+                self.subscribers = max(0, self.subscribers - 1)
         try:
             c.sock.close()
         except OSError:
@@ -524,7 +531,7 @@ class ControlServer:
                 log.exception("control command %s failed", cmd.name)
                 prepared = _error(f"internal error: {exc}", cmd.req_id, cmd.name)
             if isinstance(prepared, Command):
-                prepared.client = c.fd
+                prepared.client = c.id
                 c.inflight += 1
                 self._pending.append(prepared)
                 if self.on_command is not None:
@@ -574,17 +581,22 @@ class ControlServer:
         ev = next(ev_iter, None)
         while ri < len(replies) or ev is not None:
             if ev is None or (ri < len(replies) and replies[ri][0] < ev[0]):
-                _, fd, line, subscribe = replies[ri]
+                _, cid, line, subscribe = replies[ri]
                 ri += 1
-                c = self._clients.get(fd)
+                c = self._clients.get(cid)
                 if c is None:
+                    if subscribe:
+                        with self._lock:
+                            self.subscribers = max(0, self.subscribers - 1)
                     continue
                 c.inflight -= 1
                 c.out.append(line)
-                if subscribe and not c.subscribed:
+                if subscribe:
+                    if c.subscribed:          # subscribed twice: counted once
+                        with self._lock:
+                            self.subscribers = max(0, self.subscribers - 1)
                     c.subscribed = True
-                    self.subscribers += 1
-                touched.add(fd)
+                touched.add(cid)
             else:
                 subs = [c for c in self._clients.values() if c.subscribed]
                 if subs:
@@ -596,13 +608,13 @@ class ControlServer:
                         self.counters["events"] += 1
                         for c in subs:
                             self._push_event(c, line)
-                            touched.add(c.fd)
+                            touched.add(c.id)
                 ev = next(ev_iter, None)
-        for fd in touched:
-            c = self._clients.get(fd)
+        for cid in touched:
+            c = self._clients.get(cid)
             if c is not None:
                 self._write(c)
-                if c.fd in self._clients:
+                if c.id in self._clients:
                     # more requests may be waiting in the input buffer
                     if c.inbuf and c.inflight < self.MAX_INFLIGHT and b"\n" in c.inbuf:
                         self._read_buffered(c)
@@ -862,15 +874,20 @@ class EngineControl(Handler):
             self.observe(now, force=True)
             return {"released": sum(1 for m in out if getattr(m, "type", "") == "note_off")}
         if name == "subscribe":
+            self.observe(now)                 # existing subscribers get what changed first
             snap = self.status()
-            snap["notes"] = self._notes()
+            sounding = self.host.engine.sounding()
+            snap["notes"] = self._notes(sounding)
+            # the new subscriber's events continue from exactly this snapshot
+            self._sounding = {(n.get("channel", 0), n["key"]): dict(n) for n in sounding}
+            self._next_counters = 0.0
             return snap
         raise RetunerError(f"unknown command {name!r}")
 
-    def _notes(self) -> list[dict]:
+    def _notes(self, sounding=None) -> list[dict]:
         from .tuning import cents_to_hz
         out = []
-        for n in self.host.engine.sounding():
+        for n in (self.host.engine.sounding() if sounding is None else sounding):
             c = n.get("cents")
             out.append({"key": n["key"], "cents": c, "channel": n.get("channel", 0) + 1,
                         "hz": None if c is None else cents_to_hz(c)})
