@@ -1,0 +1,108 @@
+"""retuner watch: the view as a pure function of its state, and the state folded from events.
+
+Sources: 12-EDO at A4 = 440 Hz (ISO 16), so key k sounds at 440 * 2**((k-69)/12) Hz: C4 = 261.626 Hz,
+E4 = 329.628 Hz, G4 = 391.995 Hz, C3 = 130.813 Hz. The beat rate of two tones near the ratio p:q
+(upper:lower) is |q*f2 - p*f1|, the difference of the nearly coinciding partials (common practice).
+Just ratios: 5/4 = 386.314 c, 3/2 = 701.955 c, 6/5 = 315.641 c (handbook values, shared README).
+(The same view rendered from a real daemon in a captured terminal: test_control_daemon.py.)
+"""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from retuner.watch import WatchState, drift, interval_rows, render
+
+
+def edo_hz(k: int) -> float:
+    return 440.0 * 2 ** ((k - 69) / 12)
+
+
+def state_with(notes: dict[int, float], **info) -> WatchState:
+    s = WatchState()
+    s.snapshot({"tuning": info.get("tuning", "edo12"), "base": info.get("tuning", "edo12"),
+                "reference": None, "transpose": 0, "transpose_cents": 0.0, "adaptive": False,
+                "stats": {"notes": 7, "steals": 1, "ringing_retunes": 2},
+                "notes": [{"key": k, "cents": c, "channel": i + 1} for i, (k, c) in enumerate(notes.items())]})
+    return s
+
+
+def squash(lines):
+    return [" ".join(l.split()) for l in lines]
+
+
+def test_held_major_triad_in_12_edo_by_hand():
+    s = state_with({60: 6000.0, 64: 6400.0, 67: 6700.0})
+    lines = squash(render(s))
+    # the hand calculation: C4-E4 near 5:4 -> |4*329.628 - 5*261.626| = |1318.512 - 1308.130| = 10.38 Hz
+    assert abs(4 * 329.628 - 5 * 261.626) == pytest.approx(10.38, abs=0.005)
+    assert "C4-E4 M3 400.00 5/4 +13.69 10.38" in lines
+    assert "C4-G4 P5 700.00 3/2 -1.96 0.89" in lines          # |2*391.995 - 3*261.626| = 0.89
+    assert "E4-G4 m3 300.00 6/5 -15.64 17.79" in lines        # |5*391.995 - 6*329.628| = 17.79
+    assert "C4 60 +0.00 261.63" in lines and "E4 64 +0.00 329.63" in lines and "G4 67 +0.00 392.00" in lines
+    assert "SOUNDING 3" in lines and "INTERVALS 3" in lines
+    head = " ".join(lines[:2])
+    assert "TUNING edo12" in head and "DRIFT +0.00 c" in head
+    assert "NOTES 7" in head and "STEALS 1" in head and "RINGING RETUNES 2" in head
+
+
+def test_pure_triad_does_not_beat_and_compound_intervals_use_their_ratio():
+    third = 1200 * math.log2(5 / 4)
+    fifth = 1200 * math.log2(3 / 2)
+    s = state_with({48: 4800.0, 64: 4800.0 + 1200 + third, 67: 4800.0 + 1200 + fifth})
+    rows = {(r.low, r.high): r for r in interval_rows(list(s.notes.values()))}
+    # C3-E4 is a major tenth, 5/2: pure, no beats
+    r = rows[(48, 64)]
+    assert (r.ratio.numerator, r.ratio.denominator) == (5, 2) and r.name == "M3+1o"
+    assert r.deviation == pytest.approx(0.0, abs=1e-9) and r.beats == pytest.approx(0.0, abs=1e-9)
+    # E4-G4 of a pure 4:5:6 is 6:5, pure
+    assert rows[(64, 67)].beats == pytest.approx(0.0, abs=1e-9)
+    # a 12-EDO tenth C3-E4 beats at |2*f(E4) - 5*f(C3)| (hand formula with 130.813 and 329.628 Hz)
+    s2 = state_with({48: 4800.0, 64: 6400.0})
+    r2 = interval_rows(list(s2.notes.values()))[0]
+    assert r2.beats == pytest.approx(abs(2 * edo_hz(64) - 5 * edo_hz(48)), abs=1e-6)
+    assert r2.beats == pytest.approx(abs(2 * 329.628 - 5 * 130.813), abs=0.01)
+
+
+def test_drift_is_the_mean_deviation_of_sounding_notes():
+    s = state_with({60: 6011.73, 64: 6401.955, 67: 6707.82})
+    assert drift(list(s.notes.values())) == pytest.approx((11.73 + 1.955 + 7.82) / 3, abs=1e-9)
+    lines = squash(render(s))
+    assert f"DRIFT +{(11.73 + 1.955 + 7.82) / 3:.2f} c" in " ".join(lines[:2])
+    assert "C4 60 +11.73 " in " ".join(lines) + " "
+    assert drift([]) is None
+    assert "DRIFT -- c" in " ".join(squash(render(WatchState())))
+
+
+def test_events_fold_into_the_view():
+    s = state_with({})
+    s.apply({"event": "note_on", "key": 69, "channel": 3, "cents": 6900.0, "hz": 440.0})
+    pure = 1200 * math.log2(3 / 2)
+    s.apply({"event": "note_on", "key": 76, "channel": 4, "cents": 6900.0 + pure, "hz": None})
+    lines = squash(render(s))
+    assert "A4 69 +0.00 440.00" in lines
+    assert "A4-E5 P5 701.96 3/2 +0.00 0.00" in lines
+    s.apply({"event": "pitch", "key": 76, "channel": 4, "cents": 7600.0})
+    # 12-EDO E5 = 659.255 Hz: |2*659.255 - 3*440| = 1.49 Hz
+    assert "A4-E5 P5 700.00 3/2 -1.96 1.49" in squash(render(s))
+    s.apply({"event": "note_off", "key": 69, "channel": 3})
+    lines = squash(render(s))
+    assert "SOUNDING 1" in lines and "INTERVALS 0" in lines
+    s.apply({"event": "tuning", "tuning": "vallotti", "base": "vallotti", "reference": 442.0,
+             "transpose": 2, "transpose_cents": 0.0, "adaptive": False})
+    s.apply({"event": "counters", "notes": 99, "steals": 3, "ringing_retunes": 0, "events_dropped": 5})
+    s.apply({"event": "adaptive", "on": True})
+    head = " ".join(squash(render(s))[:2])
+    assert "TUNING vallotti" in head and "A4 442 Hz" in head and "TRANSPOSE +2 st" in head
+    assert "ADAPTIVE ON" in head and "NOTES 99" in head and "DROPPED EVENTS 5" in head
+    s.connected = False
+    assert "DISCONNECTED" in " ".join(render(s))
+
+
+def test_view_fits_the_window():
+    s = state_with({k: 100.0 * k for k in range(48, 72)})     # 24 notes, 276 intervals
+    lines = render(s, width=60, height=30)
+    assert len(lines) == 30 and all(len(l) <= 60 for l in lines)
+    assert "more lines" in lines[-1]
