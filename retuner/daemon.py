@@ -394,13 +394,15 @@ class Daemon:
                 self._open_ports(now)
             except RetunerError as exc:
                 log.error("reopening ports: %s", exc)
+        if old.control != new.control:
+            log.warning("control socket settings take effect at the next start")
         self.switch_to(profiles.main, now, "reload")
         log.info("reloaded %s", new.source or "built-in defaults")
         self.notifier.ready(status=self._status_text())
 
     def _status_text(self) -> str:
         st = dict(getattr(self.engine, "stats", {}) or {})
-        parts = [f"tuning {self.tuning.id}",
+        parts = [f"tuning {self.tuning.id} ({self.engine.config.mode})",
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
                  f"{st.get('ringing_retunes', 0)} ringing retunes"]

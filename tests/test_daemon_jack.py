@@ -435,7 +435,28 @@ def test_status_line_every_interval(jack_server, tmp_path, runs):
     # 0.005 minutes = 0.3 s
     run = start(runs, jack_server, tmp_path, ["--virtual", "--status-interval", "0.005"])
     end = time.monotonic() + 10
-    while run.daemon.log().count("status: tuning edo12") < 2 and time.monotonic() < end:
+    while run.daemon.log().count("status: tuning edo12 (pool)") < 2 and time.monotonic() < end:
         time.sleep(0.05)
     line = [l for l in run.daemon.log().splitlines() if "status: tuning" in l][0]
     assert "notes" in line and "steals" in line and "ringing retunes" in line
+
+
+def test_named_input_that_appears_after_the_start(jack_server, jack_client, tmp_path, runs):
+    late = f"late{uuid.uuid4().hex[:6]}"
+    run = start(runs, jack_server, tmp_path, ["--input", f"{late}:play", "--profile", "werckmeister-3"],
+                client=jack_client, wire_in=False)
+    assert "no such port (yet)" in run.daemon.log()        # READY=1 came anyway: the daemon waits
+    client = TestClient(late, open_in=False)
+    try:
+        end = time.monotonic() + 10
+        while run.in_port not in jack_server.connections(client.out_full) and time.monotonic() < end:
+            time.sleep(0.05)
+        assert run.in_port in jack_server.connections(client.out_full)
+        client.send(mido.Message("note_on", note=61, velocity=70))
+        client.send(mido.Message("note_off", note=61))
+        recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 1)
+        d = decode(recs)
+        assert [n.key for n in d.notes] == [61] and d.stuck() == []
+        assert_pitches(d.notes, W3)
+    finally:
+        client.close()
