@@ -349,9 +349,7 @@ class Engine:
             out.append(msg)
         elif typ == "note_on":
             if msg.velocity:
-                n0 = len(out)
                 self._note_on(t, ch, msg.note, msg.velocity, out)
-                self.stats["note_on_messages"] += len(out) - n0
             else:
                 self._note_off(t, ch, msg.note, msg, out)
         elif typ == "note_off":
@@ -452,10 +450,12 @@ class Engine:
                 self._flush(t, out)
             return
         note.out_key, note.bend, note.cents = plan
+        n0 = len(out)
         if self.mode == "mts":
             self._mts_note_on(t, [note], [], out)
         else:
             self._place_note(note, t, out, self._share)
+        self.stats["note_on_messages"] += len(out) - n0
 
     def _place_note(self, note: Note, t: float, out: list, share: bool) -> None:
         pool = self.pool
@@ -774,12 +774,14 @@ class Engine:
             n.pending = False
         solver = self._solver
         if solver is None:  # adaptive mode switched off meanwhile: static pitches
+            n0 = len(out)
             for n in pend:
                 n.out_key, n.bend, n.cents = self._plan[n.in_key]
                 if self.mode == "mts":
                     self._mts_note_on(t, [n], [], out)
                 else:
                     self._place_note(n, t, out, self._share)
+            self.stats["note_on_messages"] += len(out) - n0
             return
         n0 = len(out)
         held = self._sounding_notes()

@@ -599,6 +599,8 @@ def test_no_redundant_bends():
     first = e.feed(0.0, ON(61))
     e.feed(0.1, OFF(61))
     assert e.feed(0.2, ON(61)) == [E.note_on(first[-1].channel, 61, 100)]
+    # the bench's messages-per-note-on counts exactly what note-ons caused
+    assert e.stats["note_on_messages"] == len(first) + 1 and e.stats["notes"] == 2
 
 
 def test_bend_scale_correction():

@@ -131,6 +131,7 @@ def test_zero_window_solves_at_once(fake):
     e, s = engine(window=0.0)
     out = e.feed(0.0, ON(60))
     assert [m.type for m in out][-1] == "note_on"
+    assert e.stats["note_on_messages"] == len(out)    # counted once
 
 
 def test_set_adaptive_off_sounds_waiting_notes(fake):
