@@ -49,6 +49,8 @@ and the steal policy; :mod:`retuner.encode` for the bend formula).
   range instead of reaching the pool (RPN 3, 4, 6 from the input are dropped).
 * System exclusive, clock and other system messages pass through; channel
   messages on passthrough input channels (default channel 10) are untouched.
+  After a system reset (0xFF) the sounding notes are forgotten and the setup
+  (bend range, MPE configuration, MTS tuning) is sent again.
 * Unmapped keys are dropped (logged once per key).
 * A bend is sent only when a channel's bend value changes.
 * Synth correction: ``bend_scale`` (a synth playing bends at 127/128 of their
@@ -347,6 +349,12 @@ class Engine:
         ch = getattr(msg, "channel", None)
         if ch is None or ch in self._pass:
             out.append(msg)
+            if typ == "reset":
+                # a system reset clears the synth: what sounded is gone, set it up again
+                self.output_lost(t)
+                setup = self.start(t)
+                self.stats["messages_out"] -= len(setup)   # counted below with the rest
+                out += setup
         elif typ == "note_on":
             if msg.velocity:
                 self._note_on(t, ch, msg.note, msg.velocity, out)

@@ -731,3 +731,19 @@ def test_reconfigure_new_pool_releases_and_starts_again():
     assert e.feed(0.2, OFF(60)) == []
     assert e.feed(0.3, ON(62))[-1].channel in (0, 1, 2)
     assert e.reconfigure(e.config.replace(), 0.4) == []     # nothing changed: nothing sent
+
+
+def test_system_reset_passes_and_setup_is_sent_again():
+    tu = load_profile("meantone-quarter")
+    e, s = started(tu, bend_range=12.0)
+    e.feed(0.0, ON(61))
+    out = e.feed(0.1, mido.Message("reset"))
+    assert out[0] == mido.Message("reset")
+    assert e.sounding() == []
+    s2 = SynthModel()          # the synth after its reset
+    s2.feed(out[1:])
+    assert all(s2.range[c] == 1200.0 for c in e.config.pool)   # announced again
+    assert e.feed(0.2, OFF(61)) == []
+    s2.feed(e.feed(0.3, ON(61)))
+    (c, v), = s2.last_on
+    assert abs(s2.pitch(c, v) - tu.cents[61]) <= half_step(1200.0)
