@@ -556,7 +556,15 @@ class ControlServer:
 
     def _push_event(self, c: _Client, line: bytes) -> None:
         if c.events >= self.SUBSCRIBER_QUEUE:
-            # drop the oldest event (replies are kept)
+            # drop the oldest event (replies are kept); usually it is the head of the queue
+            if c.out and c.out[0][:9] == b'{"event":':
+                c.out.popleft()
+                c.events -= 1
+                c.dropped += 1
+                self.counters["events_dropped"] += 1
+                c.out.append(line)
+                c.events += 1
+                return
             for i, item in enumerate(c.out):
                 if item[:9] == b'{"event":':
                     del c.out[i]
@@ -577,6 +585,7 @@ class ControlServer:
             return
         touched: set[int] = set()
         ri = 0
+        done = 0
         ev_iter = iter(events)
         ev = next(ev_iter, None)
         while ri < len(replies) or ev is not None:
@@ -610,6 +619,9 @@ class ControlServer:
                             self._push_event(c, line)
                             touched.add(c.id)
                 ev = next(ev_iter, None)
+            done += 1
+            if done % 64 == 0:
+                time.sleep(0)      # let the engine thread have the interpreter between batches
         for cid in touched:
             c = self._clients.get(cid)
             if c is not None:
@@ -960,7 +972,7 @@ class EngineControl(Handler):
         if force or now >= self._next_counters:
             self._next_counters = now + self.COUNTER_INTERVAL
             stats = dict(getattr(self.host.engine, "stats", {}) or {})
-            stats["events_dropped"] = server.counters["events_dropped"]
+            stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
             server.publish({"event": "counters", "t": now, "tuning": self.current.id, **stats})
 
 
