@@ -19,7 +19,6 @@ import json
 import math
 
 import mido
-import pytest
 
 from retuner import metrics as M
 from retuner.tuning import Tuning
