@@ -33,7 +33,7 @@ import gc
 import math
 import random
 import time
-from typing import Callable, Iterable, Optional, Sequence
+from typing import Callable, Iterable, Sequence
 
 import mido
 

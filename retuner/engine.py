@@ -98,13 +98,13 @@ import dataclasses
 import logging
 import math
 from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Optional, Sequence
 
 import mido
 
 from . import encode as E
-from .allocator import IDLE, NEG_INF, RINGING, SAME_BEND, SHARE, STEAL, Note, Pool
+from .allocator import NEG_INF, RINGING, STEAL, Note, Pool
 from .errors import RetunerError
 from .tuning import Tuning
 
@@ -112,7 +112,6 @@ log = logging.getLogger(__name__)
 
 MODES = ("pool", "mpe", "mts")
 DEFAULT_POOL = tuple(c for c in range(16) if c != 9)
-ADAPTIVE_RPNS = ()
 _MANAGED_RPNS = {E.RPN_PITCH_BEND_SENSITIVITY, E.RPN_TUNING_PROGRAM, E.RPN_TUNING_BANK,
                  E.RPN_MPE_CONFIGURATION}
 _DATA_CCS = (E.CC_DATA_ENTRY_MSB, E.CC_DATA_ENTRY_LSB, E.CC_DATA_INCREMENT, E.CC_DATA_DECREMENT)
@@ -342,9 +341,11 @@ class Engine:
 
     # ------------------------------------------------------------------ feed
     def feed(self, t: float, msg: mido.Message) -> list[mido.Message]:
+        """Messages to send for input ``msg`` arriving at ``t`` (seconds). A chord
+        window that closed before ``t`` is flushed first, as of its deadline."""
         out: list[mido.Message] = []
         if self._deadline is not None and t >= self._deadline:
-            self._flush(t, out)
+            self._flush(self._deadline, out)
         typ = msg.type
         ch = getattr(msg, "channel", None)
         if ch is None or ch in self._pass:
@@ -380,9 +381,12 @@ class Engine:
         return self._deadline
 
     def tick(self, t: float) -> list[mido.Message]:
+        """Timers: flush the chord window once ``t`` reached its deadline. The
+        chord is placed as of the deadline, so a late tick changes nothing but
+        the moment the messages leave."""
         out: list[mido.Message] = []
         if self._deadline is not None and t >= self._deadline:
-            self._flush(t, out)
+            self._flush(self._deadline, out)
         self.stats["messages_out"] += len(out)
         return out
 
@@ -1017,7 +1021,8 @@ class Engine:
     def sounding(self) -> list[dict]:
         """The notes sounding now: input key and channel, output channel and key,
         velocity, and pitch in cents above key 0 of 12-EDO (the tuning's part,
-        as the bend sent encodes it; the player's wheel not included)."""
+        as the bend sent encodes it and the synth plays it, ``bend_scale``
+        included; the player's wheel not included)."""
         out = []
         for n in self._sounding_notes():
             if self.mode == "mts":
@@ -1025,7 +1030,7 @@ class Engine:
                 enc = self._mts_enc[n.in_key]
                 cents = mts.decode_frequency(enc) if enc is not None else n.cents
             else:
-                cents = 100.0 * n.out_key + E.bend_cents(n.bend, self._range / self._scale)
+                cents = 100.0 * n.out_key + E.bend_cents(n.bend, self._range * self._scale)
             out.append({"key": n.in_key, "channel": n.out_ch, "out_key": n.out_key,
                         "cents": cents, "in_channel": n.in_ch, "velocity": n.velocity,
                         "held": n.down})

@@ -611,6 +611,7 @@ def test_bend_scale_correction():
     played = bend / 8192 * 200.0 * 127 / 128        # what the synth plays at 127/128 of the size
     assert abs(61 * 100 + played - tu.cents[61]) <= half_step()
     assert bend != E.bend_value(tu.cents[61] - 6100, 200.0) - 8192
+    assert abs(e.sounding()[0]["cents"] - tu.cents[61]) <= half_step()
 
 
 def test_whole_semitone_range():

@@ -23,7 +23,7 @@ from retuner.engine import Engine, EngineConfig
 from retuner.profile import load_profile
 from retuner.tuning import Tuning
 
-from test_engine import SynthModel, half_step
+from test_engine import SynthModel
 
 PROFILES = {name: load_profile(name) for name in
             ("meantone-quarter", "werckmeister-3", "just-5limit", "edo19", "edo31", "bohlen-pierce")}
