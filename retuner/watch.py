@@ -124,12 +124,37 @@ class WatchState:
             self.message = "PANIC: all notes released"
 
 
+# A 5-row block font for note names, so the sounding notes read from the back of a room.
+_FONT = {
+    "A": [" ## ", "#  #", "####", "#  #", "#  #"], "B": ["### ", "#  #", "### ", "#  #", "### "],
+    "C": [" ###", "#   ", "#   ", "#   ", " ###"], "D": ["### ", "#  #", "#  #", "#  #", "### "],
+    "E": ["####", "#   ", "### ", "#   ", "####"], "F": ["####", "#   ", "### ", "#   ", "#   "],
+    "G": [" ###", "#   ", "# ##", "#  #", " ###"], "#": [" # #", "####", " # #", "####", " # #"],
+    "b": ["#   ", "#   ", "### ", "#  #", "### "], "-": ["    ", "    ", "####", "    ", "    "],
+    "0": [" ## ", "#  #", "#  #", "#  #", " ## "], "1": ["  # ", " ## ", "  # ", "  # ", " ###"],
+    "2": ["### ", "   #", " ## ", "#   ", "####"], "3": ["### ", "   #", " ## ", "   #", "### "],
+    "4": ["#  #", "#  #", "####", "   #", "   #"], "5": ["####", "#   ", "### ", "   #", "### "],
+    "6": [" ## ", "#   ", "### ", "#  #", " ## "], "7": ["####", "   #", "  # ", " #  ", " #  "],
+    "8": [" ## ", "#  #", " ## ", "#  #", " ## "], "9": [" ## ", "#  #", " ###", "   #", " ## "],
+    " ": ["    ", "    ", "    ", "    ", "    "],
+}
+
+
+def big_text(text: str) -> list[str]:
+    """``text`` in 5-row block letters (characters without a glyph are left out)."""
+    glyphs = [_FONT[ch] for ch in text if ch in _FONT]
+    return [" ".join(g[row] for g in glyphs).rstrip() for row in range(5)]
+
+
 def _fmt_signed(v: Optional[float], digits: int = 2) -> str:
     return "   --" if v is None else f"{v:+.{digits}f}"
 
 
-def render(state: WatchState, width: int = 100, height: int = 40) -> list[str]:
-    """The view as lines of at most ``width`` characters (a pure function of the state)."""
+def render(state: WatchState, width: int = 100, height: int = 40, big: bool = False) -> list[str]:
+    """The view as lines of at most ``width`` characters (a pure function of the state).
+
+    With ``big``, the sounding notes' names come first in block letters when they fit.
+    """
     notes = sorted(state.notes.values(), key=lambda n: (n.get("cents") or 0.0, n["key"]))
     info = state.info
     ref = info.get("reference")
@@ -163,6 +188,10 @@ def render(state: WatchState, width: int = 100, height: int = 40) -> list[str]:
         pair = f"{note_name(r.low)}-{note_name(r.high)}"
         lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+9.2f}"
                      f"{r.beats:>10.2f}" + ("" if r.consonant else "  (dissonant)"))
+    if big and notes:
+        banner = big_text("  ".join(note_name(n["key"]) for n in notes))
+        if max(len(b) for b in banner) <= width and len(lines) + 6 <= height:
+            lines = banner + [""] + lines
     if len(lines) > height:
         hidden = len(lines) - (height - 1)
         lines = lines[: height - 1] + [f"... {hidden} more lines (enlarge the window)"]
@@ -204,15 +233,15 @@ class Feed:
             self.state.connected = False
             self.version += 1
 
-    def render(self, width: int, height: int) -> list[str]:
+    def render(self, width: int, height: int, big: bool = False) -> list[str]:
         with self.lock:
-            return render(self.state, width, height)
+            return render(self.state, width, height, big)
 
     def close(self) -> None:
         self.client.close()
 
 
-def run_curses(feed: Feed, fps: float = 25.0) -> None:
+def run_curses(feed: Feed, fps: float = 25.0, big: bool = True) -> None:
     import curses
 
     def main(scr) -> None:
@@ -226,7 +255,7 @@ def run_curses(feed: Feed, fps: float = 25.0) -> None:
         while True:
             t0 = time.monotonic()
             h, w = scr.getmaxyx()
-            lines = feed.render(max(20, w - 1), max(5, h))
+            lines = feed.render(max(20, w - 1), max(5, h), big=big)
             scr.erase()
             for y, ln in enumerate(lines[:h]):
                 attr = curses.A_BOLD

@@ -106,3 +106,16 @@ def test_view_fits_the_window():
     lines = render(s, width=60, height=30)
     assert len(lines) == 30 and all(len(l) <= 60 for l in lines)
     assert "more lines" in lines[-1]
+
+
+def test_block_letters_for_the_room_only_when_they_fit():
+    s = state_with({60: 6000.0, 64: 6400.0, 67: 6700.0})
+    big = render(s, width=120, height=40, big=True)
+    small = render(s, width=120, height=40)
+    assert big[6:] == small and big[5] == ""
+    # five rows of block letters spelling the three names: each glyph is 4 columns, '#' on ' '
+    assert all(set(row) <= {"#", " "} for row in big[:5])
+    assert "####" in big[2]                 # the bar of the E and of the 4s
+    # too narrow or too short: the plain view only
+    assert render(s, width=30, height=40, big=True) == render(s, width=30, height=40)
+    assert render(s, width=120, height=len(small) + 3, big=True) == render(s, width=120, height=len(small) + 3)

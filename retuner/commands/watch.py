@@ -19,6 +19,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("--plain", action="store_true",
                         help="no full-screen view: print a plain frame whenever something changes")
     parser.add_argument("--frames", type=int, default=0, metavar="N", help="with --plain: stop after N frames")
+    parser.add_argument("--small", action="store_true",
+                        help="no block letters for the sounding notes (they are shown when they fit)")
     parser.add_argument("--fps", type=float, default=25.0, help="frames a second (default 25)")
 
 
@@ -44,7 +46,7 @@ def run(args) -> int:
             watch.run_plain(feed, fps=args.fps, frames=args.frames)
             return 0
         try:
-            watch.run_curses(feed, fps=args.fps)
+            watch.run_curses(feed, fps=args.fps, big=not args.small)
         except Exception as exc:   # a terminal curses cannot drive: fall back to plain frames
             if exc.__class__.__name__ != "error":
                 raise
