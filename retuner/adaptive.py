@@ -369,6 +369,8 @@ class AdaptiveSolver:
     # -- set-up -------------------------------------------------------------
     def _build_tables(self) -> None:
         cfg = self.config
+        self._mode = cfg.held_mode
+        self._reset = cfg.reset_on_silence
         table = cfg.table()
         weights = cfg.weight_table()
         ncand = max(len(v) for v in table.values())
@@ -563,7 +565,7 @@ class AdaptiveSolver:
         hk = [k for k, _ in held]
         ghosts: list[tuple[int, float]] = []
         memory: list[tuple[int, float]] = []
-        if not held and not skip and self._ghosts and not cfg.reset_on_silence and cfg.memory_weight > 0:
+        if not held and not skip and self._ghosts and not self._reset and cfg.memory_weight > 0:
             memory = [(k, d) for k, d in self._ghosts.items() if k not in new]
         gk: list[int] = []   # ghosts do not enter the system: see "memory" below
         keys = np.array(hk + gk + new, dtype=int)
@@ -580,14 +582,12 @@ class AdaptiveSolver:
             W[gi, :] *= cfg.memory_weight
             W[gi, gi] = 0.0
         W.flat[::n + 1] = 0.0
-        mode = cfg.held_mode
+        mode = self._mode
         lam, mu, band = cfg.motion_weight, cfg.centre_weight, cfg.aim_limit
-        sound = np.ones(n, bool)
-        sound[nh:nh + ng] = False
 
         # notes left unsolved (beyond MAX_NOTES) still count in the centre
         skip_dev = sum(c - 100.0 * k - float(self._ref[k]) for k, c in skip)
-        ref_sum = float(ref.sum()) - float(ref[nh:nh + ng].sum()) - skip_dev
+        ref_sum = float(ref.sum()) - (float(ref[nh:nh + ng].sum()) if ng else 0.0) - skip_dev
         m_sound = n - ng + len(skip)
 
         if ng:
