@@ -87,6 +87,7 @@ class Settings:
     setup_refresh: float = 5.0               # seconds; 0 = never (see the module doc)
     log_level: str = "info"
     control: ControlSettings = field(default_factory=ControlSettings)
+    lines: dict[str, int] = field(default_factory=dict, compare=False, repr=False)  # field -> line in source
 
     def copy(self) -> "Settings":
         return copy.deepcopy(self)
@@ -183,6 +184,7 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         raise RetunerError("the config must be a mapping of fields", file=filename, line=1)
     _unknown(data, TOP_FIELDS, w, "")
     d = data
+    s.lines = dict(getattr(d, "lines", {}))
     if "profile" in d:
         s.profile = _str(d["profile"], w, "profile", d, "profile")
     if "profile_dirs" in d:

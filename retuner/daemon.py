@@ -101,10 +101,11 @@ class Profiles:
             try:
                 return load_profile(name, dirs)
             except RetunerError as exc:
-                if exc.field is None:
+                if exc.file is None or exc.file == name:      # not an error inside a profile file
                     exc.field = fld
-                if exc.file is None and settings.source:
-                    exc.file = settings.source
+                    if settings.source:
+                        exc.file = settings.source
+                        exc.line = settings.lines.get(fld.split("[")[0].split(".")[0])
                 raise
 
         self.main = load(settings.profile, "profile")

@@ -132,3 +132,14 @@ def test_flags_override_the_file(tmp_path):
     with pytest.raises(RetunerError) as ei:
         run_cmd._apply_flags(Settings(), args)
     assert ei.value.field == "--mode"
+
+
+def test_unknown_profile_in_the_list_names_its_line(tmp_path):
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("profile: edo12\nprofiles: [edo12, no-such-tuning]\n")
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--config", str(cfg)],
+                       capture_output=True, text=True, timeout=20,
+                       env={**__import__("os").environ, "XDG_CONFIG_HOME": str(tmp_path)})
+    assert r.returncode == 2
+    assert r.stderr.strip().splitlines() == [
+        f"retuner: {cfg}:2: profiles[1]: unknown profile 'no-such-tuning'; 'retuner profiles' lists them"]

@@ -94,3 +94,16 @@ def test_ports_command_lists_both_directions(jack_server, jack_client):
     inputs, outputs = text.split("outputs", 1) if "outputs" in text else (text, "")
     assert jack_client.out_full in inputs
     assert jack_client.in_full in outputs
+
+
+def test_no_midi_system_is_exit_1_not_2(tmp_path):
+    # a JACK server that is not running: an environment problem a service manager may retry
+    # (exit 1, Restart=on-failure), not a mistake in the config (exit 2, RestartPreventExitStatus=2)
+    import os
+    env = dict(os.environ, JACK_DEFAULT_SERVER=f"nobody-{os.getpid()}", JACK_NO_START_SERVER="1",
+               XDG_CONFIG_HOME=str(tmp_path))
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--backend", "jack", "--virtual",
+                        "--no-control-socket"], capture_output=True, text=True, timeout=30, env=env)
+    assert r.returncode == 1, r.stderr
+    last = r.stderr.strip().splitlines()[-1]
+    assert last.startswith("retuner: backend: cannot open the jack MIDI system")

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import argparse
-import os
+import sys
 
 from .. import config as _config
 from ..errors import RetunerError
@@ -124,4 +124,12 @@ def run(args) -> int:
     setup_logging(s.log_level, args.verbose)
     daemon = Daemon(s, reload_settings=settings)
     daemon.verbose = args.verbose
-    return daemon.run()
+    try:
+        return daemon.run()
+    except RetunerError as exc:
+        if exc.field != "backend":
+            raise
+        # the MIDI system is not there (yet): not a mistake in the config, so exit status 1,
+        # which a service manager may retry (the unit's Restart=on-failure), unlike 2
+        print(f"retuner: {exc}", file=sys.stderr)
+        return 1
