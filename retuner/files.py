@@ -959,7 +959,7 @@ def convert_batch(src_dir: str | os.PathLike, dst_dir: str | os.PathLike, opts: 
 # ---------------------------------------------------------------------------
 # Speed
 # ---------------------------------------------------------------------------
-def _bench_file(path: str, events: int, seed: int = 1) -> int:
+def _bench_file(path: str, events: int, seed: int = 1, wheel: bool = True) -> int:
     """Write a generated arrangement of about ``events`` events: a piano part (chords of 1..4
     notes, sustain pedal, some wheel), a bass part and drums. Returns the event count."""
     import random
@@ -988,7 +988,7 @@ def _bench_file(path: str, events: int, seed: int = 1) -> int:
             piano.append((tick, bytes((0xB0, 64, 127))))
             piano.append((tick + length, bytes((0xB0, 64, 0))))
             n += 2
-        if rnd.random() < 0.05:
+        if wheel and rnd.random() < 0.05:
             for i in range(4):
                 v = 8192 + (i - 2) * 500
                 piano.append((tick + i * 20, bytes((0xE0, v & 0x7F, v >> 7))))

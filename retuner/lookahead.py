@@ -49,10 +49,11 @@ import numpy as np
 
 from .errors import RetunerError
 
-WINDOW = 96     # segments solved together
-COMMIT = 64     # segments kept from each window
+WINDOW = 48     # segments solved together
+COMMIT = 32     # segments kept from each window
 DRIFT_ROUNDS = 6
 IRLS_ROUNDS = 12
+IRLS_TOL = 0.01    # cents: stop reweighting when no pitch moves more
 IRLS_EPS = 0.02
 MOTION_VALUE = 1.3
 #: the centre term's weight relative to the adaptive settings' centre_weight: the plan keeps the
@@ -62,7 +63,7 @@ DRIFT_AIM = 1.0
 #: shortest stretch of time a centre term is weighted with (seconds)
 MIN_STRETCH = 0.05
 #: motion values tried in turn until the plan beats live playing (see choose())
-MOTION_VALUES = (1.3, 1.0, 1.6, 0.7, 2.0, 3.0)
+MOTION_VALUES = (1.3, 0.7, 2.5)
 
 
 class _Note:
@@ -438,10 +439,19 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
             for sub in {tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a)}:
                 if not sub:
                     continue
-                idx = np.array([loc[(n.id, s)] for n in sub], dtype=int)
-                r = float(np.mean([ref[n.key] for n in sub]))
+                idx = [loc[(n.id, s)] for n in sub]
+                r = sum(ref[n.key] for n in sub) / len(sub)
                 seg_vars.append((idx, max(b - a, MIN_STRETCH), r))
     mu = np.full(len(seg_vars), mu0)
+    # the centre terms as flat index arrays (one np.add.at per solve)
+    t_k = np.array([len(v[0]) for v in seg_vars], dtype=float)
+    t_dur = np.array([v[1] for v in seg_vars], dtype=float)
+    t_r = np.array([v[2] for v in seg_vars], dtype=float)
+    g_idx = np.array([i for v in seg_vars for i in v[0]], dtype=int)
+    g_term = np.repeat(np.arange(len(seg_vars)), [len(v[0]) for v in seg_vars])
+    h_rows = np.array([i for v in seg_vars for i in v[0] for _ in v[0]], dtype=int)
+    h_cols = np.array([j for v in seg_vars for _ in v[0] for j in v[0]], dtype=int)
+    h_term = np.repeat(np.arange(len(seg_vars)), [len(v[0]) ** 2 for v in seg_vars])
     # L1 weights (impurity and motion are measured as sums of absolute values):
     # iteratively reweighted least squares, starting from the plain quadratic solution
     pair_time = float(pw.sum()) if len(pw) else 0.0
@@ -468,13 +478,10 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
         if len(fixed_j):
             np.add.at(H, (fixed_j, fixed_j), fe)
             np.add.at(g, fixed_j, fe * fixed_v)
-        for (idx, dur, r), m in zip(seg_vars, mu):
-            k = len(idx)
-            if k == 0:
-                continue
-            c = m * dur / (k * k)
-            H[np.ix_(idx, idx)] += c
-            g[idx] += c * k * r
+        if len(seg_vars):
+            c = mu * t_dur / (t_k * t_k)
+            np.add.at(H, (h_rows, h_cols), c[h_term])
+            np.add.at(g, g_idx, (c * t_k * t_r)[g_term])
         H.flat[::N + 1] += 1e-9
         return np.linalg.solve(H, g)
 
@@ -495,10 +502,14 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
         me = lam1 / np.maximum(np.abs(x[mj] - x[mi]), IRLS_EPS) if len(mi) else me
         fe = lam1 / np.maximum(np.abs(x[fixed_j] - fixed_v), IRLS_EPS) if len(fixed_j) else fe
         # planned drift: raise the centre weight where the centre strays
-        for k, (idx, dur, r) in enumerate(seg_vars):
-            if len(idx) and abs(float(x[idx].mean()) - r) > drift_aim * limit:
-                mu[k] *= 2.0
-        x = solve(tau, pwe, me, fe)
+        if len(seg_vars):
+            centre = np.bincount(g_term, weights=x[g_idx], minlength=len(seg_vars)) / t_k
+            mu[np.abs(centre - t_r) > drift_aim * limit] *= 2.0
+        x_new = solve(tau, pwe, me, fe)
+        done = float(np.max(np.abs(x_new - x))) < IRLS_TOL
+        x = x_new
+        if done:
+            break
     for (n, s), v in zip(order, x):
         if s < keep:
             values[n.var0 + s - n.s0] = v

@@ -30,6 +30,8 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
+    from .convert import _one_blas_thread
+    _one_blas_thread()
     from .. import files, report
     from ..engine import EngineConfig
     from ..profile import load_profile

@@ -141,7 +141,17 @@ def build_options(args):
                           want_report=bool(args.report or args.plot or not args.quiet))
 
 
+def _one_blas_thread() -> None:
+    """The lookahead planner solves many small dense systems: BLAS threads only contend for
+    them (and batches run one process per CPU anyway). Takes effect only if numpy is not
+    loaded yet."""
+    if "numpy" not in sys.modules:
+        for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+            os.environ.setdefault(var, "1")
+
+
 def run(args) -> int:
+    _one_blas_thread()
     from .. import files
 
     if args.plot:
