@@ -877,6 +877,13 @@ def _batch_one(job: tuple[str, str, ConvertOptions]) -> tuple[str, Optional[str]
         return src, f"{src}: internal error: {type(exc).__name__}: {exc}", [], 0
 
 
+def _split_note(outputs: Sequence[str]) -> str:
+    if len(outputs) <= 1:
+        return ""
+    return (f": the parts need more channels than one port has: {len(outputs)} files "
+            f"({', '.join(os.path.basename(o) for o in outputs)})")
+
+
 class _Progress:
     """A progress bar on a terminal, plain lines otherwise."""
 
@@ -888,13 +895,15 @@ class _Progress:
         self.tty = hasattr(stream, "isatty") and stream.isatty()
         self.quiet = quiet
 
-    def update(self, name: str, error: Optional[str]) -> None:
+    def update(self, name: str, error: Optional[str], note: str = "") -> None:
         self.done += 1
         if error:
             self.failed += 1
         if self.tty:
             if error:
                 self.stream.write("\r\x1b[K" + f"retuner: {error}\n")
+            elif note:
+                self.stream.write("\r\x1b[K" + f"{name}{note}\n")
             width = 30
             filled = int(width * self.done / max(self.total, 1))
             self.stream.write(f"\r\x1b[K[{'#' * filled}{'.' * (width - filled)}] "
@@ -905,8 +914,8 @@ class _Progress:
         else:
             if error:
                 self.stream.write(f"retuner: {error}\n")
-            elif not self.quiet:
-                self.stream.write(f"[{self.done}/{self.total}] {name}\n")
+            elif not self.quiet or note:
+                self.stream.write(f"[{self.done}/{self.total}] {name}{note}\n")
             self.stream.flush()
 
 
@@ -940,14 +949,14 @@ def convert_batch(src_dir: str | os.PathLike, dst_dir: str | os.PathLike, opts: 
         for j in jobs_list:
             r = _batch_one(j)
             results.append(r)
-            prog.update(r[0], r[1])
+            prog.update(r[0], r[1], _split_note(r[2]))
     else:
         with ProcessPoolExecutor(max_workers=n) as ex:
             futs = [ex.submit(_batch_one, j) for j in jobs_list]
             for fut in as_completed(futs):
                 r = fut.result()
                 results.append(r)
-                prog.update(r[0], r[1])
+                prog.update(r[0], r[1], _split_note(r[2]))
     failed = [r for r in results if r[1]]
     if not quiet:
         ok = len(results) - len(failed)
