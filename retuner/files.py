@@ -689,7 +689,6 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
 
     Returns groups, one per output file: (parts, {part: engine config}).
     """
-    from .engine import EngineConfig
     pas = frozenset(config.passthrough)
     parts = song_parts(merged, pas)
     if config.mode == "mts" or len(parts) <= 1:

@@ -57,7 +57,7 @@ from __future__ import annotations
 
 import bisect
 import math
-from typing import Optional, Sequence
+from typing import Optional
 
 import numpy as np
 
@@ -192,7 +192,6 @@ class Plan:
     # -- engine hooks ---------------------------------------------------------
     def engine(self, tuning, config):
         """An engine that plays this plan (adaptive mode, chord window 0, a planned solver)."""
-        from .adaptive import AdaptiveConfig
         from .engine import Engine
 
         acfg = config.adaptive

@@ -11,11 +11,8 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import subprocess
 import sys
-from fractions import Fraction
-from pathlib import Path
 
 import mido
 import pretty_midi
