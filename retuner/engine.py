@@ -145,6 +145,13 @@ class EngineConfig:
     # adaptive mode (an AdaptiveConfig of retuner.adaptive, or None)
     adaptive: Any = None
 
+    def __post_init__(self) -> None:
+        # lists (from YAML or JSON) become tuples, so equal settings compare equal
+        for name in ("pool", "passthrough"):
+            v = getattr(self, name)
+            if isinstance(v, (list, set, frozenset, range)):
+                setattr(self, name, tuple(sorted(v)) if isinstance(v, (set, frozenset)) else tuple(v))
+
     def validate(self) -> "EngineConfig":
         def bad(msg: str, fld: str) -> RetunerError:
             return RetunerError(msg, field=fld)

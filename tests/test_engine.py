@@ -196,6 +196,15 @@ def distinct_tuning():
 # ---------------------------------------------------------------------------
 # configuration
 # ---------------------------------------------------------------------------
+def test_config_lists_compare_equal_to_tuples():
+    # a reloaded config (lists from YAML) must not look like a change
+    assert EngineConfig(pool=[0, 1, 2], passthrough=[9]) == EngineConfig(pool=(0, 1, 2), passthrough=(9,))
+    e, s = started(pool=(0, 1, 2))
+    e.feed(0.0, ON(60))
+    assert e.reconfigure(EngineConfig(pool=[0, 1, 2]), 0.1) == []
+    assert len(e.sounding()) == 1
+
+
 def test_config_defaults():
     cfg = EngineConfig()
     assert cfg.pool == tuple(c for c in range(16) if c != 9)   # all but channel 10 (0-based 9)
