@@ -30,6 +30,13 @@ With limits the problem is a small convex quadratic programme, solved exactly
 by a primal active-set method (Nocedal and Wright, *Numerical Optimization*,
 2nd ed., algorithm 16.3). Pitch classes the piece never sounds against another
 keep their 12-EDO pitch.
+
+``per_key=True`` gives every key its own pitch (for keyboards whose keys of one
+pitch class may differ): the keys the piece plays are the unknowns, octaves
+become equations like the other intervals (target 2/1), keys it never plays
+keep the pitch-class fit, and the limits apply to every played key and every
+fifth between keys k and k+7. The profile is then written as a scale of 128
+degrees on key 0 whose period lies beyond key 127.
 """
 
 from __future__ import annotations
@@ -206,6 +213,7 @@ class FitResult:
     weights: dict[tuple[int, int], float] = field(repr=False)
     used: list[int] = field(default_factory=list)    # pitch classes in some consonant pair
     active: list[str] = field(default_factory=list)  # limits that bind
+    key_offsets: Optional[list[float]] = None        # per-key fit: cents from 12-EDO of every key
 
     def degrees(self) -> list[float]:
         """Cents above C of the 12 degrees (degree 0 = 0.0)."""
@@ -215,6 +223,8 @@ class FitResult:
     def cents(self, reference_hz: float = 440.0) -> list[float]:
         """Pitch of every key (cents above key 0 of 12-EDO at A4 = 440 Hz) with A4 at ``reference_hz``."""
         shift = 1200.0 * math.log2(reference_hz / 440.0)
+        if self.key_offsets is not None:
+            return [100.0 * k + self.key_offsets[k] + shift for k in range(NUM_KEYS)]
         return [100.0 * k + self.offsets[k % 12] + shift for k in range(NUM_KEYS)]
 
 
@@ -273,18 +283,19 @@ def _solve_qp(H: np.ndarray, c: np.ndarray, G: np.ndarray, h: np.ndarray, x0: np
 NORMS = ("abs", "squares")
 
 
-def _weighted_solve(A: np.ndarray, b: np.ndarray, G: Optional[np.ndarray], h: Optional[np.ndarray]) -> tuple[np.ndarray, list[int]]:
-    """min ||A y - b||^2 (subject to G y <= h when given)."""
+def _weighted_solve(A: np.ndarray, b: np.ndarray, G: Optional[np.ndarray], h: Optional[np.ndarray],
+                    x0: Optional[np.ndarray] = None) -> tuple[np.ndarray, list[int]]:
+    """min ||A y - b||^2 (subject to G y <= h when given, starting from the feasible ``x0``)."""
     if G is None:
         return np.linalg.lstsq(A, b, rcond=None)[0], []   # minimum-norm: unused classes stay at 0
     n = A.shape[1]
     H = 2.0 * A.T @ A
     H += np.eye(n) * 1e-7 * max(1.0, np.trace(H) / n)     # unused classes: stay put
-    return _solve_qp(H, -2.0 * A.T @ b, G, h, np.zeros(n))
+    return _solve_qp(H, -2.0 * A.T @ b, G, h, np.zeros(n) if x0 is None else x0)
 
 
 def fit_tuning(weights: dict[tuple[int, int], float], *, max_deviation: Optional[float] = None,
-               max_wolf: Optional[float] = None, norm: str = "abs") -> FitResult:
+               max_wolf: Optional[float] = None, norm: str = "abs", per_key: bool = False) -> FitResult:
     """The 12 pitch-class offsets that fit the piece best (see module doc).
 
     ``norm="squares"``: minimise the weighted sum of squared deviations (plain
@@ -293,6 +304,13 @@ def fit_tuning(weights: dict[tuple[int, int], float], *, max_deviation: Optional
     least squares (each pair's weight divided by its current |deviation|,
     floored by a smoothing term that shrinks to 1e-9 cents), then, without
     limits, snapping to the exact vertex where the nearly pure intervals are pure.
+
+    ``per_key``: every key its own pitch (for keyboards whose keys of one pitch
+    class may differ, e.g. split keys): octaves become equations like the other
+    intervals (target 2/1), and a vanishing pull (1e-9 of the piece's weight)
+    towards the pitch-class fit settles what the piece leaves free (keys it
+    never plays, and the overall level). Limits apply to every key and to
+    every fifth between keys k and k+7.
     """
     if norm not in NORMS:
         raise RetunerError(f"norm must be one of {', '.join(NORMS)}", field="norm")
@@ -301,6 +319,9 @@ def fit_tuning(weights: dict[tuple[int, int], float], *, max_deviation: Optional
     if max_wolf is not None and not (max_wolf >= MIN_WOLF - 1e-9 and math.isfinite(max_wolf)):
         raise RetunerError(f"--max-wolf must be at least {MIN_WOLF:.3f} cents: twelve fifths close seven "
                            "octaves only if they are a Pythagorean comma narrower in all", field="max_wolf")
+    if per_key:
+        base = fit_tuning(weights, max_deviation=max_deviation, max_wolf=max_wolf, norm=norm)
+        return _fit_per_key(weights, base, max_deviation=max_deviation, max_wolf=max_wolf, norm=norm)
     rows, rhs, ws = _system(weights)
     used = sorted({int(pc) for r in rows for pc in np.nonzero(r)[0]})
     free = [pc for pc in range(12) if pc != A_PC]          # gauge: x[A] = 0
@@ -346,8 +367,83 @@ def fit_tuning(weights: dict[tuple[int, int], float], *, max_deviation: Optional
     return FitResult(offsets, impurity(weights, cents), weights, used, active)
 
 
-def _irls(R: np.ndarray, rhs: np.ndarray, ws: np.ndarray, G, h, y: np.ndarray, work: list[int]):
-    """Minimise sum(ws * |R y - rhs|) (subject to G y <= h) from the least-squares start ``y``."""
+def _fit_per_key(weights, base: FitResult, *, max_deviation, max_wolf, norm) -> FitResult:
+    """Per-key fit: the keys the piece plays are the unknowns; the others keep the pitch-class fit."""
+    prior = np.array([base.offsets[k % 12] for k in range(NUM_KEYS)])
+    keys = sorted({k for pair in weights for k in pair})
+    col = {k: i for i, k in enumerate(keys)}
+    n = len(keys)
+    agg: dict[tuple[int, int, float], float] = {}
+    for (a, b), w in weights.items():
+        if a == b or w <= 0:
+            continue
+        r = target_cents(a, b) - 100.0 * (b - a)
+        k = (a, b, round(r, 9))
+        agg[k] = agg.get(k, 0.0) + w
+    R = np.zeros((len(agg), n))
+    rhs = np.zeros(len(agg))
+    ws = np.zeros(len(agg))
+    for i, ((a, b, r), w) in enumerate(sorted(agg.items())):
+        R[i, col[b]] += 1.0
+        R[i, col[a]] -= 1.0
+        rhs[i] = r
+        ws[i] = w
+    rho = math.sqrt(1e-9 * max(1.0, float(ws.sum())))
+    fixed = (np.eye(n) * rho, prior[keys] * rho)
+    G = h = None
+    names: list[str] = []
+    if max_deviation is not None or max_wolf is not None:
+        G_rows, h_rows = [], []
+        if max_deviation is not None:
+            for k in keys:
+                for s in (1.0, -1.0):
+                    g = np.zeros(n)
+                    g[col[k]] = s
+                    G_rows.append(g)
+                    h_rows.append(max_deviation)
+                    names.append(f"deviation key {k}")
+        if max_wolf is not None:
+            off = 700.0 - PURE_FIFTH_CENTS
+            for k in range(NUM_KEYS - 7):
+                if k not in col and k + 7 not in col:
+                    continue          # both keep the pitch-class fit, which meets the limit
+                for s in (1.0, -1.0):
+                    g = np.zeros(n)
+                    const = 0.0
+                    for kk, sign in ((k + 7, s), (k, -s)):
+                        if kk in col:
+                            g[col[kk]] += sign
+                        else:
+                            const += sign * prior[kk]
+                    G_rows.append(g)
+                    h_rows.append(max_wolf - s * off - const)
+                    names.append(f"fifth keys {k}-{k + 7}")
+        G, h = np.array(G_rows), np.array(h_rows)
+    sw = np.sqrt(ws)
+    A = np.vstack([R * sw[:, None], fixed[0]])
+    b = np.concatenate([rhs * sw, fixed[1]])
+    if G is None:
+        y = np.linalg.lstsq(A, b, rcond=None)[0]
+        work: list[int] = []
+    else:
+        # start from the pitch-class fit, which meets every limit
+        y, work = _solve_qp(2.0 * A.T @ A, -2.0 * A.T @ b, G, h, prior[keys])
+    if norm == "abs" and len(ws):
+        y, work = _irls(R, rhs, ws, G, h, y, work, fixed=fixed, x0=prior[keys])
+    key_offsets = [float(v) for v in prior]
+    for k, v in zip(keys, y):
+        key_offsets[k] = float(v)
+    cents = [100.0 * k + key_offsets[k] for k in range(NUM_KEYS)]
+    return FitResult(list(base.offsets), impurity(weights, cents), weights, keys,
+                     sorted({names[i] for i in work}), key_offsets)
+
+
+def _irls(R: np.ndarray, rhs: np.ndarray, ws: np.ndarray, G, h, y: np.ndarray, work: list[int],
+          fixed: Optional[tuple[np.ndarray, np.ndarray]] = None, x0: Optional[np.ndarray] = None):
+    """Minimise sum(ws * |R y - rhs|) (subject to G y <= h) from the least-squares start ``y``.
+
+    ``fixed``: extra rows (already weighted) kept in every least-squares step as they are.
+    """
     def obj(v):
         return float(np.sum(ws * np.abs(R @ v - rhs)))
     best, best_f, best_work = y, obj(y), work
@@ -356,7 +452,13 @@ def _irls(R: np.ndarray, rhs: np.ndarray, ws: np.ndarray, G, h, y: np.ndarray, w
         r = np.abs(R @ y - rhs)
         wt = ws / np.maximum(r, eps)
         sw = np.sqrt(wt)
-        y_new, work = _weighted_solve(R * sw[:, None], rhs * sw, G, h)
+        A, b = R * sw[:, None], rhs * sw
+        if fixed is not None:
+            A, b = np.vstack([A, fixed[0]]), np.concatenate([b, fixed[1]])
+        try:
+            y_new, work = _weighted_solve(A, b, G, h, x0)
+        except RetunerError:
+            break             # the reweighted system got too ill-conditioned: keep the best so far
         f = obj(y_new)
         if f < best_f - 1e-15:
             best, best_f, best_work = y_new, f, work
@@ -366,7 +468,7 @@ def _irls(R: np.ndarray, rhs: np.ndarray, ws: np.ndarray, G, h, y: np.ndarray, w
             if eps <= 1e-9:
                 break
             eps *= 0.1
-    if G is None:
+    if G is None and fixed is None:
         # snap: the optimum of an L1 fit makes as many equations exact as there are
         # unknowns (a vertex); solve those exactly and keep it if it is no worse
         r = np.abs(R @ best - rhs)
@@ -398,6 +500,8 @@ def squared_error(weights: dict[tuple[int, int], float], cents: Sequence[Optiona
 def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
                  reference_hz: float = 440.0) -> str:
     """The fitted tuning as profile YAML (scale of 12 degrees in cents above C, pure octaves)."""
+    if result.key_offsets is not None:
+        return _per_key_yaml(result, profile_id=profile_id, source_name=source_name, reference_hz=reference_hz)
     deg = result.degrees()
     for i in range(1, 12):
         if not deg[i] > deg[i - 1]:
@@ -423,6 +527,37 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
         f"  period: 2/1\n"
         f"reference: {{key: 69, hz: {float(reference_hz)!r}}}\n"
         f"root: 60\n"
+    )
+
+
+def _per_key_yaml(result: FitResult, *, profile_id: str, source_name: str, reference_hz: float) -> str:
+    """A per-key fit as a scale of 128 degrees rooted on key 0 whose period lies beyond key 127."""
+    import json
+    x = result.key_offsets
+    assert x is not None
+    rel = [100.0 * k + x[k] - x[0] for k in range(NUM_KEYS)]
+    for k in range(1, NUM_KEYS):
+        if not rel[k] > rel[k - 1]:
+            raise RetunerError(f"the fitted keys {k - 1} and {k} are not in rising order; "
+                               "limit them with --max-deviation")
+    period = rel[-1] + 100.0
+    ref_hz = reference_hz * 2.0 ** (x[69] / 1200.0)
+    description = (f"best-fit per-key tuning for {Path(source_name).name} "
+                   f"(impurity {result.impurity:.3f} cents)")
+    source = "retuner fit --per-key: time-weighted fit of the piece's intervals, octaves included, to just ratios"
+    if result.active:
+        source += "; binding limits: " + ", ".join(result.active)
+    body = ", ".join(f"{d:.6f}" for d in rel[1:])
+    return (
+        f"id: {profile_id}\n"
+        f"description: {json.dumps(description)}\n"
+        f"source: {json.dumps(source)}\n"
+        f"# every key its own pitch: degree k is key k, in cents above key 0; the period lies past key 127\n"
+        f"scale:\n"
+        f"  degrees: [{body}]\n"
+        f"  period: {period:.6f}\n"
+        f"reference: {{key: 69, hz: {ref_hz!r}}}\n"
+        f"root: 0\n"
     )
 
 

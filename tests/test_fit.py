@@ -364,3 +364,47 @@ def test_cli_bad_midi_exits_2_without_output(tmp_path):
     r = run_cli("fit", str(good), "-o", str(out), "--max-wolf", "1")
     assert r.returncode == 2 and not out.exists()
     assert [f for f in os.listdir(tmp_path) if f.endswith(".tmp")] == []
+
+
+def test_per_key_fit(chorale, tmp_path):
+    w = fit.pair_weights(fit.read_notes(chorale))
+    pc = fit.fit_tuning(w)
+    pk = fit.fit_tuning(w, per_key=True)
+    # more freedom (a key need not share its octave's pitch): never worse, and better on this piece,
+    # whose D appears both as the fifth of G and as the root of D minor
+    assert pk.impurity <= pc.impurity + 1e-9
+    assert pk.impurity < pc.impurity - 0.1
+    # least squares per key against numpy.linalg.lstsq on the written-out equations (octaves included)
+    sq = fit.fit_tuning(w, per_key=True, norm="squares")
+    keys = sorted({k for p in w for k in p})
+    rows, rhs = [], []
+    for (a, b), wt in w.items():
+        if a == b:
+            continue
+        d = b - a
+        J = ratio_to_cents(JUST[d % 12] * 2 ** (d // 12))
+        r = np.zeros(len(keys))
+        r[keys.index(b)] += 1
+        r[keys.index(a)] -= 1
+        rows.append(math.sqrt(wt) * r)
+        rhs.append(math.sqrt(wt) * (J - 100 * d))
+    y = np.linalg.lstsq(np.array(rows), np.array(rhs), rcond=None)[0]
+    cents = [None] * 128
+    for k, v in zip(keys, y):
+        cents[k] = 100.0 * k + v
+    assert fit.squared_error(w, sq.cents()) == pytest.approx(fit.squared_error(w, cents), rel=1e-6, abs=1e-6)
+    for a in keys:
+        for b in keys:
+            assert sq.cents()[b] - sq.cents()[a] == pytest.approx(cents[b] - cents[a], abs=1e-4)
+    # the profile plays every key where the fit put it
+    out = tmp_path / "pk.yaml"
+    fit.write_atomic(out, fit.profile_yaml(pk, profile_id="pk", source_name="chorale.mid"))
+    t = load_profile(str(out))
+    for k in range(128):
+        assert t.cents[k] == pytest.approx(pk.cents()[k], abs=1e-5)
+    assert fit.impurity(w, t.cents) == pytest.approx(pk.impurity, abs=1e-5)
+    # limits hold for every key and every fifth k -> k+7
+    lim = fit.fit_tuning(w, per_key=True, max_deviation=6.0, max_wolf=3.0)
+    assert max(abs(v) for v in lim.key_offsets) <= 6.0 + 1e-6
+    pure = ratio_to_cents(Fraction(3, 2))
+    assert max(abs(700 + lim.key_offsets[k + 7] - lim.key_offsets[k] - pure) for k in range(121)) <= 3.0 + 1e-6

@@ -23,6 +23,8 @@ def add_arguments(parser) -> None:
                         help="no pitch class further than this from 12-EDO (A4 at the reference)")
     parser.add_argument("--max-wolf", type=float, metavar="CENTS",
                         help="no fifth of the 12 further than this from a pure 3/2 (at least 1.955)")
+    parser.add_argument("--per-key", action="store_true",
+                        help="every key its own pitch (keyboards with split keys): octaves are fitted too")
     parser.add_argument("--norm", choices=["abs", "squares"], default="abs",
                         help="abs (default): minimise the impurity itself, the time-weighted mean |deviation| "
                              "(iteratively reweighted least squares); squares: plain weighted least squares")
@@ -49,7 +51,7 @@ def run(args) -> int:
         raise RetunerError("the piece has no two notes sounding together in a consonant interval",
                            file=args.input)
     result = fit.fit_tuning(weights, max_deviation=args.max_deviation, max_wolf=args.max_wolf,
-                            norm=args.norm)
+                            norm=args.norm, per_key=args.per_key)
     pid = args.profile_id or fit.profile_id_for(args.output)
     text = fit.profile_yaml(result, profile_id=pid, source_name=args.input, reference_hz=args.reference)
     parse_profile(text, args.output)         # what we write must load
@@ -58,9 +60,14 @@ def run(args) -> int:
     rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profiles_dir)
     seconds = sum(weights.values())
     print(f"{args.input}: {len(notes)} notes, {seconds:.1f} s of consonant pairs; wrote {args.output}")
-    print("offsets from 12-EDO (cents): " + "  ".join(
-        f"{n} {v:+.2f}" for n, v in zip(("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B"),
-                                         result.offsets)))
+    if result.key_offsets is not None:
+        played = result.used
+        print("per key, cents from 12-EDO: " + "  ".join(
+            f"{k}:{result.key_offsets[k]:+.2f}" for k in played))
+    else:
+        names = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
+        print("offsets from 12-EDO (cents): "
+              + "  ".join(f"{n} {v:+.2f}" for n, v in zip(names, result.offsets)))
     if result.active:
         print("binding limits: " + ", ".join(result.active))
     w = max(len(r[0]) for r in rows)
