@@ -39,8 +39,8 @@ of all notes over the whole piece are chosen together:
   price of motion against impurity, is set by ``motion_value``. ``choose()``
   renders the file through the live engine too and measures both outputs with
   :mod:`retuner.metrics` (from the written bytes); the first of
-  ``MOTION_VALUES`` whose plan is no worse than live on impurity, motion and
-  drift is kept. If none is (it happens on arrangements, where live playing
+  motion values tried (bisected from ``MOTION_VALUE``) whose plan is no worse
+  than live on impurity, motion and drift is kept. If none is (it happens on arrangements, where live playing
   tunes each part on its own and so can keep every part centred while the plan,
   tuning the parts together, trades a little drift for much less impurity), the
   best plan is kept and the report's ``lookahead_check`` says ``beats_live:
@@ -50,7 +50,7 @@ of all notes over the whole piece are chosen together:
 Unlike the live engine, which tunes each part on its own when a file is split
 into parts, the plan sees all parts of an arrangement together. Cost: a dense
 solve per window and reweighting round (about 15 s for a 100 000-event file on
-a laptop-class CPU, up to three plans).
+a laptop-class CPU, per plan; at most ``MAX_PLANS`` plans).
 """
 
 from __future__ import annotations
@@ -76,8 +76,9 @@ CENTRE_VALUE = 0.01
 DRIFT_AIM = 1.0
 #: shortest stretch of time a centre term is weighted with (seconds)
 MIN_STRETCH = 0.05
-#: motion values tried in turn until the plan beats live playing (see choose())
-MOTION_VALUES = (1.3, 0.7, 2.5)
+#: range in which choose() bisects the motion value, and how many plans it makes at most
+MOTION_LOW, MOTION_HIGH = 0.5, 3.0
+MAX_PLANS = 6
 
 
 class _Note:
@@ -559,14 +560,18 @@ def _beats(m: dict, live: dict, eps: float = 1e-3) -> bool:
 def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     """Plan the piece and check the plan against live playing (``live_outputs``: the same file
     through the live engine). The planner's one free trade-off, the price of motion against
-    impurity (``motion_value``), is tried from ``MOTION_VALUES`` in turn; the first plan that is no
-    worse on impurity and better on motion and drift (measured from the output files) is taken.
-    If none is, the plan with the lowest impurity among those no worse than live on it is taken
-    (else the first), and the summary says so."""
+    impurity (``motion_value``), starts at ``MOTION_VALUE`` and is bisected (at most
+    ``MAX_PLANS`` plans): a plan worse than live on impurity lowers the price of motion, one
+    worse on motion raises it. The first plan no worse than live on impurity, motion and drift
+    (measured from the output files) is taken; if none is, the plan with the lowest
+    ``motion + drift + 10 * impurity`` among those no worse on impurity (else among all), and the
+    summary says so."""
     live = measure_outputs(live_outputs, config)
     tried = []
     best = None
-    for mv in MOTION_VALUES:
+    lo, hi = MOTION_LOW, MOTION_HIGH
+    mv = MOTION_VALUE
+    for _ in range(MAX_PLANS):
         plan = plan_song(song, merged, secs, tuning, config, motion_value=mv)
         outs = render(plan)
         m = measure_outputs(outs, config)
@@ -574,14 +579,22 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
         if _beats(m, live):
             best = (mv, m, outs)
             break
+        worse_imp = m["impurity_cents"] > live["impurity_cents"] + 1e-3
+        worse_mot = m["motion_cents_per_note"] > live["motion_cents_per_note"] + 1e-3
+        if worse_imp and not worse_mot:
+            hi, mv = mv, (lo + mv) / 2.0
+        elif worse_mot and not worse_imp:
+            lo, mv = mv, (mv + hi) / 2.0
+        else:
+            break
     beat = best is not None
     if best is None:
-        ok = [t for t in tried if t[1]["impurity_cents"] <= live["impurity_cents"] + 1e-6]
+        ok = [t for t in tried if t[1]["impurity_cents"] <= live["impurity_cents"] + 1e-3]
         pool = ok or tried
         best = min(pool, key=lambda t: t[1]["motion_cents_per_note"] + t[1]["drift_max_cents"]
-                   + 10.0 * t[1]["impurity_cents"]) if ok else tried[0]
+                   + 10.0 * t[1]["impurity_cents"])
     mv, m, outs = best
-    summary = {"motion_value": mv, "beats_live": beat, "plans_tried": len(tried),
+    summary = {"motion_value": round(mv, 4), "beats_live": beat, "plans_tried": len(tried),
                "live": {k: round(v, 4) for k, v in live.items()},
                "lookahead": {k: round(v, 4) for k, v in m.items()}}
     return Chosen(outs, summary)
