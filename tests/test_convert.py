@@ -427,3 +427,26 @@ def test_mpe_two_parts_per_file_one_zone_each(tmp_path):
         mine = [n for n in inp if n[2] in (2 * i, 2 * i + 1)]
         # half a bend step at +-48 semitones: 4800/16384 c
         match_notes(mine, out, meantone_quarter_cents, tol=4800 / 16384 + 1e-9)
+
+
+def test_plot_without_matplotlib_is_one_clear_line(tmp_path):
+    """matplotlib is an optional extra: without it --plot fails before any work, in one line."""
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src)
+    code = (
+        "import sys, importlib.abc\n"
+        "class Block(importlib.abc.MetaPathFinder):\n"
+        "    def find_spec(self, name, path=None, target=None):\n"
+        "        if name == 'matplotlib' or name.startswith('matplotlib.'):\n"
+        "            raise ImportError('No module named ' + repr(name))\n"
+        "        return None\n"
+        "sys.meta_path.insert(0, Block())\n"
+        "from retuner.cli import main\n"
+        "sys.exit(main(sys.argv[1:]))\n")
+    out = tmp_path / "o.mid"
+    r = subprocess.run([sys.executable, "-c", code, "convert", str(src), "-o", str(out), "--plot",
+                        str(tmp_path / "p.png")], capture_output=True, text=True, timeout=60)
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "matplotlib" in lines[0] and "retuner[plot]" in lines[0]
+    assert not out.exists() and not (tmp_path / "p.png").exists()
