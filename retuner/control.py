@@ -327,11 +327,14 @@ class ControlServer:
     def has_pending(self) -> bool:
         return bool(self._pending)
 
-    def serve_pending(self, limit: int = 64) -> int:
+    def serve_pending(self, limit: int = 16) -> int:
         """Apply up to ``limit`` queued commands on the calling (engine) thread.
 
         Each reply is queued for the server thread; a handler error becomes an
-        error reply and never escapes. Returns the number of commands applied.
+        error reply and never escapes. When commands remain, ``on_command`` is
+        called again so the daemon comes back for them after the MIDI already
+        waiting (a flood of commands is served in small batches between events).
+        Returns the number of commands applied.
         """
         n = 0
         while n < limit:
@@ -363,6 +366,11 @@ class ControlServer:
                 self._wake_sent = True
             if wake:
                 self._wake_write()
+        if self._pending and self.on_command is not None:
+            try:
+                self.on_command()
+            except Exception:
+                log.exception("control on_command callback failed")
         return n
 
     def publish(self, event: dict) -> None:
@@ -757,15 +765,19 @@ class EngineControl(Handler):
         self._sounding: dict[tuple, dict] = {}
         self._next_counters = 0.0
         self._last_tuning_id: Optional[str] = None
+        self._profiles_cache: Optional[tuple[float, list]] = None
 
     # -------------------------------------------------------- server thread
     def prepare(self, cmd: Command) -> Command | dict:
         a = cmd.args
         if cmd.name == "profiles":
-            from .profile import list_profiles
-            return {"ok": True, "cmd": "profiles",
-                    "profiles": [{"id": p.id, "description": p.description,
-                                  "builtin": bool(p.builtin)} for p in list_profiles(self.host.profile_dirs)]}
+            now = time.monotonic()
+            if self._profiles_cache is None or now - self._profiles_cache[0] > 1.0:
+                from .profile import list_profiles   # reads the folders: at most once a second
+                self._profiles_cache = (now, [{"id": p.id, "description": p.description,
+                                               "builtin": bool(p.builtin)}
+                                              for p in list_profiles(self.host.profile_dirs)])
+            return {"ok": True, "cmd": "profiles", "profiles": list(self._profiles_cache[1])}
         if cmd.name == "load":
             pid = a.get("profile")
             if not isinstance(pid, str) or not pid:

@@ -510,3 +510,37 @@ def test_engine_errors_become_error_replies(rig):
         assert st["tuning"] == "werckmeister-3" and st["base"] == "werckmeister-3"
     finally:
         rig.on_engine(lambda: setattr(rig.engine, "set_tuning", real))
+
+
+def test_commands_are_served_in_small_batches_and_the_loop_is_woken_for_the_rest():
+    """The engine thread applies at most `limit` commands per call and asks to be woken for the rest."""
+    base = tempfile.mkdtemp(prefix="rtb")
+    wakes = []
+    engine = Engine(load_profile("edo12"), EngineConfig())
+    ctl = EngineControl(EngineHost(engine=engine, emit=list, tuning=engine.tuning))
+    srv = ControlServer(os.path.join(base, "c.sock"), ctl, on_command=lambda: wakes.append(1))
+    ctl.server = srv
+    srv.start()
+    try:
+        socks = [raw(str(srv.path)) for _ in range(5)]
+        for s in socks:
+            s.sendall(b"{\"cmd\": \"status\"}\n" * ControlServer.MAX_INFLIGHT)
+        end = time.monotonic() + 10
+        while len(srv._pending) < 5 * ControlServer.MAX_INFLIGHT:
+            assert time.monotonic() < end
+            time.sleep(0.005)
+        before = len(wakes)
+        assert srv.serve_pending(limit=16) == 16
+        assert len(srv._pending) == 5 * ControlServer.MAX_INFLIGHT - 16
+        assert len(wakes) == before + 1            # woken again for the rest
+        while srv.serve_pending(limit=16):
+            pass
+        assert len(wakes) == before + 2            # once more after the second batch, none after the last
+        for s in socks:
+            buf = bytearray()
+            for _ in range(ControlServer.MAX_INFLIGHT):
+                assert read_line(s, buf)["ok"]
+            s.close()
+    finally:
+        srv.close()
+        shutil.rmtree(base, ignore_errors=True)
