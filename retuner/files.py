@@ -49,7 +49,10 @@ configured zone.
 
 Adaptive mode without ``--lookahead`` runs one engine per part, as a daemon per
 part would: each part is tuned against itself (for a file with one part -- a
-keyboard performance -- that is exactly the live daemon). With ``--lookahead``
+keyboard performance -- that is exactly the live daemon). ``--merge-parts``
+runs one engine with one pool for all parts instead, exactly as the daemon
+treats a multi-channel input: the parts are then tuned together but share
+their output channels, programs and controllers. With ``--lookahead``
 the plan tunes all parts together (see :mod:`retuner.lookahead`).
 """
 
@@ -460,6 +463,7 @@ class ConvertOptions:
     config: object = None               # retuner.engine.EngineConfig
     lookahead: bool = False
     want_report: bool = False
+    merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
 
 
 @dataclass
@@ -684,14 +688,15 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
     return need_min, wish
 
 
-def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, config) -> list[tuple[list[int], dict]]:
+def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, config,
+                merge: bool = False) -> list[tuple[list[int], dict]]:
     """Share the output channels among the parts (see the module docstring).
 
     Returns groups, one per output file: (parts, {part: engine config}).
     """
     pas = frozenset(config.passthrough)
     parts = song_parts(merged, pas)
-    if config.mode == "mts" or len(parts) <= 1:
+    if config.mode == "mts" or len(parts) <= 1 or merge:
         return [(parts, {p: config for p in parts})]
     if config.mode == "mpe":
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
@@ -754,7 +759,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
     tuning = opts.tuning
     merged = merged_events(song)
     secs = event_seconds(song, merged)
-    groups = plan_groups(song, merged, secs, tuning, config)
+    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts)
     if not opts.lookahead:
         outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
         return ConvertResult(song.path, outputs, len(groups) > 1)

@@ -450,3 +450,21 @@ def test_plot_without_matplotlib_is_one_clear_line(tmp_path):
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and "matplotlib" in lines[0] and "retuner[plot]" in lines[0]
     assert not out.exists() and not (tmp_path / "p.png").exists()
+
+
+def test_merge_parts_one_engine_as_the_daemon(tmp_path):
+    src = tmp_path / "band.mid"
+    drum_events = midigen.arrangement(src)
+    dst = tmp_path / "merged.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--merge-parts", "-q")
+    assert r.returncode == 0, r.stderr
+    match_notes(input_notes(src), decode(dst)[0], meantone_quarter_cents)
+    mo = mido.MidiFile(dst)
+    progs = {}
+    for tr in mo.tracks:
+        for m in tr:
+            if m.type == "program_change":
+                progs.setdefault(m.channel, []).append(m.program)
+    # one pool: every part's program change reaches every pool channel (as live)
+    assert all(sorted(set(v)) == [0, 32, 48] for c, v in progs.items() if c != 9)
+    assert len([c for c in progs if c != 9]) == 15

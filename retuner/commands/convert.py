@@ -71,6 +71,9 @@ def add_arguments(parser) -> None:
                    help="synth correction: played / specified bend size (e.g. 0.9921875 = 127/128)")
     g.add_argument("--whole-semitones", action="store_true",
                    help="synth ignores the cents part of the bend range: whole semitones only")
+    g.add_argument("--merge-parts", action="store_true",
+                   help="one engine and one pool for all parts, as the live daemon treats a "
+                        "multi-channel input (parts share channels, programs and controllers)")
     g.add_argument("--mpe-zone", choices=("lower", "upper"), default="lower")
     g.add_argument("--mpe-members", type=int, default=None, metavar="N")
     a = parser.add_argument_group("adaptive")
@@ -138,7 +141,8 @@ def build_options(args):
             exc.field = "--" + exc.field.replace("_", "-")
         raise
     return ConvertOptions(tuning, cfg, lookahead=args.lookahead,
-                          want_report=bool(args.report or args.plot or not args.quiet))
+                          want_report=bool(args.report or args.plot or not args.quiet),
+                          merge_parts=args.merge_parts)
 
 
 def _one_blas_thread() -> None:
