@@ -227,7 +227,11 @@ class ControlServer:
             if path.parent != Path("/"):
                 new_dir = not path.parent.exists()
                 path.parent.mkdir(mode=0o700, parents=True, exist_ok=True)
-                if new_dir or path.parent.name == "retuner":
+                if new_dir or path.parent.name.startswith("retuner"):
+                    st = os.lstat(path.parent)
+                    if stat.S_ISLNK(st.st_mode) or st.st_uid != os.getuid():
+                        raise RetunerError(f"control socket folder {path.parent} is not ours "
+                                           "(a link, or owned by another user): refusing to use it")
                     os.chmod(path.parent, 0o700)
             self._remove_stale(path)
             tmp = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}")

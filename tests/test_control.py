@@ -186,6 +186,11 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
             assert stat.S_IMODE(os.stat(os.path.dirname(fresh)).st_mode) == 0o700
         finally:
             srv.close()
+        # a "retuner" folder that is a link somewhere else is refused (someone could have planted it)
+        os.symlink(base, os.path.join(base, "retuner"))
+        with pytest.raises(RetunerError, match="not ours"):
+            ControlServer(os.path.join(base, "retuner", "c.sock"),
+                          EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
         with open(os.path.join(base, "plain"), "w") as fh:
             fh.write("x")
         with pytest.raises(RetunerError, match="not a socket"):
