@@ -171,7 +171,17 @@ class Daemon:
 
     # ------------------------------------------------------------------ ports
     def _client(self, side: str) -> str:
-        return f"{self.settings.client_name}-{side}"
+        """Our client names. ALSA: "retuner" for both ports ("retuner:in", "retuner:out"; ALSA
+        allows two clients of one name). JACK renames a second client of the same name, so
+        there each side has its own: "retuner-in:in", "retuner-out:out"."""
+        base = self.settings.client_name
+        if self.settings.backend == "alsa" and side in ("in", "out"):
+            return base
+        return f"{base}-{side}"
+
+    def _own(self) -> list[str]:
+        base = self.settings.client_name
+        return [base + "-", base + ":"]
 
     def _side_spec(self, side: str) -> Optional[str]:
         """The port name/pattern for 'in'/'out', or None for a virtual port of our own."""
@@ -195,7 +205,7 @@ class Daemon:
             return True
         if names is None:
             names = self.lister.inputs() if self.lister else []
-        name = _ports.match_port(spec, names, exclude=[self.settings.client_name + "-"])
+        name = _ports.match_port(spec, names, exclude=self._own())
         if name is None:
             if not self._lost_logged["input"]:
                 log.warning("input %r: no such port (yet); waiting for it", spec)
@@ -216,7 +226,7 @@ class Daemon:
         else:
             if names is None:
                 names = self.lister.outputs() if self.lister else []
-            name = _ports.match_port(spec, names, exclude=[self.settings.client_name + "-"])
+            name = _ports.match_port(spec, names, exclude=self._own())
             if name is None:
                 if not self._lost_logged["output"]:
                     log.warning("output %r: no such port (yet); waiting for it", spec)
