@@ -156,6 +156,7 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     assert "werckmeister-3" in r.stdout
     st = json.loads(run.ctl("--json", "status").stdout)
     assert st["ok"] and st["tuning"] == "werckmeister-3" and st["adaptive"] is False
+    assert json.loads(run.ctl("status", "--json").stdout)["tuning"] == "werckmeister-3"
     pr = json.loads(run.ctl("--json", "profiles").stdout)
     assert {"edo12", "vallotti", "werckmeister-3"} <= {p["id"] for p in pr["profiles"]}
 

@@ -14,9 +14,20 @@ DESCRIPTION = ("Speak to a running daemon over its control socket "
 
 
 def add_arguments(parser) -> None:
+    import argparse
     parser.add_argument("--socket", metavar="PATH", help="control socket path")
     parser.add_argument("--json", action="store_true", help="print the daemon's JSON replies as they are")
+    # the same two options are accepted after the action too (retuner ctl status --json)
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--socket", metavar="PATH", default=argparse.SUPPRESS, help="control socket path")
+    common.add_argument("--json", action="store_true", default=argparse.SUPPRESS,
+                        help="print the daemon's JSON replies as they are")
     sub = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
+    _add = sub.add_parser
+
+    def add_parser(name, **kw):
+        return _add(name, parents=[common], **kw)
+    sub.add_parser = add_parser
     sub.add_parser("status", help="tuning, counters, sounding notes")
     sub.add_parser("profiles", help="list the profiles the daemon can load")
     p = sub.add_parser("load", help="switch to a profile (sounding notes keep their pitch)")
