@@ -460,3 +460,22 @@ def test_named_input_that_appears_after_the_start(jack_server, jack_client, tmp_
         assert_pitches(d.notes, W3)
     finally:
         client.close()
+
+
+def test_adaptive_chord_window_is_served_by_the_main_loop(jack_server, jack_client, tmp_path, runs):
+    # adaptive mode holds note-ons for the chord window and sounds them when engine.tick() is due:
+    # only the daemon's loop (timeout from engine.next_deadline()) can make them arrive
+    cfg = tmp_path / "adaptive.yaml"
+    cfg.write_text("profile: edo12\nengine:\n  adaptive: {chord_window: 0.03}\n")
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--config", str(cfg)], client=jack_client)
+    rng = random.Random(8)
+    play_chord(jack_client, [60, 64, 67], rng, spread=(0.002, 0.006))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 3)
+    release(jack_client, [60, 64, 67], rng)
+    recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 3)
+    d = decode(recs)
+    assert d.stuck() == []
+    c = {n.key: n.cents for n in d.notes}
+    # a lone major triad has a consistent just solution: 5/4 and 3/2 above the root (ratios -> cents here)
+    assert abs((c[64] - c[60]) - 1200 * math.log2(5 / 4)) <= 2 * half_step(2)
+    assert abs((c[67] - c[60]) - 1200 * math.log2(3 / 2)) <= 2 * half_step(2)
