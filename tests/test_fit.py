@@ -408,3 +408,17 @@ def test_per_key_fit(chorale, tmp_path):
     assert max(abs(v) for v in lim.key_offsets) <= 6.0 + 1e-6
     pure = ratio_to_cents(Fraction(3, 2))
     assert max(abs(700 + lim.key_offsets[k + 7] - lim.key_offsets[k] - pure) for k in range(121)) <= 3.0 + 1e-6
+
+
+def test_impurity_agrees_with_the_metrics_module(chorale):
+    """fit's pair-weight impurity against retuner.metrics' own sweep over sounding notes."""
+    from retuner.metrics import NoteTrack, impurity as metrics_impurity
+    notes = fit.read_notes(chorale)
+    w = fit.pair_weights(notes)
+    for pid in ("edo12", "meantone-quarter", "werckmeister-3", "just-5limit"):
+        t = load_profile(pid)
+        tracks = [NoteTrack(key=n.key, channel=n.channel, start=n.start, end=n.end,
+                            steps=[(n.start, t.cents[n.key])]) for n in notes]
+        value, seconds = metrics_impurity(tracks)
+        assert seconds == pytest.approx(sum(w.values()), abs=1e-9)
+        assert fit.impurity(w, t.cents) == pytest.approx(value, abs=1e-9), pid
