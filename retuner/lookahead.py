@@ -262,7 +262,8 @@ class _PlannedSolver:
 def move_bends_early(song, tracks, release_time: float) -> int:
     """For every pitch bend sent right before a note-on on its channel (same tick), move it back
     to the tick its channel fell silent: the last note-off there (or pedal release) plus the
-    release time, and never before the channel's previous bend. Returns the number moved."""
+    release time, and never before the channel's previous bend or a reset-all-controllers
+    (which resets the bend). Returns the number moved."""
     tm = song.tempo_map
     allev = []
     for ti, (evs, _end) in enumerate(tracks):
@@ -309,6 +310,9 @@ def move_bends_early(song, tracks, release_time: float) -> int:
                 if sounding[c] == 0:
                     silent_from[c] = int(math.ceil(tm.tick(tm.seconds(tick) + rel)))
             pedal[c] = down
+        elif hi == 0xB0 and raw[1] == 121:
+            # reset all controllers resets the bend (MIDI 1.0): a bend must not move before it
+            last_bend[c] = max(last_bend[c], tick + 1)
         elif hi == 0xB0 and raw[1] in (120, 123):
             sounding[c] = 0
             held_by_pedal[c] = 0

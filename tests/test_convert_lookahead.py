@@ -177,3 +177,25 @@ def test_lookahead_beats_live_in_mpe_and_mts_modes(mode):
     assert la[0] <= live[0] + 1e-3
     assert la[1] < live[1]
     assert la[2] < live[2]
+
+
+def test_move_bends_early_rules():
+    """A note's bend goes back to when its channel fell silent (note-off + release time), never
+    before the channel's previous bend or a reset all controllers (CC121 resets the bend, MIDI 1.0),
+    and stays at the note-on when the channel still rings."""
+    from retuner.lookahead import move_bends_early
+
+    song = files.parse_smf(files.serialize(0, 480, [([(0, b"\xFF\x51\x03\x07\xA1\x20")], 0)]))  # 120 bpm
+
+    def run(extra, release):
+        evs = [(0, b"\x90\x3C\x40"), (96, b"\x80\x3C\x00")] + extra + [(2000, b"\xE0\x00\x50"), (2000, b"\x90\x3E\x40")]
+        evs.sort(key=lambda e: e[0])
+        tracks = [(evs, 3000)]
+        move_bends_early(song, tracks, release)
+        return [t for t, r in tracks[0][0] if r[0] == 0xE0][-1]
+
+    # release 0.1 s = 96 ticks at 120 bpm, 480 ticks per beat: silent from tick 192
+    assert run([], 0.1) == 192
+    assert run([(500, b"\xB0\x79\x00")], 0.1) == 501
+    assert run([(700, b"\xE0\x00\x40")], 0.1) == 700
+    assert run([], 10.0) == 2000
