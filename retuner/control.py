@@ -166,7 +166,7 @@ class Handler:
 
 class _Client:
     __slots__ = ("sock", "fd", "id", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
-                 "dropped", "closing", "reading", "mask")
+                 "dropped", "closing", "reading", "mask", "tokens", "stamp", "throttled_until")
 
     def __init__(self, sock: socket.socket, cid: int):
         self.sock = sock
@@ -182,6 +182,9 @@ class _Client:
         self.closing = False                  # close once the output is written
         self.reading = True
         self.mask = 0
+        self.tokens = float(ControlServer.CLIENT_BURST)   # requests it may send now
+        self.stamp = time.monotonic()
+        self.throttled_until = 0.0
 
 
 class ControlServer:
@@ -193,6 +196,10 @@ class ControlServer:
     SUBSCRIBER_QUEUE = 512       # events kept per subscriber (drop-oldest)
     CENTRAL_QUEUE = 8192         # events published but not yet fanned out (drop-oldest)
     MAX_REPLY_BACKLOG = 64       # unread replies of one client before we stop reading from it
+    CLIENT_RATE = 500.0          # requests a second one client may send (token bucket) ...
+    CLIENT_BURST = 100           # ... with this burst; beyond it the server stops reading from it
+    TOTAL_RATE = 2000.0          # requests a second from all clients together
+    TOTAL_BURST = 400
 
     def __init__(self, path: str | os.PathLike | None, handler: Handler, *,
                  on_command: Optional[Callable[[], None]] = None):
@@ -211,13 +218,16 @@ class ControlServer:
         self._listener: Optional[socket.socket] = None
         self._clients: dict[int, _Client] = {}     # client id -> client
         self._ids = count(1)
+        self._tokens = float(self.TOTAL_BURST)
+        self._stamp = time.monotonic()
+        self._throttled: set[int] = set()
         self._wake_r = self._wake_w = -1
         self._inode: Optional[tuple[int, int]] = None
         # subscribers, counted from the moment the engine thread answers "subscribe" (so no event
         # published after that answer is lost); changed under the lock, read without it
         self.subscribers = 0
         self.counters = {"clients": 0, "connections": 0, "commands": 0, "errors": 0,
-                         "events": 0, "events_dropped": 0, "central_dropped": 0}
+                         "events": 0, "events_dropped": 0, "central_dropped": 0, "throttled": 0}
 
     # ------------------------------------------------------------------ setup
     def start(self) -> "ControlServer":
@@ -409,10 +419,18 @@ class ControlServer:
         sel = self._sel
         assert sel is not None
         while not self._stop:
+            timeout = 1.0
+            if self._throttled:
+                now = time.monotonic()
+                soonest = min((self._clients[i].throttled_until for i in self._throttled if i in self._clients),
+                              default=now)
+                timeout = min(1.0, max(0.0005, soonest - now))
             try:
-                ready = sel.select(timeout=1.0)
+                ready = sel.select(timeout=timeout)
             except (InterruptedError, OSError):
                 continue
+            if self._throttled:
+                self._resume_throttled()
             for key, mask in ready:
                 try:
                     if key.fileobj is self._listener:
@@ -468,7 +486,7 @@ class ControlServer:
         """(Re)register a client for what it needs: reading unless throttled, writing if output."""
         backlog = len(c.out) - c.events
         c.reading = (not c.closing and c.inflight < self.MAX_INFLIGHT
-                     and backlog < self.MAX_REPLY_BACKLOG)
+                     and backlog < self.MAX_REPLY_BACKLOG and not c.throttled_until)
         mask = (selectors.EVENT_READ if c.reading else 0) | \
                (selectors.EVENT_WRITE if (c.out or c.outbuf) else 0)
         if mask == c.mask:
@@ -509,21 +527,12 @@ class ControlServer:
             self._drop(c)
             return
         if not data:
-            if c.out or c.outbuf or c.inflight:
-                c.closing = True     # half-closed: still answer what was asked
-                self._update(c)
-            else:
-                self._drop(c)
+            c.closing = True         # half-closed: still answer what was asked, then close
+            self._read_buffered(c)
+            self._write(c)
             return
         c.inbuf += data
-        while not c.closing and c.inflight < self.MAX_INFLIGHT:
-            nl = c.inbuf.find(b"\n")
-            if nl < 0:
-                break
-            line = bytes(c.inbuf[:nl])
-            del c.inbuf[:nl + 1]
-            if line.strip():
-                self._request(c, line)
+        self._read_buffered(c)
         if len(c.inbuf) > self.MAX_LINE and b"\n" not in c.inbuf:
             c.inbuf.clear()
             c.closing = True
@@ -642,17 +651,53 @@ class ControlServer:
                     # more requests may be waiting in the input buffer
                     if c.inbuf and c.inflight < self.MAX_INFLIGHT and b"\n" in c.inbuf:
                         self._read_buffered(c)
-                    self._update(c)
+                        self._write(c)
+                    if c.id in self._clients:
+                        self._update(c)
+
+    def _take_token(self, c: _Client) -> bool:
+        """Rate limits: a token from the client's bucket and one from the shared bucket, or throttle."""
+        now = time.monotonic()
+        c.tokens = min(float(self.CLIENT_BURST), c.tokens + (now - c.stamp) * self.CLIENT_RATE)
+        c.stamp = now
+        self._tokens = min(float(self.TOTAL_BURST), self._tokens + (now - self._stamp) * self.TOTAL_RATE)
+        self._stamp = now
+        if c.tokens >= 1.0 and self._tokens >= 1.0:
+            c.tokens -= 1.0
+            self._tokens -= 1.0
+            return True
+        wait = max((1.0 - c.tokens) / self.CLIENT_RATE, (1.0 - self._tokens) / self.TOTAL_RATE)
+        c.throttled_until = now + max(wait, 0.0005)
+        self._throttled.add(c.id)
+        self.counters["throttled"] = self.counters.get("throttled", 0) + 1
+        return False
+
+    def _resume_throttled(self) -> None:
+        now = time.monotonic()
+        for cid in list(self._throttled):
+            c = self._clients.get(cid)
+            if c is None:
+                self._throttled.discard(cid)
+                continue
+            if now >= c.throttled_until:
+                self._throttled.discard(cid)
+                c.throttled_until = 0.0
+                self._read_buffered(c)
+                self._write(c)
 
     def _read_buffered(self, c: _Client) -> None:
-        while not c.closing and c.inflight < self.MAX_INFLIGHT:
+        while c.inflight < self.MAX_INFLIGHT and not c.throttled_until:
             nl = c.inbuf.find(b"\n")
             if nl < 0:
                 break
+            if not c.inbuf[:nl].strip():
+                del c.inbuf[:nl + 1]
+                continue
+            if not self._take_token(c):
+                break
             line = bytes(c.inbuf[:nl])
             del c.inbuf[:nl + 1]
-            if line.strip():
-                self._request(c, line)
+            self._request(c, line)
 
     def _write(self, c: _Client) -> None:
         while True:
@@ -673,7 +718,7 @@ class ControlServer:
             c.outbuf = c.outbuf[n:]
             if c.outbuf:
                 break
-        if c.closing and not c.out and not c.outbuf and not c.inflight:
+        if c.closing and not c.out and not c.outbuf and not c.inflight and b"\n" not in c.inbuf:
             self._drop(c)
             return
         self._update(c)
