@@ -33,8 +33,22 @@ Nothing the engine thread does waits for a client. Every queue is bounded:
 each subscriber has its own event queue that drops its oldest events when the
 client does not read (counted, reported in ``status`` and in ``counters``
 events); a client that floods has at most :attr:`MAX_INFLIGHT` commands waiting,
-after which the server stops reading from it until they are answered; a line
-longer than :attr:`MAX_LINE` bytes closes the connection after an error reply.
+after which the server stops reading from it until they are answered; each
+client may send :attr:`CLIENT_RATE` requests a second (burst
+:attr:`CLIENT_BURST`) and all together :attr:`TOTAL_RATE`, beyond which the
+server simply reads more slowly (the client's own socket buffer fills; nothing
+is lost or refused); a line longer than :attr:`MAX_LINE` bytes closes the
+connection after an error reply. The engine thread applies at most 16
+commands per :meth:`ControlServer.serve_pending` call and is woken again for
+the rest, so MIDI waiting behind a burst of commands goes first.
+
+In CPython every thread shares one interpreter lock, so "never slows the
+engine" means: bounded work per request on the server thread, bounded work per
+command on the engine thread, and request rates capped so the server thread
+cannot keep the lock busy. Measured here (JACK dummy backend, 128-frame
+periods): note-on latency through the daemon median 4.3 ms, p99 6-12 ms idle,
+and p99 6-10 ms with three clients flooding status requests, five subscribers
+that never read and twenty live subscribers (before the rate limits: p99 75 ms).
 
 Integration into a daemon (a few lines)::
 
