@@ -64,6 +64,7 @@ Integration into a daemon (a few lines)::
 
 from __future__ import annotations
 
+import dataclasses
 import errno
 import json
 import logging
@@ -829,6 +830,8 @@ class EngineControl(Handler):
         self._next_counters = 0.0
         self._last_tuning_id: Optional[str] = None
         self._profiles_cache: Optional[tuple[float, list]] = None
+        # the adaptive settings in force or last used: "adaptive on" starts from them
+        self._adaptive_base = getattr(getattr(host.engine, "config", None), "adaptive", None)
 
     # -------------------------------------------------------- server thread
     def prepare(self, cmd: Command) -> Command | dict:
@@ -877,6 +880,15 @@ class EngineControl(Handler):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
         from .adaptive import AdaptiveConfig
+        base = self._adaptive_base
+        if base is not None and dataclasses.is_dataclass(base):
+            merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
+            merged.update({str(k).replace("-", "_"): v for k, v in settings.items()})
+            unknown = sorted(k for k in settings if str(k).replace("-", "_") not in
+                             {f.name for f in dataclasses.fields(base)})
+            if unknown:
+                raise RetunerError(f"unknown setting {unknown[0]!r}", field=f"adaptive.{unknown[0]}")
+            settings = merged
         try:
             return AdaptiveConfig.from_dict(settings, file="control socket")
         except RetunerError:
@@ -907,9 +919,13 @@ class EngineControl(Handler):
             self.host.on_switch(tuning)
 
     def _tuning_info(self) -> dict:
+        eng = self.host.engine
+        on = getattr(eng, "adaptive", None)
+        if not isinstance(on, bool):
+            on = getattr(getattr(eng, "config", None), "adaptive", None) is not None
         return {"tuning": self.current.id, "base": self.base.id, "reference": self.reference,
                 "transpose": self.transpose, "transpose_cents": self.transpose_cents,
-                "adaptive": self.adaptive is not None}
+                "adaptive": on}
 
     def apply(self, cmd: Command) -> dict:
         now = self.host.clock()
@@ -948,6 +964,8 @@ class EngineControl(Handler):
         if name == "adaptive":
             out = self.host.engine.set_adaptive(cmd.data, now)
             self.adaptive = dict(a.get("settings") or {}) if cmd.data is not None else None
+            if cmd.data is not None:
+                self._adaptive_base = cmd.data
             if out:
                 self.host.emit(out)
             self._publish({"event": "adaptive", "t": now, "on": self.adaptive is not None,

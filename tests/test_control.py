@@ -37,10 +37,10 @@ BEND_STEP = 200.0 / 8192     # cents per bend step at the default range of 2 sem
 class Rig:
     """Engine + EngineControl + ControlServer, with an engine thread like the daemon's."""
 
-    def __init__(self, profile: str = "werckmeister-3", path: str | None = None):
+    def __init__(self, profile: str = "werckmeister-3", path: str | None = None, config=None):
         self.dir = tempfile.mkdtemp(prefix="rtc")
         self.path = path or os.path.join(self.dir, "retuner", "control.sock")
-        self.engine = Engine(load_profile(profile), EngineConfig())
+        self.engine = Engine(load_profile(profile), config or EngineConfig())
         self.out: list[mido.Message] = []
         self.midi: "queue.SimpleQueue" = queue.SimpleQueue()
         self.calls: "queue.SimpleQueue" = queue.SimpleQueue()
@@ -550,3 +550,24 @@ def test_commands_are_served_in_small_batches_and_the_loop_is_woken_for_the_rest
     finally:
         srv.close()
         shutil.rmtree(base, ignore_errors=True)
+
+
+def test_adaptive_on_starts_from_the_daemons_own_settings():
+    from retuner.adaptive import AdaptiveConfig
+    mine = AdaptiveConfig.from_dict({"policy": "fixed-held", "max_drift": 3.0})
+    rig = Rig("edo12", config=EngineConfig(adaptive=mine))
+    try:
+        with ControlClient(rig.path) as c:
+            assert c.request("status")["adaptive"] is True          # as the daemon started
+            assert c.request("adaptive", on=False)["adaptive"] is False
+            assert rig.engine.config.adaptive is None
+            assert c.request("adaptive", on=True)["adaptive"] is True
+            got = rig.engine.config.adaptive
+            assert (got.policy, got.max_drift) == ("fixed-held", 3.0)   # not the library defaults
+            assert c.request("adaptive", on=True, settings={"max_drift": 4.0})["ok"]
+            got = rig.engine.config.adaptive
+            assert (got.policy, got.max_drift) == ("fixed-held", 4.0)
+            assert c.request("adaptive", on=True, settings={"bogus": 1})["ok"] is False
+            assert rig.engine.config.adaptive.max_drift == 4.0
+    finally:
+        rig.close()
