@@ -45,7 +45,9 @@ and the steal policy; :mod:`retuner.encode` for the bend formula).
   other controllers go to every pool channel; polyphonic pressure to the note's
   channel; all-notes-off (CC123, and CC124-127), all-sound-off (CC120) and
   reset-all-controllers (CC121, after which the tuning bends are sent again)
-  are honoured. An input RPN 0 (pitch bend sensitivity) sets the assumed wheel
+  are honoured; omni/mono/poly mode messages (CC124-127) are not passed on (they
+  would change how the pool channels play) but their all-notes-off effect is,
+  as CC123. An input RPN 0 (pitch bend sensitivity) sets the assumed wheel
   range instead of reaching the pool (RPN 3, 4, 6 from the input are dropped).
 * System exclusive, clock and other system messages pass through; channel
   messages on passthrough input channels (default channel 10) are untouched.
@@ -624,6 +626,10 @@ class Engine:
             out += self._mode_targets(dom, msg)
             self._silence(t, dom, hard=True)
         elif cc in _NOTES_OFF_CCS:
+            if cc != E.CC_ALL_NOTES_OFF and self.mode != "mts":
+                # omni/mono/poly mode changes would break the output channels: only their
+                # all-notes-off effect (MIDI 1.0) reaches the synth, as CC123
+                msg = E.control_change(ch, E.CC_ALL_NOTES_OFF, 0)
             out += self._mode_targets(dom, msg)
             self._silence(t, dom, hard=False)
         elif cc == E.CC_RESET_ALL_CONTROLLERS:

@@ -757,3 +757,13 @@ def test_system_reset_passes_and_setup_is_sent_again():
     s2.feed(e.feed(0.3, ON(61)))
     (c, v), = s2.last_on
     assert abs(s2.pitch(c, v) - tu.cents[61]) <= half_step(1200.0)
+
+
+def test_mode_messages_become_all_notes_off():
+    # MIDI 1.0 Detailed Specification: CC124-127 (omni off/on, mono, poly) also turn all notes off
+    e, s = started()
+    s.feed(e.feed(0.0, ON(60)))
+    out = e.feed(0.1, CC(126, 1))        # mono on: must not reach the pool channels
+    s.feed(out)
+    assert {(m.control, m.value) for m in out} == {(123, 0)}
+    assert s.count() == 0 and e.sounding() == []

@@ -272,3 +272,46 @@ def test_random_streams_mts(events, profiles):
     voices.feed(end)
     assert voices.count() == 0 and not voices.problems
     assert e.sounding() == []
+
+
+def _any_message(raw):
+    """A channel or system message from raw bytes, or None when they do not parse."""
+    status, d1, d2, ch = raw
+    kind = (0x80, 0x90, 0xA0, 0xB0, 0xC0, 0xD0, 0xE0, 0xF8, 0xFA, 0xFC, 0xFF)[status % 11]
+    b = [kind | ch] if kind < 0xF0 else [kind]
+    if kind < 0xF0:
+        b += [d1] if kind in (0xC0, 0xD0) else [d1, d2]
+    try:
+        return mido.Message.from_bytes(b)
+    except ValueError:
+        return None
+
+
+RAW = st.tuples(st.integers(0, 10), st.integers(0, 127), st.integers(0, 127), st.integers(0, 15))
+
+
+@settings(max_examples=40, deadline=None)
+@given(raw=st.lists(RAW, min_size=20, max_size=300), mode=st.sampled_from(["pool", "mpe", "mts"]),
+       profile=st.sampled_from(["meantone-quarter", "holes", "edo31"]))
+def test_fuzz_any_messages_then_input_lost_leaves_nothing_sounding(raw, mode, profile):
+    """Any MIDI the input may send (every channel message type, any controller, RPNs,
+    mode messages, system reset): the engine never fails, every message it sends is
+    valid, and after the input is lost nothing the engine played keeps sounding."""
+    tu = PROFILES[profile]
+    e = Engine(tu, EngineConfig(mode=mode, pool=(0, 1, 2, 3), mpe_members=4))
+    s = SynthModel(mpe_manager=e.config.mpe_manager() if mode == "mpe" else None)
+    s.feed(e.start(0.0))
+    t = 0.0
+    for r in raw:
+        m = _any_message(r)
+        if m is None:
+            continue
+        t += 0.01
+        out = e.feed(t, m)
+        if m.type == "reset":
+            s = SynthModel(mpe_manager=s.mpe_manager)    # the synth was reset
+            out = out[1:]
+        s.feed([x for x in out if getattr(x, "channel", None) != 9])  # channel 10 is the player's own
+    s.feed(e.input_lost(t + 0.1))
+    assert not s.problems, s.problems
+    assert [(c, v.key) for c, v in s.sounding() if c != 9] == []
