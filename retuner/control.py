@@ -259,10 +259,10 @@ class ControlServer:
                                            "(a link, or owned by another user): refusing to use it")
                     os.chmod(path.parent, 0o700)
             self._remove_stale(path)
-            tmp = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}")
-            if len(os.fsencode(str(tmp))) > 107:
+            tmp = path.with_name(f".rt{os.getpid()}-{threading.get_ident() % 100000}")
+            if max(len(os.fsencode(str(tmp))), len(os.fsencode(str(path)))) > 107:
                 raise RetunerError("control socket path is too long for a Unix socket "
-                                   f"(at most 100 bytes): {path}")
+                                   f"(at most about 100 bytes): {path}")
             try:
                 os.unlink(tmp)
             except FileNotFoundError:
@@ -271,7 +271,12 @@ class ControlServer:
             try:
                 listener.bind(str(tmp))
                 os.chmod(tmp, 0o600)      # before the socket is reachable under its name
-                os.rename(tmp, path)
+                try:
+                    os.link(tmp, path)    # never replaces: a daemon that got there first keeps it
+                except FileExistsError:
+                    raise RetunerError(f"another daemon is already listening on {path}") from None
+                finally:
+                    os.unlink(tmp)
                 listener.listen(128)
                 listener.setblocking(False)
             except BaseException:
@@ -624,6 +629,7 @@ class ControlServer:
         done = 0
         ev_iter = iter(events)
         ev = next(ev_iter, None)
+        subs: Optional[list[_Client]] = None
         while ri < len(replies) or ev is not None:
             if ev is None or (ri < len(replies) and replies[ri][0] < ev[0]):
                 _, cid, line, subscribe = replies[ri]
@@ -641,9 +647,11 @@ class ControlServer:
                         with self._lock:
                             self.subscribers = max(0, self.subscribers - 1)
                     c.subscribed = True
+                    subs = None
                 touched.add(cid)
             else:
-                subs = [c for c in self._clients.values() if c.subscribed]
+                if subs is None:
+                    subs = [c for c in self._clients.values() if c.subscribed]
                 if subs:
                     try:
                         line = _encode({"event": ev[1].pop("event", "event"), **ev[1]})
