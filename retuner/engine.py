@@ -926,10 +926,11 @@ class Engine:
             chans = self.pool.channels if self.mode == "pool" else self._members
             for c in chans:
                 out += E.bend_range_rpn(c, self._range, config.whole_semitone_range)
-        if self.mode == "mpe" and (config.mpe_manager_range != old.mpe_manager_range or range_changed):
-            out += E.bend_range_rpn(self._manager, self._effective_range(config.mpe_manager_range),
-                                    config.whole_semitone_range)
-            self._send_manager_wheel(out)
+        if self.mode == "mpe":
+            if config.mpe_manager_range != old.mpe_manager_range or range_changed:
+                out += E.bend_range_rpn(self._manager, self._effective_range(config.mpe_manager_range),
+                                        config.whole_semitone_range)
+            self._send_manager_wheel(out)     # only if its value changed
         for c in self.pool.channels:
             ns = self.pool.notes[c]
             if ns:

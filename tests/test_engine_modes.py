@@ -230,3 +230,11 @@ def test_mts_release_all():
     assert out[0] == E.note_off(2, 60, 0)
     chans = {m.channel for m in out if m.type == "control_change" and m.control == 123}
     assert chans == {c for c in range(16) if c != 9}
+
+
+def test_mpe_reconfigure_wheel_range_rescales_manager_bend():
+    e, s = mpe()
+    s.feed(e.feed(0.0, WHEEL(2048)))          # a quarter of the wheel: 50 cents at 2 semitones
+    out = e.reconfigure(e.config.replace(wheel_range=4.0), 0.1)
+    s.feed(out)
+    assert s.bend[0] / 8192 * s.range[0] == pytest.approx(100.0, abs=200 / 16384)  # now 100 cents
