@@ -277,6 +277,7 @@ def run_plain(feed: Feed, fps: float = 20.0, frames: int = 0, out=None) -> None:
     import sys
     out = out or sys.stdout
     last = -1
+    last_text = None
     shown = 0
     while True:
         with feed.lock:
@@ -284,11 +285,14 @@ def run_plain(feed: Feed, fps: float = 20.0, frames: int = 0, out=None) -> None:
             connected = feed.state.connected
         if v != last:
             last = v
-            print("\n".join(feed.render(200, 1000)), file=out)
-            print("-" * 40, file=out, flush=True)
-            shown += 1
-            if frames and shown >= frames:
-                return
+            text = "\n".join(feed.render(200, 1000))
+            if text != last_text:          # counters arrive often; print only what looks different
+                last_text = text
+                print(text, file=out)
+                print("-" * 40, file=out, flush=True)
+                shown += 1
+                if frames and shown >= frames:
+                    return
         if not connected:
             return
         time.sleep(1.0 / fps)

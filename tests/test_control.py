@@ -571,3 +571,27 @@ def test_adaptive_on_starts_from_the_daemons_own_settings():
             assert rig.engine.config.adaptive.max_drift == 4.0
     finally:
         rig.close()
+
+
+def test_watch_plain_prints_a_frame_when_the_view_changes(rig):
+    import subprocess
+    import sys
+    rig.play(60, 64)
+    rig.wait_notes([60, 64])
+    p = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--socket", rig.path, "--plain",
+                          "--frames", "2"], stdout=subprocess.PIPE, text=True)
+    try:
+        end = time.monotonic() + 10
+        while rig.server.subscribers < 1:          # the view is subscribed
+            assert time.monotonic() < end
+            time.sleep(0.01)
+        rig.play(67)
+        out, _ = p.communicate(timeout=20)
+    finally:
+        if p.poll() is None:
+            p.kill()
+    assert p.returncode == 0
+    frames = [f for f in out.split("-" * 40) if f.strip()]
+    assert len(frames) == 2
+    assert "SOUNDING 2" in frames[0] and "G4" not in frames[0]
+    assert "SOUNDING 3" in frames[1] and "C4-G4" in frames[1]
