@@ -595,3 +595,31 @@ def test_watch_plain_prints_a_frame_when_the_view_changes(rig):
     assert len(frames) == 2
     assert "SOUNDING 2" in frames[0] and "G4" not in frames[0]
     assert "SOUNDING 3" in frames[1] and "C4-G4" in frames[1]
+
+
+def test_ctl_commands_against_the_server(rig):
+    import subprocess
+    import sys
+
+    def ctl(*args):
+        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", rig.path, *args],
+                              capture_output=True, text=True, timeout=30)
+    r = ctl("transpose", "10c")
+    assert r.returncode == 0 and "+10.00 c" in r.stdout, r.stdout + r.stderr
+    rig.play(69)
+    assert rig.wait_notes([69])[69] - load_profile("werckmeister-3").cents[69] == pytest.approx(10.0, abs=BEND_STEP)
+    r = ctl("transpose", "1.5")                     # neither whole semitones nor cents
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+    r = ctl("reference", "5000")                    # refused by the daemon: exit 2, one line
+    assert r.returncode == 2 and "reference" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    r = ctl("--json", "reference", "5000")
+    assert r.returncode == 2 and json.loads(r.stdout)["ok"] is False
+    r = ctl("profiles")
+    assert r.returncode == 0 and "werckmeister-3" in r.stdout and "vallotti" in r.stdout
+    r = ctl("adaptive", "on", "--set", "max_drift=4", "--set", "policy=fixed-held")
+    assert r.returncode == 0 and "adaptive on" in r.stdout
+    assert rig.engine.config.adaptive.max_drift == 4.0
+    r = ctl("adaptive", "on", "--set", "nonsense")
+    assert r.returncode == 2
+    r = ctl("status")
+    assert r.returncode == 0 and "adaptive    on" in r.stdout and "werckmeister-3" in r.stdout
