@@ -350,6 +350,12 @@ def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel
             return _int(v, w, fld, m, k, 1, 16)
         return _int(v, w, fld, m, k, -(2 ** 31), 2 ** 31)
     if hint is float:
+        if isinstance(v, str):          # a fraction such as 127/128
+            from fractions import Fraction
+            try:
+                v = float(Fraction(v.strip()))
+            except (ValueError, ZeroDivisionError):
+                raise w.err(f"expected a number or a fraction like 127/128, got {v!r}", fld, m, k) from None
         return _num(v, w, fld, m, k, float("-inf"), float("inf"))
     if hint is str:
         return _str(v, w, fld, m, k)

@@ -116,7 +116,7 @@ def test_flags_override_the_file(tmp_path):
     cfg.write_text("profile: vallotti\nbackend: alsa\ninput: Piano\n"
                    "engine: {pool: [1, 2, 3], bend_range: 12}\nswitch: {channel: 3}\n")
     args = build_parser().parse_args(["run", "--config", str(cfg), "--profile", "edo19", "--backend", "jack",
-                                      "--channels", "1-4,6", "--bend-scale", "0.9921875",
+                                      "--channels", "1-4,6", "--bend-scale", "127/128",
                                       "--control-channel", "16", "--virtual"])
     s = run_cmd._apply_flags(load_config(args.config), args)
     assert (s.profile, s.backend, s.input, s.virtual) == ("edo19", "jack", "Piano", True)
@@ -143,3 +143,14 @@ def test_unknown_profile_in_the_list_names_its_line(tmp_path):
     assert r.returncode == 2
     assert r.stderr.strip().splitlines() == [
         f"retuner: {cfg}:2: profiles[1]: unknown profile 'no-such-tuning'; 'retuner profiles' lists them"]
+
+
+def test_engine_section_numbers_and_fractions():
+    s = parse_config("engine:\n  bend_scale: 127/128\n  release_time: 1\n", "c.yaml")
+    assert s.engine["bend_scale"] == 127 / 128 and s.engine["release_time"] == 1.0
+    e = _err("engine:\n  bend_scale: a lot\n")
+    assert (e.line, e.field) == (2, "engine.bend_scale")
+    e = _err("engine:\n  mode: surround\n")
+    assert (e.line, e.field) == (2, "engine.mode")
+    e = _err("engine:\n  pool: [1, 10]\n")          # the engine's own rule: 10 is passed through
+    assert (e.line, e.field) == (2, "engine.pool")

@@ -49,6 +49,15 @@ def _channels(text: str) -> list[int]:
     return out
 
 
+def _number(text: str) -> float:
+    """A number or a fraction such as 127/128."""
+    from fractions import Fraction
+    try:
+        return float(Fraction(text.strip()))
+    except (ValueError, ZeroDivisionError):
+        raise argparse.ArgumentTypeError(f"expected a number or a fraction like 127/128, got {text!r}") from None
+
+
 def add_arguments(parser):
     parser.add_argument("--config", metavar="FILE",
                         help="YAML config (default: $XDG_CONFIG_HOME/retuner/config.yaml if it exists)")
@@ -67,8 +76,8 @@ def add_arguments(parser):
     g.add_argument("--bend-range", type=float, metavar="SEMITONES", help="pitch bend range (default 2)")
     g.add_argument("--release-time", type=float, metavar="SECONDS",
                    help="a channel rings this long after its last note-off (default 2)")
-    g.add_argument("--bend-scale", type=float, metavar="FACTOR",
-                   help="the synth plays a bend at FACTOR of its size (e.g. 127/128 = 0.9921875)")
+    g.add_argument("--bend-scale", type=_number, metavar="FACTOR",
+                   help="the synth plays a bend at FACTOR of its size (e.g. 127/128 for FluidSynth)")
     g.add_argument("--whole-semitones", action="store_true", default=None,
                    help="the synth ignores the cents part of the bend range")
     g.add_argument("--thru-channels", type=_channels, metavar="LIST",
