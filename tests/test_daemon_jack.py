@@ -479,3 +479,31 @@ def test_adaptive_chord_window_is_served_by_the_main_loop(jack_server, jack_clie
     # a lone major triad has a consistent just solution: 5/4 and 3/2 above the root (ratios -> cents here)
     assert abs((c[64] - c[60]) - 1200 * math.log2(5 / 4)) <= 2 * half_step(2)
     assert abs((c[67] - c[60]) - 1200 * math.log2(3 / 2)) <= 2 * half_step(2)
+
+
+def test_sighup_with_a_new_bend_range_keeps_sounding_notes_in_tune(jack_server, jack_client, tmp_path, runs):
+    cfg = tmp_path / "range.yaml"
+    cfg.write_text("profile: werckmeister-3\nengine: {bend_range: 2}\n")
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--config", str(cfg)], client=jack_client)
+    jack_client.send(mido.Message("note_on", note=63, velocity=80))
+    jack_client.wait_for(lambda r: len(note_ons(r)) >= 1)
+    cfg.write_text("profile: werckmeister-3\nengine: {bend_range: 12}\n")
+    run.daemon.signal(signal.SIGHUP)
+    run.notify.wait_for("READY=1", count=2)
+    # the new range is announced (RPN 0, data entry 12: MIDI 1.0) ...
+    recs = jack_client.wait_for(lambda r: any(x.msg.type == "control_change" and x.msg.control == 6
+                                              and x.msg.value == 12 for x in r))
+    d = decode(recs)
+    (held,) = d.stuck()
+    # ... and the held note, re-bent for it, still sounds at its pitch (MIDI 1.0: key + bend/8192 * range)
+    now = held.key * 100 + 100 * d.range[held.channel] * (d.bend.get(held.channel, 8192) - 8192) / 8192
+    assert held.key == 63 and abs(now - W3[63]) <= half_step(12)
+    assert d.bend[held.channel] != 8192          # Eb is 5.865 c above 12-EDO here: a real bend
+    # a new note uses the new range too
+    jack_client.send(mido.Message("note_on", note=61, velocity=80))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 2)
+    assert abs(decode(recs).notes[1].cents - W3[61]) <= half_step(12)
+    for k in (63, 61):
+        jack_client.send(mido.Message("note_off", note=k))
+    recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 2)
+    assert decode(recs).stuck() == []
