@@ -53,7 +53,7 @@ from typing import Iterable, Optional, Sequence
 import numpy as np
 
 from .errors import RetunerError
-from .tuning import NUM_KEYS, KEY_NAMES, Tuning, ratio_to_cents
+from .tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
 JUST_TARGETS: dict[int, Fraction] = {

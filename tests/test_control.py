@@ -28,7 +28,7 @@ from retuner.control import (COMMANDS, ControlClient, ControlServer, EngineContr
 from retuner.engine import Engine, EngineConfig
 from retuner.errors import RetunerError
 from retuner.profile import list_profiles, load_profile
-from retuner.tuning import hz_to_cents, ratio_to_cents
+from retuner.tuning import ratio_to_cents
 from fractions import Fraction
 
 BEND_STEP = 200.0 / 8192     # cents per bend step at the default range of 2 semitones (MIDI 1.0 spec)
