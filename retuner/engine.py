@@ -72,7 +72,8 @@ bend; polyphonic pressure becomes channel pressure on that member; sustain,
 sostenuto, the player's wheel, channel pressure, program change and other
 controllers go to the manager channel.
 
-``mts``: MIDI Tuning Standard. Notes stay on their input channels; the synth's
+``mts``: MIDI Tuning Standard. Notes stay on their input channels (a key
+struck again while still held on its channel is ended first); the synth's
 key table is tuned with single note tuning changes (see :mod:`retuner.mts`):
 all 128 keys at start, then, before any note-on whose key is not tuned to its
 target (after a profile switch while the key sounded, or in adaptive mode), one
@@ -502,7 +503,8 @@ class Engine:
         for n in ns:
             if n.down:
                 out.append(E.note_off(c, n.out_key, 0))
-                self._forget_fifo(n)
+                # it stays in its FIFO (dead): the player's note-off for it will come
+                # and must not be taken for a later press of the same key
             # a pedal down would keep the note sounding after its note-off
             if self._sustain.get(n.dom):
                 sus = True
@@ -689,6 +691,13 @@ class Engine:
                     self.pool.remove(n, t)
                     if hard and not self.pool.notes[c]:
                         self.pool.last_off[c] = NEG_INF
+        # the player's keyboard sends no note-offs for what it cleared: forget every
+        # press of this domain (stolen ones too), so no later note-off is mispaired
+        if self.mode == "mts":
+            for k in [k for k in self._fifo if k[0] == dom]:
+                del self._fifo[k]
+        else:
+            self._fifo.clear()
 
     def _input_rpn(self, ch: int, cc: int, value: int) -> bool:
         """Track the input's RPN selection; consume data entry for the RPNs the
@@ -783,6 +792,14 @@ class Engine:
         for n in notes:
             n.out_ch = n.in_ch
             n.out_key = n.in_key
+            # a key pressed again while still down on this channel (merged inputs): end the
+            # first press before striking again, so each note-off stops exactly one note;
+            # the first press stays in its FIFO, dead, to take the first note-off
+            for old in list(self.pool.notes[n.in_ch]):
+                if old.down and old.out_key == n.out_key:
+                    out.append(E.note_off(n.in_ch, n.out_key, 0))
+                    old.alive = False
+                    self.pool.remove(old, t)
             self.pool.add(n.in_ch, n, t)
             out.append(E.note_on(n.in_ch, n.in_key, n.velocity))
             self.stats["note_ons_out"] += 1

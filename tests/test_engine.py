@@ -767,3 +767,16 @@ def test_mode_messages_become_all_notes_off():
     s.feed(out)
     assert {(m.control, m.value) for m in out} == {(123, 0)}
     assert s.count() == 0 and e.sounding() == []
+
+
+def test_steal_keeps_note_off_pairing_for_repeated_presses():
+    """Two presses of one key (merged inputs), the second steals the first: the first
+    note-off belongs to the first press (first in, first out) and sends nothing; the
+    second note sounds until the second note-off."""
+    e, s = started(distinct_tuning(), pool=(0,))
+    s.feed(e.feed(0.0, ON(60)) + e.feed(0.1, ON(60)))
+    assert e.stats["steals"] == 1 and s.count() == 1
+    assert e.feed(0.2, OFF(60)) == []
+    assert s.count() == 1
+    s.feed(e.feed(0.3, OFF(60)))
+    assert s.count() == 0 and not s.problems

@@ -238,3 +238,13 @@ def test_mpe_reconfigure_wheel_range_rescales_manager_bend():
     out = e.reconfigure(e.config.replace(wheel_range=4.0), 0.1)
     s.feed(out)
     assert s.bend[0] / 8192 * s.range[0] == pytest.approx(100.0, abs=200 / 16384)  # now 100 cents
+
+
+def test_mts_key_struck_twice_is_ended_first():
+    e, _ = mts()
+    e.feed(0.0, ON(60))
+    out = e.feed(0.1, ON(60))                   # merged inputs: the same key again
+    assert out == [E.note_off(0, 60, 0), ON(60)]
+    assert e.feed(0.2, OFF(60)) == []           # the first press's note-off: already ended
+    assert e.feed(0.3, OFF(60)) == [OFF(60)]
+    assert e.sounding() == []

@@ -246,9 +246,7 @@ def test_random_streams_mts(events, profiles):
     start = e.start(0.0)
     s.feed(start)
     voices.feed(start)
-    # notes stay on the player's channels: a key pressed twice without release would be
-    # struck twice on the synth too, as the player sent it; leave that out here
-    perf, held, t_end = perform(events, double_press=False, panic_scope="channel")
+    perf, held, t_end = perform(events, panic_scope="channel")
     cur = [tunings[0]]
 
     def check(m, cents):
