@@ -37,6 +37,13 @@ and the steal policy; :mod:`retuner.encode` for the bend formula).
   sum is **clamped** to 0..16383 (a note already bent far by its tuning can then
   not follow the wheel all the way). Wheel changes are sent to busy and
   ringing channels; an idle channel gets the right value when next used.
+* Note-offs: each (input channel, key) keeps its presses first in, first out;
+  a note-off (or a note-on with velocity 0) ends the oldest press, on the
+  channel and key that press was sent on, whatever happened since (pedals,
+  repeated presses, profile switches). A stolen press keeps its place, so its
+  own note-off sends nothing; an all-notes-off or all-sound-off from the input
+  forgets every press (the keyboard sends no note-offs for what it cleared).
+  One key is never held twice on one channel.
 * The pool is one instrument: the wheel and the pedals are those last sent on
   any retuned input channel, and channel mode messages (all-notes-off,
   all-sound-off, reset-all-controllers) from any retuned input channel act on
