@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import enum
 import os
 import types
 import typing
@@ -359,9 +360,9 @@ def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel
         return _num(v, w, fld, m, k, float("-inf"), float("inf"))
     if hint is str:
         return _str(v, w, fld, m, k)
-    if isinstance(hint, type) and issubclass(hint, __import__("enum").Enum):
+    if isinstance(hint, type) and issubclass(hint, enum.Enum):
         try:
-            return hint(v).value if False else hint(v)
+            return hint(v)
         except ValueError:
             raise w.err(f"expected one of {', '.join(str(e.value) for e in hint)}, got {v!r}", fld, m, k) from None
     return v
