@@ -100,6 +100,15 @@ sound. Before each solve the solver is told which of its notes have ended
 (``solver.release(keys)``; it applies its own policy for silences), or, for a
 solver without ``release``, ``solver.reset()`` is called when nothing sounds. A
 note-off for a note still waiting in the window cancels it: nothing is sent.
+
+Note-offs and pedal changes (sustain, sostenuto) of the notes that sound are
+delayed by the same ``chord_window``: the new chord is delayed by up to the
+window, so the old one ends that much later too. Legato stays legato (no
+moment where a held common tone sounds alone between two chords that were
+played one into the other), pedalling keeps its order relative to the keys,
+and each note keeps its played length. Delayed events are applied in the order
+they arrived, each at its time plus the window; when a window closes at the
+same moment, they come first.
 """
 
 from __future__ import annotations
@@ -126,6 +135,7 @@ _MANAGED_RPNS = {E.RPN_PITCH_BEND_SENSITIVITY, E.RPN_TUNING_PROGRAM, E.RPN_TUNIN
                  E.RPN_MPE_CONFIGURATION}
 _DATA_CCS = (E.CC_DATA_ENTRY_MSB, E.CC_DATA_ENTRY_LSB, E.CC_DATA_INCREMENT, E.CC_DATA_DECREMENT)
 _NOTES_OFF_CCS = (E.CC_ALL_NOTES_OFF,) + E.CC_MODE_NOTES_OFF
+_PEDAL_CCS = (E.CC_SUSTAIN, E.CC_SOSTENUTO)
 
 
 @dataclass
@@ -266,6 +276,9 @@ class Engine:
         self._sent: dict[int, Optional[int]] = {c: None for c in range(16)}
         self._fifo: dict[tuple[int, int], deque] = {}
         self._pending: list[Note] = []
+        # adaptive mode: note-offs and pedal changes, delayed by the chord window
+        self._deferred: deque[tuple[float, int, Any, mido.Message]] = deque()   # (due, channel, note, msg)
+        self._now_applying = False
         self._deadline: Optional[float] = None
         self._sustain: dict[int, bool] = {}
         self._sostenuto: dict[int, bool] = {}
@@ -361,8 +374,7 @@ class Engine:
         """Messages to send for input ``msg`` arriving at ``t`` (seconds). A chord
         window that closed before ``t`` is flushed first, as of its deadline."""
         out: list[mido.Message] = []
-        if self._deadline is not None and t >= self._deadline:
-            self._flush(self._deadline, out)
+        self._run_timers(t, out)
         typ = msg.type
         ch = getattr(msg, "channel", None)
         if ch is None or ch in self._pass:
@@ -395,17 +407,55 @@ class Engine:
         return out
 
     def next_deadline(self) -> Optional[float]:
-        return self._deadline
+        d = self._deadline
+        if self._deferred:
+            due = self._deferred[0][0]
+            if d is None or due < d:
+                d = due
+        return d
 
     def tick(self, t: float) -> list[mido.Message]:
-        """Timers: flush the chord window once ``t`` reached its deadline. The
-        chord is placed as of the deadline, so a late tick changes nothing but
-        the moment the messages leave."""
+        """Timers: flush the chord window once ``t`` reached its deadline and
+        apply delayed note-offs and pedal changes that are due. Each is applied as
+        of its own time, so a late tick changes nothing but the moment the
+        messages leave."""
         out: list[mido.Message] = []
-        if self._deadline is not None and t >= self._deadline:
-            self._flush(self._deadline, out)
+        self._run_timers(t, out)
         self.stats["messages_out"] += len(out)
         return out
+
+    def _run_timers(self, t: float, out: list) -> None:
+        """Everything due by ``t``, in time order; delayed events before a window
+        that closes at the same moment."""
+        while True:
+            due = self._deferred[0][0] if self._deferred else None
+            win = self._deadline
+            if due is not None and due <= t and (win is None or due <= win):
+                self._apply_one_deferred(out)
+            elif win is not None and win <= t:
+                self._flush(win, out)
+            else:
+                return
+
+    def _apply_one_deferred(self, out: list) -> None:
+        due, ch, note, msg = self._deferred.popleft()
+        if note is None:
+            self._now_applying = True
+            try:
+                self._control(due, ch, msg, out)
+            finally:
+                self._now_applying = False
+        else:
+            self._release(due, note, msg, out)
+
+    def _apply_deferred(self, out: list) -> None:
+        """Apply every delayed event now (adaptive mode ends, the input is lost)."""
+        while self._deferred:
+            self._apply_one_deferred(out)
+
+    @property
+    def _delaying(self) -> bool:
+        return self._solver is not None and self._window > 0
 
     # ------------------------------------------------------------------ helpers
     def _dom(self, ch: int) -> int:
@@ -551,6 +601,9 @@ class Engine:
         note = q.popleft()
         if not q:
             del self._fifo[(ch, key)]
+        if self._delaying and not note.pending and note.alive:
+            self._deferred.append((t + self._window, ch, note, msg))
+            return
         self._release(t, note, msg, out)
 
     def _release(self, t: float, note: Note, msg: Optional[mido.Message], out: list) -> None:
@@ -610,6 +663,9 @@ class Engine:
             sel_consumed = self._input_rpn(ch, cc, msg.value)
             if sel_consumed:
                 return
+        if cc in _PEDAL_CCS and self._delaying and not self._now_applying:
+            self._deferred.append((t + self._window, ch, None, msg))
+            return
         if cc == E.CC_SUSTAIN:
             down = msg.value >= E.PEDAL_ON
             out += self._zone(dom, msg) if self.mode != "mts" else [msg]
@@ -633,14 +689,14 @@ class Engine:
                         n.sost = False
         elif cc == E.CC_ALL_SOUND_OFF:
             out += self._mode_targets(dom, msg)
-            self._silence(t, dom, hard=True)
+            self._silence(t, dom, True, out)
         elif cc in _NOTES_OFF_CCS:
             if cc != E.CC_ALL_NOTES_OFF and self.mode != "mts":
                 # omni/mono/poly mode changes would break the output channels: only their
                 # all-notes-off effect (MIDI 1.0) reaches the synth, as CC123
                 msg = E.control_change(ch, E.CC_ALL_NOTES_OFF, 0)
             out += self._mode_targets(dom, msg)
-            self._silence(t, dom, hard=False)
+            self._silence(t, dom, False, out)
         elif cc == E.CC_RESET_ALL_CONTROLLERS:
             out += self._mode_targets(dom, msg)
             self._rpn_sel.pop(ch, None)
@@ -674,7 +730,7 @@ class Engine:
             return [msg]
         return E.on_channels(msg, self._all_channels())
 
-    def _silence(self, t: float, dom: int, hard: bool) -> None:
+    def _silence(self, t: float, dom: int, hard: bool, out: list) -> None:
         """All-sound-off (hard) or all-notes-off for pedal domain ``dom``."""
         for n in list(self._pending):
             if n.dom == dom:
@@ -684,6 +740,7 @@ class Engine:
                 self._forget_fifo(n)
         if not self._pending:
             self._deadline = None
+        self._deferred = deque(d for d in self._deferred if d[2] is None or d[2].dom != dom)
         for c in self.pool.channels:
             ns = self.pool.notes[c]
             for n in list(ns):
@@ -904,8 +961,10 @@ class Engine:
         """Turn adaptive mode on (``cfg`` an AdaptiveConfig), change it, or off (None).
         Notes waiting in the chord window are sounded first."""
         out: list[mido.Message] = []
+        self._apply_deferred(out)
         if self._pending:
             self._flush(t, out)
+        self._apply_deferred(out)
         self.config = dataclasses.replace(self.config, adaptive=cfg)
         if cfg is None:
             self._solver = None
@@ -982,6 +1041,7 @@ class Engine:
             n.alive = False
             n.pending = False
         self._pending = []
+        self._deferred.clear()     # their notes are still sounding: released below
         self._deadline = None
         for n in self._sounding_notes():
             if n.down:
@@ -1021,6 +1081,7 @@ class Engine:
             n.pending = False
         self._pending = []
         self._deadline = None
+        self._apply_deferred(out)
         fifo = self._fifo
         self._fifo = {}
         for q in fifo.values():
@@ -1046,6 +1107,7 @@ class Engine:
             n.alive = False
             n.pending = False
         self._pending = []
+        self._deferred.clear()
         self._deadline = None
         for n in self.pool.clear(None):
             n.alive = False

@@ -566,7 +566,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     through the live engine). The planner's one free trade-off, the price of motion against
     impurity (``motion_value``), starts at ``MOTION_VALUE`` and is bisected (at most
     ``MAX_PLANS`` plans): a plan worse than live on impurity lowers the price of motion, one
-    worse on motion raises it. The first plan no worse than live on impurity, motion and drift
+    worse on motion raises it; a plan worse on drift alone halves the drift it aims at. The first plan no worse than live on impurity, motion and drift
     (measured from the output files) is taken; if none is, the plan with the lowest
     ``motion + drift + 10 * impurity`` among those no worse on impurity (else among all), and the
     summary says so."""
@@ -575,8 +575,9 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     best = None
     lo, hi = MOTION_LOW, MOTION_HIGH
     mv = MOTION_VALUE
+    da = DRIFT_AIM
     for _ in range(MAX_PLANS):
-        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv)
+        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_aim=da)
         outs = render(plan)
         m = measure_outputs(outs, config)
         tried.append((mv, m, outs))
@@ -585,7 +586,10 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
             break
         worse_imp = m["impurity_cents"] > live["impurity_cents"] + 1e-3
         worse_mot = m["motion_cents_per_note"] > live["motion_cents_per_note"] + 1e-3
-        if worse_imp and not worse_mot:
+        worse_drift = m["drift_max_cents"] > live["drift_max_cents"] + 1e-3
+        if worse_drift and not worse_imp and not worse_mot:
+            da /= 2.0       # plan the centre closer to the reference
+        elif worse_imp and not worse_mot:
             hi, mv = mv, (lo + mv) / 2.0
         elif worse_mot and not worse_imp:
             lo, mv = mv, (mv + hi) / 2.0
@@ -598,7 +602,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
         best = min(pool, key=lambda t: t[1]["motion_cents_per_note"] + t[1]["drift_max_cents"]
                    + 10.0 * t[1]["impurity_cents"])
     mv, m, outs = best
-    summary = {"motion_value": round(mv, 4), "beats_live": beat, "plans_tried": len(tried),
+    summary = {"motion_value": round(mv, 4), "drift_aim": round(da, 4), "beats_live": beat, "plans_tried": len(tried),
                "live": {k: round(v, 4) for k, v in live.items()},
                "lookahead": {k: round(v, 4) for k, v in m.items()}}
     return Chosen(outs, summary)

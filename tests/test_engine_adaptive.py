@@ -206,6 +206,7 @@ def test_misbehaving_solver_never_loses_a_note(monkeypatch, cls):
         assert abs(s.pitch(c, v) - 100.0 * v.key) <= 200 / 16384
     for k in (60, 64, 67, 72):
         s.feed(e.feed(0.5, OFF(k)))
+    s.feed(e.tick(0.5 + 0.02))   # adaptive mode delays note-offs by the chord window
     assert s.count() == 0 and not s.problems
 
 
@@ -230,3 +231,57 @@ def test_late_tick_gives_the_same_output(monkeypatch):
         # at the deadline 0.52 the only channel still rings (released at 0.1): a ringing retune
         assert e.stats["ringing_retunes"] == 1
     assert outs[0] == outs[1]
+
+
+def test_legato_chord_change_never_leaves_a_common_tone_alone(fake):
+    """Note-offs are delayed by the chord window like the note-ons they make way for:
+    a chord played into the next one at the same moment changes in one step at the
+    window's close, note-offs first (common practice: legato means no gap)."""
+    e, s = engine()
+    for k in (60, 64, 67):
+        s.feed(e.feed(0.0, ON(k)))
+    s.feed(e.tick(0.02))
+    # at 1.0 s the player lifts E and G and plays F and A; C is held (I -> IV6/4)
+    t = 1.0
+    assert e.feed(t, OFF(64)) == [] and e.feed(t, OFF(67)) == []
+    assert e.feed(t, ON(65)) == [] and e.feed(t, ON(69)) == []
+    assert e.next_deadline() == pytest.approx(t + 0.02)
+    assert sorted(v.key for _, v in s.sounding()) == [60, 64, 67]   # nothing changed yet
+    out = e.tick(t + 0.02)
+    kinds = [(m.type, m.note) for m in out if m.type in ("note_on", "note_off")]
+    assert kinds[:2] == [("note_off", 64), ("note_off", 67)]
+    assert sorted(k for typ, k in kinds[2:]) == [65, 69]
+    s.feed(out)
+    assert sorted(v.key for _, v in s.sounding()) == [60, 65, 69]
+
+
+def test_release_gap_is_kept_and_pedal_order_kept(fake):
+    """A note-off 5 ms before the next note-on stays 5 ms before it; a pedal pressed
+    after a key was let go does not catch that key (events keep their order)."""
+    e, s = engine()
+    s.feed(e.feed(0.0, ON(60)))
+    s.feed(e.tick(0.02))
+    s.feed(e.feed(0.500, OFF(60)))
+    assert e.next_deadline() == pytest.approx(0.52)
+    sus_on = mido_cc(64, 127)
+    s.feed(e.feed(0.505, sus_on))
+    s.feed(e.feed(0.505, ON(62)))
+    out = e.tick(0.52)
+    assert [(m.type, m.note) for m in out if m.type.startswith("note")] == [("note_off", 60)]
+    s.feed(out)
+    out = e.tick(0.525)
+    assert [m for m in out if m.type == "control_change" and m.control == 64]   # pedal, then the chord
+    s.feed(out)
+    assert [v.key for _, v in s.sounding()] == [62]
+    # with the pedal down, the next release keeps its note (sustained) until the pedal lifts
+    s.feed(e.feed(1.0, OFF(62)))
+    s.feed(e.tick(1.02))
+    assert [v.key for _, v in s.sounding()] == [62]
+    s.feed(e.feed(1.5, mido_cc(64, 0)))
+    s.feed(e.tick(1.52))
+    assert s.count() == 0
+
+
+def mido_cc(control, value, channel=0):
+    import mido
+    return mido.Message("control_change", channel=channel, control=control, value=value)
