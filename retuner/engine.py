@@ -154,7 +154,7 @@ class EngineConfig:
     share_channels: bool = True              # static tunings: notes with the same bend share
     # MPE
     mpe_zone: str = "lower"                  # lower (manager channel 1) | upper (manager 16)
-    mpe_members: int = 15                    # member channels in the zone
+    mpe_members: Optional[int] = None        # member channels in the zone; None: up to the first passthrough channel
     mpe_member_range: float = 48.0           # semitones
     mpe_manager_range: float = 2.0           # semitones
     # MIDI Tuning Standard
@@ -203,7 +203,8 @@ class EngineConfig:
             raise bad("the bend scale must be between 0.5 and 2", "bend_scale")
         if self.mpe_zone not in ("lower", "upper"):
             raise bad("the MPE zone is 'lower' or 'upper'", "mpe_zone")
-        if not (1 <= self.mpe_members <= 15):
+        if self.mpe_members is not None and (isinstance(self.mpe_members, bool) or not isinstance(self.mpe_members, int)
+                                             or not 1 <= self.mpe_members <= 15):
             raise bad("an MPE zone has 1..15 member channels", "mpe_members")
         if not (0 < self.mpe_member_range <= 127):
             raise bad("the MPE member bend range must be 1..127 semitones", "mpe_member_range")
@@ -223,10 +224,26 @@ class EngineConfig:
     def mpe_manager(self) -> int:
         return 0 if self.mpe_zone == "lower" else 15
 
+    def mpe_member_count(self) -> int:
+        """The zone's member count: as set, or by default every channel from the
+        manager's neighbour up to (not including) the first passthrough channel, so
+        drums on channel 10 stay outside the zone: lower zone 2..9 (8 members),
+        upper zone 15..11 (5 members); 15 with no passthrough channel."""
+        if self.mpe_members is not None:
+            return self.mpe_members
+        order = range(1, 16) if self.mpe_zone == "lower" else range(14, -1, -1)
+        n = 0
+        for c in order:
+            if c in self.passthrough:
+                break
+            n += 1
+        return max(n, 1)
+
     def mpe_member_channels(self) -> list[int]:
+        n = self.mpe_member_count()
         if self.mpe_zone == "lower":
-            return list(range(1, 1 + self.mpe_members))
-        return list(range(14, 14 - self.mpe_members, -1))
+            return list(range(1, 1 + n))
+        return list(range(14, 14 - n, -1))
 
     def replace(self, **kw) -> "EngineConfig":
         return dataclasses.replace(self, **kw)

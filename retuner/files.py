@@ -723,7 +723,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
             pair = parts[i:i + 2]
             if len(pair) == 1:
                 out.append((pair, {pair[0]: config if len(parts) == 1 else
-                                   config.replace(mpe_zone="lower", mpe_members=min(config.mpe_members, 7))}))
+                                   config.replace(mpe_zone="lower", mpe_members=min(config.mpe_member_count(), 7))}))
             else:
                 out.append((pair, {pair[0]: config.replace(mpe_zone="lower", mpe_members=7),
                                    pair[1]: config.replace(mpe_zone="upper", mpe_members=7)}))

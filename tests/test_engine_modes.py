@@ -39,7 +39,7 @@ def rpn_values(out, channel):
 
 
 def test_mpe_start_lower_zone():
-    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe"))
+    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe", passthrough=()))
     out = e.start(0.0)
     # MPE specification (The MIDI Association, 2018): the MPE Configuration Message is
     # RPN 6 on the manager channel (channel 1 = lower zone), data entry MSB = member count.
@@ -48,6 +48,19 @@ def test_mpe_start_lower_zone():
     for c in range(1, 16):
         assert rpn_values(out, c)[(0, 0)] == 48
     assert rpn_values(out, 0)[(0, 0)] == 2
+
+
+@pytest.mark.parametrize("zone,members,manager", [("lower", list(range(1, 9)), 0),
+                                                  ("upper", list(range(14, 9, -1)), 15)])
+def test_mpe_default_zone_leaves_drum_channel_outside(zone, members, manager):
+    """With the default passthrough channel 10 (drums), the zone stops short of it, so an
+    MPE synth never takes drum notes for member notes: lower zone members 2..9, upper 15..11."""
+    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe", mpe_zone=zone))
+    out = e.start(0.0)
+    assert [m.bytes() for m in out[:3]] == [[0xB0 | manager, 101, 0], [0xB0 | manager, 100, 6],
+                                           [0xB0 | manager, 6, len(members)]]
+    assert [c for c in range(16) if rpn_values(out, c).get((0, 0)) == 48] == sorted(members)
+    assert 9 not in e.config.mpe_member_channels()
 
 
 def test_mpe_start_upper_zone():
