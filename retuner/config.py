@@ -402,7 +402,10 @@ def engine_config(settings: Settings):
         if k == "adaptive" and v is not None:
             from .adaptive import AdaptiveConfig
             try:
-                v = AdaptiveConfig(**v)
+                v = AdaptiveConfig.from_dict(v, file=settings.source)
+            except RetunerError as exc:
+                exc.field = "engine." + (exc.field or "adaptive")
+                raise
             except (TypeError, ValueError) as exc:
                 raise RetunerError(f"bad adaptive settings: {exc}", file=settings.source,
                                    field="engine.adaptive") from None

@@ -128,10 +128,14 @@ def test_flags_override_the_file(tmp_path):
     # channels are 1-based for the user, 0-based in the engine (mido's numbering)
     assert ec.pool == (0, 1, 2, 3, 5) and ec.bend_range == 12.0
     # a bad flag value is one line naming the option
-    args = build_parser().parse_args(["run", "--mode", "surround"])
+    with pytest.raises(SystemExit) as ei:
+        build_parser().parse_args(["run", "--mode", "surround"])
+    assert ei.value.code == 2
+    # a value the parser lets through but the engine refuses names its option
+    args = build_parser().parse_args(["run", "--channels", "1-10"])
     with pytest.raises(RetunerError) as ei:
-        run_cmd._apply_flags(Settings(), args)
-    assert ei.value.field == "--mode"
+        engine_config(run_cmd._apply_flags(Settings(), args))
+    assert ei.value.field == "engine.pool"
 
 
 def test_unknown_profile_in_the_list_names_its_line(tmp_path):

@@ -35,7 +35,7 @@ def run(args) -> int:
     from .. import files, report
     from ..engine import EngineConfig
     from ..profile import load_profile
-    from .convert import _channels_or_none
+    from ._engine_options import channel_list as _channels_or_none
 
     names = [n.strip() for n in args.profiles.split(",") if n.strip()]
     if not names:

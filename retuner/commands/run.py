@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import argparse
 import sys
 
 from .. import config as _config
 from ..errors import RetunerError
 from ._common import add_profiles_dir
+from ._engine_options import add_engine_arguments, engine_overrides
 
 NAME = "run"
 HELP = "retune live: read a MIDI port, play the tuning on another (the daemon)"
@@ -18,45 +18,6 @@ DESCRIPTION = (
     "below override it. A side (input or output) without a port name gets a port of our own "
     "(ALSA: retuner:in and retuner:out; JACK: retuner-in:in and retuner-out:out). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
     "release every note and stop. Channels are 1..16.")
-
-# command-line option -> engine setting (a field of retuner.engine.EngineConfig)
-ENGINE_OPTIONS = {
-    "mode": "mode",
-    "channels": "pool",
-    "bend_range": "bend_range",
-    "release_time": "release_time",
-    "bend_scale": "bend_scale",
-    "whole_semitones": "whole_semitone_range",
-    "thru_channels": "passthrough",
-}
-
-
-def _channels(text: str) -> list[int]:
-    """'1-9,11-16' -> [1..9, 11..16] (1-based, as the user sees channels)."""
-    out: list[int] = []
-    for part in text.split(","):
-        part = part.strip()
-        if not part:
-            continue
-        if "-" in part:
-            a, b = part.split("-", 1)
-            lo, hi = int(a), int(b)
-            out.extend(range(lo, hi + 1))
-        else:
-            out.append(int(part))
-    if not out or any(not 1 <= c <= 16 for c in out):
-        raise argparse.ArgumentTypeError("channels are 1..16, e.g. 1-9,11-16")
-    return out
-
-
-def _number(text: str) -> float:
-    """A number or a fraction such as 127/128."""
-    from fractions import Fraction
-    try:
-        return float(Fraction(text.strip()))
-    except (ValueError, ZeroDivisionError):
-        raise argparse.ArgumentTypeError(f"expected a number or a fraction like 127/128, got {text!r}") from None
-
 
 def add_arguments(parser):
     parser.add_argument("--config", metavar="FILE",
@@ -69,19 +30,6 @@ def add_arguments(parser):
     parser.add_argument("--virtual", action="store_true", default=None,
                         help="create our own input and output ports, ignoring port names in the config")
     parser.add_argument("--client-name", metavar="NAME", help="base of our client names (default retuner)")
-    g = parser.add_argument_group("engine")
-    g.add_argument("--mode", help="pool (per-note bend on a channel pool), mpe or mts")
-    g.add_argument("--channels", type=_channels, metavar="LIST",
-                   help="pool channels, e.g. 1-9,11-16 (default: all but 10)")
-    g.add_argument("--bend-range", type=float, metavar="SEMITONES", help="pitch bend range (default 2)")
-    g.add_argument("--release-time", type=float, metavar="SECONDS",
-                   help="a channel rings this long after its last note-off (default 2)")
-    g.add_argument("--bend-scale", type=_number, metavar="FACTOR",
-                   help="the synth plays a bend at FACTOR of its size (e.g. 127/128 for FluidSynth)")
-    g.add_argument("--whole-semitones", action="store_true", default=None,
-                   help="the synth ignores the cents part of the bend range")
-    g.add_argument("--thru-channels", type=_channels, metavar="LIST",
-                   help="input channels passed through untouched (default 10)")
     parser.add_argument("--control-channel", type=int, metavar="CH", choices=range(1, 17),
                         help="program change N on this channel selects the N-th profile of the config")
     parser.add_argument("--control-socket", metavar="PATH",
@@ -90,6 +38,7 @@ def add_arguments(parser):
     parser.add_argument("--status-interval", type=float, metavar="MINUTES",
                         help="minutes between status lines (0: none; default 10)")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="log every event (debug)")
+    add_engine_arguments(parser)
 
 
 def _apply_flags(s: _config.Settings, args) -> _config.Settings:
@@ -102,11 +51,7 @@ def _apply_flags(s: _config.Settings, args) -> _config.Settings:
         s.profile_dirs = list(s.profile_dirs) + list(args.profiles_dir)
     if args.virtual:
         s.virtual = True
-    eng = {}
-    for opt, fld in ENGINE_OPTIONS.items():
-        v = getattr(args, opt, None)
-        if v is not None:
-            eng[fld] = v
+    eng = engine_overrides(args, adaptive_in_force=s.engine.get("adaptive"))
     if eng:
         checked = _config.check_engine_settings(eng, prefix="--")
         s.engine = {**s.engine, **checked}
