@@ -134,6 +134,12 @@ class Daemon:
         self._lost_logged = {"input": False, "output": False}
         self._ab_last = 0
         self._last_out = float("-inf")
+        # what was sent lately, for the status line's impurity, motion and drift (measured from
+        # the output, as 'retuner convert --report' does)
+        from .metrics import StreamWindow
+        self.recent = StreamWindow()
+        self._figures: Optional[dict] = None
+        self._figures_busy = False
         self._bad_input = 0
         self._errors = 0
         self.running = False
@@ -158,6 +164,8 @@ class Daemon:
             if debug:
                 log.debug("no output: dropped %d messages", len(messages))
             return
+        now = time.monotonic()
+        recent = self.recent
         for m in messages:
             try:
                 outp.send(m)
@@ -165,9 +173,10 @@ class Daemon:
                 self._errors += 1
                 log.warning("sending %s failed: %s", m, exc)
                 return
+            recent.add(now, m)
             if debug:
                 log.debug("out %s", m)
-        self._last_out = time.monotonic()
+        self._last_out = now
 
     # ------------------------------------------------------------------ ports
     def _client(self, side: str) -> str:
@@ -417,9 +426,6 @@ class Daemon:
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
                  f"{st.get('ringing_retunes', 0)} ringing retunes"]
-        for k in ("impurity", "drift"):
-            if k in st and st[k] is not None:
-                parts.append(f"{k} {st[k]:.2f} c" if isinstance(st[k], float) else f"{k} {st[k]}")
         try:
             parts.append(f"{len(self.engine.sounding())} sounding")
         except Exception:  # pragma: no cover
@@ -429,6 +435,34 @@ class Daemon:
         if self._errors:
             parts.append(f"{self._errors} errors")
         return ", ".join(parts)
+
+    def _status_line(self) -> None:
+        """Log the status line, then a second one with impurity, motion and drift measured from
+        the recent output (as 'retuner convert --report' measures a file). Decoding takes a
+        while, so it runs in a thread of its own: the engine thread never waits for it."""
+        log.info("status: %s", self._status_text())
+        if self._figures_busy or not len(self.recent):
+            return
+        stream = self.recent.snapshot()
+        cfg = self.engine.config
+        kw = {"bend_scale": cfg.bend_scale, "bend_range": self.engine.bend_range_cents / 100.0,
+              "exclude_channels": tuple(cfg.passthrough)}
+        self._figures_busy = True
+
+        def measure():
+            try:
+                from .metrics import report
+                fig = self._figures = report(stream, **kw)
+                if fig.get("notes"):
+                    log.info("status: last %d notes: impurity %.2f c, motion %.2f c/note, drift max %.2f c, "
+                             "final %.2f c", fig["notes"], fig["impurity_cents"], fig["motion_cents_per_note"],
+                             fig["drift_max_cents"], fig["drift_final_cents"])
+            except Exception:  # noqa: BLE001 - figures are a nicety; never disturb the daemon
+                log.debug("measuring the recent output failed", exc_info=True)
+            finally:
+                self._figures_busy = False
+
+        threading.Thread(target=measure, name="retuner-figures", daemon=True).start()
 
     def status(self) -> dict:
         """For the control socket's status command."""
@@ -535,7 +569,7 @@ class Daemon:
                 self.notifier.watchdog()
                 next_wd = now + wd_interval
             if next_status is not None and now >= next_status:
-                log.info("status: %s", self._status_text())
+                self._status_line()
                 status_every = self.settings.status_interval * 60.0   # a reload may change it
                 next_status = now + status_every if status_every > 0 else None
 

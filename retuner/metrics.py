@@ -376,3 +376,44 @@ def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tun
             notes = [NoteTrack(key_map.get(n.key, n.key), n.channel, n.start, n.end, n.steps) for n in notes]
         out["worst_error_cents"] = round(worst_error(notes, tuning), 6)
     return out
+
+
+class StreamWindow:
+    """The most recent part of an output stream, for figures while it is being played.
+
+    Keeps the last ``size`` messages with their times, and the channel state they start
+    from (each channel's last pitch bend and the last MIDI Tuning Standard messages before
+    the window), so :meth:`snapshot` decodes as the synth heard it. Appending is cheap
+    (the daemon does it for every message it sends); decoding happens in :meth:`report`,
+    which the daemon calls off its engine thread.
+    """
+
+    def __init__(self, size: int = 20000, sysex_kept: int = 64):
+        from collections import deque
+        self._msgs: "deque[tuple[float, mido.Message]]" = deque()
+        self._size = size
+        self._bends: dict[int, mido.Message] = {}
+        self._sysex: "deque[mido.Message]" = deque(maxlen=sysex_kept)
+
+    def add(self, t: float, msg: mido.Message) -> None:
+        self._msgs.append((t, msg))
+        if len(self._msgs) > self._size:
+            _, old = self._msgs.popleft()
+            if old.type == "pitchwheel":
+                self._bends[old.channel] = old
+            elif old.type == "sysex":
+                self._sysex.append(old)
+
+    def __len__(self) -> int:
+        return len(self._msgs)
+
+    def snapshot(self) -> list[tuple[float, mido.Message]]:
+        """The window as a stream that starts from the right channel state."""
+        msgs = list(self._msgs)
+        t0 = msgs[0][0] if msgs else 0.0
+        head = [(t0, m) for m in self._sysex] + [(t0, m) for _, m in sorted(self._bends.items())]
+        return head + msgs
+
+    def report(self, **kw) -> dict:
+        """:func:`report` of the window (keyword arguments as there)."""
+        return report(self.snapshot(), **kw)

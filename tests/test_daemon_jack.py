@@ -20,6 +20,7 @@ import json
 import math
 import os
 import random
+import re
 import signal
 import statistics
 import time
@@ -507,3 +508,42 @@ def test_sighup_with_a_new_bend_range_keeps_sounding_notes_in_tune(jack_server, 
         jack_client.send(mido.Message("note_off", note=k))
     recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 2)
     assert decode(recs).stuck() == []
+
+
+def test_live_adaptive_flag_tunes_a_progression_and_reports_figures(jack_server, jack_client, tmp_path, runs):
+    """`retuner run --adaptive` through real ports: chords played with human spread come out
+    just (5/4 = 386.314 c and 3/2 = 701.955 c above the root: common practice), and the status
+    line reports impurity, motion and drift measured from what the daemon sent."""
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--adaptive", "--status-interval", "0.02"],
+                client=jack_client)
+    rng = random.Random(21)
+    total = 0
+    for chord in ([60, 64, 67], [60, 65, 69], [59, 62, 67], [60, 64, 67]):   # I - IV6/4 - V6 - I
+        play_chord(jack_client, chord, rng, spread=(0.002, 0.006))
+        total += len(chord)
+        jack_client.wait_for(lambda r, n=total: len(note_ons(r)) >= n)
+        time.sleep(0.2)
+        release(jack_client, chord, rng)
+        jack_client.wait_for(lambda r, n=total: len(note_offs(r)) >= n)
+    d = decode(jack_client.messages())
+    assert d.stuck() == []
+    assert len(d.notes) == total
+    # every interval inside each chord is a just one: 6/5, 5/4, 4/3, 3/2, 8/5, 5/3 (common practice)
+    just = [1200 * math.log2(r) for r in (6 / 5, 5 / 4, 4 / 3, 3 / 2, 8 / 5, 5 / 3)]
+    notes = sorted(d.notes, key=lambda n: n.t_on)
+    for i in range(0, total, 3):
+        c = sorted(n.cents for n in notes[i:i + 3])
+        for a, b in ((c[0], c[1]), (c[1], c[2]), (c[0], c[2])):
+            assert min(abs((b - a) - j) for j in just) <= 2 * half_step(2), (i, c)
+    # the first chord (C-E-G from silence) is exactly 4:5:6 within the bend resolution
+    first = {n.key: n.cents for n in d.notes[:3]}
+    assert abs((first[64] - first[60]) - 1200 * math.log2(5 / 4)) <= 2 * half_step(2)
+    assert abs((first[67] - first[60]) - 1200 * math.log2(3 / 2)) <= 2 * half_step(2)
+    end = time.monotonic() + 15
+    while "impurity" not in run.daemon.log() and time.monotonic() < end:
+        time.sleep(0.1)
+    line = next(l for l in run.daemon.log().splitlines() if "impurity" in l)
+    m = re.search(r"last (\d+) notes: impurity ([\d.]+) c, motion ([\d.]+) c/note, drift max ([\d.]+) c", line)
+    assert m, line
+    assert int(m.group(1)) == total
+    assert float(m.group(2)) < 1.0          # just chords: far below 12-EDO's ~14 c thirds
