@@ -30,11 +30,31 @@ def add_arguments(parser):
     parser.add_argument("--clock", choices=("wall", "cpu"), default="wall",
                         help="time each event by the wall clock (default) or by this thread's CPU time "
                              "(steadier on a busy machine)")
+    parser.add_argument("--files", action="store_true",
+                        help="measure file conversion instead: a generated file of about 100 000 events "
+                             "against mido loading and saving it, and a batch with 1..N worker processes")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
     add_profiles_dir(parser)
 
 
+def _files_bench(args) -> int:
+    from ..files import convert_speed_bench
+    figs = convert_speed_bench(profile=args.profile, batch_events=40_000)
+    if args.json:
+        print_json(figs)
+        return 0
+    print(f"convert {figs['events']} events ({figs['profile']}): {figs['convert_s']:.3f} s; "
+          f"mido load+save {figs['mido_load_save_s']:.3f} s; ratio {figs['ratio']:.2f} (goal <= 2); "
+          f"{figs['events_per_s']} events/s")
+    b = figs["batch"]
+    runs = ", ".join(f"{j} worker(s) {t:.2f} s (x{b['speedup'][j]:.2f})" for j, t in b["seconds_by_jobs"].items())
+    print(f"batch of {b['files']} files x {b['events_per_file']} events on {b['cpus']} CPUs: {runs}")
+    return 0
+
+
 def run(args) -> int:
+    if args.files:
+        return _files_bench(args)
     tuning = load_profile(args.profile, args.profiles_dir)
     adaptive = None
     if args.adaptive:
