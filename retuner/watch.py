@@ -40,6 +40,16 @@ INTERVALS: dict[int, tuple[str, Fraction]] = {
 CONSONANT = {0, 3, 4, 5, 7, 8, 9}
 
 
+def compound_name(name: str, octaves: int) -> str:
+    """Interval name with octaves added, as musicians name them: P1 + 1 octave = P8, M3 + 1
+    octave = M10, P5 + 1 octave = P12; wider ones as 'P5+2oct' (common practice)."""
+    if octaves == 0:
+        return name
+    if octaves == 1 and name != "TT":
+        return f"{name[0]}{int(name[1:]) + 7}"
+    return f"{name}+{octaves}oct"
+
+
 @dataclass
 class IntervalRow:
     low: int
@@ -68,8 +78,7 @@ def interval_rows(notes: list[dict]) -> list[IntervalRow]:
             dev = size - ratio_to_cents(ratio)
             f1, f2 = cents_to_hz(lo["cents"]), cents_to_hz(hi["cents"])
             beats = beat_rate(f1, f2, ratio.numerator, ratio.denominator)
-            if octaves:
-                name = f"{name}+{octaves}o"
+            name = compound_name(name, octaves)
             rows.append(IntervalRow(lo["key"], hi["key"], name, size, ratio, dev, beats, d % 12 in CONSONANT))
     rows.sort(key=lambda r: (r.low, r.high))
     return rows

@@ -55,7 +55,7 @@ def test_pure_triad_does_not_beat_and_compound_intervals_use_their_ratio():
     rows = {(r.low, r.high): r for r in interval_rows(list(s.notes.values()))}
     # C3-E4 is a major tenth, 5/2: pure, no beats
     r = rows[(48, 64)]
-    assert (r.ratio.numerator, r.ratio.denominator) == (5, 2) and r.name == "M3+1o"
+    assert (r.ratio.numerator, r.ratio.denominator) == (5, 2) and r.name == "M10"
     assert r.deviation == pytest.approx(0.0, abs=1e-9) and r.beats == pytest.approx(0.0, abs=1e-9)
     # E4-G4 of a pure 4:5:6 is 6:5, pure
     assert rows[(64, 67)].beats == pytest.approx(0.0, abs=1e-9)
@@ -119,3 +119,10 @@ def test_block_letters_for_the_room_only_when_they_fit():
     # too narrow or too short: the plain view only
     assert render(s, width=30, height=40, big=True) == render(s, width=30, height=40)
     assert render(s, width=120, height=len(small) + 3, big=True) == render(s, width=120, height=len(small) + 3)
+
+
+def test_compound_interval_names():
+    # an octave above a simple interval adds 7 to its number (common practice): P8, M10, P12
+    from retuner.watch import compound_name
+    assert [compound_name(n, 1) for n in ("P1", "M3", "m3", "P5", "M6")] == ["P8", "M10", "m10", "P12", "M13"]
+    assert compound_name("P5", 0) == "P5" and compound_name("P5", 2) == "P5+2oct"
