@@ -77,6 +77,11 @@ class Note:
     channel: int   # 0-based
 
 
+def _z(x: float, nd: int) -> float:
+    """Rounded, without a minus sign on zero."""
+    return round(x, nd) + 0.0
+
+
 def read_notes(path: str | os.PathLike, *, drum_channel: Optional[int] = DRUM_CHANNEL) -> list[Note]:
     """Notes of a MIDI file with start and end in seconds (tempo map applied).
 
@@ -511,7 +516,7 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
     if result.active:
         lim.append("binding limits: " + ", ".join(result.active))
     body = ", ".join(f"{d:.6f}" for d in deg[1:])
-    offs = ", ".join(f"{KEY_NAMES[i]} {result.offsets[i]:+.3f}" for i in range(12))
+    offs = ", ".join(f"{KEY_NAMES[i]} {_z(result.offsets[i], 3):+.3f}" for i in range(12))
     import json
     description = (f"best-fit 12-note tuning for {Path(source_name).name} "
                    f"(impurity {result.impurity:.3f} cents)")

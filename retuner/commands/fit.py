@@ -4,6 +4,12 @@ from __future__ import annotations
 
 import sys
 
+
+def _z(x: float, nd: int) -> float:
+    """Rounded, without a minus sign on zero."""
+    return round(x, nd) + 0.0
+
+
 NAME = "fit"
 HELP = "fit a fixed 12-note tuning to a piece (least impurity of its consonant intervals)"
 ORDER = 60
@@ -63,11 +69,11 @@ def run(args) -> int:
     if result.key_offsets is not None:
         played = result.used
         print("per key, cents from 12-EDO: " + "  ".join(
-            f"{k}:{result.key_offsets[k]:+.2f}" for k in played))
+            f"{k}:{_z(result.key_offsets[k], 2):+.2f}" for k in played))
     else:
         names = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
         print("offsets from 12-EDO (cents): "
-              + "  ".join(f"{n} {v:+.2f}" for n, v in zip(names, result.offsets)))
+              + "  ".join(f"{n} {_z(v, 2):+.2f}" for n, v in zip(names, result.offsets)))
     if result.active:
         print("binding limits: " + ", ".join(result.active))
     w = max(len(r[0]) for r in rows)
