@@ -65,7 +65,7 @@ def _api(backend: str) -> int:
 def _rt_error(exc: Exception, what: str, backend: str) -> RetunerError:
     word = backend_word(backend)
     hint = (" (is a JACK server running? set JACK_DEFAULT_SERVER for a named one)"
-            if word == "jack" else " (is /dev/snd/seq there? the ALSA sequencer needs it)")
+            if word == "jack" else " (is /dev/snd/seq there? the ALSA sequencer needs it; with a JACK server running, try --backend jack)")
     return RetunerError(f"{what}: {exc}{hint}", field="backend")
 
 
