@@ -76,7 +76,7 @@ import stat
 import threading
 import time
 from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from itertools import count
 from pathlib import Path
 from typing import Any, Callable, Optional

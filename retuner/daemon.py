@@ -49,10 +49,10 @@ import signal
 import sys
 import threading
 import time
-from typing import Any, Callable, Optional
+from typing import Callable, Optional
 
 from . import ports as _ports
-from .config import Settings, engine_config, load_config
+from .config import Settings, engine_config
 from .errors import RetunerError
 from .notify import Notifier
 

@@ -86,6 +86,7 @@ import mido
 from mido.messages.messages import Message
 
 from .errors import RetunerError
+from .outfile import write_atomic
 
 # ---------------------------------------------------------------------------
 # Standard MIDI File parsing
@@ -436,35 +437,6 @@ def serialize(fmt: int, division_header: int, tracks: Sequence[tuple[list, int]]
         out.append(len(body).to_bytes(4, "big"))
         out.append(body)
     return b"".join(out)
-
-
-def write_atomic(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` through a temporary file in the same folder and os.replace."""
-    target = Path(path)
-    directory = target.parent if str(target.parent) else Path(".")
-    if not directory.is_dir():
-        raise RetunerError("output folder does not exist", file=str(path))
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
-    except OSError as exc:
-        raise RetunerError(f"cannot write: {exc.strerror or exc}", file=str(path)) from exc
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.fchmod(fd, 0o666 & ~umask)
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, target)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):
-            raise RetunerError(f"cannot write: {exc.strerror or exc}", file=str(path)) from exc
-        raise
 
 
 # ---------------------------------------------------------------------------

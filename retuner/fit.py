@@ -44,7 +44,6 @@ from __future__ import annotations
 import math
 import os
 import re
-import tempfile
 from dataclasses import dataclass, field
 from fractions import Fraction
 from pathlib import Path
@@ -53,6 +52,7 @@ from typing import Iterable, Optional, Sequence
 import numpy as np
 
 from .errors import RetunerError
+from .outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
 from .tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
@@ -573,28 +573,6 @@ def profile_id_for(path: str | os.PathLike) -> str:
             stem = stem[: -len(ext)]
     pid = re.sub(r"[^a-z0-9-]+", "-", stem.lower()).strip("-")
     return pid or "fitted"
-
-
-def write_atomic(path: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file in the same folder and a rename."""
-    path = Path(path)
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise RetunerError(f"cannot write: {exc.strerror or exc}", file=str(path)) from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
 
 
 def compare(weights: dict[tuple[int, int], float], profile_ids: Sequence[str] = COMPARE_PROFILES,

@@ -110,7 +110,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
 
 
 def write_report(path: str, rep: dict) -> None:
-    from .files import write_atomic
+    from .outfile import write_atomic
     write_atomic(path, (json.dumps(rep, indent=2) + "\n").encode())
 
 
@@ -217,7 +217,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     ax.grid(True, alpha=0.3)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    from .files import write_atomic
+    from .outfile import write_atomic
     write_atomic(path, buf.getvalue())
 
 

@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import os
 import sys
-import tempfile
-from pathlib import Path
 
 from .. import mts
 from ..errors import RetunerError
+from ..outfile import write_atomic
 from ..profile import load_profile
 
 NAME = "export"
@@ -53,32 +51,6 @@ def add_arguments(parser) -> None:
                         help="tuning name in the dump, up to 16 ASCII characters (default: the profile id)")
     parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
                         help="also look for profiles in DIR")
-
-
-def write_atomic(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` through a temporary file and os.replace: all or nothing."""
-    target = Path(path)
-    directory = target.parent if str(target.parent) else Path(".")
-    if not directory.is_dir():
-        raise RetunerError("output directory does not exist", file=str(path))
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.fchmod(fd, 0o666 & ~umask)
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, target)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):
-            raise RetunerError(f"cannot write: {exc.strerror or exc}", file=str(path)) from exc
-        raise
 
 
 def build(tuning, fmt: str, *, device: int, program: int, name: str,
