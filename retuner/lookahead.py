@@ -7,26 +7,30 @@ of all notes over the whole piece are chosen together:
 * **Segments.** The piece is cut at every note-on time. In each segment a note
   that sounds has one pitch (its deviation from 12-EDO, ``x[n, s]``); a held
   note may only change pitch at a segment boundary, i.e. when other notes start.
-* **Cost** (a quadratic, solved exactly as one sparse least-squares problem):
+* **Cost**, in the units of the measures (:mod:`retuner.metrics`), which are sums of
+  absolute values and a maximum, so the plan is a linear programme:
 
   - every pair of notes sounding together in a segment:
-    ``w_class * overlap_seconds * (x_j - x_i - t_ij)**2`` with ``t_ij`` the just
-    interval of the pair (the adaptive settings' interval table and weights, as
-    live; an ambiguous class takes the candidate nearest to what the first
-    solution implies, then the system is solved again), so a chord is tuned
-    knowing every note that starts with it *and* every note that will sound
-    with it, each pair counted for as long as it actually sounds;
-  - motion of a held note from one segment to the next:
-    ``motion_weight * (x[n, s+1] - x[n, s])**2``;
-  - the centre: ``centre_weight * segment_seconds * (mean_n x[n, s] - r)**2``
-    (``r`` the reference: 12-EDO at the profile's reference pitch, or the
-    profile). Segments whose centre still exceeds ``0.8 * max_drift`` get their
-    centre weight raised and the problem is solved again (at most 6 times): the
-    drift is planned over the piece, not corrected after it happened.
+    ``w_class * overlap_seconds * |x_j - x_i - t_ij|`` with ``t_ij`` the just interval of the
+    pair (the adaptive settings' interval table and weights, as live; an ambiguous class takes
+    the candidate nearest to what a first, rough solution implies, then the programme is
+    solved again), divided by the window's pair time: the mean impurity, so a chord is tuned
+    knowing every note that starts with it *and* every note that will sound with it, each pair
+    counted for as long as it actually sounds;
+  - motion of a held note from one segment to the next, ``|x[n, s+1] - x[n, s]|``, priced at
+    ``motion_value`` per cent per note (relative to the mean impurity);
+  - drift: the largest ``|mean_n x[n] - r|`` over every stretch in which the set of sounding
+    notes is constant (``r`` the reference: 12-EDO at the profile's reference pitch, or the
+    profile), priced at ``drift_value``, and never above the adaptive settings' ``max_drift``.
+    So re-centring is planned: a common shift of every note of a chord costs no impurity, a
+    shift of held notes costs motion, and the programme puts each where it is cheapest over
+    the window, knowing what comes.
 
-  Pieces are solved in windows of ``WINDOW`` segments that overlap by
-  ``WINDOW - COMMIT``: the first ``COMMIT`` segments of each window are kept, the
-  next window starts from them (so a long file costs time linear in its length).
+  The programme is solved exactly (to 0.001 of the objective) by a log-barrier interior-point
+  method (:func:`l1_solve`; numpy only). Pieces are solved in windows of ``WINDOW`` segments
+  that overlap by ``WINDOW - COMMIT``: the first ``COMMIT`` segments of each window are kept,
+  the next window starts from them, and the drift already reached is its floor (the maximum
+  over the piece counts once), so a long file costs time linear in its length.
 * **Rendering.** The same engine as live plays the plan: adaptive mode with a
   solver that answers from the plan (chord window 0, so every note sounds at its
   own tick). Each note gets a channel of its own; its bend is then moved back
@@ -35,22 +39,23 @@ of all notes over the whole piece are chosen together:
   at a note-on and no note starts with a slide. Held notes re-centre by small
   planned bends at other notes' onsets.
 
-* **Checked against live playing.** The one free trade-off of the plan, the
-  price of motion against impurity, is set by ``motion_value``. ``choose()``
-  renders the file through the live engine too and measures both outputs with
-  :mod:`retuner.metrics` (from the written bytes); the first of
-  motion values tried (bisected from ``MOTION_VALUE``) whose plan is no worse
-  than live on impurity, motion and drift is kept. If none is (it happens on arrangements, where live playing
-  tunes each part on its own and so can keep every part centred while the plan,
-  tuning the parts together, trades a little drift for much less impurity), the
-  best plan is kept and the report's ``lookahead_check`` says ``beats_live:
-  false`` with both sets of figures. On the project's progressions the first
-  plan already beats live playing (lower motion and drift, impurity no worse).
+* **Checked against live playing.** ``choose()`` renders the file through the live engine
+  too and measures both outputs with :mod:`retuner.metrics` (from the written bytes). If the
+  first plan does not beat live clearly (impurity no worse, motion and drift lower by at
+  least ``TARGET_MARGIN`` wherever live has any), the price of the weakest measure is changed
+  and the piece planned again, and convex mixtures of the plans are tried: every measure is a
+  convex function of the planned pitches, so a mixture is no worse than the same mixture of
+  its plans' measures (e.g. on the comma pump one plan re-centres by moving held notes,
+  another by tempering, and a 70/30 mixture beats live on all three measures where neither
+  does alone). The plan or mixture with the widest margin over live is kept; if none beats
+  live (it happens on arrangements, where live playing tunes each part on its own and so can
+  keep every part centred, or where the player's wheel sets the drift), the report's
+  ``lookahead_check`` says ``beats_live: false`` with both sets of figures.
 
 Unlike the live engine, which tunes each part on its own when a file is split
-into parts, the plan sees all parts of an arrangement together. Cost: a dense
-solve per window and reweighting round (about 15 s for a 100 000-event file on
-a laptop-class CPU, per plan; at most ``MAX_PLANS`` plans).
+into parts, the plan sees all parts of an arrangement together. Cost: about 7 s per plan for a
+100 000-event file on a laptop-class CPU (one core), at most ``MAX_PLANS`` plans and the
+mixtures between them.
 """
 
 from __future__ import annotations
@@ -63,22 +68,24 @@ import numpy as np
 
 from .errors import RetunerError
 
-WINDOW = 48     # segments solved together
-COMMIT = 32     # segments kept from each window
-DRIFT_ROUNDS = 6
-IRLS_ROUNDS = 12
-IRLS_TOL = 0.01    # cents: stop reweighting when no pitch moves more
-IRLS_EPS = 0.02
-MOTION_VALUE = 1.3
-#: the centre term's weight relative to the adaptive settings' centre_weight: the plan keeps the
-#: centre mainly through its drift limit, planned over the piece
-CENTRE_VALUE = 0.01
-DRIFT_AIM = 1.0
-#: shortest stretch of time a centre term is weighted with (seconds)
-MIN_STRETCH = 0.05
-#: range in which choose() bisects the motion value, and how many plans it makes at most
-MOTION_LOW, MOTION_HIGH = 0.5, 3.0
-MAX_PLANS = 6
+WINDOW = 32     # segments solved together
+COMMIT = 24     # segments kept from each window
+#: prices of the first plan: a cent of motion per note against a cent of mean impurity, and a
+#: cent of the window's largest drift against a cent of mean impurity
+MOTION_VALUE = 1.0
+DRIFT_VALUE = 0.1
+#: plans choose() makes at most (mixtures of them not counted)
+MAX_PLANS = 5
+#: factor by which the barrier parameter grows between centring rounds (see l1_solve)
+BARRIER_STEP = 50.0
+#: duality gap bound of a window's solution (in the units of the window's objective, about cents),
+#: and of the first, rough solution that only picks the targets of ambiguous interval classes
+SOLVE_TOL = 1e-3
+ROUGH_TOL = 0.5
+#: duality gap bound the barrier method starts from, and how closely it centres before the
+#: last round (Newton decrement): rough centring costs few steps and loses nothing at the end
+START_GAP = 2.0
+CENTRING_TOL = 0.1
 
 
 class _Note:
@@ -349,7 +356,7 @@ def _interval_tables(acfg):
 
 
 def plan_song(song, merged, secs, tuning, config, motion_value: float = MOTION_VALUE,
-              drift_aim: float = DRIFT_AIM) -> Plan:
+              drift_value: float = DRIFT_VALUE) -> Plan:
     acfg = config.adaptive
     if acfg is None:
         raise RetunerError("--lookahead works with --adaptive", field="lookahead")
@@ -369,7 +376,7 @@ def plan_song(song, merged, secs, tuning, config, motion_value: float = MOTION_V
         for s in range(n.s0, n.s1 + 1):
             seg_notes[s].append(n)
     # reference deviation of each key
-    if acfg.reference == "profile":
+    if acfg.centre == "profile":
         ref = [tuning.deviation(k) if tuning.deviation(k) is not None else 0.0 for k in range(128)]
     else:
         off = tuning.deviation(69)
@@ -378,19 +385,22 @@ def plan_song(song, merged, secs, tuning, config, motion_value: float = MOTION_V
     cands, wcls = _interval_tables(acfg)
     seg_end = onsets[1:] + [max((n.end for n in notes), default=0.0)]
     s = 0
+    state: dict = {}
     while s < S:
         e = min(S, s + WINDOW)
         keep = S if e == S else s + COMMIT
         _solve_window(s, e, keep, seg_notes, onsets, seg_end, values, cands, wcls, ref, acfg,
-                      motion_value, drift_aim)
+                      motion_value, drift_value, state)
         s = keep
     return Plan(notes, onsets, values, config.release_time)
 
 
 def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls, ref, acfg,
-                  motion_value, drift_aim) -> None:
-    """Solve segments [s0, s1); write the variables of segments [s0, keep)."""
-    # local variable numbering
+                  motion_value, drift_value, state) -> None:
+    """Solve segments [s0, s1); write the variables of segments [s0, keep).
+
+    ``state["drift"]``: the largest drift of the segments already written (the floor of this
+    window's drift bound: the maximum over the piece counts once), updated here."""
     loc: dict[tuple[int, int], int] = {}
     order = []
     for s in range(s0, s1):
@@ -400,9 +410,6 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
     N = len(order)
     if N == 0:
         return
-    lam = float(acfg.motion_weight)
-    mu0 = CENTRE_VALUE * float(acfg.centre_weight)
-    limit = float(acfg.max_drift)
     # pairs: (i, j, weight, candidate list)
     pi, pj, pw, pc = [], [], [], []
     for s in range(s0, s1):
@@ -425,112 +432,202 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
                 pj.append(loc[(nb.id, s)])
                 pw.append(w)
                 pc.append(cands[d + 127])
-    pi = np.array(pi, dtype=int)
-    pj = np.array(pj, dtype=int)
-    pw = np.array(pw, dtype=float)
     tau = np.array([c[0] for c in pc], dtype=float)
-    # motion: (i, j) consecutive segments of one note; the first may be fixed (before s0)
-    mi, mj = [], []
-    fixed_terms = []   # (j, fixed value)
+    # motion: consecutive segments of one note; the first may be fixed (written before s0)
+    mi, mj, fixed_v = [], [], []
     for (n, s), j in zip(order, range(N)):
         if s > n.s0:
             if s == s0:
-                fixed_terms.append((j, values[n.var0 + s - 1 - n.s0]))
+                mi.append(-1)
+                fixed_v.append(values[n.var0 + s - 1 - n.s0])
             else:
                 mi.append(loc[(n.id, s - 1)])
-                mj.append(j)
-    mi = np.array(mi, dtype=int)
-    mj = np.array(mj, dtype=int)
-    # centre: per segment the variables and the weight
-    # (the drift is measured over every stretch in which the set of sounding notes is constant,
-    # so a segment in which some notes end early gets one centre term per such stretch)
-    seg_vars = []
+                fixed_v.append(0.0)
+            mj.append(j)
+    # centre: one row per stretch in which the set of sounding notes is constant (the drift is
+    # measured over every such stretch: a segment in which some notes end early has several);
+    # both the notes sounding (pedal included) and the notes whose key is down (a decoder that
+    # ignores the pedal hears the latter)
+    rows, rref, rseg = [], [], []
     for s in range(s0, s1):
         ns = seg_notes[s]
         if not ns:
             continue
         ts, te = onsets[s], seg_end[s]
         cuts = sorted({ts, te} | {n.end for n in ns if ts < n.end < te} | {n.off for n in ns if ts < n.off < te})
-        for a, b in zip(cuts, cuts[1:]):
-            # notes sounding (pedal included), and notes whose key is down: a decoder that
-            # ignores the pedal hears the latter; the centre is kept for both views
-            for sub in {tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a)}:
-                if not sub:
+        seen = set()
+        for a in cuts[:-1]:
+            for sub in (tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a)):
+                if not sub or sub in seen:
                     continue
-                idx = [loc[(n.id, s)] for n in sub]
-                r = sum(ref[n.key] for n in sub) / len(sub)
-                seg_vars.append((idx, max(b - a, MIN_STRETCH), r))
-    mu = np.full(len(seg_vars), mu0)
-    # the centre terms as flat index arrays (one np.add.at per solve)
-    t_k = np.array([len(v[0]) for v in seg_vars], dtype=float)
-    t_dur = np.array([v[1] for v in seg_vars], dtype=float)
-    t_r = np.array([v[2] for v in seg_vars], dtype=float)
-    g_idx = np.array([i for v in seg_vars for i in v[0]], dtype=int)
-    g_term = np.repeat(np.arange(len(seg_vars)), [len(v[0]) for v in seg_vars])
-    h_rows = np.array([i for v in seg_vars for i in v[0] for _ in v[0]], dtype=int)
-    h_cols = np.array([j for v in seg_vars for _ in v[0] for j in v[0]], dtype=int)
-    h_term = np.repeat(np.arange(len(seg_vars)), [len(v[0]) ** 2 for v in seg_vars])
-    # L1 weights (impurity and motion are measured as sums of absolute values):
-    # iteratively reweighted least squares, starting from the plain quadratic solution
-    pair_time = float(pw.sum()) if len(pw) else 0.0
+                seen.add(sub)
+                rows.append([loc[(n.id, s)] for n in sub])
+                rref.append(sum(ref[n.key] for n in sub) / len(sub))
+                rseg.append(s)
+    r = np.array(rref, dtype=float)
+    # the window's objective in the units of the measures: mean impurity of its pairs, plus
+    # motion_value * motion per note, plus drift_value * its largest drift
+    pair_time = float(sum(pw))
     nnotes = max(len({n.id for n, _ in order}), 1)
-    lam1 = motion_value * max(pair_time / nnotes, 1e-3)
-    fixed_j = np.array([j for j, _ in fixed_terms], dtype=int)
-    fixed_v = np.array([v for _, v in fixed_terms], dtype=float)
+    scale = 1.0 / pair_time if pair_time > 0 else 1.0
+    mcost = motion_value * scale * max(pair_time / nnotes, 1e-3)
+    ti = np.array(pi + mi, dtype=int)
+    tj = np.array(pj + mj, dtype=int)
+    tc = np.concatenate([np.array(pw, dtype=float) * scale, np.full(len(mj), mcost)])
+    floor = float(state.get("drift", 0.0))
 
-    def solve(tau_, pwe, me, fe):
-        H = np.zeros((N, N))
-        g = np.zeros(N)
-        if len(pi):
-            np.add.at(H, (pi, pi), pwe)
-            np.add.at(H, (pj, pj), pwe)
-            np.add.at(H, (pi, pj), -pwe)
-            np.add.at(H, (pj, pi), -pwe)
-            np.add.at(g, pj, pwe * tau_)
-            np.add.at(g, pi, -pwe * tau_)
-        if len(mi):
-            np.add.at(H, (mi, mi), me)
-            np.add.at(H, (mj, mj), me)
-            np.add.at(H, (mi, mj), -me)
-            np.add.at(H, (mj, mi), -me)
-        if len(fixed_j):
-            np.add.at(H, (fixed_j, fixed_j), fe)
-            np.add.at(g, fixed_j, fe * fixed_v)
-        if len(seg_vars):
-            c = mu * t_dur / (t_k * t_k)
-            np.add.at(H, (h_rows, h_cols), c[h_term])
-            np.add.at(g, g_idx, (c * t_k * t_r)[g_term])
-        H.flat[::N + 1] += 1e-9
-        return np.linalg.solve(H, g)
+    # the user's drift limit holds (a little room above the drift already reached, so the
+    # barrier has an interior); the plan starts from the reference itself, which meets it
+    cap = max(float(acfg.max_drift), floor + 1e-3) if acfg.max_drift > 0 else math.inf
+    x0 = np.array([ref[n.key] for n, _ in order], dtype=float)
 
-    me = np.full(len(mi), lam)
-    fe = np.full(len(fixed_j), lam)
-    x = solve(tau, pw, me, fe)
-    # ambiguous classes: take the candidate nearest to what the solution implies
-    if len(pc):
-        amb = [k for k, c in enumerate(pc) if len(c) > 1]
-        if amb:
-            diff = x[pj] - x[pi]
-            for k in amb:
-                c = pc[k]
-                tau[k] = min(c, key=lambda v: abs(v - diff[k]))
-            x = solve(tau, pw, me, fe)
-    for it in range(IRLS_ROUNDS):
-        pwe = pw / np.maximum(np.abs(x[pj] - x[pi] - tau), IRLS_EPS) if len(pi) else pw
-        me = lam1 / np.maximum(np.abs(x[mj] - x[mi]), IRLS_EPS) if len(mi) else me
-        fe = lam1 / np.maximum(np.abs(x[fixed_j] - fixed_v), IRLS_EPS) if len(fixed_j) else fe
-        # planned drift: raise the centre weight where the centre strays
-        if len(seg_vars):
-            centre = np.bincount(g_term, weights=x[g_idx], minlength=len(seg_vars)) / t_k
-            mu[np.abs(centre - t_r) > drift_aim * limit] *= 2.0
-        x_new = solve(tau, pwe, me, fe)
-        done = float(np.max(np.abs(x_new - x))) < IRLS_TOL
-        x = x_new
-        if done:
-            break
+    def solve(tau_, tol):
+        tb = np.concatenate([tau_, np.array(fixed_v, dtype=float)])
+        return l1_solve(N, ti, tj, tb, tc, rows, r, drift_value, floor, cap=cap, tol=tol, x0=x0)
+
+    amb = [k for k, c in enumerate(pc) if len(c) > 1]
+    # (with ambiguous classes the first solution only picks their candidates: less precision)
+    x, _ = solve(tau, ROUGH_TOL if amb else SOLVE_TOL)
+    # ambiguous classes: take the candidate nearest to what the solution implies, solve again
+    if amb:
+        diff = x[pj] - x[pi]
+        for k in amb:
+            tau[k] = min(pc[k], key=lambda v: abs(v - diff[k]))
+        x, _ = solve(tau, SOLVE_TOL)
     for (n, s), v in zip(order, x):
         if s < keep:
             values[n.var0 + s - n.s0] = v
+    if len(rows):
+        dev = [abs(float(np.mean(x[idx])) - rr) for idx, rr, s in zip(rows, rref, rseg) if s < keep]
+        if dev:
+            state["drift"] = max(floor, max(dev))
+
+
+def l1_solve(N, ti, tj, tb, tc, rows, r, drift_value, floor, cap=math.inf, tol=1e-3, x0=None):
+    """Minimise ``sum_p tc_p |x[tj_p] - x[ti_p] - tb_p| + drift_value * D`` over x (N values)
+    and D, subject to ``|mean(x[rows[k]]) - r_k| <= D`` for every k and ``floor <= D < cap``
+    (``x0`` must satisfy the rows with a D below ``cap``); a term
+    with ``ti_p < 0`` is ``|x[tj_p] - tb_p|``. A linear programme, solved by the log-barrier
+    method (Boyd and Vandenberghe, *Convex Optimization*, 2004, section 11.3): the epigraph
+    variable of each absolute value is eliminated in closed form (a smoothed absolute value),
+    Newton steps on (x, D) with backtracking line search, the barrier parameter raised
+    ``BARRIER_STEP``-fold until the duality gap bound (number of inequalities / parameter) is
+    below ``tol``. Returns (x, D)."""
+    ti = np.asarray(ti, dtype=int)
+    tj = np.asarray(tj, dtype=int)
+    has_i = ti >= 0
+    tis = np.where(has_i, ti, 0)
+    n_i, n_j = tis[has_i], tj[has_i]
+    P = len(tc)
+    K = len(rows)
+    capped = math.isfinite(cap)
+    m = 2 * P + 2 * K + 1 + int(capped)
+    # the centre rows as flat arrays: G x = bincount(g_term, x[g_idx] * g_val)
+    g_len = np.array([len(v) for v in rows], dtype=int)
+    g_idx = np.array([i for v in rows for i in v], dtype=int)
+    g_term = np.repeat(np.arange(K), g_len)
+    g_val = np.repeat(1.0 / np.maximum(g_len, 1), g_len)
+    # the Hessian's nonzero entries: flat position, sign, and which weight each takes
+    # (weights: the P terms' second derivatives, then the K rows' barrier curvatures)
+    h_a = np.array([i for v in rows for i in v for _ in v], dtype=int)
+    h_b = np.array([j for v in rows for _ in v for j in v], dtype=int)
+    h_t = np.repeat(np.arange(K), g_len * g_len)
+    hi = np.arange(P)[has_i]
+    flat = np.concatenate([tj * (N + 1), n_i * (N + 1), n_i * N + n_j, n_j * N + n_i, h_a * N + h_b])
+    sign = np.concatenate([np.ones(P + len(hi)), -np.ones(2 * len(hi)),
+                           np.repeat(1.0 / np.maximum(g_len, 1) ** 2, g_len * g_len)])
+    src = np.concatenate([np.arange(P), hi, hi, hi, P + h_t])
+    uniq, inv = np.unique(flat, return_inverse=True)
+    nu = len(uniq)
+    x = np.zeros(N) if x0 is None else np.array(x0, dtype=float)
+
+    def resid(x):
+        return x[tj] - np.where(has_i, x[tis], 0.0) - tb
+
+    def centre(x):
+        return np.bincount(g_term, x[g_idx] * g_val, minlength=K) - r
+
+    def value(x, D, tau):
+        s = tau * tc
+        q = np.sqrt(1.0 + (s * resid(x)) ** 2)
+        f = float(np.sum(q - np.log1p(q))) + tau * drift_value * D - math.log(D - floor)
+        if capped:
+            f -= math.log(cap - D)
+        if K:
+            v = centre(x)
+            f -= float(np.sum(np.log(D - v) + np.log(D + v)))
+        return f
+
+    v = centre(x) if K else np.zeros(0)
+    D = max(float(np.max(np.abs(v))) if K else 0.0, floor)
+    D += min(1.0, (cap - D) / 2.0)
+    tau = m / START_GAP
+    while True:
+        for _ in range(60):
+            s = tau * tc
+            u = resid(x)
+            q = np.sqrt(1.0 + (s * u) ** 2)
+            d1 = s * s * u / (1.0 + q)          # derivative of the smoothed |u| (closed form)
+            d2 = s * s / (q * (1.0 + q))        # and its second derivative
+            gx = np.bincount(tj, d1, minlength=N) - np.bincount(n_i, d1[has_i], minlength=N)
+            gD = tau * drift_value - 1.0 / (D - floor)
+            hDD = 1.0 / (D - floor) ** 2
+            if capped:
+                gD += 1.0 / (cap - D)
+                hDD += 1.0 / (cap - D) ** 2
+            if K:
+                v = centre(x)
+                a = 1.0 / (D - v)
+                b = 1.0 / (D + v)
+                gx += np.bincount(g_idx, (a - b)[g_term] * g_val, minlength=N)
+                gD -= float(np.sum(a + b))
+                a2, b2 = a * a, b * b
+                hxD = np.bincount(g_idx, (b2 - a2)[g_term] * g_val, minlength=N)
+                hDD += float(np.sum(a2 + b2))
+                wts = np.concatenate([d2, a2 + b2])
+            else:
+                hxD = np.zeros(N)
+                wts = d2
+            Hn = np.zeros(N * N)
+            Hn[uniq] = np.bincount(inv, wts[src] * sign, minlength=nu)
+            Hf = np.empty((N + 1, N + 1))
+            Hf[:N, :N] = Hn.reshape(N, N)
+            Hf[:N, N] = hxD
+            Hf[N, :N] = hxD
+            Hf[N, N] = hDD
+            Hf.flat[::N + 2] += 1e-12 * (1.0 + np.abs(np.diagonal(Hf)))
+            g = np.append(gx, gD)
+            try:
+                dz = -np.linalg.solve(Hf, g)
+            except np.linalg.LinAlgError:
+                dz = -np.linalg.lstsq(Hf, g, rcond=None)[0]
+            dec = -float(g @ dz)
+            last = m / tau < tol
+            if not dec > (1e-8 if last else CENTRING_TOL):
+                break
+            dx, dD = dz[:N], float(dz[N])
+            step = 1.0          # largest step keeping D > |G x - r| and D > floor
+            if dD < 0:
+                step = min(step, 0.99 * (D - floor) / -dD)
+            elif dD > 0 and capped:
+                step = min(step, 0.99 * (cap - D) / dD)
+            if K:
+                dv = np.bincount(g_term, dx[g_idx] * g_val, minlength=K)
+                for sg in (1.0, -1.0):
+                    rate = dD - sg * dv
+                    neg = rate < 0
+                    if np.any(neg):
+                        step = min(step, 0.99 * float(np.min((D - sg * v[neg]) / -rate[neg])))
+            f0 = value(x, D, tau)
+            while step > 1e-10 and value(x + step * dx, D + step * dD, tau) > f0 - 0.25 * step * dec:
+                step *= 0.5
+            x = x + step * dx
+            D = D + step * dD
+            if dec < (1e-6 if last else CENTRING_TOL):
+                break
+        if m / tau < tol:
+            return x, D
+        tau *= BARRIER_STEP
 
 
 # ---------------------------------------------------------------------------
@@ -556,53 +653,123 @@ def measure_outputs(outputs, config) -> dict:
             "drift_max_cents": metrics.drift(notes)["max"]}
 
 
-def _beats(m: dict, live: dict, eps: float = 1e-3) -> bool:
+_KEYS = ("impurity_cents", "motion_cents_per_note", "drift_max_cents")
+#: a measure counts as "live moves at all" above this (cents); below, no worse is all one can ask
+_ROOM = 0.01
+_EPS = 1e-3     # cents: below a bend step
+#: choose() stops searching once a plan beats live by this relative margin on every measure
+TARGET_MARGIN = 0.1
+
+
+def _beats(m: dict, live: dict, eps: float = _EPS) -> bool:
     """No worse than live on impurity, motion and drift (``eps`` cents: below a bend step)."""
-    return all(m[k] <= live[k] + eps for k in ("impurity_cents", "motion_cents_per_note", "drift_max_cents"))
+    return all(m[k] <= live[k] + eps for k in _KEYS)
+
+
+def _gain(k: str, value: float, live: dict) -> float:
+    """Relative improvement of one measure over live. Impurity need only be no worse (within
+    ``_EPS``), and so need motion and drift where live has none to speak of: 1 when met, else
+    the relative excess (negative). Elsewhere motion and drift must be strictly lower: the
+    relative reduction."""
+    lv = live[k]
+    if k == "impurity_cents" or lv <= _ROOM:
+        return 1.0 if value <= lv + _EPS else -(value - lv) / max(lv, _ROOM)
+    return (lv - value) / lv
+
+
+def _margin(m: dict, live: dict) -> float:
+    """How clearly ``m`` beats live: the smallest :func:`_gain` over the three measures.
+    Positive: beats live on all three."""
+    return min(_gain(k, m[k], live) for k in _KEYS)
+
+
+def _best_mixture(tried: list, live: dict, steps: int = 20):
+    """Among convex mixtures of two or three plans tried, the one whose measures, interpolated,
+    beat live by the largest margin: (margin, weights, indices). Every measure (mean absolute
+    impurity, total absolute motion, largest absolute drift) is a convex function of the
+    planned pitches, so the mixture's own measures are no worse than the interpolation (up to
+    the output's bend step)."""
+    import itertools
+    best = None
+    ms = [t[1] for t in tried]
+    n = len(ms)
+    grid = [i / steps for i in range(steps + 1)]
+    for r in (1, 2, 3):
+        for idx in itertools.combinations(range(n), r):
+            if r == 1:
+                weights = [(1.0,)]
+            elif r == 2:
+                weights = [(w, 1.0 - w) for w in grid[1:-1]]
+            else:
+                weights = [(a, b, 1.0 - a - b) for a in grid[1:] for b in grid[1:] if a + b < 1.0 - 1e-9]
+            for w in weights:
+                m = {k: sum(wi * ms[i][k] for wi, i in zip(w, idx)) for k in _KEYS}
+                g = _margin(m, live)
+                if best is None or g > best[0] + 1e-12:
+                    best = (g, w, idx)
+    return best
 
 
 def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     """Plan the piece and check the plan against live playing (``live_outputs``: the same file
-    through the live engine). The planner's one free trade-off, the price of motion against
-    impurity (``motion_value``), starts at ``MOTION_VALUE`` and is bisected (at most
-    ``MAX_PLANS`` plans): a plan worse than live on impurity lowers the price of motion, one
-    worse on motion raises it; a plan worse on drift alone halves the drift it aims at. The first plan no worse than live on impurity, motion and drift
-    (measured from the output files) is taken; if none is, the plan with the lowest
-    ``motion + drift + 10 * impurity`` among those no worse on impurity (else among all), and the
-    summary says so."""
+    through the live engine), measured from the output files.
+
+    The plan's objective (see :func:`plan_song`) has two prices: of motion against impurity
+    (``motion_value``) and of drift (``drift_value``). The first plan uses the defaults. Its
+    margin over live is its smallest relative gain (impurity need only be no worse; motion and
+    drift must be strictly lower wherever live has any). Below ``TARGET_MARGIN`` further plans
+    are made (at most ``MAX_PLANS``), changing the price of the weakest measure: drift raises the
+    drift price, motion raises the motion price, impurity lowers it; the search stops when that
+    measure no longer improves. After each plan the convex mixtures of two or three plans tried
+    are examined (every measure is convex in the planned pitches, so a mixture is no worse than
+    the interpolation of its plans' measures, up to a bend step): the one with the widest
+    interpolated margin is rendered and measured too. The plan or mixture with the widest
+    measured margin is kept; if even that does not beat live, the summary says so
+    (``beats_live: false``, with both sets of figures)."""
     live = measure_outputs(live_outputs, config)
-    tried = []
-    best = None
-    lo, hi = MOTION_LOW, MOTION_HIGH
-    mv = MOTION_VALUE
-    da = DRIFT_AIM
+    tried = []          # (plan, measures, outputs, description)
+    plans = []          # the plans proper (mixtures are made of these)
+    mv, dv = MOTION_VALUE, DRIFT_VALUE
+
+    def best_margin():
+        return max(_margin(t[1], live) for t in tried)
+
+    prev = None
     for _ in range(MAX_PLANS):
-        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_aim=da)
+        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_value=dv)
         outs = render(plan)
         m = measure_outputs(outs, config)
-        tried.append((mv, m, outs))
-        if _beats(m, live):
-            best = (mv, m, outs)
+        entry = (plan, m, outs, {"motion_value": round(mv, 4), "drift_value": round(dv, 4)})
+        tried.append(entry)
+        plans.append(entry)
+        if best_margin() >= TARGET_MARGIN:
             break
-        worse_imp = m["impurity_cents"] > live["impurity_cents"] + 1e-3
-        worse_mot = m["motion_cents_per_note"] > live["motion_cents_per_note"] + 1e-3
-        worse_drift = m["drift_max_cents"] > live["drift_max_cents"] + 1e-3
-        if worse_drift and not worse_imp and not worse_mot:
-            da /= 2.0       # plan the centre closer to the reference
-        elif worse_imp and not worse_mot:
-            hi, mv = mv, (lo + mv) / 2.0
-        elif worse_mot and not worse_imp:
-            lo, mv = mv, (mv + hi) / 2.0
+        if len(plans) > 1:
+            g, w, idx = _best_mixture(plans, live)
+            if len(idx) > 1 and g > best_margin():
+                p0 = plans[idx[0]][0]
+                vals = sum(wi * plans[i][0].values for wi, i in zip(w, idx))
+                mix = Plan(p0.notes, p0.onsets, vals, p0.release_time)
+                mouts = render(mix)
+                mm = measure_outputs(mouts, config)
+                tried.append((mix, mm, mouts,
+                              {"mixture": [dict(plans[i][3], weight=round(wi, 4)) for wi, i in zip(w, idx)]}))
+                if best_margin() >= TARGET_MARGIN:
+                    break
+        weakest = min(_KEYS, key=lambda k: _gain(k, m[k], live))
+        if prev is not None and prev[0] == weakest and m[weakest] >= prev[1] - _EPS:
+            break       # raising its price no longer helps (e.g. drift from the player's wheel)
+        prev = (weakest, m[weakest])
+        if weakest == "drift_max_cents":
+            dv *= 3.0
+        elif weakest == "motion_cents_per_note":
+            mv *= 2.0
         else:
-            break
-    beat = best is not None
-    if best is None:
-        ok = [t for t in tried if t[1]["impurity_cents"] <= live["impurity_cents"] + 1e-3]
-        pool = ok or tried
-        best = min(pool, key=lambda t: t[1]["motion_cents_per_note"] + t[1]["drift_max_cents"]
-                   + 10.0 * t[1]["impurity_cents"])
-    mv, m, outs = best
-    summary = {"motion_value": round(mv, 4), "drift_aim": round(da, 4), "beats_live": beat, "plans_tried": len(tried),
-               "live": {k: round(v, 4) for k, v in live.items()},
-               "lookahead": {k: round(v, 4) for k, v in m.items()}}
+            mv /= 2.0
+    chosen = max(tried, key=lambda t: _margin(t[1], live))
+    _plan, m, outs, desc = chosen
+    summary = dict(desc)
+    summary.update({"beats_live": _margin(m, live) > 0, "plans_tried": len(tried),
+                    "live": {k: round(v, 4) for k, v in live.items()},
+                    "lookahead": {k: round(v, 4) for k, v in m.items()}})
     return Chosen(outs, summary)
