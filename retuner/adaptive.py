@@ -194,7 +194,8 @@ class AdaptiveConfig:
         candidate ratios, first is the default); class is 0..11 or a name
         like "m7"; ratios as "7/4" or cents.
     weights: overrides of the per-class pair weights.
-    reference: "edo12" (12-EDO at the profile's reference pitch) or "profile".
+    centre: what the centre is pulled to: "edo12" (12-EDO at the profile's reference
+        pitch) or "profile" (the loaded profile's own pitches).
     motion_weight: lambda, cost of moving a held note (per cent squared,
         relative to a pair weight of 1).
     centre_weight: mu, cost of the centre's distance from the reference.
@@ -223,7 +224,7 @@ class AdaptiveConfig:
     limit: str = "5"
     intervals: dict = field(default_factory=dict)
     weights: dict = field(default_factory=dict)
-    reference: str = "edo12"
+    centre: str = "edo12"
     motion_weight: float = 2.0
     centre_weight: float = 16.0
     memory_weight: float = 1.0
@@ -315,8 +316,8 @@ class AdaptiveConfig:
         if str(self.limit) not in ("5", "7"):
             raise RetunerError(f"must be 5 or 7, got {self.limit!r}", file=file, field="adaptive.limit")
         self.limit = str(self.limit)
-        if self.reference not in REFERENCES:
-            raise RetunerError(f"must be edo12 or profile, got {self.reference!r}", file=file, field="adaptive.reference")
+        if self.centre not in REFERENCES:
+            raise RetunerError(f"must be edo12 or profile, got {self.centre!r}", file=file, field="adaptive.centre")
         if not isinstance(self.intervals, Mapping):
             raise RetunerError("expected a mapping of interval class to ratio", file=file, field="adaptive.intervals")
         for k, v in self.intervals.items():
@@ -402,7 +403,7 @@ class AdaptiveSolver:
         del cls, octs
         # reference deviation per key (cents from the key's 12-EDO pitch)
         ref = self.reference
-        if self.config.reference == "profile":
+        if self.config.centre == "profile":
             r = [ref.deviation(k) for k in range(128)]
             fill = 0.0
             mapped = [x for x in r if x is not None]

@@ -36,8 +36,15 @@ def _command_modules():
     return mods
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage mistakes are one line (and exit status 2), like every other mistake."""
+
+    def error(self, message: str):  # noqa: D401 - argparse's hook
+        self.exit(2, f"{self.prog}: {message} (see '{self.prog} --help')\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="retuner",
         description="Give every MIDI note the exact pitch of a tuning: live, or in MIDI files.",
     )

@@ -158,7 +158,7 @@ class EngineConfig:
     mpe_member_range: float = 48.0           # semitones
     mpe_manager_range: float = 2.0           # semitones
     # MIDI Tuning Standard
-    mts_device_id: int = 0x7F
+    mts_device: int = 0x7F
     mts_program: int = 0
     mts_bank: Optional[int] = None           # None: single note change without bank
     mts_realtime: bool = True
@@ -212,7 +212,7 @@ class EngineConfig:
             raise bad("the MPE manager bend range must be 1..127 semitones", "mpe_manager_range")
         if self.mode == "mpe" and not [c for c in self.mpe_member_channels() if c not in self.passthrough]:
             raise bad("no MPE member channel is left after the passthrough channels", "mpe_members")
-        for name in ("mts_device_id", "mts_program"):
+        for name in ("mts_device", "mts_program"):
             v = getattr(self, name)
             if not isinstance(v, int) or not 0 <= v <= 127:
                 raise bad("must be 0..127", name)
@@ -865,7 +865,7 @@ class Engine:
         if not todo:
             return []
         cfg = self.config
-        return mts.single_note_tuning_change(todo, device=cfg.mts_device_id, program=cfg.mts_program,
+        return mts.single_note_tuning_change(todo, device=cfg.mts_device, program=cfg.mts_program,
                                              bank=cfg.mts_bank, realtime=cfg.mts_realtime)
 
     def _mts_note_on(self, t: float, notes: list[Note], moved: list[tuple[int, float]], out: list) -> None:

@@ -82,51 +82,43 @@ def _z(x: float, nd: int) -> float:
     return round(x, nd) + 0.0
 
 
-def read_notes(path: str | os.PathLike, *, drum_channel: Optional[int] = DRUM_CHANNEL) -> list[Note]:
+def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CHANNEL,)) -> list[Note]:
     """Notes of a MIDI file with start and end in seconds (tempo map applied).
 
-    Percussion (``drum_channel``, 0-based; None keeps all) is left out. A note-on
-    with velocity 0 is a note-off; repeated note-ons of one key on one channel
-    stack and are released first-in, first-out; notes still held at the end end
-    at the last event. A file that cannot be read raises RetunerError.
+    The file is read by the same strict reader as ``retuner convert`` (a bad file is one
+    RetunerError line naming the file and the place). Percussion and other ``passthrough``
+    channels (0-based) are left out. A note-on with velocity 0 is a note-off; repeated
+    note-ons of one key on one channel stack and are released first-in, first-out; notes
+    still held at the end end at the last event.
     """
-    import mido
-    name = str(path)
-    try:
-        mf = mido.MidiFile(name)
-        if mf.type == 2:
-            raise RetunerError("type 2 MIDI files (independent sequences) are not supported", file=name)
-        if not mf.ticks_per_beat or mf.ticks_per_beat <= 0:
-            raise RetunerError("ticks per beat is zero", file=name)
-        events = list(mf)
-    except RetunerError:
-        raise
-    except FileNotFoundError:
-        raise RetunerError("no such file", file=name) from None
-    except Exception as exc:  # mido raises OSError, EOFError, ValueError, KeyError, ...
-        raise RetunerError(f"not a readable MIDI file: {exc or type(exc).__name__}", file=name) from None
+    from .files import CHANNEL, event_seconds, merged_events, read_smf
+    song = read_smf(path)
+    merged = merged_events(song)
+    secs = event_seconds(song, merged)
+    skip = set(passthrough)
     t = 0.0
     held: dict[tuple[int, int], list[float]] = {}
     notes: list[Note] = []
-    for msg in events:
-        t += msg.time
-        if msg.type not in ("note_on", "note_off"):
+    for (tick, ti, kind, raw), t in zip(merged, secs):
+        if kind != CHANNEL:
             continue
-        if drum_channel is not None and msg.channel == drum_channel:
+        status, ch = raw[0] & 0xF0, raw[0] & 0x0F
+        if status not in (0x80, 0x90) or ch in skip:
             continue
-        k = (msg.channel, msg.note)
-        if msg.type == "note_on" and msg.velocity > 0:
+        key, vel = raw[1], raw[2]
+        k = (ch, key)
+        if status == 0x90 and vel > 0:
             held.setdefault(k, []).append(t)
         else:
             starts = held.get(k)
             if starts:
-                s = starts.pop(0)
-                if t > s:
-                    notes.append(Note(s, t, msg.note, msg.channel))
+                st = starts.pop(0)
+                if t > st:
+                    notes.append(Note(st, t, key, ch))
     for (ch, key), starts in held.items():
-        for s in starts:
-            if t > s:
-                notes.append(Note(s, t, key, ch))
+        for st in starts:
+            if t > st:
+                notes.append(Note(st, t, key, ch))
     notes.sort(key=lambda n: (n.start, n.key))
     return notes
 

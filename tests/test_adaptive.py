@@ -313,7 +313,7 @@ def test_held_key_struck_again_keeps_lengths():
     ({"policy": "sometimes"}, "adaptive.policy"),
     ({"policy": "fixed-held+limited"}, "adaptive.policy"),
     ({"limit": 6}, "adaptive.limit"),
-    ({"reference": "a440"}, "adaptive.reference"),
+    ({"centre": "a440"}, "adaptive.centre"),
     ({"chord_window": -0.01}, "adaptive.chord_window"),
     ({"chord_window": "fast"}, "adaptive.chord_window"),
     ({"max_drift": True}, "adaptive.max_drift"),
@@ -383,7 +383,7 @@ def test_reference_profile_centres_on_the_profiles_own_pitches():
     cents = [1200 * (k // 12) + pcs[k % 12] + offset for k in range(128)]
     tun = Tuning.from_cents("mt", cents)
     assert abs(tun.cents[69] - 6900) < 1e-9 and abs(tun.deviation(64) - (-13.686 + 10.265)) < 0.01
-    s = AdaptiveSolver(AdaptiveConfig(reference="profile"), tun)
+    s = AdaptiveSolver(AdaptiveConfig(centre="profile"), tun)
     keys = [60, 64, 67]
     _, out = s.solve([], keys)
     want_centre = sum(tun.deviation(k) for k in keys) / 3

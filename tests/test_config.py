@@ -116,7 +116,7 @@ def test_flags_override_the_file(tmp_path):
     cfg.write_text("profile: vallotti\nbackend: alsa\ninput: Piano\n"
                    "engine: {pool: [1, 2, 3], bend_range: 12}\nswitch: {channel: 3}\n")
     args = build_parser().parse_args(["run", "--config", str(cfg), "--profile", "edo19", "--backend", "jack",
-                                      "--channels", "1-4,6", "--bend-scale", "127/128",
+                                      "--pool", "1-4,6", "--bend-scale", "127/128",
                                       "--control-channel", "16", "--virtual"])
     s = run_cmd._apply_flags(load_config(args.config), args)
     assert (s.profile, s.backend, s.input, s.virtual) == ("edo19", "jack", "Piano", True)
@@ -132,7 +132,7 @@ def test_flags_override_the_file(tmp_path):
         build_parser().parse_args(["run", "--mode", "surround"])
     assert ei.value.code == 2
     # a value the parser lets through but the engine refuses names its option
-    args = build_parser().parse_args(["run", "--channels", "1-10"])
+    args = build_parser().parse_args(["run", "--pool", "1-10"])
     with pytest.raises(RetunerError) as ei:
         engine_config(run_cmd._apply_flags(Settings(), args))
     assert ei.value.field == "engine.pool"

@@ -295,7 +295,7 @@ def test_tempo_map_drives_the_engine_clock(tmp_path):
         midigen.tempo_pairs(src, tempos)
         dst = tmp_path / f"{name}-out.mid"
         rep = tmp_path / f"{name}.json"
-        r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--channels", "1",
+        r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--pool", "1",
                     "--release-time", "1", "--report", rep, "-q")
         assert r.returncode == 0, r.stderr
         counts[name] = json.loads(rep.read_text())["ringing_retunes"]

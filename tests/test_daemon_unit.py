@@ -118,5 +118,5 @@ def test_run_help_lists_the_options():
                        timeout=30)
     assert r.returncode == 0
     for opt in ("--config", "--profile", "--backend", "--input", "--output", "--virtual", "--mode",
-                "--channels", "--bend-range", "--release-time", "--bend-scale", "-v"):
+                "--pool", "--bend-range", "--release-time", "--bend-scale", "-v"):
         assert opt in r.stdout

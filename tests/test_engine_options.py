@@ -27,10 +27,10 @@ def test_run_and_convert_offer_the_same_engine_options():
     def options(cmd):
         sub = next(a for a in build_parser()._actions if a.dest == "command")
         return {o for a in sub.choices[cmd]._actions for o in a.option_strings}
-    shared = {"--mode", "--channels", "--passthrough-channels", "--bend-range", "--release-time",
+    shared = {"--mode", "--pool", "--passthrough", "--bend-range", "--release-time",
               "--bend-scale", "--whole-semitones", "--mpe-zone", "--mpe-members", "--mts-device",
               "--mts-program", "--mts-bank", "--mts-non-realtime", "--adaptive", "--policy",
-              "--chord-window", "--max-drift", "--max-motion", "--limit", "--reference"}
+              "--chord-window", "--max-drift", "--max-motion", "--limit", "--centre"}
     assert shared <= options("run") and shared <= options("convert")
 
 
@@ -38,11 +38,11 @@ def test_mts_options_reach_the_engine():
     args = parse("convert", "in.mid", "-o", "out.mid", "--mode", "mts", "--mts-device", "5",
                  "--mts-program", "3", "--mts-bank", "2", "--mts-non-realtime")
     cfg = build_engine_config(engine_overrides(args))
-    assert (cfg.mts_device_id, cfg.mts_program, cfg.mts_bank, cfg.mts_realtime) == (5, 3, 2, False)
+    assert (cfg.mts_device, cfg.mts_program, cfg.mts_bank, cfg.mts_realtime) == (5, 3, 2, False)
 
 
 def test_passthrough_none_gives_all_sixteen_channels_to_the_pool():
-    cfg = build_engine_config(engine_overrides(parse("convert", "a", "-o", "b", "--passthrough-channels", "none")))
+    cfg = build_engine_config(engine_overrides(parse("convert", "a", "-o", "b", "--passthrough", "none")))
     assert cfg.passthrough == () and cfg.pool == tuple(range(16))
 
 

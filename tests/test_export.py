@@ -75,7 +75,7 @@ def test_werckmeister_middle_c_bytes(tmp_path):
 
 def test_options_and_name(tmp_path):
     out = tmp_path / "o.syx"
-    r = run_cli("export", "edo12", "-o", str(out), "--device", "5", "--program", "9", "--name", "Concert")
+    r = run_cli("export", "edo12", "-o", str(out), "--mts-device", "5", "--mts-program", "9", "--name", "Concert")
     assert r.returncode == 0, r.stderr
     device, program, name, keys = decode_dump(out.read_bytes())
     assert (device, program, name) == (5, 9, "Concert         ")
@@ -112,7 +112,7 @@ def test_single_format_round_trip(tmp_path):
 
 def test_single_bank_form(tmp_path):
     out = tmp_path / "b.syx"
-    r = run_cli("export", "edo12", "--format", "mts-single", "--bank", "3", "--non-realtime", "-o", str(out))
+    r = run_cli("export", "edo12", "--format", "mts-single", "--mts-bank", "3", "--mts-non-realtime", "-o", str(out))
     assert r.returncode == 0, r.stderr
     # CA-020: non-real-time single note tuning change with bank select: 7E dev 08 07 bb tt ll
     assert out.read_bytes()[:8] == bytes([0xF0, 0x7E, 0x7F, 0x08, 0x07, 3, 0, 127])
@@ -142,7 +142,7 @@ def test_errors_are_one_line_and_leave_nothing(tmp_path):
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
     r = run_cli("export", "edo12", "--name", "caf\u00e9", "-o", str(out))
     assert r.returncode == 2 and "name" in r.stderr
-    r = run_cli("export", "edo12", "--bank", "1", "-o", str(out))
+    r = run_cli("export", "edo12", "--mts-bank", "1", "-o", str(out))
     assert r.returncode == 2
     assert not out.exists()
     assert os.listdir(tmp_path) == []  # no temporary file left behind

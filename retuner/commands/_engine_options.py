@@ -13,7 +13,7 @@ import argparse
 from fractions import Fraction
 from typing import Any
 
-ADAPTIVE_OPTIONS = ("policy", "chord_window", "max_drift", "max_motion", "limit", "reference")
+ADAPTIVE_OPTIONS = ("policy", "chord_window", "max_drift", "max_motion", "limit", "centre")
 
 
 def channel_list(text: str) -> list[int]:
@@ -61,9 +61,9 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--mode", choices=("pool", "mpe", "mts"),
                    help="pool: per-note pitch bend on a pool of channels (default); mpe: MPE zone; "
                         "mts: MIDI Tuning Standard (notes stay on their channels)")
-    g.add_argument("--channels", type=channel_list, metavar="LIST",
+    g.add_argument("--pool", type=channel_list, metavar="LIST",
                    help="pool channels, e.g. 1-9,11-16 (default: all but the passthrough channels)")
-    g.add_argument("--passthrough-channels", type=channel_list, metavar="LIST",
+    g.add_argument("--passthrough", type=channel_list, metavar="LIST",
                    help="input channels passed through untouched, e.g. drums (default 10; 'none')")
     g.add_argument("--bend-range", type=number, metavar="SEMITONES",
                    help="pitch bend range announced with RPN 0 (default 2; MPE members: 48)")
@@ -87,23 +87,24 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
                    help="MTS: the non-real-time form (changes reach new notes only)")
     a = parser.add_argument_group("adaptive just intonation")
     a.add_argument("--adaptive", action="store_true", default=None,
-                   help="tune every chord justly as it is played, re-centring towards the reference")
+                   help="tune every chord justly as it is played, re-centring towards 12-EDO (see --centre)")
     a.add_argument("--policy", help="how sounding notes may move: fixed-held, limited or free, "
                                     "optionally +reset (default limited+reset)")
     a.add_argument("--chord-window", type=number, metavar="SECONDS",
                    help="notes starting within this time are tuned as one chord (default 0.02)")
-    a.add_argument("--max-drift", type=number, metavar="CENTS", help="largest distance of the centre from the reference")
-    a.add_argument("--max-motion", type=number, metavar="CENTS", help="largest move of a held note per event")
+    a.add_argument("--max-drift", type=number, metavar="CENTS",
+                   help="largest distance of the centre from where it is pulled to (default 4.8)")
+    a.add_argument("--max-motion", type=number, metavar="CENTS", help="largest move of a held note per chord (default 6)")
     a.add_argument("--limit", choices=("5", "7"), help="5-limit (default) or 7-limit table of just intervals")
-    a.add_argument("--reference", choices=("edo12", "profile"),
+    a.add_argument("--centre", choices=("edo12", "profile"),
                    help="what the centre is pulled to: 12-EDO at the profile's reference pitch (default) "
                         "or the profile itself")
 
 
 # engine setting -> the option that sets it (for error messages)
-OPTION_OF = {"pool": "--channels", "passthrough": "--passthrough-channels", "bend_range": "--bend-range",
+OPTION_OF = {"pool": "--pool", "passthrough": "--passthrough", "bend_range": "--bend-range",
              "mpe_member_range": "--bend-range", "whole_semitone_range": "--whole-semitones",
-             "mts_device_id": "--mts-device", "mts_realtime": "--mts-non-realtime", "adaptive": "--adaptive"}
+             "mts_device": "--mts-device", "mts_realtime": "--mts-non-realtime", "adaptive": "--adaptive"}
 
 
 def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]:
@@ -113,10 +114,10 @@ def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]
     adaptive options given without ``--adaptive`` then change; with none in force, such options
     are a mistake."""
     eng: dict[str, Any] = {}
-    simple = {"mode": "mode", "channels": "pool", "passthrough_channels": "passthrough",
+    simple = {"mode": "mode", "pool": "pool", "passthrough": "passthrough",
               "release_time": "release_time", "bend_scale": "bend_scale",
               "whole_semitones": "whole_semitone_range", "mpe_zone": "mpe_zone",
-              "mpe_members": "mpe_members", "mts_device": "mts_device_id",
+              "mpe_members": "mpe_members", "mts_device": "mts_device",
               "mts_program": "mts_program", "mts_bank": "mts_bank"}
     for opt, fld in simple.items():
         v = getattr(args, opt, None)

@@ -23,7 +23,7 @@ def add_arguments(parser) -> None:
                         help="comma-separated profile ids or files (default edo12,meantone-quarter,werckmeister-3)")
     parser.add_argument("--adaptive", action="store_true", help="add adaptive tuning (live and lookahead)")
     parser.add_argument("--top", type=int, default=5, metavar="N", help="how many intervals (default 5)")
-    parser.add_argument("--passthrough-channels", default="10", metavar="LIST",
+    parser.add_argument("--passthrough", default="10", metavar="LIST",
                         help="input channels left out, e.g. percussion (default 10; 'none')")
     parser.add_argument("--json", action="store_true", help="print JSON")
     add_profiles_dir(parser)
@@ -44,9 +44,9 @@ def run(args) -> int:
         raise RetunerError("must be 1..50", field="--top")
     import argparse
     try:
-        pas = tuple(sorted(c - 1 for c in _channels_or_none(args.passthrough_channels)))
+        pas = tuple(sorted(c - 1 for c in _channels_or_none(args.passthrough)))
     except argparse.ArgumentTypeError as exc:
-        raise RetunerError(str(exc), field="--passthrough-channels")
+        raise RetunerError(str(exc), field="--passthrough")
     tunings = [load_profile(n, args.profiles_dir) for n in names]
     song = files.read_smf(args.input)
     cfg = EngineConfig(passthrough=pas, pool=tuple(c for c in range(16) if c not in pas)).validate()

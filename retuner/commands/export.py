@@ -40,12 +40,12 @@ def add_arguments(parser) -> None:
                              "(single note tuning changes for all 128 keys)")
     parser.add_argument("-o", "--output", required=True, metavar="FILE.syx",
                         help="file to write (raw system exclusive bytes, F0 ... F7)")
-    parser.add_argument("--device", type=_data_byte, default=mts.DEVICE_ALL,
+    parser.add_argument("--mts-device", type=_data_byte, default=mts.DEVICE_ALL,
                         help="device ID 0..127 (default 127 = all devices)")
-    parser.add_argument("--program", type=_data_byte, default=0, help="tuning program 0..127 (default 0)")
-    parser.add_argument("--bank", type=_data_byte, default=None,
+    parser.add_argument("--mts-program", type=_data_byte, default=0, help="tuning program 0..127 (default 0)")
+    parser.add_argument("--mts-bank", type=_data_byte, default=None,
                         help="tuning bank 0..127 (mts-single only: use the bank form of the message)")
-    parser.add_argument("--non-realtime", action="store_true",
+    parser.add_argument("--mts-non-realtime", action="store_true",
                         help="mts-single only: use the non-real-time form (always with a bank byte)")
     parser.add_argument("--name", default=None,
                         help="tuning name in the dump, up to 16 ASCII characters (default: the profile id)")
@@ -58,7 +58,7 @@ def build(tuning, fmt: str, *, device: int, program: int, name: str,
     """The bytes of the export and the keys whose pitch had to be clamped."""
     if fmt == "mts-bulk":
         if bank is not None or not realtime:
-            raise RetunerError("--bank and --non-realtime apply to --format mts-single only",
+            raise RetunerError("--mts-bank and --mts-non-realtime apply to --format mts-single only",
                                field="format")
         return mts.bulk_tuning_dump_checked(tuning.cents, name, device=device, program=program)
     changes = []
@@ -96,8 +96,8 @@ def run(args) -> int:
     if len(name) > mts.NAME_LENGTH:
         print(f"retuner: tuning name cut to {mts.NAME_LENGTH} characters: {name[:mts.NAME_LENGTH]!r}",
               file=sys.stderr)
-    data, clamped = build(tuning, args.format, device=args.device, program=args.program, name=name,
-                          bank=args.bank, realtime=not args.non_realtime)
+    data, clamped = build(tuning, args.format, device=args.mts_device, program=args.mts_program, name=name,
+                          bank=args.mts_bank, realtime=not args.mts_non_realtime)
     write_atomic(args.output, data)
     if clamped:
         print(f"retuner: {len(clamped)} key(s) outside the MIDI Tuning Standard range "

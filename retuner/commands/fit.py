@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import sys
 
+from ._engine_options import channel_list
+
 
 def _z(x: float, nd: int) -> float:
     """Rounded, without a minus sign on zero."""
@@ -34,24 +36,22 @@ def add_arguments(parser) -> None:
     parser.add_argument("--norm", choices=["abs", "squares"], default="abs",
                         help="abs (default): minimise the impurity itself, the time-weighted mean |deviation| "
                              "(iteratively reweighted least squares); squares: plain weighted least squares")
-    parser.add_argument("--drum-channel", type=int, default=10, metavar="N",
-                        help="percussion channel left out (1..16, 0 = none; default 10)")
-    parser.add_argument("--compare", metavar="IDS",
+    parser.add_argument("--passthrough", type=channel_list, default=[10], metavar="LIST",
+                        help="channels left out, e.g. percussion (default 10; 'none')")
+    parser.add_argument("--profiles", metavar="LIST",
                         help="comma-separated profiles to compare (default: edo12, meantone-quarter, "
                              "werckmeister-3, kirnberger-3, vallotti, young-2)")
     parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
-                        help="more folders of profiles for --compare")
+                        help="more folders of profiles for --profiles")
 
 
 def run(args) -> int:
     from ..errors import RetunerError
     from .. import fit
     from ..profile import parse_profile
-    if not 0 <= args.drum_channel <= 16:
-        raise RetunerError("--drum-channel must be 1..16 or 0 for none", field="drum_channel")
     if not (args.reference > 0):
         raise RetunerError("--reference must be a positive frequency in Hz", field="reference")
-    notes = fit.read_notes(args.input, drum_channel=args.drum_channel - 1 if args.drum_channel else None)
+    notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.passthrough])
     weights = fit.pair_weights(notes)
     if not weights:
         raise RetunerError("the piece has no two notes sounding together in a consonant interval",
@@ -62,7 +62,7 @@ def run(args) -> int:
     text = fit.profile_yaml(result, profile_id=pid, source_name=args.input, reference_hz=args.reference)
     parse_profile(text, args.output)         # what we write must load
     fit.write_atomic(args.output, text)
-    ids = [s.strip() for s in args.compare.split(",") if s.strip()] if args.compare else list(fit.COMPARE_PROFILES)
+    ids = [s.strip() for s in args.profiles.split(",") if s.strip()] if args.profiles else list(fit.COMPARE_PROFILES)
     rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profiles_dir)
     seconds = sum(weights.values())
     print(f"{args.input}: {len(notes)} notes, {seconds:.1f} s of consonant pairs; wrote {args.output}")
