@@ -217,7 +217,7 @@ def test_config_defaults():
     ({"mode": "quad"}, "mode"), ({"pool": ()}, "pool"), ({"pool": (0, 16)}, "pool"),
     ({"pool": (0, 9)}, "pool"), ({"bend_range": 0}, "bend_range"), ({"bend_scale": 0}, "bend_scale"),
     ({"release_time": -1}, "release_time"), ({"mpe_zone": "middle"}, "mpe_zone"),
-    ({"mpe_members": 16}, "mpe_members"), ({"mts_device_id": 128}, "mts_device_id"),
+    ({"mpe_members": 16}, "mpe_members"), ({"mts_device": 128}, "mts_device"),
 ])
 def test_config_errors_are_values(kw, field):
     with pytest.raises(RetunerError) as ei:

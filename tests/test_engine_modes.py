@@ -187,7 +187,7 @@ def test_mts_start_selects_tuning_and_sends_all_keys():
 
 
 def test_mts_bank_form_and_options():
-    e, out = mts(mts_bank=3, mts_program=5, mts_device_id=0x10, mts_realtime=False)
+    e, out = mts(mts_bank=3, mts_program=5, mts_device=0x10, mts_realtime=False)
     sx = [parse_single_note(m) for m in out if m.type == "sysex"]
     assert sx and all(p["bank"] == 3 and p["program"] == 5 and p["device"] == 0x10 and not p["realtime"]
                       for p in sx)
