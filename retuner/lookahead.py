@@ -478,7 +478,7 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
 
     # the user's drift limit holds (a little room above the drift already reached, so the
     # barrier has an interior); the plan starts from the reference itself, which meets it
-    cap = max(float(acfg.max_drift), floor + 1e-3) if acfg.max_drift > 0 else math.inf
+    cap = max(float(acfg.max_drift), floor + 1e-3)
     x0 = np.array([ref[n.key] for n, _ in order], dtype=float)
 
     def solve(tau_, tol):
@@ -520,6 +520,8 @@ def l1_solve(N, ti, tj, tb, tc, rows, r, drift_value, floor, cap=math.inf, tol=1
     n_i, n_j = tis[has_i], tj[has_i]
     P = len(tc)
     K = len(rows)
+    if not math.isfinite(cap) and drift_value <= 0:
+        cap = floor + 1e6      # D unpriced and unbounded: any large bound will do
     capped = math.isfinite(cap)
     m = 2 * P + 2 * K + 1 + int(capped)
     # the centre rows as flat arrays: G x = bincount(g_term, x[g_idx] * g_val)
@@ -569,7 +571,7 @@ def l1_solve(N, ti, tj, tb, tc, rows, r, drift_value, floor, cap=math.inf, tol=1
             q = np.sqrt(1.0 + (s * u) ** 2)
             d1 = s * s * u / (1.0 + q)          # derivative of the smoothed |u| (closed form)
             d2 = s * s / (q * (1.0 + q))        # and its second derivative
-            gx = np.bincount(tj, d1, minlength=N) - np.bincount(n_i, d1[has_i], minlength=N)
+            gx = (np.bincount(tj, d1, minlength=N) - np.bincount(n_i, d1[has_i], minlength=N)).astype(float)
             gD = tau * drift_value - 1.0 / (D - floor)
             hDD = 1.0 / (D - floor) ** 2
             if capped:

@@ -300,3 +300,21 @@ def test_lookahead_keeps_the_drift_limit():
     res = files.convert_song(song, "out.mid", files.ConvertOptions(Tuning.equal12(), cfg, lookahead=True))
     rep = metrics.report(files.output_stream(res.outputs[0].data), exclude_channels=(9,))
     assert rep["drift_max_cents"] <= 1.5 + 200 / 8192
+
+
+def test_lookahead_lone_note_sits_at_the_reference():
+    """A file of one note: no pairs, no motion; the plan puts it at 12-EDO (A4 = 440 Hz is the
+    reference, ISO 16), decoded from the output within a bend step (MIDI 1.0: 200/8192 c)."""
+    mf = mido.MidiFile()
+    tr = mido.MidiTrack()
+    mf.tracks.append(tr)
+    tr.append(mido.Message("note_on", note=64, velocity=64, time=0))
+    tr.append(mido.Message("note_off", note=64, time=480))
+    buf = io.BytesIO()
+    mf.save(file=buf)
+    song = files.parse_smf(buf.getvalue(), "one.mid")
+    res = files.convert_song(song, "out.mid", files.ConvertOptions(
+        Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()), lookahead=True))
+    dec = metrics.decode(files.output_stream(res.outputs[0].data))
+    assert len(dec.notes) == 1
+    assert abs(dec.notes[0].pitch - 6400.0) <= 200 / 8192
