@@ -318,7 +318,8 @@ def test_ready_watchdog_stopping_on_notify_socket(jack_server, tmp_path, runs):
     run = start(runs, jack_server, tmp_path, ["--virtual"], env_extra={"WATCHDOG_USEC": "200000"})
     run.notify.wait_for("WATCHDOG=1", count=3, timeout=5)
     lines = run.notify.lines()
-    assert lines.index("READY=1") < len(lines)
+    # sd_notify(3): READY=1 first, then the watchdog pings
+    assert lines.index("READY=1") < lines.index("WATCHDOG=1")
     # READY=1 comes once the ports exist
     ports = jack_server.lsp()
     assert run.in_port in ports and run.out_port in ports
@@ -438,6 +439,7 @@ def test_status_line_every_interval(jack_server, tmp_path, runs):
     end = time.monotonic() + 10
     while run.daemon.log().count("status: tuning edo12 (pool)") < 2 and time.monotonic() < end:
         time.sleep(0.05)
+    assert run.daemon.log().count("status: tuning edo12 (pool)") >= 2
     line = [l for l in run.daemon.log().splitlines() if "status: tuning" in l][0]
     assert "notes" in line and "steals" in line and "ringing retunes" in line
 

@@ -623,6 +623,30 @@ def test_bend_scale_correction():
     assert abs(e.sounding()[0]["cents"] - tu.cents[61]) <= half_step()
 
 
+@pytest.mark.parametrize("mode", ["pool", "mpe"])
+def test_bend_scale_applies_to_the_players_wheel_too(mode):
+    """With a synth that plays bends at 127/128 of their size, a wheel moved a semitone up
+    must still sound a semitone up: the engine scales the wheel's share too. Decoded as the
+    synth plays it: key + bend/8192 * range * 127/128 (MIDI 1.0 bend, scaled)."""
+    tu = load_profile("meantone-quarter")
+    e, s = started(tu, bend_scale=127 / 128, mode=mode)
+    out = e.feed(0.0, ON(61))
+    out += e.feed(0.1, WHEEL(4096))         # half way up: +1 semitone at the default wheel range 2
+    last = {}
+    for m in out:
+        if m.type == "pitchwheel":
+            last[m.channel] = m.pitch
+    rng = e.bend_range_cents
+    if mode == "pool":
+        note_ch = next(m.channel for m in out if m.type == "note_on")
+        played = last[note_ch] / 8192 * rng * 127 / 128
+    else:  # MPE: the note's member bend plus the manager's (zone-wide) bend, each at its range
+        note_ch = next(m.channel for m in out if m.type == "note_on")
+        played = last.get(note_ch, 0) / 8192 * rng * 127 / 128 + last[0] / 8192 * 200.0 * 127 / 128
+    want = tu.cents[61] + 100.0 - 6100
+    assert abs(played - want) <= 2 * (rng / 16384 + 200.0 / 16384)
+
+
 def test_whole_semitone_range():
     e = Engine(Tuning.equal12(), EngineConfig(bend_range=2.4, whole_semitone_range=True))
     out = e.start(0.0)

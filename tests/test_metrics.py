@@ -164,16 +164,20 @@ def test_mts_bulk_dump_built_by_hand():
 
 
 def test_drift_max_final_rms_by_hand():
-    # 1 s of two notes bent +10 c, then 3 s of one 12-EDO note
+    # 1 s of two notes bent +10 c and one at +5 c, then 3 s of the +5 c note alone
     ten = round(10 / 200 * 8192)  # 410 -> 10.009765625 c
     c10 = ten / 8192 * 200
-    s = [(0.0, bend(0, ten)), (0.0, bend(1, ten)), (0.0, on(0, 60)), (0.0, on(1, 64)), (0.0, on(2, 67)),
-         (1.0, off(0, 60)), (1.0, off(1, 64)), (4.0, off(2, 67))]
+    five = round(5 / 200 * 8192)   # 205 -> 5.0048828125 c
+    c5 = five / 8192 * 200
+    s = [(0.0, bend(0, ten)), (0.0, bend(1, ten)), (0.0, bend(2, five)), (0.0, on(0, 60)), (0.0, on(1, 64)),
+         (0.0, on(2, 67)), (1.0, off(0, 60)), (1.0, off(1, 64)), (4.0, off(2, 67))]
     d = M.drift(M.decode(s).notes)
-    first = (c10 + c10 + 0) / 3
+    first = (c10 + c10 + c5) / 3
     assert abs(d["max"] - first) < 1e-9
-    assert abs(d["final"] - 0.0) < 1e-12
-    assert abs(d["rms"] - math.sqrt((1 * first ** 2 + 3 * 0.0) / 4)) < 1e-9
+    assert abs(d["final"] - c5) < 1e-9
+    # time-weighted: 1 s at `first`, 3 s at c5 (an unweighted mean of the two moments would differ)
+    assert abs(d["rms"] - math.sqrt((1 * first ** 2 + 3 * c5 ** 2) / 4)) < 1e-9
+    assert abs(d["rms"] - math.sqrt((first ** 2 + c5 ** 2) / 2)) > 0.1
     # a 10 ms moment is left out of the settled maximum only
     s2 = [(0.0, bend(0, ten)), (0.0, on(0, 60)), (0.01, on(1, 64)), (0.01, bend(0, 0)), (1.0, off(0, 60)), (1.0, off(1, 64))]
     s2.sort(key=lambda e: e[0])

@@ -65,7 +65,7 @@ def test_encode_worked_examples(cents, expected):
 @pytest.mark.parametrize("data, hz", [
     # Entries of the MTS frequency data table that agree with the definition to 4 decimals
     # (the table's "00 00 01 = 8.2104 Hz" and "7F 7F 7E = 13289.7300 Hz" entries do not, a
-    # known erratum discussed on the MIDI Association forum, 2018; we check the definition).
+    # known erratum, from memory; we check the definition).
     ((0x00, 0x00, 0x00), 8.1758),
     ((0x01, 0x00, 0x00), 8.6620),
     ((0x0C, 0x00, 0x00), 16.3516),

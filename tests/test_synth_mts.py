@@ -129,16 +129,26 @@ def test_mts_built_from_mts_module_plays_werckmeister3(tmp_path):
 
 
 def _mts_table(path) -> dict[int, float]:
-    """Key -> cents as the synth's key table ends up after every MTS message in the file
-    (decoded with the layout of the MIDI Tuning Standard, 'Single Note Tuning Change')."""
+    """Key -> cents as the synth's key table ends up after every MTS message in the file,
+    decoded here by hand from the layout of the MIDI Tuning Standard, 'Single Note Tuning
+    Change' (real-time: F0 7F dev 08 02 prog count [key xx yy zz]... F7; bank form 08 07 with
+    the bank before the program); frequency data = semitone xx plus (yy*128 + zz) / 16384 of
+    a semitone above 8.1758 Hz; 7F 7F 7F = no change."""
     table: dict[int, float] = {}
     for msg in mido.MidiFile(str(path)):
-        if msg.type == "sysex" and mts.is_mts(msg):
-            parsed = mts.parse_sysex(msg)
-            assert parsed.kind == "single_note" and parsed.device in (0, 0x7F) and parsed.program == 0
-            for k, c in parsed.changes:
-                if c is not None:
-                    table[k] = c
+        if msg.type != "sysex":
+            continue
+        d = list(msg.data)
+        if d[:1] != [0x7F] or d[2] != 0x08 or d[3] not in (0x02, 0x07):
+            continue
+        assert d[1] in (0, 0x7F)
+        body = d[4:] if d[3] == 0x02 else d[5:]
+        prog, count, rest = body[0], body[1], body[2:]
+        assert prog == 0 and len(rest) == 4 * count
+        for i in range(count):
+            key, xx, yy, zz = rest[4 * i:4 * i + 4]
+            if (xx, yy, zz) != (0x7F, 0x7F, 0x7F):
+                table[key] = 100.0 * (xx + (yy * 128 + zz) / 16384.0)
     return table
 
 

@@ -37,7 +37,6 @@ def test_held_major_triad_in_12_edo_by_hand():
     s = state_with({60: 6000.0, 64: 6400.0, 67: 6700.0})
     lines = squash(render(s))
     # the hand calculation: C4-E4 near 5:4 -> |4*329.628 - 5*261.626| = |1318.512 - 1308.130| = 10.38 Hz
-    assert abs(4 * 329.628 - 5 * 261.626) == pytest.approx(10.38, abs=0.005)
     assert "C4-E4 M3 400.00 5/4 +13.69 10.38" in lines
     assert "C4-G4 P5 700.00 3/2 -1.96 0.89" in lines          # |2*391.995 - 3*261.626| = 0.89
     assert "E4-G4 m3 300.00 6/5 -15.64 17.79" in lines        # |5*391.995 - 6*329.628| = 17.79
