@@ -800,9 +800,13 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
 
 
 def convert_file(in_path: str | os.PathLike, out_path: str | os.PathLike, opts: ConvertOptions) -> ConvertResult:
-    """Read, convert and write (atomically; all output files or none)."""
+    """Read, convert and write (atomically; all output files or none). The input is never
+    overwritten: an output path that names the input file is refused."""
     song = read_smf(in_path)
     res = convert_song(song, str(out_path), opts)
+    for o in res.outputs:
+        if os.path.exists(o.path) and os.path.samefile(o.path, in_path):
+            raise RetunerError("the output would overwrite the input; give another -o", file=str(o.path))
     written = []
     try:
         for o in res.outputs:

@@ -405,6 +405,11 @@ def _peek_id(path: Path) -> str:
 
 
 def _search_dirs(dirs: Sequence[Path | str]) -> list[Path]:
+    """The user's folder (which may be missing) and the folders given with --profiles-dir
+    (which must exist: a mistyped folder is an error, not an empty list)."""
+    for d in dirs:
+        if not Path(d).is_dir():
+            raise RetunerError("not a folder", file=str(d), field="--profiles-dir")
     return user_profile_dirs() + [Path(d) for d in dirs]
 
 
