@@ -25,6 +25,11 @@ def add_arguments(parser):
     add_profiles_dir(parser)
 
 
+def _z(x: float, nd: int = 3) -> float:
+    """Rounded, without a minus sign on zero."""
+    return round(x, nd) + 0.0
+
+
 def run(args) -> int:
     t = load_profile(args.id, args.profiles_dir)
     if args.json:
@@ -42,22 +47,23 @@ def run(args) -> int:
     print(f"period: {format_ratio(period) if period is not None else ''} ({t.period.cents:.3f} cents), {len(t.degrees)} degrees, "
           f"A4 (key 69) = {t.hz(69):.3f} Hz" if t.hz(69) else "")
     print()
-    print(f"{'degree':>6}  {'name':<5} {'cents':>9} {'vs 12-EDO':>10}  {'ratio':<14} {'Hz (oct ' + str(args.octave) + ')':>12}")
+    hz_head = f"Hz (oct {args.octave})" if t.is_twelve else f"Hz (key {t.root}+)"
+    print(f"{'degree':>6}  {'name':<5} {'cents':>9} {'vs 12-EDO':>10}  {'ratio':<14} {hz_head:>12}")
     for r in degree_rows(t, args.octave):
         if r.ratio is None:
             ratio = "-"
         elif r.exact:
             ratio = format_ratio(r.ratio)
         else:
-            ratio = f"~{format_ratio(r.ratio)} {r.cents - ratio_to_cents(r.ratio):+.1f}"
+            ratio = f"~{format_ratio(r.ratio)} {_z(r.cents - ratio_to_cents(r.ratio), 1):+.1f}c"
         hz = f"{r.hz:.3f}" if r.hz is not None else "unmapped"
-        print(f"{r.index:>6}  {r.name:<5} {r.cents:>9.3f} {r.from_edo12:>+10.3f}  {ratio:<14} {hz:>12}")
+        print(f"{r.index:>6}  {r.name:<5} {_z(r.cents):>9.3f} {_z(r.from_edo12):>+10.3f}  {ratio:<14} {hz:>12}")
     if t.is_twelve:
         print()
         print(f"intervals from each key of octave {args.octave} "
               f"(deviation from just; beats = |q*f2 - p*f1| for the just ratio p:q)")
         print(f"{'from':<4} {'interval':<12} {'to':<3} {'cents':>9} {'vs just':>9}  {'just':<4} {'beats/s':>8}")
         for r in interval_rows(t, args.octave):
-            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {r.cents:>9.3f} {r.deviation:>+9.3f}  "
+            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {_z(r.cents):>9.3f} {_z(r.deviation):>+9.3f}  "
                   f"{format_ratio(r.just):<4} {r.beat_hz:>8.2f}")
     return 0
