@@ -80,7 +80,7 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable, Optional, Sequence
+from typing import Any, Callable, Iterable, Optional, Sequence
 
 import mido
 from mido.messages.messages import Message
@@ -511,6 +511,7 @@ def event_seconds(song: Song, merged: Sequence) -> list[float]:
 
 
 def song_parts(merged: Sequence, passthrough: Iterable[int]) -> list[int]:
+    """Every channel (not passed through) that carries channel messages."""
     pas = set(passthrough)
     chans = set()
     for _, _, kind, raw in merged:
@@ -519,6 +520,15 @@ def song_parts(merged: Sequence, passthrough: Iterable[int]) -> list[int]:
             if c not in pas:
                 chans.add(c)
     return sorted(chans)
+
+
+def note_channels(merged: Sequence) -> set[int]:
+    """The channels that play at least one note (a note-on with a velocity)."""
+    out = set()
+    for _, _, kind, raw in merged:
+        if kind == CHANNEL and raw[0] & 0xF0 == 0x90 and len(raw) > 2 and raw[2] > 0:
+            out.add(raw[0] & 0x0F)
+    return out
 
 
 def _make_engine(tuning, config):
@@ -684,9 +694,24 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     Returns groups, one per output file: (parts, {part: engine config}).
     """
     pas = frozenset(config.passthrough)
-    parts = song_parts(merged, pas)
+    all_parts = song_parts(merged, pas)
+    # channels that only set things up (controllers, programs) and play no note are no parts of
+    # their own: they go with the first group and its first part's engine, so a file that
+    # initialises all 16 channels is not split for nothing
+    playing = note_channels(merged)
+    parts = [p for p in all_parts if p in playing]
+    quiet = [p for p in all_parts if p not in playing]
     if config.mode == "mts" or len(parts) <= 1 or merge:
-        return [(parts, {p: config for p in parts})]
+        return [(all_parts, {p: config for p in all_parts})]
+    groups = _plan_note_groups(merged, parts, tuning, config, pas)
+    first_parts, first_cfgs = groups[0]
+    for q in quiet:
+        first_cfgs[q] = first_cfgs[first_parts[0]]
+    groups[0] = (sorted(first_parts + quiet), first_cfgs)
+    return groups
+
+
+def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int], dict]]:
     if config.mode == "mpe":
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
@@ -697,8 +722,9 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
                 out.append((pair, {pair[0]: config if len(parts) == 1 else
                                    config.replace(mpe_zone="lower", mpe_members=min(config.mpe_member_count(), 7))}))
             else:
+                upper = config.replace(mpe_zone="upper", mpe_members=None)     # stops short of passthrough
                 out.append((pair, {pair[0]: config.replace(mpe_zone="lower", mpe_members=7),
-                                   pair[1]: config.replace(mpe_zone="upper", mpe_members=7)}))
+                                   pair[1]: upper.replace(mpe_members=min(upper.mpe_member_count(), 7))}))
         return out
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
@@ -770,17 +796,13 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
     split = len(groups) > 1
     for gi, (parts, cfgs) in enumerate(groups):
         engines = {}
-        shared = None
+        by_cfg: dict[int, Any] = {}      # parts given the very same config share one engine
         for p in parts:
             cfg = cfgs[p]
-            if cfg is config and shared is not None:
-                e = shared
-            elif plan is not None:
-                e = plan.engine(tuning, cfg)
-            else:
-                e = _make_engine(tuning, cfg)
-            if cfg is config:
-                shared = e
+            e = by_cfg.get(id(cfg))
+            if e is None:
+                e = plan.engine(tuning, cfg) if plan is not None else _make_engine(tuning, cfg)
+                by_cfg[id(cfg)] = e
             engines[p] = e
         channels = {p: list(cfgs[p].pool if cfgs[p].mode == "pool" else
                             (range(16) if cfgs[p].mode == "mts" else cfgs[p].mpe_member_channels()))

@@ -416,13 +416,16 @@ def test_mpe_two_parts_per_file_one_zone_each(tmp_path):
     for i, p in enumerate(outs):
         mo = mido.MidiFile(p)
         cc = [(m.channel, m.control, m.value) for tr in mo.tracks for m in tr if m.type == "control_change"]
-        for manager in (0, 15):
+        # lower zone: members 2..8 (7); upper zone: members 15..11 (5), stopping short of the
+        # drums on channel 10, which pass through and must not be taken for member notes
+        for manager, members in ((0, 7), (15, 5)):
             k = cc.index((manager, CC_RPN_LSB, 6))
-            assert cc[k - 1] == (manager, CC_RPN_MSB, 0) and cc[k + 1] == (manager, CC_DATA_MSB, 7)
+            assert cc[k - 1] == (manager, CC_RPN_MSB, 0) and cc[k + 1] == (manager, CC_DATA_MSB, members)
         out, rng = decode(p)
         members_lower = {n[2] for n in out if n[2] < 8}
         members_upper = {n[2] for n in out if n[2] >= 8}
         assert members_lower and members_upper and 0 not in members_lower and 15 not in members_upper
+        assert members_lower <= set(range(1, 8)) and members_upper <= set(range(10, 15))
         assert {rng[n[2]] for n in out} == {4800.0}
         mine = [n for n in inp if n[2] in (2 * i, 2 * i + 1)]
         # half a bend step at +-48 semitones: 4800/16384 c
@@ -521,3 +524,30 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
         assert drums_out == drums_in
     assert total == len(inp)
     assert res.stats.get("steals", 0) == 0
+
+
+@pytest.mark.parametrize("mode", ["pool", "mpe"])
+def test_channels_that_only_set_up_do_not_split_the_file(tmp_path, mode):
+    """General MIDI files often set volume and program on all 16 channels and play on a few:
+    channels without notes are no parts, so nothing is split and their controls are kept."""
+    src = tmp_path / "gm.mid"
+    mid = mido.MidiFile(ticks_per_beat=480)
+    tr = mido.MidiTrack()
+    mid.tracks.append(tr)
+    for ch in range(16):
+        tr.append(mido.Message("control_change", channel=ch, control=7, value=100, time=0))
+        tr.append(mido.Message("program_change", channel=ch, program=0, time=0))
+    for i, k in enumerate((60, 64, 67)):
+        tr.append(mido.Message("note_on", channel=2, note=k, velocity=80, time=0 if i == 0 else 10))
+    tr.append(mido.Message("note_off", channel=2, note=60, time=480))
+    tr.append(mido.Message("note_off", channel=2, note=64, time=0))
+    tr.append(mido.Message("note_off", channel=2, note=67, time=0))
+    mid.save(src)
+    dst = tmp_path / "out.mid"
+    r = run_cli("convert", src, "-o", dst, "--profile", "meantone-quarter", "--mode", mode, "-q")
+    assert r.returncode == 0, r.stderr
+    assert dst.exists() and not list(tmp_path.glob("out-part*.mid"))
+    out, _ = decode(dst)
+    assert sorted(n[3] for n in out) == [60, 64, 67]      # (on, off, channel, key, cents)
+    vols = [m for t in mido.MidiFile(dst).tracks for m in t if m.type == "control_change" and m.control == 7]
+    assert vols, "the set-up controllers are kept"
