@@ -21,9 +21,12 @@ The first port (in the order the backend lists them) that matches wins.
 
 from __future__ import annotations
 
+import contextlib
 import fnmatch
 import logging
+import os
 import re
+import sys
 import threading
 import time
 from dataclasses import dataclass
@@ -69,16 +72,42 @@ def _rt_error(exc: Exception, what: str, backend: str) -> RetunerError:
     return RetunerError(f"{what}: {exc}{hint}", field="backend")
 
 
+@contextlib.contextmanager
+def _quiet_library():
+    """The JACK and ALSA libraries print to the process's stderr (file descriptor 2) when no
+    server or sequencer is there, several lines before our own one-line message. Opening a
+    client is quick, so fd 2 goes to /dev/null meanwhile (kept with -v, for debugging)."""
+    if logging.getLogger("retuner").isEnabledFor(logging.DEBUG):
+        yield
+        return
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+        devnull = os.open(os.devnull, os.O_WRONLY)
+    except OSError:
+        yield
+        return
+    try:
+        os.dup2(devnull, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(devnull)
+
+
 def _new_in(backend: str, client_name: str, queue_size: int = 1024) -> rtmidi.MidiIn:
     try:
-        return rtmidi.MidiIn(_api(backend), client_name, queue_size)
+        with _quiet_library():
+            return rtmidi.MidiIn(_api(backend), client_name, queue_size)
     except rtmidi.SystemError as exc:  # type: ignore[attr-defined]
         raise _rt_error(exc, f"cannot open the {backend_word(backend)} MIDI system", backend) from exc
 
 
 def _new_out(backend: str, client_name: str) -> rtmidi.MidiOut:
     try:
-        return rtmidi.MidiOut(_api(backend), client_name)
+        with _quiet_library():
+            return rtmidi.MidiOut(_api(backend), client_name)
     except rtmidi.SystemError as exc:  # type: ignore[attr-defined]
         raise _rt_error(exc, f"cannot open the {backend_word(backend)} MIDI system", backend) from exc
 
