@@ -18,7 +18,9 @@ of all notes over the whole piece are chosen together:
     knowing every note that starts with it *and* every note that will sound with it, each pair
     counted for as long as it actually sounds;
   - motion of a held note from one segment to the next, ``|x[n, s+1] - x[n, s]|``, priced at
-    ``motion_value`` per cent per note (relative to the mean impurity);
+    ``motion_value`` per cent per note (relative to the mean impurity), and ``EXCESS_VALUE``
+    times more for what exceeds the settings' limit per event (``max_motion`` under the
+    "limited" policy, 0 under "fixed-held");
   - drift: the largest ``|mean_n x[n] - r|`` over every stretch in which the set of sounding
     notes is constant (``r`` the reference: 12-EDO at the profile's reference pitch, or the
     profile), priced at ``drift_value``, and never above the adaptive settings' ``max_drift``.
@@ -78,6 +80,9 @@ MOTION_VALUE = 1.0
 DRIFT_VALUE = 0.1
 #: plans choose() makes at most (mixtures of them not counted)
 MAX_PLANS = 5
+#: price of each cent a held note's step exceeds the adaptive settings' limit per event,
+#: in units of the motion price
+EXCESS_VALUE = 20.0
 #: factor by which the barrier parameter grows between centring rounds (see l1_solve)
 BARRIER_STEP = 50.0
 #: duality gap bound of a window's solution (in the units of the window's objective, about cents),
@@ -473,9 +478,23 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
     nnotes = max(len({n.id for n, _ in order}), 1)
     scale = 1.0 / pair_time if pair_time > 0 else 1.0
     mcost = motion_value * scale * max(pair_time / nnotes, 1e-3)
-    ti = np.array(pi + mi, dtype=int)
-    tj = np.array(pj + mj, dtype=int)
-    tc = np.concatenate([np.array(pw, dtype=float) * scale, np.full(len(mj), mcost)])
+    # a held note's step beyond the settings' limit per event (policy "limited": max_motion;
+    # "fixed-held": none at all; "free": no limit) costs EXCESS_VALUE times more: the hinge
+    # max(0, |u| - M) is (|u - M| + |u + M|) / 2 - M, two more absolute values
+    mode = acfg.held_mode
+    lim = 0.0 if mode == "fixed-held" else (float(acfg.max_motion) if mode == "limited" else None)
+    fixed = np.array(fixed_v, dtype=float)
+    ti_l, tj_l = pi + mi, pj + mj
+    tc_l = [np.array(pw, dtype=float) * scale, np.full(len(mj), mcost)]
+    tb_extra = []
+    if lim is not None and mj:
+        ti_l = ti_l + mi + mi
+        tj_l = tj_l + mj + mj
+        tc_l.append(np.full(2 * len(mj), EXCESS_VALUE * mcost / 2.0))
+        tb_extra = [fixed + lim, fixed - lim]
+    ti = np.array(ti_l, dtype=int)
+    tj = np.array(tj_l, dtype=int)
+    tc = np.concatenate(tc_l)
     floor = float(state.get("drift", 0.0))
 
     # the user's drift limit holds (a little room above the drift already reached, so the
@@ -484,7 +503,7 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
     x0 = np.array([ref[n.key] for n, _ in order], dtype=float)
 
     def solve(tau_, tol):
-        tb = np.concatenate([tau_, np.array(fixed_v, dtype=float)])
+        tb = np.concatenate([tau_, fixed] + tb_extra)
         return l1_solve(N, ti, tj, tb, tc, rows, r, drift_value, floor, cap=cap, tol=tol, x0=x0)
 
     amb = [k for k, c in enumerate(pc) if len(c) > 1]

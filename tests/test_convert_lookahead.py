@@ -48,6 +48,10 @@ def test_lookahead_beats_live_on_legato_progressions(name):
     assert la["drift_max_cents"] < live["drift_max_cents"]
     # and within the adaptive settings' drift limit (to a bend step, 200/8192 c: MIDI 1.0)
     assert la["drift_max_cents"] <= AdaptiveConfig().max_drift + 200 / 8192
+    # no held note steps further than the settings allow per event (policy "limited")
+    dec = metrics.decode(files.output_stream(data), exclude_channels=(9,))
+    steps = [abs(b[1] - a[1]) for nt in dec.notes for a, b in zip(nt.steps, nt.steps[1:])]
+    assert max(steps, default=0.0) <= AdaptiveConfig().max_motion + 200 / 8192
     if live["motion_cents_per_note"] > 0.01:
         assert la["motion_cents_per_note"] < live["motion_cents_per_note"]
     else:
