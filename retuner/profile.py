@@ -57,12 +57,14 @@ FIFTH_RE = re.compile(r"^\s*([+-]?\d+(?:/\d+)?)\s+([a-z]+)\s*$")
 
 
 def builtin_dir() -> Path:
-    """The folder of built-in profiles: the source tree's ``profiles/`` or the installed copy."""
-    src = Path(__file__).resolve().parent.parent / "profiles"
-    if src.is_dir() and any(src.glob("*.yaml")):
-        return src
-    from importlib import resources
-    return Path(str(resources.files("retuner.builtin_profiles")))
+    """The folder of built-in profiles: the installed copy (``retuner/builtin_profiles``, put
+    there by pyproject.toml from the project's ``profiles/``), or ``profiles/`` beside the
+    package in a source tree."""
+    here = Path(__file__).resolve().parent
+    installed = here / "builtin_profiles"
+    if installed.is_dir() and any(installed.glob("*.yaml")):
+        return installed
+    return here.parent / "profiles"
 
 
 def user_profile_dirs() -> list[Path]:

@@ -158,3 +158,18 @@ def test_user_profiles_and_override(tmp_path, monkeypatch):
 
 def test_builtin_dir_has_all_files():
     assert {p.stem for p in builtin_dir().glob("*.yaml")} >= BUILTIN_IDS
+
+
+def test_installed_package_finds_its_builtin_profiles(tmp_path):
+    """Run from a folder outside the source tree, so the installed package is imported (as a
+    user's `pip install .` runs it): the built-in profiles ship with it."""
+    import os
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
+    env["XDG_CONFIG_HOME"] = str(tmp_path / "cfg")
+    code = ("import json, retuner, retuner.profile as p; "
+            "print(json.dumps([retuner.__file__, sorted(i.id for i in p.list_profiles())]))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path, env=env)
+    assert r.returncode == 0, r.stderr
+    where, ids = json.loads(r.stdout)
+    assert not where.startswith(str(tmp_path))
+    assert set(ids) >= BUILTIN_IDS
