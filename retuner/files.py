@@ -701,6 +701,11 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     playing = note_channels(merged)
     parts = [p for p in all_parts if p in playing]
     quiet = [p for p in all_parts if p not in playing]
+    if config.mode == "mpe" and config.mpe_members is None and not any(
+            kind == CHANNEL and (raw[0] & 0x0F) in pas for _, _, kind, raw in merged):
+        # the zone stops short of the passthrough channels only to keep drums out of it: a file
+        # without drums gives the zone every channel (fewer ringing retunes)
+        config = config.replace(mpe_members=15)
     if config.mode == "mts" or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
     groups = _plan_note_groups(merged, parts, tuning, config, pas)

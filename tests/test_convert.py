@@ -551,3 +551,26 @@ def test_channels_that_only_set_up_do_not_split_the_file(tmp_path, mode):
     assert sorted(n[3] for n in out) == [60, 64, 67]      # (on, off, channel, key, cents)
     vols = [m for t in mido.MidiFile(dst).tracks for m in t if m.type == "control_change" and m.control == 7]
     assert vols, "the set-up controllers are kept"
+
+
+@pytest.mark.parametrize("drums,members", [(False, 15), (True, 8)])
+def test_mpe_zone_takes_every_channel_unless_drums_pass_through(tmp_path, drums, members):
+    """MPE specification (The MIDI Association, 2018): the MPE Configuration Message (RPN 6 on
+    the manager channel, data entry = member count). A file with drums on channel 10 keeps them
+    outside the zone (members 2..9); a file without gets all 15 members."""
+    src = tmp_path / "in.mid"
+    mid = mido.MidiFile(ticks_per_beat=480)
+    tr = mido.MidiTrack()
+    mid.tracks.append(tr)
+    if drums:
+        tr.append(mido.Message("note_on", channel=9, note=36, velocity=90, time=0))
+        tr.append(mido.Message("note_off", channel=9, note=36, time=10))
+    tr.append(mido.Message("note_on", channel=0, note=60, velocity=80, time=0))
+    tr.append(mido.Message("note_off", channel=0, note=60, time=480))
+    mid.save(src)
+    dst = tmp_path / "out.mid"
+    r = run_cli("convert", src, "-o", dst, "--mode", "mpe", "-q")
+    assert r.returncode == 0, r.stderr
+    cc = [(m.channel, m.control, m.value) for t in mido.MidiFile(dst).tracks for m in t if m.type == "control_change"]
+    k = cc.index((0, 100, 6))
+    assert cc[k - 1] == (0, 101, 0) and cc[k + 1] == (0, 6, members)
