@@ -254,7 +254,7 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
 
 # -- the measures ----------------------------------------------------------------
 
-def _sweep(notes: Sequence[NoteTrack]):
+def segments(notes: Sequence[NoteTrack]):
     """Yield (t0, t1, [(key, cents)]) for every interval over which the sounding set is constant."""
     ev: list[tuple[float, int, int, float]] = []  # (time, kind 0=change/start 1=end, id, cents)
     for i, n in enumerate(notes):
@@ -290,7 +290,7 @@ def impurity(notes: Sequence[NoteTrack]) -> tuple[float, float]:
     """(time-weighted mean |deviation from just| of consonant pairs, total pair time)."""
     tot = 0.0
     wsum = 0.0
-    for t0, t1, snd in _sweep(notes):
+    for t0, t1, snd in segments(notes):
         dt = t1 - t0
         ps = [p for _, p in snd]
         for a in range(len(ps)):
@@ -320,7 +320,7 @@ def drift(notes: Sequence[NoteTrack], settle: float = 0.0) -> dict:
     final = 0.0
     sq = 0.0
     tt = 0.0
-    for t0, t1, snd in _sweep(notes):
+    for t0, t1, snd in segments(notes):
         d = sum(p - 100.0 * k for k, p in snd) / len(snd)
         dt = t1 - t0
         if dt >= settle:

@@ -26,6 +26,7 @@ import json
 import math
 from typing import Optional
 
+from . import metrics
 from .errors import RetunerError
 
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
@@ -141,27 +142,16 @@ def text_summary(rep: dict) -> str:
 
 
 def drift_line(notes) -> tuple[list[float], list[float]]:
-    """(times, drift) step points: the mean deviation from 12-EDO of the sounding notes."""
-    ev = []
-    for i, n in enumerate(notes):
-        for t, c in n.steps:
-            ev.append((t, 1, i, c))
-        ev.append((n.end if n.end is not None else n.start, 0, i, 0.0))
-    ev.sort(key=lambda e: (e[0], e[1]))
-    cur: dict[int, float] = {}
+    """(times, drift) step points: the mean deviation from 12-EDO of the sounding notes, over
+    the stretches in which the sounding set stays the same (NaN where nothing sounds)."""
     xs: list[float] = []
     ys: list[float] = []
-    for t, kind, i, c in ev:
-        if kind == 0:
-            cur.pop(i, None)
-        else:
-            cur[i] = c - 100.0 * notes[i].key
-        y = sum(cur.values()) / len(cur) if cur else math.nan
-        if xs and xs[-1] == t:
-            ys[-1] = y
-        else:
-            xs.append(t)
-            ys.append(y)
+    for t0, t1, snd in metrics.segments(notes):
+        if xs and xs[-1] == t0:
+            xs.pop()
+            ys.pop()
+        xs += [t0, t1]
+        ys += [sum(c - 100.0 * k for k, c in snd) / len(snd), math.nan]
     return xs, ys
 
 
@@ -231,33 +221,13 @@ CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: 
                8: "minor sixth", 9: "major sixth"}
 
 
-def _segments(notes):
-    """(t0, t1, [(key, cents)]) over which the sounding set is constant."""
-    ev = []
-    for i, n in enumerate(notes):
-        for t, c in n.steps:
-            ev.append((t, 1, i, c))
-        ev.append((n.end if n.end is not None else n.start, 0, i, 0.0))
-    ev.sort(key=lambda e: (e[0], e[1]))
-    cur: dict[int, float] = {}
-    prev = None
-    for t, kind, i, c in ev:
-        if prev is not None and t > prev and cur:
-            yield prev, t, [(notes[j].key, p) for j, p in cur.items()]
-        prev = t
-        if kind == 0:
-            cur.pop(i, None)
-        else:
-            cur[i] = c
-
-
 def pair_times(notes) -> dict:
     """(low key, high key) -> [seconds sounding together, sum of beat rate * seconds] for the
     consonant pairs (a whole octave and more counts as an octave's multiple: compound 2:1 only
     for octaves; other compound intervals are reduced to their simple form for the ratio)."""
     from .tuning import beat_rate, cents_to_hz
     acc: dict = {}
-    for t0, t1, snd in _segments(notes):
+    for t0, t1, snd in metrics.segments(notes):
         dt = t1 - t0
         snd = sorted(snd, key=lambda kp: (kp[1], kp[0]))
         for a in range(len(snd)):
