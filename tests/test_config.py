@@ -134,8 +134,12 @@ def test_flags_override_the_file(tmp_path):
     # a value the parser lets through but the engine refuses names its option
     args = build_parser().parse_args(["run", "--pool", "1-10"])
     with pytest.raises(RetunerError) as ei:
-        engine_config(run_cmd._apply_flags(Settings(), args))
-    assert ei.value.field == "engine.pool"
+        run_cmd._apply_flags(Settings(), args)
+    assert ei.value.field == "--pool" and ei.value.file is None
+    args = build_parser().parse_args(["run", "--release-time", "-1"])
+    with pytest.raises(RetunerError) as ei:
+        run_cmd._apply_flags(Settings(), args)
+    assert ei.value.field == "--release-time"
 
 
 def test_unknown_profile_in_the_list_names_its_line(tmp_path):
