@@ -256,8 +256,13 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         except RetunerError as exc:
             eng = d.get("engine")
             key = (exc.field or "").replace("engine.", "", 1)
+            head, _, sub = key.partition(".")
             if isinstance(eng, dict) and key in eng:
                 exc.line = eng.lines.get(key)
+            elif isinstance(eng, dict) and head in eng:
+                inner = eng[head]       # e.g. engine.adaptive.policy: the line of the nested field
+                lines = getattr(inner, "lines", None)
+                exc.line = (lines or {}).get(sub) or eng.lines.get(head)
             elif "mode" in d and key == "mode":
                 exc.line = d.lines.get("mode")
             raise

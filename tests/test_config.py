@@ -162,3 +162,14 @@ def test_engine_section_numbers_and_fractions():
     assert (e.line, e.field) == (2, "engine.mode")
     e = _err("engine:\n  pool: [1, 10]\n")          # the engine's own rule: 10 is passed through
     assert (e.line, e.field) == (2, "engine.pool")
+
+
+def test_nested_adaptive_setting_names_its_line(tmp_path):
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("profile: edo12\nengine:\n  adaptive:\n    chord_window: 0.02\n    policy: wobbly\n")
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--config", str(cfg)],
+                       capture_output=True, text=True, timeout=20,
+                       env={**__import__("os").environ, "XDG_CONFIG_HOME": str(tmp_path)})
+    assert r.returncode == 2
+    (line,) = r.stderr.strip().splitlines()
+    assert line.startswith(f"retuner: {cfg}:5: engine.adaptive.policy: "), line
