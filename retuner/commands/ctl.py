@@ -35,7 +35,9 @@ def add_arguments(parser) -> None:
     p = sub.add_parser("adaptive", help="turn adaptive mode on or off")
     p.add_argument("state", choices=["on", "off"])
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
-                   help="an adaptive setting (repeatable; value is YAML: 5, true, [1, 2])")
+                   help="an adaptive setting (repeatable; value is YAML: 5, true, [1, 2]), e.g. "
+                        "policy=fixed-held, chord_window=0.03, max_drift=4, max_motion=3, limit=7, "
+                        "centre=profile")
     p = sub.add_parser("reference", help="set the reference pitch of A4 in Hz")
     p.add_argument("hz", type=float, metavar="HZ")
     p = sub.add_parser("transpose", help="move the tuning's root by N semitones (or shift by cents)")
