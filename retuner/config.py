@@ -22,7 +22,7 @@ defaults). Every field is optional::
       ab: [meantone-quarter, edo12]
     status_interval: 10            # minutes between status lines; 0 = none
     port_poll: 0.5                 # seconds between looks for lost/returned ports
-    setup_refresh: 5               # our own output port: send the setup (bend range...) again
+    setup_refresh: 1               # our own output port: send the setup (bend range...) again
                                    # before a note-on after this many quiet seconds with nothing
                                    # sounding or ringing, for a synth connected after the start; 0 = never
     log_level: info                # debug, info, warning, error
@@ -86,7 +86,7 @@ class Settings:
     switch: Switching = field(default_factory=Switching)
     status_interval: float = 10.0            # minutes
     port_poll: float = 0.5                   # seconds
-    setup_refresh: float = 5.0               # seconds; 0 = never (see the module doc)
+    setup_refresh: float = 1.0               # seconds; 0 = never (see the module doc)
     log_level: str = "info"
     control: ControlSettings = field(default_factory=ControlSettings)
     lines: dict[str, int] = field(default_factory=dict, compare=False, repr=False)  # field -> line in source

@@ -396,6 +396,7 @@ class Daemon:
             self.notifier.ready(status="reload failed")
             return
         old = self.settings
+        old_main = self.profiles.main
         ports_changed = any(getattr(old, k) != getattr(new, k)
                             for k in ("backend", "input", "output", "virtual", "client_name", "port_poll"))
         self.settings = new
@@ -416,13 +417,19 @@ class Daemon:
                 log.error("reopening ports: %s", exc)
         if old.control != new.control:
             log.warning("control socket settings take effect at the next start")
-        self.switch_to(profiles.main, now, "reload")
+        if (profiles.main.id, profiles.main.cents) != (old_main.id, old_main.cents):
+            self.switch_to(profiles.main, now, "reload")
+        elif self.tuning.id != profiles.main.id:
+            # the config's tuning is unchanged: a tuning switched to live (program change, A/B,
+            # control socket) stays
+            log.info("keeping the tuning switched to live: %s", self.tuning.id)
         log.info("reloaded %s", new.source or "built-in defaults")
         self.notifier.ready(status=self._status_text())
 
     def _status_text(self) -> str:
         st = dict(getattr(self.engine, "stats", {}) or {})
-        parts = [f"tuning {self.tuning.id} ({self.engine.config.mode})",
+        parts = [f"tuning {self.tuning.id} ({self.engine.config.mode}"
+                 f"{', adaptive' if self.engine.config.adaptive is not None else ''})",
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
                  f"{st.get('ringing_retunes', 0)} ringing retunes"]

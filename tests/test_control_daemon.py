@@ -421,3 +421,28 @@ def test_watch_in_a_captured_terminal(run_daemon, jack_client):
     finally:
         subprocess.run([tmux, "-S", sock, "kill-server"], env=env, timeout=10, capture_output=True)
         lift(jack_client, [60, 67])
+
+
+def test_reload_keeps_a_live_switch_unless_the_config_changes_its_tuning(run_daemon, jack_client):
+    """A teacher switches tunings live, then the service is reloaded (SIGHUP): the live choice
+    stays while the config's tuning is unchanged; a config that names another tuning wins."""
+    import signal
+    cfg_dir = tempfile.mkdtemp(prefix="rtc")
+    cfg = os.path.join(cfg_dir, "c.yaml")
+    with open(cfg, "w") as fh:
+        fh.write("profile: werckmeister-3\n")
+    r = run_daemon("--config", cfg)
+    try:
+        assert r.ctl("load", "pythagorean").returncode == 0
+        r.daemon.signal(signal.SIGHUP)
+        r.notify.wait_for("READY=1", count=2)
+        st = json.loads(r.ctl("status", "--json").stdout)
+        assert st["tuning"] == "pythagorean"
+        with open(cfg, "w") as fh:
+            fh.write("profile: vallotti\n")
+        r.daemon.signal(signal.SIGHUP)
+        r.notify.wait_for("READY=1", count=3)
+        st = json.loads(r.ctl("status", "--json").stdout)
+        assert st["tuning"] == "vallotti"
+    finally:
+        shutil.rmtree(cfg_dir, ignore_errors=True)

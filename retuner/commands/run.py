@@ -50,6 +50,9 @@ def _apply_flags(s: _config.Settings, args) -> _config.Settings:
     if args.profiles_dir:
         s.profile_dirs = list(s.profile_dirs) + list(args.profiles_dir)
     if args.virtual:
+        if args.input or args.output:
+            raise RetunerError("--virtual makes our own ports: leave out --input and --output, "
+                               "or leave out --virtual to connect to named ports", field="--virtual")
         s.virtual = True
     eng = engine_overrides(args, adaptive_in_force=s.engine.get("adaptive"))
     if eng:
