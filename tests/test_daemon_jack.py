@@ -549,3 +549,24 @@ def test_live_adaptive_flag_tunes_a_progression_and_reports_figures(jack_server,
     assert m, line
     assert int(m.group(1)) == total
     assert float(m.group(2)) < 1.0          # just chords: far below 12-EDO's ~14 c thirds
+
+
+def test_a_synth_connected_after_the_start_gets_the_setup(jack_server, jack_client, tmp_path, runs):
+    """Our own output port cannot see who connects: after a quiet spell (1 s, and at least the
+    release time) the set-up (RPN 0 = pitch bend sensitivity: CC101 0, CC100 0, CC6 semitones;
+    MIDI 1.0) is sent again before the next note, so a synth plugged in late plays in tune."""
+    run = start(runs, jack_server, tmp_path, ["--virtual", "--profile", "werckmeister-3", "--bend-range", "12"],
+                client=jack_client, wire_out=False)
+    time.sleep(1.0)
+    jack_server.connect(run.out_port, jack_client.in_full)   # the synth arrives after the start
+    time.sleep(1.5)
+    jack_client.clear()
+    jack_client.send(mido.Message("note_on", note=64, velocity=80))
+    recs = jack_client.wait_for(lambda r: len(note_ons(r)) >= 1)
+    ons_at = next(i for i, r in enumerate(recs) if r.msg.type == "note_on")
+    before = [r.msg for r in recs[:ons_at]]
+    assert any(m.type == "control_change" and m.control == 6 and m.value == 12 for m in before)
+    d = decode(recs)
+    (n,) = d.stuck()
+    assert abs(n.cents - W3[64]) <= half_step(12)
+    jack_client.send(mido.Message("note_off", note=64))
