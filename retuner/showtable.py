@@ -21,8 +21,8 @@ class DegreeRow:
     index: int
     name: str
     cents: float           # above the root
-    from_edo12: float      # deviation from the nearest 12-EDO step (for 12-note tunings: from step `index`)
-    ratio: Optional[Fraction]   # exact ratio, or the nearest simple ratio within 12 cents
+    from_edo12: float      # the degree's key as it sounds, against the nearest 12-EDO pitch (12-note: its own key's)
+    ratio: Optional[Fraction]   # exact ratio, or the nearest simple 5-limit ratio within 12 cents
     hz: Optional[float]
     exact: bool = False          # True when ``ratio`` is the degree's exact value
 
@@ -44,15 +44,18 @@ def degree_rows(t: Tuning, octave: int = 4) -> list[DegreeRow]:
     root_period = t.key_degree[root_key][0] if t.key_degree and t.key_degree[root_key] else 0
     for i, deg in enumerate(t.degrees):
         c = deg.cents
-        if t.is_twelve:
-            dev = c - 100.0 * i
-        else:
-            dev = c - 100.0 * round(c / 100.0)
         key = _key_of(t, i, root_period)
         hz = t.hz(key) if key is not None else None
+        if key is not None:
+            # as the key sounds (reference pitch applied), against the 12-EDO pitch nearest to it:
+            # for 12-note tunings that is the key's own 12-EDO pitch
+            absolute = t.cents[key]
+            dev = absolute - 100.0 * (key if t.is_twelve else round(absolute / 100.0))
+        else:
+            dev = c - 100.0 * (i if t.is_twelve else round(c / 100.0))
         exact = deg.interval.as_fraction
-        rows.append(DegreeRow(i, deg.name, c, dev, exact if exact is not None else nearest_simple_ratio(c, tolerance=12.0),
-                              hz, exact is not None))
+        rows.append(DegreeRow(i, deg.name, c, dev, exact if exact is not None else
+                              nearest_simple_ratio(c, tolerance=12.0, prime_limit=5), hz, exact is not None))
     return rows
 
 

@@ -54,7 +54,12 @@ def test_show_table_for_projector():
     lines = out.splitlines()
     assert lines[0].startswith("meantone-quarter:")
     row_e = next(l for l in lines if l.split()[:2] == ["4", "E"])
-    assert "386.314" in row_e and "-13.686" in row_e and "5/4" in row_e
+    # quarter-comma meantone (Barbour 1951): fifth = 3/2 narrowed by 1/4 syntonic comma; E is four
+    # fifths above C (386.314 c), A three (889.735 c); with A4 at 440 Hz, E4 sounds
+    # 386.314 + (900 - 889.735) - 400 = -3.422 c from its 12-EDO pitch
+    fifth = 1200 * math.log2(1.5) - 1200 * math.log2(81 / 80) / 4
+    e, a = 4 * fifth - 2400, 3 * fifth - 1200
+    assert f"{e:.3f}" in row_e and f"{e + (900 - a) - 400:+.3f}" in row_e and "5/4" in row_e
     # the C-E major third of quarter-comma meantone is pure: 0.00 beats
     ce = next(l for l in lines if l.startswith("C ") and "major third" in l)
     assert ce.split()[-1] == "0.00"

@@ -48,6 +48,8 @@ def run(args) -> int:
           f"A4 (key 69) = {t.hz(69):.3f} Hz" if t.hz(69) else "")
     print()
     hz_head = f"Hz (oct {args.octave})" if t.is_twelve else f"Hz (key {t.root}+)"
+    print("cents: above the root; vs 12-EDO: the key as it sounds, against its 12-EDO pitch; "
+          "ratio: exact, or ~ the nearest simple one and how far it is")
     print(f"{'degree':>6}  {'name':<5} {'cents':>9} {'vs 12-EDO':>10}  {'ratio':<14} {hz_head:>12}")
     for r in degree_rows(t, args.octave):
         if r.ratio is None:
