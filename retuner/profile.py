@@ -381,7 +381,11 @@ def _read(path: Path) -> Tuning:
 
 
 def _scan(dirs: Iterable[Path]) -> dict[str, tuple[Path, bool]]:
-    """id -> (path, builtin). User folders override built-ins, with a notice."""
+    """id -> (path, builtin). User folders override built-ins, with a notice.
+
+    A broken file or a repeated id in a user folder is reported (one line each) and left out,
+    so one bad file does not stop every command or a daemon starting at boot; loading that file
+    by its path still gives its error."""
     found: dict[str, tuple[Path, bool]] = {}
     for path in sorted(builtin_dir().glob("*.yaml")):
         found[path.stem] = (path, True)
@@ -391,9 +395,14 @@ def _scan(dirs: Iterable[Path]) -> dict[str, tuple[Path, bool]]:
         if not d.is_dir():
             continue
         for path in sorted(d.glob("*.yaml")):
-            pid = _peek_id(path)
+            try:
+                pid = _peek_id(path)
+            except RetunerError as exc:
+                log.warning("%s (profile left out)", exc)
+                continue
             if pid in seen_user and seen_user[pid] != path:
-                raise RetunerError(f"duplicate id {pid!r}, also in {seen_user[pid]}", file=str(path), field="id")
+                log.warning("%s: id: duplicate id %r, also in %s (this file left out)", path, pid, seen_user[pid])
+                continue
             seen_user[pid] = path
             if pid in found and found[pid][1]:
                 log.warning("profile %s from %s overrides the built-in one", pid, path)

@@ -150,10 +150,18 @@ def test_user_profiles_and_override(tmp_path, monkeypatch):
     (extra / "other.yaml").write_text(GOOD.replace("test-scale", "other"))
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "nothing"))
     assert load_profile("other", [extra]).id == "other"
-    # duplicate ids among user files
-    (extra / "again.yaml").write_text(GOOD.replace("test-scale", "other"))
-    with pytest.raises(RetunerError, match="duplicate id 'other'"):
-        load_profile("other", [extra])
+    # duplicate ids among user files: the first (by file name) is kept, the other reported
+    (extra / "again.yaml").write_text(GOOD.replace("test-scale", "other").replace("a test", "the again one"))
+    assert load_profile("other", [extra]).description == "the again one"      # again.yaml < other.yaml
+    # a broken user profile is reported and left out; everything else keeps working
+    (extra / "broken.yaml").write_text("id: Bad_Id\ndescription: d\nequal: {steps: 12}\n")
+    r = run_cli("profiles", "--profiles-dir", str(extra), env=env)
+    assert r.returncode == 0, r.stderr
+    assert "broken.yaml:1: id:" in r.stderr and "left out" in r.stderr
+    assert "duplicate id 'other'" in r.stderr
+    assert "werckmeister-3" in r.stdout
+    r = run_cli("show", str(extra / "broken.yaml"), env=env)
+    assert r.returncode == 2 and "broken.yaml:1: id:" in r.stderr
 
 
 def test_builtin_dir_has_all_files():
