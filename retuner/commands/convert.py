@@ -52,7 +52,7 @@ def build_options(args):
 
     tuning = load_profile(args.profile, args.profiles_dir)
     if args.lookahead and not args.adaptive:
-        raise RetunerError("--lookahead needs --adaptive", field="--lookahead")
+        raise RetunerError("needs --adaptive", field="--lookahead")
     cfg = build_engine_config(engine_overrides(args))
     return ConvertOptions(tuning, cfg, lookahead=args.lookahead,
                           want_report=bool(args.report or args.plot or not args.quiet),
@@ -85,7 +85,7 @@ def run(args) -> int:
     if res.split:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
         why = ("in MPE mode a port holds two parts (one per zone)" if opts.config.mode == "mpe"
-               else "the parts need more channels than one port has")
+               else "the parts need more channels than the pool has")
         print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own",
               file=sys.stderr)
     summary = rp.build_report(res, opts)
