@@ -65,15 +65,18 @@ def run(args) -> int:
     ids = [s.strip() for s in args.profiles.split(",") if s.strip()] if args.profiles else list(fit.COMPARE_PROFILES)
     rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profiles_dir)
     seconds = sum(weights.values())
-    print(f"{args.input}: {len(notes)} notes, {seconds:.1f} s of consonant pairs; wrote {args.output}")
+    print(f"{args.input}: {len(notes)} notes; consonant pairs sound {seconds:.1f} s in all "
+          f"(pairs counted separately); wrote {args.output}")
     if result.key_offsets is not None:
         played = result.used
         print("per key, cents from 12-EDO: " + "  ".join(
             f"{k}:{_z(result.key_offsets[k], 2):+.2f}" for k in played))
     else:
         names = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
-        print("offsets from 12-EDO (cents): "
-              + "  ".join(f"{n} {_z(v, 2):+.2f}" for n, v in zip(names, result.offsets)))
+        used = set(result.used)
+        print("offsets from 12-EDO (cents; '.' = not in any consonant pair, left at 12-EDO): "
+              + "  ".join(f"{n} {_z(v, 2):+.2f}" if i in used else f"{n} ."
+                          for i, (n, v) in enumerate(zip(names, result.offsets))))
     if result.active:
         print("binding limits: " + ", ".join(result.active))
     w = max(len(r[0]) for r in rows)
