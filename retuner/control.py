@@ -958,6 +958,7 @@ class EngineControl(Handler):
             except Exception:
                 self.reference = old_ref
                 raise
+            log.info("reference: A4 = %.3f Hz (control socket)", self.reference)
             return self._tuning_info()
         if name == "transpose":
             old = (self.transpose, self.transpose_cents)
@@ -968,6 +969,7 @@ class EngineControl(Handler):
             except Exception:
                 self.transpose, self.transpose_cents = old
                 raise
+            log.info("transpose: %+d semitones %+.2f cents (control socket)", self.transpose, self.transpose_cents)
             return self._tuning_info()
         if name == "adaptive":
             out = self.host.engine.set_adaptive(cmd.data, now)
@@ -978,14 +980,18 @@ class EngineControl(Handler):
                 self.host.emit(out)
             self._publish({"event": "adaptive", "t": now, "on": self.adaptive is not None,
                            "settings": self.adaptive})
+            log.info("adaptive %s (control socket)", "on" if self.adaptive is not None else "off")
             return self._tuning_info()
         if name == "panic":
+            sounding = len(self.host.engine.sounding())
             out = self.host.engine.release_all(now)
+            log.warning("panic: every note released (control socket)")
             if out:
                 self.host.emit(out)
             self._publish({"event": "panic", "t": now})
             self.observe(now, force=True)
-            return {"released": sum(1 for m in out if getattr(m, "type", "") == "note_off")}
+            # notes held by a pedal have had their note-off already: count every sounding note
+            return {"released": sounding}
         if name == "subscribe":
             self.observe(now)                 # existing subscribers get what changed first
             snap = self.status()

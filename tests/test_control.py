@@ -623,3 +623,22 @@ def test_ctl_commands_against_the_server(rig):
     assert r.returncode == 2
     r = ctl("status")
     assert r.returncode == 0 and "adaptive    on" in r.stdout and "werckmeister-3" in r.stdout
+
+
+def test_panic_counts_notes_held_by_the_pedal(rig):
+    """Keys up, sustain pedal (CC64) down: the notes still sound, so panic releases them and says
+    so; the pedal is lifted on the output (CC64 0) and all notes off (CC123) is sent (MIDI 1.0)."""
+    rig.midi.put(mido.Message("control_change", control=64, value=127))
+    rig.play(60, 67)
+    rig.wait_notes([60, 67])
+    rig.play(60, 67, on=False)
+    time.sleep(0.1)
+    assert set(rig.notes()) == {60, 67}          # held by the pedal
+    start = len(rig.out)
+    with ControlClient(rig.path) as c:
+        r = c.request("panic")
+    assert r["ok"] and r["released"] == 2
+    assert rig.notes() == {}
+    after = rig.out[start:]
+    assert any(m.type == "control_change" and m.control == 64 and m.value == 0 for m in after)
+    assert any(m.type == "control_change" and m.control == 123 for m in after)
