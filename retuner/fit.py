@@ -53,7 +53,7 @@ import numpy as np
 
 from .errors import RetunerError
 from .outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
-from .tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents
+from .tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
 JUST_TARGETS: dict[int, Fraction] = {
@@ -75,11 +75,6 @@ class Note:
     end: float
     key: int
     channel: int   # 0-based
-
-
-def _z(x: float, nd: int) -> float:
-    """Rounded, without a minus sign on zero."""
-    return round(x, nd) + 0.0
 
 
 def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CHANNEL,)) -> list[Note]:
@@ -508,7 +503,7 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
     if result.active:
         lim.append("binding limits: " + ", ".join(result.active))
     body = ", ".join(f"{d:.6f}" for d in deg[1:])
-    offs = ", ".join(f"{KEY_NAMES[i]} {_z(result.offsets[i], 3):+.3f}" for i in range(12))
+    offs = ", ".join(f"{KEY_NAMES[i]} {rounded(result.offsets[i], 3):+.3f}" for i in range(12))
     import json
     description = (f"best-fit 12-note tuning for {Path(source_name).name} "
                    f"(impurity {result.impurity:.3f} cents)")

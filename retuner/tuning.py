@@ -170,6 +170,11 @@ def nearest_simple_ratio(cents: float, max_denominator: int = 32, tolerance: flo
     return best
 
 
+def rounded(x: float, digits: int = 3) -> float:
+    """``x`` rounded for display, without a minus sign on a value that rounds to zero."""
+    return round(x, digits) + 0.0
+
+
 def note_name(key: int) -> str:
     """Scientific pitch name of a key: 60 -> C4, 69 -> A4 (common practice)."""
     return f"{KEY_NAMES[key % 12]}{key // 12 - 1}"

@@ -138,6 +138,16 @@ def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]
     return eng
 
 
+def option_for_field(field: str) -> str:
+    """The command-line option that sets an engine setting named in an error
+    ('engine.release_time' -> '--release-time', 'engine.adaptive.policy' -> '--policy')."""
+    fld = field[len("engine."):] if field.startswith("engine.") else field
+    head, _, rest = fld.partition(".")
+    if head == "adaptive" and rest:
+        return "--" + rest.replace("_", "-")
+    return OPTION_OF.get(fld, "--" + fld.replace("_", "-"))
+
+
 def build_engine_config(eng: dict[str, Any]):
     """An EngineConfig from user-facing settings given as options; errors name the option."""
     from ..config import Settings, check_engine_settings, engine_config
@@ -145,11 +155,6 @@ def build_engine_config(eng: dict[str, Any]):
     try:
         return engine_config(Settings(engine=check_engine_settings(eng, prefix="")))
     except RetunerError as exc:
-        fld = (exc.field or "")
-        fld = fld[len("engine."):] if fld.startswith("engine.") else fld
-        head, _, rest = fld.partition(".")
-        if head == "adaptive" and rest:
-            exc.field = "--" + rest.replace("_", "-")
-        elif fld:
-            exc.field = OPTION_OF.get(fld, "--" + fld.replace("_", "-"))
+        if exc.field:
+            exc.field = option_for_field(exc.field)
         raise

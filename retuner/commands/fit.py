@@ -4,12 +4,8 @@ from __future__ import annotations
 
 import sys
 
+from ..tuning import rounded
 from ._engine_options import channel_list
-
-
-def _z(x: float, nd: int) -> float:
-    """Rounded, without a minus sign on zero."""
-    return round(x, nd) + 0.0
 
 
 NAME = "fit"
@@ -70,12 +66,12 @@ def run(args) -> int:
     if result.key_offsets is not None:
         played = result.used
         print("per key, cents from 12-EDO: " + "  ".join(
-            f"{k}:{_z(result.key_offsets[k], 2):+.2f}" for k in played))
+            f"{k}:{rounded(result.key_offsets[k], 2):+.2f}" for k in played))
     else:
         names = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
         used = set(result.used)
         print("offsets from 12-EDO (cents; '.' = not in any consonant pair, left at 12-EDO): "
-              + "  ".join(f"{n} {_z(v, 2):+.2f}" if i in used else f"{n} ."
+              + "  ".join(f"{n} {rounded(v, 2):+.2f}" if i in used else f"{n} ."
                           for i, (n, v) in enumerate(zip(names, result.offsets))))
     if result.active:
         print("binding limits: " + ", ".join(result.active))

@@ -7,7 +7,7 @@ import sys
 from .. import config as _config
 from ..errors import RetunerError
 from ._common import add_profiles_dir
-from ._engine_options import OPTION_OF, add_engine_arguments, engine_overrides
+from ._engine_options import add_engine_arguments, engine_overrides, option_for_field
 
 NAME = "run"
 HELP = "retune live: read a MIDI port, play the tuning on another (the daemon)"
@@ -62,12 +62,9 @@ def _apply_flags(s: _config.Settings, args) -> _config.Settings:
             _config.engine_config(s)
         except RetunerError as exc:
             # a value given as an option is named as the option, not as the config's field
-            fld = (exc.field or "").removeprefix("engine.")
-            head = fld.split(".")[0]
-            if head in eng:
+            if (exc.field or "").removeprefix("engine.").split(".")[0] in eng:
                 exc.file, exc.line = None, None
-                exc.field = ("--" + fld.split(".", 1)[1].replace("_", "-") if head == "adaptive" and "." in fld
-                             else OPTION_OF.get(fld, "--" + fld.replace("_", "-")))
+                exc.field = option_for_field(exc.field)
             raise
     if args.control_channel is not None:
         s.switch.channel = args.control_channel

@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from ..profile import load_profile
 from ..showtable import degree_rows, format_ratio, interval_rows
-from ..tuning import ratio_to_cents
-from ..tuning import NUM_KEYS
+from ..tuning import NUM_KEYS, ratio_to_cents, rounded
 from ._common import add_profiles_dir, print_json
 
 NAME = "show"
@@ -23,11 +22,6 @@ def add_arguments(parser):
                         help="octave (scientific pitch notation, C4 = middle C) for Hz and beat rates; default 4")
     parser.add_argument("--json", action="store_true", help="print every key's Hz and cents as JSON")
     add_profiles_dir(parser)
-
-
-def _z(x: float, nd: int = 3) -> float:
-    """Rounded, without a minus sign on zero."""
-    return round(x, nd) + 0.0
 
 
 def run(args) -> int:
@@ -57,15 +51,15 @@ def run(args) -> int:
         elif r.exact:
             ratio = format_ratio(r.ratio)
         else:
-            ratio = f"~{format_ratio(r.ratio)} {_z(r.cents - ratio_to_cents(r.ratio), 1):+.1f}c"
+            ratio = f"~{format_ratio(r.ratio)} {rounded(r.cents - ratio_to_cents(r.ratio), 1):+.1f}c"
         hz = f"{r.hz:.3f}" if r.hz is not None else "unmapped"
-        print(f"{r.index:>6}  {r.name:<5} {_z(r.cents):>9.3f} {_z(r.from_edo12):>+10.3f}  {ratio:<14} {hz:>12}")
+        print(f"{r.index:>6}  {r.name:<5} {rounded(r.cents):>9.3f} {rounded(r.from_edo12):>+10.3f}  {ratio:<14} {hz:>12}")
     if t.is_twelve:
         print()
         print(f"intervals from each key of octave {args.octave} "
               f"(deviation from just; beats = |q*f2 - p*f1| for the just ratio p:q)")
         print(f"{'from':<4} {'interval':<12} {'to':<3} {'cents':>9} {'vs just':>9}  {'just':<4} {'beats/s':>8}")
         for r in interval_rows(t, args.octave):
-            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {_z(r.cents):>9.3f} {_z(r.deviation):>+9.3f}  "
+            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {rounded(r.cents):>9.3f} {rounded(r.deviation):>+9.3f}  "
                   f"{format_ratio(r.just):<4} {r.beat_hz:>8.2f}")
     return 0
