@@ -531,14 +531,18 @@ class AdaptiveSolver:
         Never raises on a numerical failure: held notes then keep their pitch and
         new notes take their reference pitch.
         """
+        new = [int(k) for k in new]
         try:
             h, n = self._solve(held, new)
         except (np.linalg.LinAlgError, ValueError, FloatingPointError):
             h, n = None, None
         if h is None or not all(map(math.isfinite, h)) or not all(map(math.isfinite, n)):
             log.warning("adaptive solver failed on held=%r new=%r; using reference pitches", held, new)
-            return [float(c) for _, c in held], [self.reference_cents(int(k)) for k in new]
-        return h, n
+            return [float(c) for _, c in held], [self.reference_cents(k) for k in new]
+        # _solve tunes each distinct new key once (a unison needs no second unknown):
+        # every copy of a key struck twice gets that key's pitch, in the caller's order
+        by_key = dict(zip(dict.fromkeys(new), n))
+        return h, [by_key[k] for k in new]
 
     def _solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
         cfg = self.config

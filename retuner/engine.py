@@ -927,8 +927,11 @@ class Engine:
         if len(held_new) != len(held):
             held_new = [n.cents for n in held]
         held_new = [c if _finite(c) else n.cents for n, c in zip(held, held_new)]
-        new_cents = [new_cents[i] if i < len(new_cents) and _finite(new_cents[i])
-                     else self._plan[n.in_key][2] for i, n in enumerate(pend)]
+        if len(new_cents) != len(pend):
+            # an answer that does not match the notes one to one cannot be matched by
+            # position: every new note takes its profile pitch instead
+            new_cents = [self._plan[n.in_key][2] for n in pend]
+        new_cents = [c if _finite(c) else self._plan[n.in_key][2] for n, c in zip(pend, new_cents)]
         self.stats["chords_solved"] += 1
         if self.mode == "mts":
             moved = []

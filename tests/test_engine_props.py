@@ -313,3 +313,64 @@ def test_fuzz_any_messages_then_input_lost_leaves_nothing_sounding(raw, mode, pr
     s.feed(e.input_lost(t + 0.1))
     assert not s.problems, s.problems
     assert [(c, v.key) for c, v in s.sounding() if c != 9] == []
+
+
+def _profile_pitch_of_input(engine, c, v, tuning):
+    """Profile pitch of the key the player pressed for the note sounding as voice v."""
+    for n in engine.pool.notes[c]:
+        if n.out_key == v.key:
+            # a 12-note tuning never needs another key: the note sounds from its own key
+            assert n.out_key == n.in_key, (n.in_key, n.out_key)
+            return tuning.cents[n.in_key]
+    raise AssertionError(f"synth sounds key {v.key} on channel {c}, the engine knows no such note")
+
+
+@settings(max_examples=40, deadline=None)
+@given(events=st.lists(EVENT, min_size=30, max_size=200),
+       mode=st.sampled_from(["pool", "mpe"]),
+       window=st.sampled_from([0.0, 0.02, 0.05]),
+       channels=st.sampled_from([(0,), (0, 1), (0, 1, 2, 3)]))
+def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode, window, channels):
+    """Re-presses, unisons on several channels and keys struck twice within one chord
+    window: every output note sounds from the key its player pressed, within the
+    adaptive range of that key's profile pitch (adaptive moves notes by tens of cents
+    at most: a comma and the drift limit; a wrong key is 100 c or more away). The
+    pitch is decoded from the output bytes, not taken from the engine's own notes."""
+    from retuner.adaptive import AdaptiveConfig
+    tu = PROFILES["meantone-quarter"]
+    e = Engine(tu, EngineConfig(mode=mode, mpe_members=15,
+                                adaptive=AdaptiveConfig(chord_window=window)))
+    perf, held, t_end = perform(events, in_channels=channels, wheel=False, rng_keys=(58, 65))
+
+    def target(engine, c, v, tuning):
+        return _profile_pitch_of_input(engine, c, v, tuning)
+
+    s = SynthModel(mpe_manager=e._manager if e.mode == "mpe" else None)
+    s.feed(e.start(0.0))
+    for t, m in perf:
+        s.feed(e.feed(t, m))
+        d = e.next_deadline()
+        if d is not None and d <= t:
+            s.feed(e.tick(t))
+        for c, v in s.sounding():
+            p = s.pitch(c, v)
+            tgt = target(e, c, v, tu)
+            assert abs(p - tgt) < 60.0, (t, m, c, v.key, p, tgt)
+
+
+def test_adaptive_doubled_key_in_one_chord_keeps_every_key():
+    """C4 doubled (two channels) under E4 and G4 at one instant: the output is C4, C4,
+    E4, G4, each near its own pitch."""
+    from retuner.adaptive import AdaptiveConfig
+    tu = PROFILES["meantone-quarter"]
+    for window in (0.0, 0.02):
+        e = Engine(tu, EngineConfig(adaptive=AdaptiveConfig(chord_window=window)))
+        s = SynthModel()
+        s.feed(e.start(0.0))
+        for ch, k in ((0, 60), (1, 60), (0, 64), (0, 67)):
+            s.feed(e.feed(0.0, mido.Message("note_on", channel=ch, note=k, velocity=90)))
+        s.feed(e.tick(1.0))
+        keys = sorted(v.key for _, v in s.sounding())
+        assert keys == [60, 60, 64, 67], keys
+        for c, v in s.sounding():
+            assert abs(s.pitch(c, v) - 100.0 * v.key) < 30.0
