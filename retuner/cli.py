@@ -19,9 +19,9 @@ import importlib
 import pkgutil
 import sys
 
-from . import __version__
-from . import commands as _commands_pkg
-from .errors import RetunerError
+from retuner import __version__
+from retuner import commands as _commands_pkg
+from retuner.errors import RetunerError
 
 
 def _command_modules():

@@ -6,7 +6,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from .errors import RetunerError
+from retuner.errors import RetunerError
 
 
 def write_atomic(path: str | os.PathLike, data: bytes | str) -> None:

@@ -20,11 +20,11 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from retuner.adaptive import DEFAULT_WEIGHTS, AdaptiveConfig, AdaptiveSolver
+from retuner.adaptive.solver import DEFAULT_WEIGHTS, AdaptiveConfig, AdaptiveSolver
 from retuner.errors import RetunerError
-from retuner.metrics import drift as drift_metric
-from retuner.progressions import comma_pump_chords, chord_events, simulate
-from retuner.tuning import Tuning
+from retuner.measure.metrics import drift as drift_metric
+from retuner.bench.progressions import comma_pump_chords, chord_events, simulate
+from retuner.pitch.tuning import Tuning
 
 
 def cents(p, q=1):
@@ -37,7 +37,7 @@ FIFTH = cents(3, 2)         # 701.9550 c (handbook value 701.955)
 SYNTONIC = cents(81, 80)    # 21.5063 c (handbook value 21.506)
 
 # 5-limit table as usually given for 5-limit just intonation (common practice), written
-# out here independently of retuner.adaptive
+# out here independently of retuner.adaptive.solver
 JUST5 = {0: (1, 1), 1: (16, 15), 2: (9, 8), 3: (6, 5), 4: (5, 4), 5: (4, 3), 6: (45, 32),
          7: (3, 2), 8: (8, 5), 9: (5, 3), 10: (9, 5), 11: (15, 8)}
 

@@ -1,4 +1,4 @@
-"""Adaptive mode through the engine, measured from its output stream (retuner.metrics).
+"""Adaptive mode through the engine, measured from its output stream (retuner.measure.metrics).
 
 The goals of issue 6 (comma pump, 8 rounds, legato, 4 voices: impurity <= 1.0 c,
 |drift| <= 5 c, motion <= 1.5 c/note; chorales: impurity <= 0.8 c, motion <= 0.3
@@ -22,12 +22,12 @@ import sys
 
 import pytest
 
-from retuner import metrics as M
-from retuner.adaptive import AdaptiveConfig
-from retuner.profile import load_profile
-from retuner.progressions import (CHORALES, chord_events, chorale_events, comma_pump_chords, progression,
+from retuner.measure import metrics as M
+from retuner.adaptive.solver import AdaptiveConfig
+from retuner.profiles.profile import load_profile
+from retuner.bench.progressions import (CHORALES, chord_events, chorale_events, comma_pump_chords, progression,
                                   run_through_engine, to_midifile)
-from retuner.tuning import Tuning
+from retuner.pitch.tuning import Tuning
 
 JUST = {0: 1 / 1, 3: 6 / 5, 4: 5 / 4, 5: 4 / 3, 7: 3 / 2, 8: 8 / 5, 9: 5 / 3}
 

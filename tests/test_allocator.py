@@ -1,6 +1,6 @@
 """The channel pool's choice rules, directly (see retuner/allocator.py)."""
 
-from retuner.allocator import IDLE, RINGING, SAME_BEND, SHARE, STEAL, Note, Pool
+from retuner.engine.allocator import IDLE, RINGING, SAME_BEND, SHARE, STEAL, Note, Pool
 
 
 def note(key, t, down=True):

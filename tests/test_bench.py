@@ -7,9 +7,9 @@ import json
 import subprocess
 import sys
 
-from retuner.bench import JSON_KEYS, generate_performance, measure, performance, performance_names
-from retuner.engine import EngineConfig
-from retuner.profile import load_profile
+from retuner.bench.timing import JSON_KEYS, generate_performance, measure, performance, performance_names
+from retuner.engine.core import EngineConfig
+from retuner.profiles.profile import load_profile
 
 
 def is_on(m):

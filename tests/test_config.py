@@ -8,7 +8,7 @@ import textwrap
 
 import pytest
 
-from retuner.config import Settings, load_config, parse_config, default_config_path
+from retuner.live.config import Settings, load_config, parse_config, default_config_path
 from retuner.errors import RetunerError
 
 
@@ -123,7 +123,7 @@ def test_flags_override_the_file(tmp_path):
     assert s.engine["pool"] == (1, 2, 3, 4, 6) and s.engine["bend_range"] == 12.0
     assert s.engine["bend_scale"] == 0.9921875
     assert s.switch.channel == 16
-    from retuner.config import engine_config
+    from retuner.live.config import engine_config
     ec = engine_config(s)
     # channels are 1-based for the user, 0-based in the engine (mido's numbering)
     assert ec.pool == (0, 1, 2, 3, 5) and ec.bend_range == 12.0

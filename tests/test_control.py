@@ -1,7 +1,7 @@
 """The control socket against the control server alone, driving a real (sans-I/O) engine.
 
 A small "engine thread" here plays the daemon's part exactly as retuner/daemon.py
-does: it feeds MIDI to a real retuner.engine.Engine, ticks it, drains
+does: it feeds MIDI to a real retuner.engine.core.Engine, ticks it, drains
 ``server.serve_pending()`` and calls ``EngineControl.observe``. The tests speak
 JSON lines over a real Unix socket. (The same commands against the real daemon
 on the JACK fixture are in test_control_daemon.py.)
@@ -23,12 +23,12 @@ import time
 import mido
 import pytest
 
-from retuner.control import (COMMANDS, ControlClient, ControlServer, EngineControl, EngineHost,
+from retuner.control.control import (COMMANDS, ControlClient, ControlServer, EngineControl, EngineHost,
                              default_socket_path)
-from retuner.engine import Engine, EngineConfig
+from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
-from retuner.profile import list_profiles, load_profile
-from retuner.tuning import ratio_to_cents
+from retuner.profiles.profile import list_profiles, load_profile
+from retuner.pitch.tuning import ratio_to_cents
 from fractions import Fraction
 
 BEND_STEP = 200.0 / 8192     # cents per bend step at the default range of 2 semitones (MIDI 1.0 spec)
@@ -553,7 +553,7 @@ def test_commands_are_served_in_small_batches_and_the_loop_is_woken_for_the_rest
 
 
 def test_adaptive_on_starts_from_the_daemons_own_settings():
-    from retuner.adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     mine = AdaptiveConfig.from_dict({"policy": "fixed-held", "max_drift": 3.0})
     rig = Rig("edo12", config=EngineConfig(adaptive=mine))
     try:

@@ -486,9 +486,9 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
     """Random parts (channels 1-4, notes on a grid of 120 ticks) plus drums: every note comes out
     at its ticks on its key with its profile pitch (targets from the profile here, checked against
     the definitions above for edo12 and meantone-quarter), drums untouched, in one file or split."""
-    from retuner import files
-    from retuner.engine import EngineConfig
-    from retuner.profile import load_profile
+    from retuner.convert import files
+    from retuner.engine.core import EngineConfig
+    from retuner.profiles.profile import load_profile
 
     tmp = tmp_path_factory.mktemp("rand")
     mf = mido.MidiFile(type=1, ticks_per_beat=480)

@@ -1,5 +1,5 @@
 """Lookahead adaptive tuning against live emulation (`--adaptive` alone) on the project's
-progressions (retuner.progressions), measured with retuner.metrics from the OUTPUT files.
+progressions (retuner.bench.progressions), measured with retuner.measure.metrics from the OUTPUT files.
 
 Definitions of the measures: issue 6 (impurity: time-weighted mean distance of consonant
 pairs from just; motion: cents moved by sounding notes per note; drift: largest absolute mean
@@ -15,11 +15,12 @@ import sys
 import mido
 import pytest
 
-from retuner import files, metrics
-from retuner.adaptive import AdaptiveConfig
-from retuner.engine import EngineConfig
-from retuner.progressions import PROGRESSIONS, progression, to_midifile
-from retuner.tuning import Tuning
+from retuner.convert import files
+from retuner.measure import metrics
+from retuner.adaptive.solver import AdaptiveConfig
+from retuner.engine.core import EngineConfig
+from retuner.bench.progressions import PROGRESSIONS, progression, to_midifile
+from retuner.pitch.tuning import Tuning
 
 
 def _song(name, legato):
@@ -117,7 +118,7 @@ def test_convert_adaptive_is_the_live_engine_on_the_same_performance(tmp_path):
     """`convert --adaptive` == the engine driven live: the times a live player of the file
     would produce (mido's own playback times, seconds from its tempo handling) fed to a fresh
     engine with timers honoured give the same messages, each at the file position of its time."""
-    from retuner.engine import Engine
+    from retuner.engine.core import Engine
 
     src = tmp_path / "pump.mid"
     mf = to_midifile(progression("pump", legato=True, rounds=2))
@@ -189,7 +190,7 @@ def test_move_bends_early_rules():
     """A note's bend goes back to when its channel fell silent (note-off + release time), never
     before the channel's previous bend or a reset all controllers (CC121 resets the bend, MIDI 1.0),
     and stays at the note-on when the channel still rings."""
-    from retuner.lookahead import move_bends_early
+    from retuner.adaptive.lookahead import move_bends_early
 
     song = files.parse_smf(files.serialize(0, 480, [([(0, b"\xFF\x51\x03\x07\xA1\x20")], 0)]))  # 120 bpm
 
@@ -214,7 +215,7 @@ def test_l1_solve_weighted_median():
     weighted median of the b_p (a fact of L1 fitting, common practice); with the centre row on
     that pitch priced above the pull, the pitch goes to the reference instead."""
     import numpy as np
-    from retuner.lookahead import l1_solve
+    from retuner.adaptive.lookahead import l1_solve
 
     b = [3.0, -2.0, 7.0, 1.0, 5.0]
     c = [1.0, 1.0, 1.0, 2.5, 1.0]   # weighted median: 1.0 (weights below it 1.0, above it 3.0)
@@ -232,7 +233,7 @@ def test_l1_solve_agrees_with_brute_force():
     """Three pitches (a held note before the window, a pair, a chord's centre): the programme's
     optimum equals the minimum over a fine grid of the objective written out independently."""
     import numpy as np
-    from retuner.lookahead import l1_solve
+    from retuner.adaptive.lookahead import l1_solve
 
     rng = np.random.default_rng(7)
     for _ in range(3):
@@ -271,7 +272,7 @@ def test_mixture_of_plans_is_no_worse_than_its_parts():
     """choose() relies on the measures being convex in the planned pitches: the output of a
     mixture of two plans measures no worse than the mixture of their measures (up to a bend
     step, 200/8192 c at the default range: MIDI 1.0 pitch bend, 14 bits)."""
-    from retuner import lookahead
+    from retuner.adaptive import lookahead
 
     song = _song("pump", legato=True)
     cfg = EngineConfig(adaptive=AdaptiveConfig())

@@ -9,7 +9,7 @@ import time
 import mido
 import pytest
 
-from retuner import ports
+from retuner.live import ports
 
 
 def test_match_port_rules():

@@ -82,7 +82,7 @@ def test_systemd_analyze_verify(tmp_path):
 
 
 def _capture(environ, level="info", verbose=0):
-    from retuner import daemon
+    from retuner.live import daemon
     buf = io.StringIO()
     old = sys.stderr
     sys.stderr = buf

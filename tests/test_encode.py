@@ -4,7 +4,7 @@ import mido
 import pretty_midi
 import pytest
 
-from retuner import encode as E
+from retuner.midi import encode as E
 
 
 def test_rpn_numbers_match_midi_spec():

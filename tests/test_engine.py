@@ -19,11 +19,11 @@ import logging
 import mido
 import pytest
 
-from retuner import encode as E
-from retuner.engine import Engine, EngineConfig
+from retuner.midi import encode as E
+from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
-from retuner.profile import load_profile
-from retuner.tuning import Tuning
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import Tuning
 
 
 def ON(k, v=100, ch=0):
@@ -293,7 +293,7 @@ def test_unmapped_key_dropped_and_logged_once():
         def emit(self, record):
             records.append(record)
 
-    logger = logging.getLogger("retuner.engine")
+    logger = logging.getLogger("retuner.engine.core")
     h = Keep(level=logging.WARNING)
     logger.addHandler(h)     # directly: other tests may configure the 'retuner' logger
     old_level = logger.level

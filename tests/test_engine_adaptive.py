@@ -8,10 +8,10 @@ import math
 
 import pytest
 
-import retuner.adaptive as adaptive
-from retuner.adaptive import AdaptiveConfig
-from retuner.engine import Engine, EngineConfig
-from retuner.tuning import Tuning
+import retuner.adaptive.solver as adaptive
+from retuner.adaptive.solver import AdaptiveConfig
+from retuner.engine.core import Engine, EngineConfig
+from retuner.pitch.tuning import Tuning
 
 from test_engine import OFF, ON, SynthModel
 from test_engine_modes import parse_single_note

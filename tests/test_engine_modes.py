@@ -5,10 +5,10 @@ from __future__ import annotations
 import mido
 import pytest
 
-from retuner import encode as E
-from retuner.engine import Engine, EngineConfig
-from retuner.profile import load_profile
-from retuner.tuning import Tuning
+from retuner.midi import encode as E
+from retuner.engine.core import Engine, EngineConfig
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import Tuning
 
 from test_engine import CC, OFF, ON, WHEEL, SynthModel
 

@@ -15,7 +15,7 @@ import pytest
 from retuner.cli import build_parser
 from retuner.commands import run as run_cmd
 from retuner.commands._engine_options import build_engine_config, engine_overrides
-from retuner.config import Settings, engine_config
+from retuner.live.config import Settings, engine_config
 from retuner.errors import RetunerError
 
 

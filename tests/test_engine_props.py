@@ -19,9 +19,9 @@ import random
 import mido
 from hypothesis import given, settings, strategies as st
 
-from retuner.engine import Engine, EngineConfig
-from retuner.profile import load_profile
-from retuner.tuning import Tuning
+from retuner.engine.core import Engine, EngineConfig
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import Tuning
 
 from test_engine import SynthModel
 
@@ -190,7 +190,7 @@ def _given_pitch(engine, c, v, tuning):
 def test_random_streams_adaptive(events, mode, pool_size, window):
     """Adaptive mode with the real solver: valid, nothing stuck, and every sounding note
     decodes to the pitch the solver gave it (within half a bend step)."""
-    from retuner.adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     pool = tuple(c for c in range(16) if c != 9)[:pool_size]
     e = Engine(tu, EngineConfig(mode=mode, pool=pool, mpe_members=pool_size,
@@ -336,7 +336,7 @@ def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode
     adaptive range of that key's profile pitch (adaptive moves notes by tens of cents
     at most: a comma and the drift limit; a wrong key is 100 c or more away). The
     pitch is decoded from the output bytes, not taken from the engine's own notes."""
-    from retuner.adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     e = Engine(tu, EngineConfig(mode=mode, mpe_members=15,
                                 adaptive=AdaptiveConfig(chord_window=window)))
@@ -361,7 +361,7 @@ def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode
 def test_adaptive_doubled_key_in_one_chord_keeps_every_key():
     """C4 doubled (two channels) under E4 and G4 at one instant: the output is C4, C4,
     E4, G4, each near its own pitch."""
-    from retuner.adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     for window in (0.0, 0.02):
         e = Engine(tu, EngineConfig(adaptive=AdaptiveConfig(chord_window=window)))

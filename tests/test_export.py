@@ -4,7 +4,7 @@ Source: MIDI Tuning Standard (MMA, 1992), Complete MIDI 1.0 Detailed Specificati
 section "MIDI Tuning": "Bulk Tuning Dump" (F0 7E dev 08 01 tt name[16] [xx yy zz]*128 cs F7,
 cs = XOR of the bytes from 7E through the last frequency data byte, as a 7-bit data byte)
 and "Frequency data format" (semitone + 14-bit fraction in units of 100/16384 cent).
-The decoder below is written out here from that text, independently of retuner.mts.
+The decoder below is written out here from that text, independently of retuner.midi.mts.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ import sys
 
 import pytest
 
-from retuner.profile import load_profile
+from retuner.profiles.profile import load_profile
 
 HALF_UNIT = 100.0 / 16384 / 2  # 0.00305 cent
 

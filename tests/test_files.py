@@ -1,4 +1,4 @@
-"""retuner.files: the Standard MIDI File reader and writer, the tempo map, messages.
+"""retuner.convert.files: the Standard MIDI File reader and writer, the tempo map, messages.
 
 Sources: "Standard MIDI Files 1.0" (MIDI Manufacturers Association, 1988/1996): header and
 track chunks, variable-length quantities (its table of examples), running status, meta events
@@ -13,7 +13,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from data import midigen
-from retuner import files
+from retuner.convert import files
 from retuner.errors import RetunerError
 
 # SMF 1.0, "Variable Length Quantities": number -> bytes (the specification's own examples)
@@ -70,7 +70,7 @@ def test_sysex_and_meta_pass_through_conversion_byte_for_byte(tmp_path):
     src = tmp_path / "s.mid"
     src.write_bytes(_smf(0, 96, body))
     res = files.convert_file(src, tmp_path / "o.mid", files.ConvertOptions(
-        __import__("retuner.tuning", fromlist=["Tuning"]).Tuning.equal12()))
+        __import__("retuner.pitch.tuning", fromlist=["Tuning"]).Tuning.equal12()))
     out = files.parse_smf((tmp_path / "o.mid").read_bytes())
     kept = [(t, r) for t, k, r in out.tracks[0].events if k != files.CHANNEL]
     assert kept == [(0, b"\xFF\x03\x04Lead"), (0, b"\xF0\x05\x7E\x7F\x09\x01\xF7"),

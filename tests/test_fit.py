@@ -24,10 +24,10 @@ import mido
 import numpy as np
 import pytest
 
-from retuner import fit
+from retuner.measure import fit
 from retuner.errors import RetunerError
-from retuner.profile import list_profiles, load_profile
-from retuner.tuning import ratio_to_cents
+from retuner.profiles.profile import list_profiles, load_profile
+from retuner.pitch.tuning import ratio_to_cents
 
 JUST = {0: Fraction(1), 3: Fraction(6, 5), 4: Fraction(5, 4), 5: Fraction(4, 3), 7: Fraction(3, 2),
         8: Fraction(8, 5), 9: Fraction(5, 3)}   # issue 6 item 4 (impurity definition)
@@ -411,8 +411,8 @@ def test_per_key_fit(chorale, tmp_path):
 
 
 def test_impurity_agrees_with_the_metrics_module(chorale):
-    """fit's pair-weight impurity against retuner.metrics' own sweep over sounding notes."""
-    from retuner.metrics import NoteTrack, impurity as metrics_impurity
+    """fit's pair-weight impurity against retuner.measure.metrics' own sweep over sounding notes."""
+    from retuner.measure.metrics import NoteTrack, impurity as metrics_impurity
     notes = fit.read_notes(chorale)
     w = fit.pair_weights(notes)
     for pid in ("edo12", "meantone-quarter", "werckmeister-3", "just-5limit"):

@@ -20,8 +20,8 @@ import math
 
 import mido
 
-from retuner import metrics as M
-from retuner.tuning import Tuning
+from retuner.measure import metrics as M
+from retuner.pitch.tuning import Tuning
 
 JUST_M3 = 1200 * math.log2(5 / 4)  # 386.3137
 JUST_P5 = 1200 * math.log2(3 / 2)  # 701.9550

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import pytest
 
-from retuner import encode
+from retuner.midi import encode
 
 
 class RpnReader:
@@ -121,9 +121,9 @@ import sys
 
 import mido
 
-from retuner.engine import Engine, EngineConfig
-from retuner.profile import load_profile
-from retuner.tuning import Tuning
+from retuner.engine.core import Engine, EngineConfig
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import Tuning
 
 
 def _start(**cfg):

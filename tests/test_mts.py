@@ -26,7 +26,7 @@ import mido
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from retuner import mts
+from retuner.midi import mts
 
 HALF_STEP_CENTS = 100.0 / 16384 / 2  # half a fraction unit: the rounding bound, 0.00305 cent
 

@@ -9,7 +9,7 @@ import os
 import socket
 import uuid
 
-from retuner.notify import Notifier
+from retuner.live.notify import Notifier
 
 
 def _bind(tmp_path, abstract=False):

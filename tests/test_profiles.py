@@ -8,7 +8,7 @@ import textwrap
 import pytest
 
 from retuner.errors import RetunerError
-from retuner.profile import builtin_dir, list_profiles, load_profile, parse_profile
+from retuner.profiles.profile import builtin_dir, list_profiles, load_profile, parse_profile
 
 BUILTIN_IDS = {"edo12", "pythagorean", "just-5limit", "just-7limit", "meantone-quarter", "meantone-sixth",
                "werckmeister-3", "kirnberger-3", "vallotti", "young-2", "edo19", "edo31", "edo53",
@@ -174,7 +174,7 @@ def test_installed_package_finds_its_builtin_profiles(tmp_path):
     import os
     env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
     env["XDG_CONFIG_HOME"] = str(tmp_path / "cfg")
-    code = ("import json, retuner, retuner.profile as p; "
+    code = ("import json, retuner, retuner.profiles.profile as p; "
             "print(json.dumps([retuner.__file__, sorted(i.id for i in p.list_profiles())]))")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path, env=env)
     assert r.returncode == 0, r.stderr

@@ -15,7 +15,7 @@ from fractions import Fraction
 import pretty_midi
 import pytest
 
-from retuner import progressions as P
+from retuner.bench import progressions as P
 
 SYNTONIC = 1200 * math.log2(81 / 80)
 

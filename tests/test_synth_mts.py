@@ -21,8 +21,8 @@ import mido
 import numpy as np
 import pytest
 
-from retuner import mts
-from retuner.profile import load_profile
+from retuner.midi import mts
+from retuner.profiles.profile import load_profile
 from synth import (cents, key_hz, measure_pitch, note_events, read_wav, render, write_midi)
 
 PYTH_COMMA = 1200 * math.log2(3 ** 12 / 2 ** 19)  # 23.460 c

@@ -10,8 +10,8 @@ from fractions import Fraction
 import pretty_midi
 import pytest
 
-from retuner.profile import load_profile
-from retuner.tuning import (PYTHAGOREAN_COMMA, SCHISMA, SYNTONIC_COMMA, Interval, Tuning, beat_rate,
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import (PYTHAGOREAN_COMMA, SCHISMA, SYNTONIC_COMMA, Interval, Tuning, beat_rate,
                             cents_to_hz, hz_to_cents, ratio_to_cents)
 
 

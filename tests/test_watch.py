@@ -13,7 +13,7 @@ import math
 
 import pytest
 
-from retuner.watch import WatchState, drift, interval_rows, render
+from retuner.view.watch import WatchState, drift, interval_rows, render
 
 
 def edo_hz(k: int) -> float:
@@ -122,6 +122,6 @@ def test_block_letters_for_the_room_only_when_they_fit():
 
 def test_compound_interval_names():
     # an octave above a simple interval adds 7 to its number (common practice): P8, M10, P12
-    from retuner.watch import compound_name
+    from retuner.view.watch import compound_name
     assert [compound_name(n, 1) for n in ("P1", "M3", "m3", "P5", "M6")] == ["P8", "M10", "m10", "P12", "M13"]
     assert compound_name("P5", 0) == "P5" and compound_name("P5", 2) == "P5+2oct"

@@ -2,9 +2,9 @@
 
 Every option defaults to None (not given), so a config file's value stays unless the
 option overrides it. :func:`engine_overrides` returns the given options as user-facing
-engine settings (the fields of :class:`retuner.engine.EngineConfig`, channels 1..16),
+engine settings (the fields of :class:`retuner.engine.core.EngineConfig`, channels 1..16),
 the same form as the ``engine:`` section of the config file, checked by
-:func:`retuner.config.check_engine_settings`.
+:func:`retuner.live.config.check_engine_settings`.
 """
 
 from __future__ import annotations
@@ -133,7 +133,7 @@ def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]
     if getattr(args, "adaptive", None) or (adaptive and adaptive_in_force is not None):
         eng["adaptive"] = {**dict(adaptive_in_force or {}), **adaptive}
     elif adaptive:
-        from ..errors import RetunerError
+        from retuner.errors import RetunerError
         raise RetunerError("adaptive settings need --adaptive", field="--" + next(iter(adaptive)).replace("_", "-"))
     return eng
 
@@ -150,8 +150,8 @@ def option_for_field(field: str) -> str:
 
 def build_engine_config(eng: dict[str, Any]):
     """An EngineConfig from user-facing settings given as options; errors name the option."""
-    from ..config import Settings, check_engine_settings, engine_config
-    from ..errors import RetunerError
+    from retuner.live.config import Settings, check_engine_settings, engine_config
+    from retuner.errors import RetunerError
     try:
         return engine_config(Settings(engine=check_engine_settings(eng, prefix="")))
     except RetunerError as exc:

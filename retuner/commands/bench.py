@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-from ..bench import JSON_KEYS, measure, performance, performance_names
-from ..engine import EngineConfig, MODES
-from ..errors import RetunerError
-from ..profile import load_profile
-from ._common import add_profiles_dir, print_json
+from retuner.bench.timing import JSON_KEYS, measure, performance, performance_names
+from retuner.engine.core import EngineConfig, MODES
+from retuner.errors import RetunerError
+from retuner.profiles.profile import load_profile
+from retuner.commands._common import add_profiles_dir, print_json
 
 NAME = "bench"
 HELP = "play a generated performance through the engine and print latency and message figures"
@@ -38,7 +38,7 @@ def add_arguments(parser):
 
 
 def _files_bench(args) -> int:
-    from ..files import convert_speed_bench
+    from retuner.convert.files import convert_speed_bench
     figs = convert_speed_bench(profile=args.profile, batch_events=40_000)
     if args.json:
         print_json(figs)
@@ -58,7 +58,7 @@ def run(args) -> int:
     tuning = load_profile(args.profile, args.profiles_dir)
     adaptive = None
     if args.adaptive:
-        from ..adaptive import AdaptiveConfig
+        from retuner.adaptive.solver import AdaptiveConfig
         adaptive = AdaptiveConfig()
     if args.performance not in performance_names():
         raise RetunerError(f"unknown performance {args.performance!r} "
@@ -70,7 +70,7 @@ def run(args) -> int:
     if args.json:
         figs = {k: res[k] for k in JSON_KEYS}
         if args.adaptive:  # the adaptive goals: progressions measured from the output
-            from ..progressions import adaptive_bench
+            from retuner.bench.progressions import adaptive_bench
             figs["adaptive"] = adaptive_bench(mode=args.mode, clock=args.clock)
         print_json(figs)
         return 0
@@ -85,6 +85,6 @@ def run(args) -> int:
           f"({res['ringing_retunes_below_pool']} while fewer notes sounded than pool channels)")
     print(f"steals: {res['steals']}")
     if args.adaptive:
-        from ..progressions import adaptive_bench, format_adaptive_bench
+        from retuner.bench.progressions import adaptive_bench, format_adaptive_bench
         print(format_adaptive_bench(adaptive_bench(mode=args.mode, clock=args.clock)))
     return 0

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from ..errors import RetunerError
-from ._common import add_profiles_dir, print_json
+from retuner.errors import RetunerError
+from retuner.commands._common import add_profiles_dir, print_json
 
 NAME = "compare"
 HELP = "compare tunings on a MIDI file: impurity, motion, drift and beat rates of its main intervals"
@@ -30,12 +30,13 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from .convert import _one_blas_thread
+    from retuner.commands.convert import _one_blas_thread
     _one_blas_thread()
-    from .. import files, report
-    from ..engine import EngineConfig
-    from ..profile import load_profile
-    from ._engine_options import channel_list as _channels_or_none
+    from retuner.convert import files
+    from retuner.measure import report
+    from retuner.engine.core import EngineConfig
+    from retuner.profiles.profile import load_profile
+    from retuner.commands._engine_options import channel_list as _channels_or_none
 
     names = [n.strip() for n in args.profiles.split(",") if n.strip()]
     if not names:
@@ -52,7 +53,7 @@ def run(args) -> int:
     cfg = EngineConfig(passthrough=pas, pool=tuple(c for c in range(16) if c not in pas)).validate()
     acfg = None
     if args.adaptive:
-        from ..adaptive import AdaptiveConfig
+        from retuner.adaptive.solver import AdaptiveConfig
         acfg = AdaptiveConfig()
     c = report.compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)
     if args.json:

@@ -5,9 +5,9 @@ from __future__ import annotations
 import os
 import sys
 
-from ..errors import RetunerError
-from ._common import add_profiles_dir
-from ._engine_options import add_engine_arguments, build_engine_config, engine_overrides
+from retuner.errors import RetunerError
+from retuner.commands._common import add_profiles_dir
+from retuner.commands._engine_options import add_engine_arguments, build_engine_config, engine_overrides
 
 NAME = "convert"
 HELP = "retune a MIDI file (or every .mid below a folder) into new MIDI files"
@@ -47,8 +47,8 @@ def add_arguments(parser) -> None:
 
 def build_options(args):
     """ConvertOptions from the command line."""
-    from ..files import ConvertOptions
-    from ..profile import load_profile
+    from retuner.convert.files import ConvertOptions
+    from retuner.profiles.profile import load_profile
 
     tuning = load_profile(args.profile, args.profiles_dir)
     if args.lookahead and not args.adaptive:
@@ -70,17 +70,17 @@ def _one_blas_thread() -> None:
 
 def run(args) -> int:
     _one_blas_thread()
-    from .. import files
+    from retuner.convert import files
 
     if args.plot:
-        from ..report import require_matplotlib
+        from retuner.measure.report import require_matplotlib
         require_matplotlib()
     opts = build_options(args)
     if os.path.isdir(args.input):
         if args.report or args.plot:
             raise RetunerError("--report and --plot are for single files", field="--report")
         return files.convert_batch(args.input, args.output, opts, jobs=args.jobs, quiet=args.quiet)
-    from .. import report as rp
+    from retuner.measure import report as rp
     res = files.convert_file(args.input, args.output, opts)
     if res.split:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)

@@ -48,7 +48,7 @@ def add_arguments(parser) -> None:
 
 
 def _request(args):
-    from ..errors import RetunerError
+    from retuner.errors import RetunerError
     a = args.action
     if a == "load":
         return {"cmd": "load", "profile": args.profile}
@@ -113,7 +113,7 @@ def _fmt(reply: dict) -> str:
 
 
 def run(args) -> int:
-    from ..control import ControlClient, NoDaemon
+    from retuner.control.control import ControlClient, NoDaemon
     req = _request(args)
     try:
         with ControlClient(args.socket, timeout=5.0) as client:

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from .. import mts
-from ..errors import RetunerError
-from ..outfile import write_atomic
-from ..profile import load_profile
+from retuner.midi import mts
+from retuner.errors import RetunerError
+from retuner.outfile import write_atomic
+from retuner.profiles.profile import load_profile
 
 NAME = "export"
 HELP = "write a profile as a MIDI Tuning Standard bulk tuning dump or single note changes (.syx)"

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import sys
 
-from ..tuning import rounded
-from ._engine_options import channel_list
+from retuner.pitch.tuning import rounded
+from retuner.commands._engine_options import channel_list
 
 
 NAME = "fit"
@@ -42,9 +42,9 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from ..errors import RetunerError
-    from .. import fit
-    from ..profile import parse_profile
+    from retuner.errors import RetunerError
+    from retuner.measure import fit
+    from retuner.profiles.profile import parse_profile
     if not (args.reference > 0):
         raise RetunerError("--reference must be a positive frequency in Hz", field="reference")
     notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.passthrough])

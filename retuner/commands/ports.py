@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from .. import ports as _ports
-from ._common import print_json
+from retuner.live import ports as _ports
+from retuner.commands._common import print_json
 
 NAME = "ports"
 HELP = "list MIDI input and output ports (ALSA sequencer or JACK)"

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from ..profile import list_profiles
-from ._common import add_profiles_dir, print_json
+from retuner.profiles.profile import list_profiles
+from retuner.commands._common import add_profiles_dir, print_json
 
 NAME = "profiles"
 HELP = "list the available tunings (built-in and your own)"

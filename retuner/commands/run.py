@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import sys
 
-from .. import config as _config
-from ..errors import RetunerError
-from ._common import add_profiles_dir
-from ._engine_options import add_engine_arguments, engine_overrides, option_for_field
+from retuner.live import config as _config
+from retuner.errors import RetunerError
+from retuner.commands._common import add_profiles_dir
+from retuner.commands._engine_options import add_engine_arguments, engine_overrides, option_for_field
 
 NAME = "run"
 HELP = "retune live: read a MIDI port, play the tuning on another (the daemon)"
@@ -80,7 +80,7 @@ def _apply_flags(s: _config.Settings, args) -> _config.Settings:
 
 
 def run(args) -> int:
-    from ..daemon import Daemon, setup_logging
+    from retuner.live.daemon import Daemon, setup_logging
 
     def settings() -> _config.Settings:
         return _apply_flags(_config.load_config(args.config), args)

@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from ..profile import load_profile
-from ..showtable import degree_rows, format_ratio, interval_rows
-from ..tuning import NUM_KEYS, ratio_to_cents, rounded
-from ._common import add_profiles_dir, print_json
+from retuner.profiles.profile import load_profile
+from retuner.view.showtable import degree_rows, format_ratio, interval_rows
+from retuner.pitch.tuning import NUM_KEYS, ratio_to_cents, rounded
+from retuner.commands._common import add_profiles_dir, print_json
 
 NAME = "show"
 HELP = "print a tuning: its degrees, and the size and beat rate of every third and fifth"

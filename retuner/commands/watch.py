@@ -25,9 +25,9 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from ..control import NoDaemon
-    from ..errors import RetunerError
-    from .. import watch
+    from retuner.control.control import NoDaemon
+    from retuner.errors import RetunerError
+    from retuner.view import watch
     if not 1.0 <= args.fps <= 120.0:
         raise RetunerError("--fps must be from 1 to 120", field="fps")
     try:

@@ -51,9 +51,9 @@ from typing import Iterable, Optional, Sequence
 
 import numpy as np
 
-from .errors import RetunerError
-from .outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
-from .tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
+from retuner.errors import RetunerError
+from retuner.outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
+from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
 JUST_TARGETS: dict[int, Fraction] = {
@@ -86,7 +86,7 @@ def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CH
     note-ons of one key on one channel stack and are released first-in, first-out; notes
     still held at the end end at the last event.
     """
-    from .files import CHANNEL, event_seconds, merged_events, read_smf
+    from retuner.convert.files import CHANNEL, event_seconds, merged_events, read_smf
     song = read_smf(path)
     merged = merged_events(song)
     secs = event_seconds(song, merged)
@@ -565,7 +565,7 @@ def profile_id_for(path: str | os.PathLike) -> str:
 def compare(weights: dict[tuple[int, int], float], profile_ids: Sequence[str] = COMPARE_PROFILES,
             dirs: Sequence = ()) -> list[tuple[str, float]]:
     """Impurity of each named profile on the piece (12-note profiles compared key by key)."""
-    from .profile import load_profile
+    from retuner.profiles.profile import load_profile
     out = []
     for pid in profile_ids:
         t = load_profile(pid, dirs)

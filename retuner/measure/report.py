@@ -1,7 +1,7 @@
 """Reports of a conversion: JSON, a text summary, and a plot.
 
 Every measure is computed from the OUTPUT files' bytes (decoded as a synth
-would hear them, by :mod:`retuner.metrics`), not from the engine's state; the
+would hear them, by :mod:`retuner.measure.metrics`), not from the engine's state; the
 counters that only the engine knows (steals, ringing retunes) come from its
 ``stats``. Fields:
 
@@ -12,7 +12,7 @@ counters that only the engine knows (steals, ringing retunes) come from its
 * ``worst_pitch_error_cents``: static profiles only: the largest distance of
   any note's decoded pitch from the profile pitch of its key;
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
-  ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.metrics`.
+  ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
 The plot (``--plot``; matplotlib is an optional extra: ``pip install
 'retuner[plot]'``) shows each note as a line at its deviation from 12-EDO over
@@ -26,8 +26,8 @@ import json
 import math
 from typing import Optional
 
-from . import metrics
-from .errors import RetunerError
+from retuner.measure import metrics
+from retuner.errors import RetunerError
 
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
             "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
@@ -43,14 +43,15 @@ def require_matplotlib():
 
 
 def _decode(o, config):
-    from . import files, metrics
+    from retuner.convert import files
+    from retuner.measure import metrics
     stream = files.output_stream(o.data, o.path)
     return metrics.decode(stream, bend_scale=config.bend_scale,
                           exclude_channels=tuple(config.passthrough))
 
 
 def _measures(dec, tuning, stats: dict) -> dict:
-    from . import metrics
+    from retuner.measure import metrics
     imp, _ = metrics.impurity(dec.notes)
     dr = metrics.drift(dec.notes)
     rep = {
@@ -111,7 +112,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
 
 
 def write_report(path: str, rep: dict) -> None:
-    from .outfile import write_atomic
+    from retuner.outfile import write_atomic
     write_atomic(path, (json.dumps(rep, indent=2) + "\n").encode())
 
 
@@ -207,7 +208,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     ax.grid(True, alpha=0.3)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    from .outfile import write_atomic
+    from retuner.outfile import write_atomic
     write_atomic(path, buf.getvalue())
 
 
@@ -215,7 +216,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
 # Comparing tunings on one piece
 # ---------------------------------------------------------------------------
 #: consonances whose beat rates are shown (interval class -> just ratio upper:lower), the
-#: impurity set of retuner.metrics (common practice of 5-limit just intonation)
+#: impurity set of retuner.measure.metrics (common practice of 5-limit just intonation)
 BEAT_RATIOS = {0: (2, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
 CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: "fifth",
                8: "minor sixth", 9: "major sixth"}
@@ -225,7 +226,7 @@ def pair_times(notes) -> dict:
     """(low key, high key) -> [seconds sounding together, sum of beat rate * seconds] for the
     consonant pairs (a whole octave and more counts as an octave's multiple: compound 2:1 only
     for octaves; other compound intervals are reduced to their simple form for the ratio)."""
-    from .tuning import beat_rate, cents_to_hz
+    from retuner.pitch.tuning import beat_rate, cents_to_hz
     acc: dict = {}
     for t0, t1, snd in metrics.segments(notes):
         dt = t1 - t0
@@ -255,8 +256,9 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
     """Impurity, motion, drift and beat rates of the piece's most frequent consonant key pairs,
     per tuning (static), and for adaptive tuning live and with lookahead when
     ``adaptive_config`` is given (reference: the first tuning)."""
-    from . import files, metrics
-    from .tuning import note_name
+    from retuner.convert import files
+    from retuner.measure import metrics
+    from retuner.pitch.tuning import note_name
     rows = []
     runs = [(t.id, t, config.replace(adaptive=None), False) for t in tunings]
     if adaptive_config is not None:

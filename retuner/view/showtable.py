@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from fractions import Fraction
 from typing import Optional
 
-from .tuning import KEY_NAMES, Tuning, beat_rate, nearest_simple_ratio, ratio_to_cents
+from retuner.pitch.tuning import KEY_NAMES, Tuning, beat_rate, nearest_simple_ratio, ratio_to_cents
 
 # The intervals a teacher compares, with the just ratio each is heard against (upper:lower = p:q).
 CHECKED_INTERVALS = (

@@ -22,8 +22,8 @@ Contract::
 Output modes
 ------------
 ``pool`` (default): each note goes to a channel of the pool bent to give it its
-exact pitch (see :mod:`retuner.allocator` for channel choice, sharing, ringing
-and the steal policy; :mod:`retuner.encode` for the bend formula).
+exact pitch (see :mod:`retuner.engine.allocator` for channel choice, sharing, ringing
+and the steal policy; :mod:`retuner.midi.encode` for the bend formula).
 
 * The bend range is announced on every pool channel with RPN 0 (then RPN null)
   at start and whenever it changes.
@@ -81,7 +81,7 @@ controllers go to the manager channel.
 
 ``mts``: MIDI Tuning Standard. Notes stay on their input channels (a key
 struck again while still held on its channel is ended first); the synth's
-key table is tuned with single note tuning changes (see :mod:`retuner.mts`):
+key table is tuned with single note tuning changes (see :mod:`retuner.midi.mts`):
 all 128 keys at start, then, before any note-on whose key is not tuned to its
 target (after a profile switch while the key sounded, or in adaptive mode), one
 message for all the keys of that chord. At start every non-passthrough channel
@@ -91,7 +91,7 @@ and RPN 3 (tuning program change).
 Adaptive mode
 -------------
 With ``EngineConfig.adaptive`` set (an ``AdaptiveConfig`` of
-:mod:`retuner.adaptive`), note-ons are gathered for ``chord_window`` seconds
+:mod:`retuner.adaptive.solver`), note-ons are gathered for ``chord_window`` seconds
 from the first note-on of a group, then solved together:
 ``AdaptiveSolver.solve(held=[(key, cents), ...], new=[key, ...])`` returns the
 pitches of the held notes (they may move) and of the new ones. Moved held notes
@@ -122,10 +122,10 @@ from typing import Any, Optional, Sequence
 
 import mido
 
-from . import encode as E
-from .allocator import NEG_INF, RINGING, STEAL, Note, Pool
-from .errors import RetunerError
-from .tuning import Tuning
+from retuner.midi import encode as E
+from retuner.engine.allocator import NEG_INF, RINGING, STEAL, Note, Pool
+from retuner.errors import RetunerError
+from retuner.pitch.tuning import Tuning
 
 log = logging.getLogger(__name__)
 
@@ -162,7 +162,7 @@ class EngineConfig:
     mts_program: int = 0
     mts_bank: Optional[int] = None           # None: single note change without bank
     mts_realtime: bool = True
-    # adaptive mode (an AdaptiveConfig of retuner.adaptive, or None)
+    # adaptive mode (an AdaptiveConfig of retuner.adaptive.solver, or None)
     adaptive: Any = None
 
     def __post_init__(self) -> None:
@@ -337,7 +337,7 @@ class Engine:
         return k, E.bend_value(cents - 100.0 * k, rng, sc)
 
     def _make_solver(self, acfg: Any) -> None:
-        from .adaptive import AdaptiveSolver  # adaptive mode only
+        from retuner.adaptive.solver import AdaptiveSolver  # adaptive mode only
         self._solver = AdaptiveSolver(acfg, self.tuning)
         self._solver_keys: set[int] = set()
         self._window = float(getattr(acfg, "chord_window", 0.0) or 0.0)
@@ -855,7 +855,7 @@ class Engine:
 
     # ------------------------------------------------------------------ MTS
     def _mts_changes(self, changes: Sequence[tuple[int, float]]) -> list[mido.Message]:
-        from . import mts
+        from retuner.midi import mts
         todo = []
         for k, c in changes:
             enc = mts.encode_frequency(c)
@@ -1146,7 +1146,7 @@ class Engine:
         out = []
         for n in self._sounding_notes():
             if self.mode == "mts":
-                from . import mts
+                from retuner.midi import mts
                 enc = self._mts_enc[n.in_key]
                 cents = mts.decode_frequency(enc) if enc is not None else n.cents
             else:

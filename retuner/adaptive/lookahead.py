@@ -1,13 +1,13 @@
 """Lookahead adaptive tuning for files: plan every note's pitch over the whole piece.
 
-Live adaptive tuning (:mod:`retuner.adaptive`) must decide at each note-on
+Live adaptive tuning (:mod:`retuner.adaptive.solver`) must decide at each note-on
 knowing only what sounds now. A file is known in advance, so here the pitches
 of all notes over the whole piece are chosen together:
 
 * **Segments.** The piece is cut at every note-on time. In each segment a note
   that sounds has one pitch (its deviation from 12-EDO, ``x[n, s]``); a held
   note may only change pitch at a segment boundary, i.e. when other notes start.
-* **Cost**, in the units of the measures (:mod:`retuner.metrics`), which are sums of
+* **Cost**, in the units of the measures (:mod:`retuner.measure.metrics`), which are sums of
   absolute values and a maximum, so the plan is a linear programme:
 
   - every pair of notes sounding together in a segment:
@@ -42,7 +42,7 @@ of all notes over the whole piece are chosen together:
   planned bends at other notes' onsets.
 
 * **Checked against live playing.** ``choose()`` renders the file through the live engine
-  too and measures both outputs with :mod:`retuner.metrics` (from the written bytes). If the
+  too and measures both outputs with :mod:`retuner.measure.metrics` (from the written bytes). If the
   first plan does not beat live clearly (impurity no worse, motion and drift lower by at
   least ``TARGET_MARGIN`` wherever live has any), the price of the weakest measure is changed
   and the piece planned again, and convex mixtures of the plans are tried: every measure is a
@@ -70,7 +70,7 @@ from typing import Optional
 
 import numpy as np
 
-from .errors import RetunerError
+from retuner.errors import RetunerError
 
 WINDOW = 32     # segments solved together
 COMMIT = 24     # segments kept from each window
@@ -113,7 +113,7 @@ class _Note:
 def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
     """Notes of the file with their sounding times (sustain pedal honoured; FIFO note-off matching
     per channel and key, as the engine does)."""
-    from .files import CHANNEL
+    from retuner.convert.files import CHANNEL
     notes: list[_Note] = []
     fifo: dict[tuple[int, int], list] = {}
     pedal: dict[int, bool] = {}
@@ -207,7 +207,7 @@ class Plan:
     # -- engine hooks ---------------------------------------------------------
     def engine(self, tuning, config):
         """An engine that plays this plan (adaptive mode, chord window 0, a planned solver)."""
-        from .engine import Engine
+        from retuner.engine.core import Engine
 
         acfg = config.adaptive
         cfg = config.replace(adaptive=acfg, share_channels=False)
@@ -665,7 +665,8 @@ class Chosen:
 def measure_outputs(outputs, config) -> dict:
     """Impurity, motion per note and maximum drift of the output files, decoded from their bytes
     (the notes of all files of a split arrangement together)."""
-    from . import files, metrics
+    from retuner.convert import files
+    from retuner.measure import metrics
     notes = []
     for o in outputs:
         dec = metrics.decode(files.output_stream(o.data, o.path), bend_scale=config.bend_scale,

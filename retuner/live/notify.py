@@ -20,7 +20,7 @@ import socket
 import time
 from typing import Mapping, Optional
 
-log = logging.getLogger("retuner.notify")
+log = logging.getLogger("retuner.live.notify")
 
 
 class Notifier:

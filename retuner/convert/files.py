@@ -56,7 +56,7 @@ keyboard performance -- that is exactly the live daemon). ``--merge-parts``
 runs one engine with one pool for all parts instead, exactly as the daemon
 treats a multi-channel input: the parts are then tuned together but share
 their output channels, programs and controllers. With ``--lookahead``
-the plan tunes all parts together (see :mod:`retuner.lookahead`).
+the plan tunes all parts together (see :mod:`retuner.adaptive.lookahead`).
 
 Batches
 -------
@@ -85,8 +85,8 @@ from typing import Any, Callable, Iterable, Optional, Sequence
 import mido
 from mido.messages.messages import Message
 
-from .errors import RetunerError
-from .outfile import write_atomic
+from retuner.errors import RetunerError
+from retuner.outfile import write_atomic
 
 # ---------------------------------------------------------------------------
 # Standard MIDI File parsing
@@ -448,8 +448,8 @@ class ConvertOptions:
     for the whole port (its pool, passthrough channels, mode, adaptive settings);
     arrangements carve each part's share out of ``config.pool``."""
 
-    tuning: object                      # retuner.tuning.Tuning
-    config: object = None               # retuner.engine.EngineConfig
+    tuning: object                      # retuner.pitch.tuning.Tuning
+    config: object = None               # retuner.engine.core.EngineConfig
     lookahead: bool = False
     want_report: bool = False
     merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
@@ -532,7 +532,7 @@ def note_channels(merged: Sequence) -> set[int]:
 
 
 def _make_engine(tuning, config):
-    from .engine import Engine
+    from retuner.engine.core import Engine
     return Engine(tuning, config)
 
 
@@ -773,7 +773,7 @@ def split_name(out_path: str, index: int) -> str:
 
 def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResult:
     """Convert a parsed file; return the outputs (bytes not yet written)."""
-    from .engine import EngineConfig
+    from retuner.engine.core import EngineConfig
     config = opts.config or EngineConfig()
     config.validate()
     tuning = opts.tuning
@@ -785,7 +785,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
         return ConvertResult(song.path, outputs, len(groups) > 1)
     if config.adaptive is None:
         raise RetunerError("--lookahead needs --adaptive", field="lookahead")
-    from . import lookahead
+    from retuner.adaptive import lookahead
     live = _render(song, merged, secs, groups, tuning, config, out_path, None)
     chosen = lookahead.choose(
         song, merged, secs, tuning, config, live,
@@ -1049,8 +1049,8 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
     import shutil
     import time
 
-    from .engine import EngineConfig
-    from .profile import load_profile
+    from retuner.engine.core import EngineConfig
+    from retuner.profiles.profile import load_profile
 
     tmp = tempfile.mkdtemp(prefix="retuner-bench-")
     try:

@@ -23,7 +23,7 @@ pedal changed after each chord ("legato pedalling"), and occasional wheel bends
 on melody notes.
 
 Other performances can be benched by name (``performance(name)``): the
-project's progressions (``retuner.progressions``), or any registered with
+project's progressions (``retuner.bench.progressions``), or any registered with
 :func:`register_performance`.
 """
 
@@ -37,8 +37,8 @@ from typing import Callable, Iterable, Sequence
 
 import mido
 
-from .engine import Engine, EngineConfig
-from .tuning import Tuning
+from retuner.engine.core import Engine, EngineConfig
+from retuner.pitch.tuning import Tuning
 
 Event = tuple[float, mido.Message]
 
@@ -182,7 +182,7 @@ def register_performance(name: str, fn: Callable[..., list[Event]]) -> None:
 def performance_names() -> list[str]:
     names = list(_REGISTRY)
     try:
-        from . import progressions
+        from retuner.bench import progressions
         names += [n for n in progressions.PROGRESSIONS if n not in names]
     except ImportError:  # pragma: no cover - progressions are optional
         pass
@@ -194,7 +194,7 @@ def performance(name: str = "generated", n_note_events: int = 10000, seed: int =
     they hold ``n_note_events`` note events."""
     if name in _REGISTRY:
         return _REGISTRY[name](n_note_events=n_note_events, seed=seed)
-    from . import progressions
+    from retuner.bench import progressions
     one = progressions.progression(name)
     if not one:
         return []

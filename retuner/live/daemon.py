@@ -12,7 +12,7 @@ handler):
 * a port watcher thread lists the backend's ports every ``port_poll`` seconds
   (only when a port is named) and puts ``("ports", inputs, outputs)``;
 * signal handlers put ``("signal", signum)``;
-* the control socket (retuner.control) wakes the loop with ``("wake",)``.
+* the control socket (retuner.control.control) wakes the loop with ``("wake",)``.
 
 The loop waits on the queue with a timeout: the earliest of the engine's
 ``next_deadline()``, the watchdog ping and the status line. Output is sent the
@@ -21,7 +21,7 @@ moment the engine returns it.
 Hotplug
 -------
 A side with a port name (``--input``/``--output``) is connected to the first
-port that matches (see retuner.ports). When that port disappears the daemon
+port that matches (see retuner.live.ports). When that port disappears the daemon
 keeps running and logs it once; notes held from a lost input are released
 (``engine.input_lost``); notes sounding on a lost output are forgotten
 (``engine.output_lost``), input is dropped while there is no output, and when
@@ -35,7 +35,7 @@ settings stay); SIGTERM and SIGINT release every sounding note
 
 Control socket
 --------------
-When ``control.enabled`` (default) the daemon starts retuner.control's server
+When ``control.enabled`` (default) the daemon starts retuner.control.control's server
 (``EngineControl`` + ``ControlServer``); the engine thread applies its commands
 (``serve_pending``) and publishes events (``observe``) on every wake-up.
 """
@@ -51,10 +51,10 @@ import threading
 import time
 from typing import Callable, Optional
 
-from . import ports as _ports
-from .config import Settings, engine_config
-from .errors import RetunerError
-from .notify import Notifier
+from retuner.live import ports as _ports
+from retuner.live.config import Settings, engine_config
+from retuner.errors import RetunerError
+from retuner.live.notify import Notifier
 
 log = logging.getLogger("retuner")
 
@@ -93,7 +93,7 @@ class Profiles:
     """The tunings a configuration needs, loaded up front (no disk reads while switching)."""
 
     def __init__(self, settings: Settings):
-        from .profile import load_profile
+        from retuner.profiles.profile import load_profile
 
         dirs = settings.profile_dirs
 
@@ -136,7 +136,7 @@ class Daemon:
         self._last_out = float("-inf")
         # what was sent lately, for the status line's impurity, motion and drift (measured from
         # the output, as 'retuner convert --report' does)
-        from .metrics import StreamWindow
+        from retuner.measure.metrics import StreamWindow
         self.recent = StreamWindow()
         self._figures: Optional[dict] = None
         self._figures_busy = False
@@ -144,14 +144,14 @@ class Daemon:
         self._errors = 0
         self.running = False
         self.exit_status = 0
-        self.control = None         # retuner.control.EngineControl
-        self.control_server = None  # retuner.control.ControlServer
+        self.control = None         # retuner.control.control.EngineControl
+        self.control_server = None  # retuner.control.control.ControlServer
         self.started_at = time.monotonic()
 
     # ------------------------------------------------------------------ engine
     @staticmethod
     def _new_engine(settings: Settings, tuning):
-        from .engine import Engine
+        from retuner.engine.core import Engine
         return Engine(tuning, engine_config(settings))
 
     def emit(self, messages) -> None:
@@ -458,7 +458,7 @@ class Daemon:
 
         def measure():
             try:
-                from .metrics import report
+                from retuner.measure.metrics import report
                 fig = self._figures = report(stream, **kw)
                 if fig.get("notes"):
                     log.info("status: last %d notes: impurity %.2f c, motion %.2f c/note, drift max %.2f c, "
@@ -485,7 +485,7 @@ class Daemon:
         if not self.settings.control.enabled:
             return
         try:
-            from .control import ControlServer, EngineControl, EngineHost
+            from retuner.control.control import ControlServer, EngineControl, EngineHost
             host = EngineHost(engine=self.engine, emit=self.emit, tuning=self.tuning,
                               clock=time.monotonic, profile_dirs=tuple(self.settings.profile_dirs),
                               on_switch=self._on_control_switch, status_extra=self.status)

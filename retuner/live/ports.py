@@ -35,9 +35,9 @@ from typing import Callable, Optional, Sequence
 import mido
 import rtmidi
 
-from .errors import RetunerError
+from retuner.errors import RetunerError
 
-log = logging.getLogger("retuner.ports")
+log = logging.getLogger("retuner.live.ports")
 
 # backend word -> (python-rtmidi API, the equivalent mido backend name)
 BACKENDS = {

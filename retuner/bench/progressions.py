@@ -393,10 +393,10 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
 
     Notes starting within the chord window of a chord's first note are solved
     together (tuned at the window's start, as if the window cost no time).
-    Returns a list of :class:`retuner.metrics.NoteTrack` (the ideal output).
+    Returns a list of :class:`retuner.measure.metrics.NoteTrack` (the ideal output).
     """
-    from .adaptive import AdaptiveConfig, AdaptiveSolver
-    from .metrics import NoteTrack
+    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver
+    from retuner.measure.metrics import NoteTrack
 
     cfg = config if config is not None else AdaptiveConfig()
     solver = AdaptiveSolver(cfg, reference)
@@ -457,8 +457,8 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
 
 def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, mode: str = "pool"):
     """Play events through a fresh engine (as the daemon would) and return its output stream."""
-    from .engine import Engine, EngineConfig
-    from .tuning import Tuning
+    from retuner.engine.core import Engine, EngineConfig
+    from retuner.pitch.tuning import Tuning
 
     eng = Engine(tuning or Tuning.equal12(), EngineConfig(mode=mode, adaptive=adaptive))
     out: list[Event] = [(0.0, m) for m in eng.start(0.0)]
@@ -479,7 +479,7 @@ def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, m
 
 
 def _figures(stream) -> dict:
-    from .metrics import report
+    from retuner.measure.metrics import report
     r = report(stream)
     return {"impurity": r["impurity_cents"], "motion": r["motion_cents_per_note"],
             "drift_max": r["drift_max_cents"], "drift_max_settled": r["drift_max_settled_cents"],
@@ -488,7 +488,7 @@ def _figures(stream) -> dict:
 
 def bench_setups() -> dict:
     """The tunings compared by ``adaptive_bench``: name -> (tuning id, AdaptiveConfig or None)."""
-    from .adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     return {
         "adaptive": ("edo12", AdaptiveConfig()),
         "edo12": ("edo12", None),
@@ -511,7 +511,7 @@ def solver_timing(events: int = 5000, voices: int = 8, seed: int = 1, clock: str
     import random
     import time
 
-    from .adaptive import AdaptiveConfig, AdaptiveSolver
+    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver
 
     rng = random.Random(seed)
     solver = AdaptiveSolver(AdaptiveConfig())
@@ -542,9 +542,9 @@ def solver_timing(events: int = 5000, voices: int = 8, seed: int = 1, clock: str
 
 def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 5000, clock: str = "wall") -> dict:
     """Figures for ``retuner bench --adaptive``: the comma pump and the chorales through the
-    engine, measured from its output (retuner.metrics), for adaptive mode and for the
+    engine, measured from its output (retuner.measure.metrics), for adaptive mode and for the
     tunings it is compared with; and the solver's time per event with 8 voices."""
-    from .profile import load_profile
+    from retuner.profiles.profile import load_profile
 
     setups = bench_setups()
     pump = progression("pump", legato=True, rounds=rounds)

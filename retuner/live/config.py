@@ -26,7 +26,7 @@ defaults). Every field is optional::
                                    # before a note-on after this many quiet seconds with nothing
                                    # sounding or ringing, for a synth connected after the start; 0 = never
     log_level: info                # debug, info, warning, error
-    control:                       # the control socket (JSON lines; see retuner.control)
+    control:                       # the control socket (JSON lines; see retuner.control.control)
       enabled: true
       path: null                   # default $XDG_RUNTIME_DIR/retuner/control.sock
 
@@ -46,7 +46,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Optional
 
-from .errors import RetunerError
+from retuner.errors import RetunerError
 
 LOG_LEVELS = ("debug", "info", "warning", "error")
 
@@ -173,8 +173,8 @@ TOP_FIELDS = {"profile", "profile_dirs", "backend", "input", "output", "virtual"
 
 def parse_config(text: str, filename: str = "<config>", base: Optional[Settings] = None) -> Settings:
     """Parse and check a config file's text; fields not given keep ``base``'s (default: built-in) values."""
-    from .profile import load_yaml
-    from . import ports
+    from retuner.profiles.profile import load_yaml
+    from retuner.live import ports
 
     w = _Where(filename)
     data = load_yaml(text, filename)
@@ -286,12 +286,12 @@ def load_config(path: Optional[str], *, required: bool = False) -> Settings:
 
 
 # --------------------------------------------------------------------------- engine settings
-# The engine's settings are the fields of retuner.engine.EngineConfig. In files and on the
+# The engine's settings are the fields of retuner.engine.core.EngineConfig. In files and on the
 # command line channels are 1..16; the engine (like mido) counts 0..15. A field whose name ends
 # in "channel" or "channels" holds channels.
 
 def _engine_config_class():
-    from .engine import EngineConfig  # noqa: WPS433 - the engine lands separately
+    from retuner.engine.core import EngineConfig  # noqa: WPS433 - the engine lands separately
     return EngineConfig
 
 
@@ -317,7 +317,7 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
         v = {}
     if not isinstance(v, dict):
         raise w.err(f"expected true, false or a mapping of adaptive settings, got {_type_name(v)}", fld, m, k)
-    from .adaptive import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig
     names = {f.name for f in dataclasses.fields(AdaptiveConfig)}
     _unknown(v, names, w, fld + ".")
     return dict(v)
@@ -385,7 +385,7 @@ def check_engine_settings(eng: dict, w: Optional[_Where] = None, *, mapping: Any
         if k == "adaptive":
             out[k] = _adaptive_settings(v, w, prefix + k, m, k)
         elif k == "mode":
-            from .engine import MODES
+            from retuner.engine.core import MODES
             if v not in MODES:
                 raise w.err(f"expected one of {', '.join(MODES)}, got {v!r}", prefix + k, m, k)
             out[k] = v
@@ -405,7 +405,7 @@ def engine_config(settings: Settings):
             else:
                 v = v - 1
         if k == "adaptive" and v is not None:
-            from .adaptive import AdaptiveConfig
+            from retuner.adaptive.solver import AdaptiveConfig
             try:
                 v = AdaptiveConfig.from_dict(v, file=settings.source)
             except RetunerError as exc:

@@ -42,8 +42,8 @@ from typing import Any, Iterable, Optional, Sequence
 
 import yaml
 
-from .errors import RetunerError
-from .tuning import (COMMAS, KEY_NAMES, NUM_KEYS, Degree, Interval, Tuning,
+from retuner.errors import RetunerError
+from retuner.pitch.tuning import (COMMAS, KEY_NAMES, NUM_KEYS, Degree, Interval, Tuning,
                      build_keyboard, chain_of_fifths)
 
 log = logging.getLogger(__name__)
@@ -60,7 +60,7 @@ def builtin_dir() -> Path:
     """The folder of built-in profiles: the installed copy (``retuner/builtin_profiles``, put
     there by pyproject.toml from the project's ``profiles/``), or ``profiles/`` beside the
     package in a source tree."""
-    here = Path(__file__).resolve().parent
+    here = Path(__file__).resolve().parent.parent   # the retuner package
     installed = here / "builtin_profiles"
     if installed.is_dir() and any(installed.glob("*.yaml")):
         return installed

@@ -83,7 +83,7 @@ nothing in legato playing but re-centres detached playing abruptly (melodic
 intervals across a silence are not kept pure).
 
 The defaults were chosen on the project's own progressions (comma pump and
-four chorales in :mod:`retuner.progressions`), so they fit that material best.
+four chorales in :mod:`retuner.bench.progressions`), so they fit that material best.
 
 The default chord window is 0.02 s: notes arriving within 20 ms of the first
 note of a chord are solved together, so every note of a chord is delayed by up
@@ -102,8 +102,8 @@ from typing import Any, Mapping, Optional, Sequence
 
 import numpy as np
 
-from .errors import RetunerError
-from .tuning import Tuning
+from retuner.errors import RetunerError
+from retuner.pitch.tuning import Tuning
 
 #: interval class names accepted in YAML (semitones above the lower note, mod 12)
 CLASS_NAMES = {

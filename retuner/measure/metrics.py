@@ -13,7 +13,7 @@ the engine's internal state):
   ``bend_scale`` lets a caller model a synth that plays bends at a different
   size (e.g. 127/128).
 * **MIDI Tuning Standard**: per-key pitches from bulk tuning dumps and single
-  note tuning changes (decoded by :func:`retuner.mts.parse_sysex`), kept per
+  note tuning changes (decoded by :func:`retuner.midi.mts.parse_sysex`), kept per
   tuning program; a channel plays the program it selected with RPN 3 (and bank,
   RPN 4), or, if it never selected one, the last program written. Real-time
   changes retune sounding notes at once; non-real-time ones only later notes.
@@ -41,7 +41,7 @@ from typing import Iterable, Optional, Sequence
 
 import mido
 
-from .tuning import Tuning
+from retuner.pitch.tuning import Tuning
 
 # interval class (semitones mod 12) -> just ratio, for the consonances counted in impurity
 CONSONANT_RATIOS = {0: (1, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
@@ -90,7 +90,7 @@ class Decoded:
 def _parse_mts(msg: mido.Message):
     """MTS sysex -> (realtime, bank, program, [(key, cents|None)]) or None."""
     try:
-        from .mts import is_mts, parse_sysex
+        from retuner.midi.mts import is_mts, parse_sysex
     except ImportError:  # pragma: no cover - mts.py is part of the package
         return None
     if not is_mts(msg):

@@ -81,7 +81,7 @@ from itertools import count
 from pathlib import Path
 from typing import Any, Callable, Optional
 
-from .errors import RetunerError
+from retuner.errors import RetunerError
 
 log = logging.getLogger(__name__)
 
@@ -760,12 +760,12 @@ class ControlServer:
 class EngineHost:
     """What :class:`EngineControl` needs from the daemon that owns the engine.
 
-    ``engine`` is the running engine (see retuner.engine); ``emit(messages)`` sends
+    ``engine`` is the running engine (see retuner.engine.core); ``emit(messages)`` sends
     output messages to the output port; ``clock()`` is the engine clock
     (seconds, monotonic). ``tuning`` is the loaded profile; ``profile_dirs`` are
     searched by ``load`` and ``profiles``. ``adaptive_config(settings)`` turns a
     settings dict into the engine's adaptive configuration (None: use
-    ``retuner.adaptive``'s defaults). ``on_switch(tuning)`` is told about a
+    ``retuner.adaptive.solver``'s defaults). ``on_switch(tuning)`` is told about a
     profile switch made from the socket (for logging and config state).
     """
 
@@ -787,7 +787,7 @@ def rotate_tuning(tuning, semitones: int):
     higher. Keys whose source would lie outside 0..127 are mapped through the
     tuning's period when it has whole-key periods (12-note tunings), else unmapped.
     """
-    from .tuning import NUM_KEYS, Tuning
+    from retuner.pitch.tuning import NUM_KEYS, Tuning
     n = int(semitones)
     if n == 0:
         return tuning
@@ -847,7 +847,7 @@ class EngineControl(Handler):
         if cmd.name == "profiles":
             now = time.monotonic()
             if self._profiles_cache is None or now - self._profiles_cache[0] > 1.0:
-                from .profile import list_profiles   # reads the folders: at most once a second
+                from retuner.profiles.profile import list_profiles   # reads the folders: at most once a second
                 self._profiles_cache = (now, [{"id": p.id, "description": p.description,
                                                "builtin": bool(p.builtin)}
                                               for p in list_profiles(self.host.profile_dirs)])
@@ -856,7 +856,7 @@ class EngineControl(Handler):
             pid = a.get("profile")
             if not isinstance(pid, str) or not pid:
                 raise RetunerError("load: 'profile' must be a profile id or path", field="profile")
-            from .profile import load_profile
+            from retuner.profiles.profile import load_profile
             cmd.data = load_profile(pid, self.host.profile_dirs)   # slow part, off the engine thread
         elif cmd.name == "adaptive":
             on = a.get("on")
@@ -887,7 +887,7 @@ class EngineControl(Handler):
     def _adaptive_config(self, settings: dict):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
-        from .adaptive import AdaptiveConfig
+        from retuner.adaptive.solver import AdaptiveConfig
         base = self._adaptive_base
         if base is not None and dataclasses.is_dataclass(base):
             merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
@@ -1004,7 +1004,7 @@ class EngineControl(Handler):
         raise RetunerError(f"unknown command {name!r}")
 
     def _notes(self, sounding=None) -> list[dict]:
-        from .tuning import cents_to_hz
+        from retuner.pitch.tuning import cents_to_hz
         out = []
         for n in (self.host.engine.sounding() if sounding is None else sounding):
             c = n.get("cents")
@@ -1057,7 +1057,7 @@ class EngineControl(Handler):
             self._sounding.clear()
             return
         self._check_external_switch()
-        from .tuning import cents_to_hz
+        from retuner.pitch.tuning import cents_to_hz
         now_notes = {}
         for n in self.host.engine.sounding():
             now_notes[(n.get("channel", 0), n["key"])] = n
