@@ -163,3 +163,35 @@ def test_interval_exactness():
     assert (Interval.ratio(2) ** Fraction(1, 12)).as_fraction is None
     with pytest.raises(ValueError):
         Interval.ratio(0)
+
+
+# Handbook cents of the usual just intervals (common practice; from memory, each recomputed here
+# from its ratio with plain floats): the table must hold these ratios under these names.
+HANDBOOK_JUST = {
+    "unison": (1.0, 0.0), "minor second": (16 / 15, 111.731), "major second": (9 / 8, 203.910),
+    "minor third": (6 / 5, 315.641), "major third": (5 / 4, 386.314), "fourth": (4 / 3, 498.045),
+    "tritone": (45 / 32, 590.224), "fifth": (3 / 2, 701.955), "minor sixth": (8 / 5, 813.686),
+    "major sixth": (5 / 3, 884.359), "minor seventh": (9 / 5, 1017.596), "major seventh": (15 / 8, 1088.269),
+    "harmonic seventh": (7 / 4, 968.826), "septimal minor third": (7 / 6, 266.871),
+    "septimal tritone": (7 / 5, 582.512),
+}
+
+
+def test_just_interval_table_against_handbook_values():
+    from retuner.pitch.intervals import JUST_INTERVALS, USUAL, candidates
+    by_name = {j.name: j for j in JUST_INTERVALS}
+    for name, (ratio, cents) in HANDBOOK_JUST.items():
+        assert c(ratio) == pytest.approx(cents, abs=0.0005), name
+        assert float(by_name[name].ratio) == pytest.approx(ratio, rel=1e-12), name
+    for j in JUST_INTERVALS:
+        # every ratio lies within a quarter tone and a bit of its class's 12-EDO size
+        assert abs(c(float(j.ratio)) - 100 * j.steps) < 50, j
+    # the usual choice of each class is its 5-limit one; consonances as impurity counts them
+    assert [USUAL[s].ratio for s in (0, 3, 4, 5, 7, 8, 9)] == [Fraction(1), Fraction(6, 5), Fraction(5, 4),
+                                                             Fraction(4, 3), Fraction(3, 2), Fraction(8, 5),
+                                                             Fraction(5, 3)]
+    assert all(j.prime_limit <= 5 for js in candidates(5).values() for j in js)
+    # 7-limit: the 4:5:6:7 chord's 7/4 and 7/5 lead their classes; 7/6 is an alternative to 6/5
+    seven = candidates(7)
+    assert seven[10][0].ratio == Fraction(7, 4) and seven[6][0].ratio == Fraction(7, 5)
+    assert [j.ratio for j in seven[3]] == [Fraction(6, 5), Fraction(7, 6)]

@@ -103,6 +103,7 @@ from typing import Any, Mapping, Optional, Sequence
 import numpy as np
 
 from retuner.errors import RetunerError
+from retuner.pitch.intervals import candidates
 from retuner.pitch.tuning import Tuning
 
 #: interval class names accepted in YAML (semitones above the lower note, mod 12)
@@ -112,17 +113,12 @@ CLASS_NAMES = {
     "P5": 7, "m6": 8, "M6": 9, "m7": 10, "M7": 11,
 }
 
-# Just ratios for each interval class; the first candidate is the default, the
-# others are chosen by context (common practice of 5-limit just intonation).
-LIMIT5: dict[int, tuple[str, ...]] = {
-    0: ("1/1",), 1: ("16/15",), 2: ("9/8", "10/9"), 3: ("6/5",), 4: ("5/4",),
-    5: ("4/3",), 6: ("45/32", "64/45"), 7: ("3/2",), 8: ("8/5",), 9: ("5/3",),
-    10: ("9/5", "16/9"), 11: ("15/8",),
-}
-# 7-limit: harmonic seventh 7/4, septimal tritone 7/5 and septimal minor third
-# 7/6 (the intervals of a 4:5:6:7 dominant seventh chord) are added.
-LIMIT7: dict[int, tuple[str, ...]] = dict(LIMIT5)
-LIMIT7.update({3: ("6/5", "7/6"), 6: ("7/5", "45/32", "64/45", "10/7"), 10: ("7/4", "9/5", "16/9")})
+# Just ratios for each interval class, from the one table; the first candidate is the default,
+# the others are chosen by context. The 7-limit table adds 7/4, 7/5, 7/6 and 10/7.
+LIMIT5: dict[int, tuple[str, ...]] = {c: tuple(f"{j.ratio.numerator}/{j.ratio.denominator}" for j in js)
+                                      for c, js in candidates(5).items()}
+LIMIT7: dict[int, tuple[str, ...]] = {c: tuple(f"{j.ratio.numerator}/{j.ratio.denominator}" for j in js)
+                                      for c, js in candidates(7).items()}
 
 # Weights per interval class: consonances count fully, dissonances less.
 DEFAULT_WEIGHTS: dict[int, float] = {

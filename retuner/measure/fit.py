@@ -53,13 +53,11 @@ import numpy as np
 
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
+from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
-JUST_TARGETS: dict[int, Fraction] = {
-    0: Fraction(1, 1), 3: Fraction(6, 5), 4: Fraction(5, 4), 5: Fraction(4, 3),
-    7: Fraction(3, 2), 8: Fraction(8, 5), 9: Fraction(5, 3),
-}
+JUST_TARGETS: dict[int, Fraction] = dict(CONSONANT_RATIOS)
 JUST_CENTS: dict[int, float] = {k: ratio_to_cents(v) for k, v in JUST_TARGETS.items()}
 PURE_FIFTH_CENTS = ratio_to_cents(Fraction(3, 2))
 MIN_WOLF = (12 * PURE_FIFTH_CENTS - 8400.0) / 12.0     # 1.955 c: a twelfth of the Pythagorean comma

@@ -41,10 +41,11 @@ from typing import Iterable, Optional, Sequence
 
 import mido
 
+from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
 # interval class (semitones mod 12) -> just ratio, for the consonances counted in impurity
-CONSONANT_RATIOS = {0: (1, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
+CONSONANT_RATIOS = {c: (r.numerator, r.denominator) for c, r in intervals.CONSONANT_RATIOS.items()}
 CONSONANT_CENTS = {c: 1200.0 * math.log2(p / q) for c, (p, q) in CONSONANT_RATIOS.items()}
 
 # events closer than this (seconds) count as simultaneous (float rounding of event times)

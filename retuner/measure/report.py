@@ -27,6 +27,7 @@ import math
 from typing import Optional
 
 from retuner.measure import metrics
+from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
 
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
@@ -217,7 +218,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
 # ---------------------------------------------------------------------------
 #: consonances whose beat rates are shown (interval class -> just ratio upper:lower), the
 #: impurity set of retuner.measure.metrics (common practice of 5-limit just intonation)
-BEAT_RATIOS = {0: (2, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
+BEAT_RATIOS = {c: (r.numerator, r.denominator) for c, r in CONSONANT_RATIOS.items()}   # octaves: 2**n:1 below
 CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: "fifth",
                8: "minor sixth", 9: "major sixth"}
 

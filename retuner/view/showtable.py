@@ -6,14 +6,11 @@ from dataclasses import dataclass
 from fractions import Fraction
 from typing import Optional
 
+from retuner.pitch.intervals import USUAL
 from retuner.pitch.tuning import KEY_NAMES, Tuning, beat_rate, nearest_simple_ratio, ratio_to_cents
 
 # The intervals a teacher compares, with the just ratio each is heard against (upper:lower = p:q).
-CHECKED_INTERVALS = (
-    ("major third", 4, Fraction(5, 4)),
-    ("minor third", 3, Fraction(6, 5)),
-    ("fifth", 7, Fraction(3, 2)),
-)
+CHECKED_INTERVALS = tuple((USUAL[s].name, s, USUAL[s].ratio) for s in (4, 3, 7))   # major third, minor third, fifth
 
 
 @dataclass

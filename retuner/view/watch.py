@@ -27,16 +27,12 @@ from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Optional
 
+from retuner.pitch.intervals import USUAL
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
 
 #: interval class -> (short name, just ratio): the consonances of the impurity
 #: metric (issue 6) and the usual 5-limit choices for the rest (common practice).
-INTERVALS: dict[int, tuple[str, Fraction]] = {
-    0: ("P1", Fraction(1, 1)), 1: ("m2", Fraction(16, 15)), 2: ("M2", Fraction(9, 8)),
-    3: ("m3", Fraction(6, 5)), 4: ("M3", Fraction(5, 4)), 5: ("P4", Fraction(4, 3)),
-    6: ("TT", Fraction(45, 32)), 7: ("P5", Fraction(3, 2)), 8: ("m6", Fraction(8, 5)),
-    9: ("M6", Fraction(5, 3)), 10: ("m7", Fraction(9, 5)), 11: ("M7", Fraction(15, 8)),
-}
+INTERVALS: dict[int, tuple[str, Fraction]] = {c: (j.short, j.ratio) for c, j in USUAL.items()}
 CONSONANT = {0, 3, 4, 5, 7, 8, 9}
 
 
