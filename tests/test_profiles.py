@@ -1,14 +1,16 @@
 """Profile files: loading, user folders, and one clear line for every malformed profile."""
 
 import json
+import math
 import subprocess
 import sys
 import textwrap
+from fractions import Fraction
 
 import pytest
 
 from retuner.errors import RetunerError
-from retuner.profiles.profile import builtin_dir, list_profiles, load_profile, parse_profile
+from retuner.profiles.profile import builtin_dir, dump_profile, list_profiles, load_profile, parse_profile
 
 BUILTIN_IDS = {"edo12", "pythagorean", "just-5limit", "just-7limit", "meantone-quarter", "meantone-sixth",
                "werckmeister-3", "kirnberger-3", "vallotti", "young-2", "edo19", "edo31", "edo53",
@@ -31,45 +33,56 @@ def test_builtin_ids_exact_and_described():
 GOOD = """\
 id: test-scale
 description: a test
-scale: {degrees: [9/8, 5/4], period: 2/1}
+scale: {degrees: [1/1, 9/8, 5/4], period: 2/1}
 """
 
 # (profile text, expected line, expected field fragment)
 BAD = [
-    ("id: x\ndescription: d\nscale: {degrees: [9/8, 5/4\n", None, None),                 # bad YAML
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 9/8, 5/4\n", None, None),            # bad YAML
     ("- a\n- b\n", 1, None),                                                               # not a mapping
     ("id: x\ndescription: d\ncolour: red\nequal: {steps: 12}\n", 3, "colour"),             # unknown field
     ("description: d\nequal: {steps: 12}\n", 1, "id"),                                    # missing id
     ("id: x\nequal: {steps: 12}\n", 1, "description"),                                    # missing description
     ("id: Bad_Id\ndescription: d\nequal: {steps: 12}\n", 1, "id"),                        # bad id
-    ("id: x\ndescription: d\n", 1, "equal/scale/temperament"),                              # no kind
-    ("id: x\ndescription: d\nequal: {steps: 12}\nscale: {degrees: [3/2]}\n", 1, "equal/scale/temperament"),
+    ("id: x\ndescription: d\n", 1, "equal/scale/temperament"),                              # no form
+    ("id: x\ndescription: d\nequal: {steps: 12}\nscale: {degrees: [1/1, 3/2]}\n", 1, "equal/scale/temperament"),
     ("id: x\ndescription: d\nequal: {steps: 0}\n", 3, "equal.steps"),                     # zero steps
     ("id: x\ndescription: d\nequal: {steps: twelve}\n", 3, "equal.steps"),                # wrong type
     ("id: x\ndescription: d\nequal: {steps: 12, period: 1/1}\n", 3, "equal.period"),      # period <= 1/1
     ("id: x\ndescription: d\nequal: {steps: 12, period: 1/2}\n", 3, "equal.period"),      # period < 1/1
-    ("id: x\ndescription: d\nscale: {degrees: [0/4, 5/4]}\n", 3, "scale.degrees[0]"),     # ratio <= 0
-    ("id: x\ndescription: d\nscale: {degrees: [5/4, 9/8]}\n", 3, "scale.degrees[1]"),     # not increasing
-    ("id: x\ndescription: d\nscale: {degrees: [5/4, 5/4]}\n", 3, "scale.degrees[1]"),     # repeated degree
-    ("id: x\ndescription: d\nscale: {degrees: [5/4, 2/1]}\n", 3, "scale.degrees[1]"),     # degree at period
-    ("id: x\ndescription: d\nscale: {degrees: [5/4, 3/0]}\n", 3, "scale.degrees[1]"),     # zero denominator
-    ("id: x\ndescription: d\nscale: {degrees: []}\n", 3, "scale.degrees"),                # empty
-    ("id: x\ndescription: d\nscale: {degrees: [5/4, hello]}\n", 3, "scale.degrees[1]"),   # not a ratio
+    ("id: x\ndescription: d\nequal: {steps: 12, period: 2}\n", 3, "equal.period"),        # bare number
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 0/4, 5/4]}\n", 3, "scale.degrees[1]"),     # ratio <= 0
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 5/4, 9/8]}\n", 3, "scale.degrees[2]"),     # not rising
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 5/4, 5/4]}\n", 3, "scale.degrees[2]"),     # repeated degree
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 5/4, 2/1]}\n", 3, "scale.degrees[2]"),     # degree at period
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 5/4, 3/0]}\n", 3, "scale.degrees[2]"),     # zero denominator
+    ("id: x\ndescription: d\nscale: {degrees: []}\n", 3, "scale.degrees"),                     # empty
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 5/4, hello]}\n", 3, "scale.degrees[2]"),   # not a ratio
+    ("id: x\ndescription: d\nscale: {degrees: [1/1, 386.314]}\n", 3, "scale.degrees[1]"),      # bare cents
+    ("id: x\ndescription: d\nscale: {degrees: [9/8, 5/4]}\n", 3, "scale.degrees[0]"),          # root left out
     ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: -1/4 wolfish}\n", 3, "temperament.fifths"),  # unknown comma
     ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: [pure, pure]}\n", 3, "temperament.fifths"),  # 2 fifths
     ("id: x\ndescription: d\ntemperament: {start: H, fifths: pure}\n", 3, "temperament.start"),             # bad note
-    ("id: x\ndescription: d\nequal: {steps: 12}\nkeys: [0, 128]\n", 4, "keys[1]"),                      # key outside 0-127
-    ("id: x\ndescription: d\nequal: {steps: 12}\nroot: 300\n", 4, "root"),                              # root outside 0-127
-    ("id: x\ndescription: d\nequal: {steps: 12}\nreference: {key: -1}\n", 4, "reference.key"),          # ref outside
-    ("id: x\ndescription: d\nequal: {steps: 12}\nreference: {hz: 0}\n", 4, "reference.hz"),             # ref hz
-    ("id: x\ndescription: d\nequal: {steps: 12}\nreference: {key: 69, hz: 440, pitch: 3}\n", 4, "reference.pitch"),
-    ("id: x\ndescription: d\nequal: {steps: 12}\nkeymap: {size: 3, degrees: [0, 1]}\n", 4, "keymap.degrees"),
-    ("id: x\ndescription: d\nequal: {steps: 12}\nkeymap: {degrees: [0, x]}\n", 4, "keymap.degrees[1]"),
-    ("id: x\ndescription: d\nequal: {steps: 12}\nkeys: [0, 60]\n", 4, "reference.key"),                 # A4 unmapped
+    ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: 696.578}\n", 3, "temperament.fifths"),       # bare
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {within: 0 to 128}\n", 4, "layout.within"),     # key > 127
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {300: 0}}\n", 4, "layout.runs.300"),    # key > 127
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {C4 to B4: 0 to 12}}\n", 4,
+     "layout.runs.C4 to B4"),                                                                        # lengths differ
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {C4: x}}\n", 4, "layout.runs.C4"),      # bad degree
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {60 to 62: 0, 62: 5}}\n", 4,
+     "layout.runs.62"),                                                                               # key twice
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {60: 0, 73: 1}, repeat: 12}\n", 4,
+     "layout.repeat"),                                                                                # copies overlap
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {60: 0}, colour: 3}\n", 4, "layout.colour"),
+    ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {within: 0 to 60}\n", 4, "layout"),            # A4 silent
+    ("id: x\ndescription: d\nequal: {steps: 12}\nconcert_pitch: key -1 = 440 Hz\n", 4, "concert_pitch"),
+    ("id: x\ndescription: d\nequal: {steps: 12}\nconcert_pitch: A4 = 0 Hz\n", 4, "concert_pitch"),      # 0 Hz
+    ("id: x\ndescription: d\nequal: {steps: 12}\nconcert_pitch: A4 = 440\n", 4, "concert_pitch"),       # no unit
     ("id: x\ndescription: d\nid: y\nequal: {steps: 12}\n", 3, "id"),                                    # duplicate field
     ("id: x\ndescription: [a, b]\nequal: {steps: 12}\n", 2, "description"),                             # wrong type
     ("id: x\ndescription: d\nequal: [12]\n", 3, "equal"),                                               # wrong type
     ("id: x\ndescription: d\nequal: {steps: 12}\nnames: [a, b]\n", 4, "names"),                         # wrong count
+    ("id: x\ndescription: d\nequal: {steps: 1, period: 100000 cents}\n", 3, "equal"),                  # keys too far
 ]
 
 
@@ -84,35 +97,225 @@ def test_malformed_profiles_give_one_line(text, line, field):
         assert msg.startswith(f"bad.yaml:{line}:"), msg
     if field is not None:
         assert f" {field}: " in msg, msg
+        assert msg.count(f"{field}:") == 1, msg        # the place is named once
 
 
 def test_at_least_twenty_malformed_cases():
-    # issue 2 asks for at least 20 distinct malformed profiles, each of which fails
+    # at least 20 distinct malformed profiles, each of which fails
     assert len({text for text, _, _ in BAD}) >= 20
     for text, _, _ in BAD:
         with pytest.raises(RetunerError):
             parse_profile(text, "bad.yaml")
 
 
-def test_keymap_degrees_beyond_scale_wrap_to_next_period():
-    t = parse_profile("id: x\ndescription: d\nequal: {steps: 12}\nkeymap: {size: 2, degrees: [0, 13]}\n")
-    # key root+1 plays degree 13 = one octave and one step up
-    assert t.cents[61] - t.cents[60] == pytest.approx(1300.0)
+def test_bare_numbers_show_both_ways_to_write_them():
+    for value, ways in (("700", ("700/1", "700 cents")), ("386.314", ("386.314 cents", "5/4")),
+                        ("-100", ("-100 cents",))):
+        with pytest.raises(RetunerError) as info:
+            parse_profile(f"id: x\ndescription: d\nscale: {{degrees: [1/1, {value}]}}\n", "b.yaml")
+        msg = str(info.value)
+        assert msg.startswith("b.yaml:3: scale.degrees[1]: a bare number"), msg
+        assert all(w in msg for w in ways), msg
+        assert "ratio must be greater" not in msg
 
 
-def test_keymap_white_keys_only():
+def test_downward_cents_are_not_called_a_ratio():
+    # -100 cents is a downward interval in cents: the message speaks of cents, not of a ratio
+    with pytest.raises(RetunerError) as info:
+        parse_profile("id: x\ndescription: d\nequal: {steps: 12, period: -100 cents}\n", "b.yaml")
+    msg = str(info.value)
+    assert msg.startswith("b.yaml:3: equal.period:") and "-100.000 cents" in msg and "ratio" not in msg
+    with pytest.raises(RetunerError) as info:
+        parse_profile("id: x\ndescription: d\nscale: {degrees: [1/1, -3/2]}\n", "b.yaml")
+    assert "a ratio must be greater than 0" in str(info.value) and "-100 cents" in str(info.value)
+
+
+def test_errors_point_at_the_degree_and_its_line():
+    # a block list: the bad value's own line, and the index that `show` gives the degree
+    text = textwrap.dedent("""\
+        id: x
+        description: d
+        scale:
+          degrees:
+            - 1/1
+            - 9/8
+            - 5/4
+            - 9/8
+            - 3/2
+        """)
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text, "b.yaml")
+    assert str(info.value).startswith("b.yaml:8: scale.degrees[3]: degrees must rise"), str(info.value)
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text.replace("- 3/2", "- three halves"), "b.yaml")
+    assert str(info.value).startswith("b.yaml:8: scale.degrees[3]:"), str(info.value)
+    bad_fifth = textwrap.dedent("""\
+        id: x
+        description: d
+        temperament:
+          start: Eb
+          fifths:
+            - pure
+            - pure
+            - -1/4 syntonic
+            - -1/4 wolfish
+            - pure
+            - pure
+            - pure
+            - pure
+            - pure
+            - pure
+            - pure
+        """)
+    with pytest.raises(RetunerError) as info:
+        parse_profile(bad_fifth, "b.yaml")
+    assert str(info.value).startswith("b.yaml:9: temperament.fifths[3]: unknown comma"), str(info.value)
+    # and a good profile numbers its degrees the same way: degree 3 of this scale is 4/3
+    good = parse_profile(text.replace("- 9/8\n    - 3/2", "- 4/3\n    - 3/2"), "g.yaml")
+    assert good.degrees[3].interval.as_fraction == Fraction(4, 3)
+
+
+def test_non_utf8_profile_gives_line_and_byte(tmp_path):
+    p = tmp_path / "latin1.yaml"
+    before = b"id: x\ndescription: caf"
+    p.write_bytes(before + b"\xe9 au lait\nequal: {steps: 12}\n")       # Latin-1 e-acute, not UTF-8
+    with pytest.raises(RetunerError) as info:
+        load_profile(str(p))
+    msg = str(info.value)
+    assert msg.startswith(f"{p}:2: not UTF-8 text") and f"byte offset {len(before)}" in msg, msg
+
+
+def test_deep_nesting_is_one_line_not_a_traceback(tmp_path):
+    deep = "id: x\ndescription: d\nequal: " + "[" * 5000 + "]" * 5000 + "\n"
+    with pytest.raises(RetunerError) as info:
+        parse_profile(deep, "deep.yaml")
+    msg = str(info.value)
+    assert msg.startswith("deep.yaml:3: nested more than") and "\n" not in msg, msg
+    p = tmp_path / "deep.yaml"
+    p.write_text(deep)
+    r = run_cli("show", str(p))
+    assert r.returncode == 2 and "Traceback" not in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_ratio_with_a_huge_prime_is_refused():
+    # 2**61 - 1 is prime (a Mersenne prime, common knowledge): factoring it by trial division would
+    # take hours; the profile is refused at once, naming the limit
+    text = "id: x\ndescription: d\nscale: {degrees: [1/1, 2305843009213693951/2305843009213693950]}\n"
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text, "big.yaml")
+    assert str(info.value).startswith("big.yaml:3: scale.degrees[1]: a ratio may have no prime factor above")
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text.replace("2305843009213693951/", "1" + "0" * 40 + "/"), "big.yaml")
+    assert "at most 30 digits" in str(info.value)
+    # the largest allowed prime still works, exactly
+    t = parse_profile("id: x\ndescription: d\nscale: {degrees: [1/1, 9973/8192]}\n", "ok.yaml")
+    assert t.degrees[1].interval.as_fraction == Fraction(9973, 8192)
+
+
+OLD_FORM = [
+    # (old lines, the first old field and its line)
+    ("equal: {steps: 12}\nkeymap: {size: 12, degrees: [0, null, 1, null, 2, 3, null, 4, null, 5, null, 6]}\n", 4,
+     "keymap"),
+    ("equal: {steps: 12}\nroot: 62\nkeys: [21, 108]\n", 4, "root"),
+    ("equal: {steps: 19}\nreference: {key: 62, hz: 293.66}\n", 4, "reference"),
+    ("scale: {degrees: [9/8, 5/4, 4/3, 3/2, 5/3, 15/8]}\nkeys: [36, 96]\nkeymap: {size: 12, degrees: "
+     "[0, null, 1, null, 2, 3, null, 4, null, 5, null, 6]}\nroot: 120\n", 4, "keys"),
+]
+
+
+def old_form_pitches(text):
+    """What the first form meant, worked out here from its rules: key k plays degree
+    keymap[(k - root) % size] of period (k - root) // size; keys outside [lo, hi] are silent;
+    the reference key sounds at the reference Hz."""
+    import yaml
+    doc = yaml.safe_load(text)
+    form = doc.get("equal") or doc.get("scale")
+    if "steps" in form:
+        n = form["steps"]
+        degs = [1200.0 * i / n for i in range(n)]
+    else:
+        degs = [0.0] + [1200.0 * math.log2(Fraction(r)) for r in form["degrees"]]
+        n = len(degs)
+    root = doc.get("root", 60)
+    km = doc.get("keymap", {"size": n, "degrees": list(range(n))})
+    lo, hi = doc.get("keys", [0, 127])
+    ref = doc.get("reference", {})
+    rel = []
+    for k in range(128):
+        rep, idx = divmod(k - root, km["size"])
+        d = km["degrees"][idx]
+        if not lo <= k <= hi or d is None:
+            rel.append(None)
+            continue
+        rep2, d2 = divmod(d, n)
+        rel.append(1200.0 * (rep + rep2) + degs[d2])
+    key, hz = ref.get("key", 69), ref.get("hz", 440.0)
+    shift = 1200.0 * math.log2(hz / (440.0 * 2 ** (-69 / 12))) - rel[key]
+    return [None if c is None else c + shift for c in rel]
+
+
+@pytest.mark.parametrize("old,line,field", OLD_FORM)
+def test_old_form_gets_one_line_that_writes_the_new_form(old, line, field):
+    text = "id: x\ndescription: d\n" + old
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text, "old.yaml")
+    msg = str(info.value)
+    assert msg.startswith(f"old.yaml:{line}: {field}: this is retuner's first profile form"), msg
+    assert "\n" not in msg
+    # the line's advice, followed to the letter, plays what the old profile meant
+    advice = msg.split("write instead: ", 1)[1].split(" and ")
+    kept = [ln for ln in old.splitlines() if ln.split(":")[0] not in ("root", "keymap", "keys", "reference")]
+    kept = [ln.replace("degrees: [", "degrees: [1/1, ") for ln in kept]
+    new = parse_profile("id: x\ndescription: d\n" + "\n".join(kept + advice) + "\n", "new.yaml")
+    want = old_form_pitches(text)
+    assert [c is None for c in new.cents] == [c is None for c in want]
+    for got, exp in zip(new.cents, want):
+        if exp is not None:
+            assert got == pytest.approx(exp, abs=1e-6)
+
+
+def test_layout_runs_white_keys_only():
     text = textwrap.dedent("""\
         id: white-keys
         description: a 7-note just scale on the white keys
-        scale: {degrees: [9/8, 5/4, 4/3, 3/2, 5/3, 15/8]}
-        reference: {key: 69, hz: 440}
-        keymap: {size: 12, degrees: [0, null, 1, null, 2, 3, null, 4, null, 5, null, 6]}
+        scale: {degrees: [1/1, 9/8, 5/4, 4/3, 3/2, 5/3, 15/8]}
+        concert_pitch: A4 = 440 Hz
+        layout:
+          runs: {C4: 0, D4: 1, E4 to F4: 2 to 3, G4: 4, A4: 5, B4: 6}
+          repeat: 12
         """)
     t = parse_profile(text, "w.yaml")
     assert t.cents[61] is None and t.cents[66] is None
     assert t.hz(69) == pytest.approx(440.0)
+    # 5/4 above C: 386.314 c (handbook value); the octave 1200 c
     assert t.cents[64] - t.cents[60] == pytest.approx(386.3137, abs=1e-3)
     assert t.cents[72] - t.cents[60] == pytest.approx(1200.0)
+    assert t.cents[21] - t.cents[60] == pytest.approx(-4 * 1200 + 1200 * math.log2(5 / 3))   # A0, four octaves below A4
+
+
+def test_layout_partial_keyboard_and_degrees_past_the_period():
+    t = parse_profile("id: x\ndescription: d\nequal: {steps: 12, period: 2/1}\n"
+                      "layout: {runs: {60: 0, 61: 13}, repeat: 2, within: 48 to 72}\n")
+    # key 61 plays degree 13: one octave and one step above the root
+    assert t.cents[61] - t.cents[60] == pytest.approx(1300.0)
+    assert t.cents[62] - t.cents[60] == pytest.approx(1200.0)      # the next copy, one period up
+    assert t.cents[47] is None and t.cents[73] is None and t.cents[48] is not None
+
+
+def test_dump_profile_reads_back_the_same_pitches():
+    for pid in ("just-5limit", "werckmeister-3", "bohlen-pierce"):
+        t = load_profile(pid)
+        text = dump_profile(id=t.id, description=t.description, source=t.source,
+                            scale=[d.interval for d in t.degrees], period=t.period,
+                            names=[d.name for d in t.degrees])
+        back = parse_profile(text, "dumped.yaml")
+        assert back.cents == pytest.approx(t.cents, abs=1e-5)
+    text = dump_profile(id="k", description="d", scale=[0.0, 386.3137], period=Fraction(2),
+                        runs=[(60, 60, 0), (64, 64, 1)], repeat=12, within=(21, 108),
+                        concert_pitch=(60, 261.6))
+    t = parse_profile(text, "k.yaml")
+    assert t.hz(60) == pytest.approx(261.6) and t.cents[62] is None and t.cents[109] is None
+    assert t.cents[64] - t.cents[60] == pytest.approx(386.3137)
 
 
 def test_cli_bad_profile_exit_2_one_line(tmp_path):
@@ -135,7 +338,7 @@ def test_user_profiles_and_override(tmp_path, monkeypatch):
     user.mkdir(parents=True)
     (user / "mine.yaml").write_text(GOOD.replace("test-scale", "mine"))
     (user / "edo12.yaml").write_text("id: edo12\ndescription: my own 12\nequal: {steps: 12}\n"
-                                     "reference: {hz: 415}\n")
+                                     "concert_pitch: A4 = 415 Hz\n")
     env = {"XDG_CONFIG_HOME": str(tmp_path / "cfg"), "PATH": "/usr/bin:/bin"}
     r = run_cli("profiles", "--json", env=env)
     assert r.returncode == 0, r.stderr

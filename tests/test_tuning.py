@@ -195,3 +195,47 @@ def test_just_interval_table_against_handbook_values():
     seven = candidates(7)
     assert seven[10][0].ratio == Fraction(7, 4) and seven[6][0].ratio == Fraction(7, 5)
     assert [j.ratio for j in seven[3]] == [Fraction(6, 5), Fraction(7, 6)]
+
+
+# Every built-in profile against its published definition, all 128 keys, recomputed here with plain
+# floats. Layout for all of them: consecutive keys play consecutive degrees, C4 (key 60) the root,
+# A4 (key 69) at 440 Hz (ISO 16).
+JUST_DEFINITIONS = {
+    # the syntonic-diatonic just scale on C with its usual chromatic notes (Barbour 1951, ch. 5)
+    "just-5limit": [1, 16 / 15, 9 / 8, 6 / 5, 5 / 4, 4 / 3, 45 / 32, 3 / 2, 8 / 5, 5 / 3, 9 / 5, 15 / 8],
+    # a 12-note 7-limit just scale on C (common practice): 7/4 on Bb, 7/5, 8/7, 15/14
+    "just-7limit": [1, 15 / 14, 8 / 7, 6 / 5, 5 / 4, 4 / 3, 7 / 5, 3 / 2, 8 / 5, 5 / 3, 7 / 4, 15 / 8],
+}
+EQUAL_DEFINITIONS = {   # id -> (steps, period): n equal steps of the period (common practice)
+    "edo12": (12, 2), "edo19": (19, 2), "edo31": (31, 2), "edo53": (53, 2),
+    # Bohlen (1978), Pierce and colleagues (1989): 13 equal steps of the tritave 3:1
+    "bohlen-pierce": (13, 3),
+}
+
+
+def expected_keys(pid):
+    """The 128 key pitches (cents above key 0 of 12-EDO) from the published definition."""
+    if pid in EQUAL_DEFINITIONS:
+        steps, period = EQUAL_DEFINITIONS[pid]
+        return [6900.0 + (k - 69) * c(period) / steps for k in range(128)]
+    if pid in JUST_DEFINITIONS:
+        pcs = [c(r) for r in JUST_DEFINITIONS[pid]]
+    else:
+        pcs = chain_cents(DEFINITIONS[pid])
+    rel = [1200.0 * ((k - 60) // 12) + pcs[(k - 60) % 12] for k in range(128)]
+    return [r - rel[69] + 6900.0 for r in rel]
+
+
+def builtin_ids():
+    from retuner.profiles.profile import builtin_dir
+    return sorted(p.stem for p in builtin_dir().glob("*.yaml"))
+
+
+@pytest.mark.parametrize("pid", builtin_ids())
+def test_every_builtin_plays_its_published_definition(pid):
+    assert pid in DEFINITIONS or pid in JUST_DEFINITIONS or pid in EQUAL_DEFINITIONS, \
+        f"{pid}: add its published definition to this test"
+    t = load_profile(pid)
+    want = expected_keys(pid)
+    for k in range(128):
+        assert t.cents[k] == pytest.approx(want[k], abs=1e-6), (pid, k)

@@ -54,6 +54,7 @@ import numpy as np
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
 from retuner.pitch.intervals import CONSONANT_RATIOS
+from retuner.profiles.dump import dump_profile
 from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
@@ -500,29 +501,19 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
     lim = []
     if result.active:
         lim.append("binding limits: " + ", ".join(result.active))
-    body = ", ".join(f"{d:.6f}" for d in deg[1:])
     offs = ", ".join(f"{KEY_NAMES[i]} {rounded(result.offsets[i], 3):+.3f}" for i in range(12))
-    import json
     description = (f"best-fit 12-note tuning for {Path(source_name).name} "
                    f"(impurity {result.impurity:.3f} cents)")
     source = ("retuner fit: time-weighted fit of the piece's consonant intervals to just ratios"
               + ("; " + "; ".join(lim) if lim else ""))
-    return (
-        f"id: {profile_id}\n"
-        f"description: {json.dumps(description)}\n"
-        f"source: {json.dumps(source)}\n"
-        f"# cents from 12-EDO per pitch class (A4 = {reference_hz:g} Hz): {offs}\n"
-        f"scale:\n"
-        f"  degrees: [{body}]\n"
-        f"  period: 2/1\n"
-        f"reference: {{key: 69, hz: {float(reference_hz)!r}}}\n"
-        f"root: 60\n"
-    )
+    return dump_profile(id=profile_id, description=description, source=source,
+                        comments=[f"cents from 12-EDO per pitch class (A4 = {reference_hz:g} Hz): {offs}"],
+                        scale=[0.0] + [float(d) for d in deg[1:]], period=Fraction(2),
+                        concert_pitch=(69, float(reference_hz)))
 
 
 def _per_key_yaml(result: FitResult, *, profile_id: str, source_name: str, reference_hz: float) -> str:
     """A per-key fit as a scale of 128 degrees rooted on key 0 whose period lies beyond key 127."""
-    import json
     x = result.key_offsets
     assert x is not None
     rel = [100.0 * k + x[k] - x[0] for k in range(NUM_KEYS)]
@@ -537,18 +528,11 @@ def _per_key_yaml(result: FitResult, *, profile_id: str, source_name: str, refer
     source = "retuner fit --per-key: time-weighted fit of the piece's intervals, octaves included, to just ratios"
     if result.active:
         source += "; binding limits: " + ", ".join(result.active)
-    body = ", ".join(f"{d:.6f}" for d in rel[1:])
-    return (
-        f"id: {profile_id}\n"
-        f"description: {json.dumps(description)}\n"
-        f"source: {json.dumps(source)}\n"
-        f"# every key its own pitch: degree k is key k, in cents above key 0; the period lies past key 127\n"
-        f"scale:\n"
-        f"  degrees: [{body}]\n"
-        f"  period: {period:.6f}\n"
-        f"reference: {{key: 69, hz: {ref_hz!r}}}\n"
-        f"root: 0\n"
-    )
+    return dump_profile(id=profile_id, description=description, source=source,
+                        comments=["every key its own pitch: degree k is key k, in cents above key 0; "
+                                  "the period lies past key 127"],
+                        scale=[0.0] + rel[1:], period=period, runs=[(0, NUM_KEYS - 1, 0)],
+                        concert_pitch=(69, ref_hz))
 
 
 def profile_id_for(path: str | os.PathLike) -> str:

@@ -28,6 +28,39 @@ SHARP_NAMES = ("C", "C#", "D", "D#", "E", "F", "F#", "G", "G#", "A", "A#", "B")
 KEY_NAMES = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
 
 
+#: the largest prime a ratio may contain: factoring is trial division, and a ratio with a prime
+#: factor of 20 digits would take hours (just intonation uses primes up to 31 or so)
+MAX_PRIME = 9973
+
+
+def _primes_to(n: int) -> list[int]:
+    sieve = bytearray([1]) * (n + 1)
+    sieve[0:2] = b"\0\0"
+    for i in range(2, int(n ** 0.5) + 1):
+        if sieve[i]:
+            sieve[i * i::i] = bytearray(len(sieve[i * i::i]))
+    return [i for i in range(n + 1) if sieve[i]]
+
+
+_SMALL_PRIMES = _primes_to(MAX_PRIME)
+
+
+def _factorize_bounded(n: int) -> dict[int, int]:
+    """Prime factors of n, all at most MAX_PRIME (ValueError otherwise); at most a few thousand steps."""
+    out: dict[int, int] = {}
+    for p in _SMALL_PRIMES:
+        if p * p > n:
+            break
+        while n % p == 0:
+            out[p] = out.get(p, 0) + 1
+            n //= p
+    if n > 1:
+        if n > MAX_PRIME:
+            raise ValueError(f"a ratio may have no prime factor above {MAX_PRIME}")
+        out[n] = out.get(n, 0) + 1
+    return out
+
+
 def _factorize(n: int) -> dict[int, int]:
     out: dict[int, int] = {}
     d = 2
@@ -62,9 +95,9 @@ class Interval:
         if r <= 0:
             raise ValueError("a ratio must be greater than 0")
         d: dict[int, Fraction] = {}
-        for p, e in _factorize(r.numerator).items():
+        for p, e in _factorize_bounded(r.numerator).items():
             d[p] = d.get(p, Fraction(0)) + e
-        for p, e in _factorize(r.denominator).items():
+        for p, e in _factorize_bounded(r.denominator).items():
             d[p] = d.get(p, Fraction(0)) - e
         return cls(cls._norm(d))
 
@@ -264,41 +297,31 @@ class Tuning:
         return self.shifted(hz_to_cents(hz) - c)
 
 
-def build_keyboard(degrees: Sequence[Interval], period: Interval, *, root: int,
+def build_keyboard(degrees: Sequence[Interval], period: Interval, key_degrees: Sequence[Optional[int]], *,
                    reference_key: int, reference_hz: float,
-                   keymap: Optional[Sequence[Optional[int]]] = None,
-                   keymap_size: Optional[int] = None,
-                   key_range: tuple[int, int] = (0, NUM_KEYS - 1),
                    ) -> tuple[list[Optional[float]], list[Optional[tuple[int, int]]]]:
     """Lay a scale out on the 128 keys.
 
-    ``degrees`` is one period of the scale, starting with the unison. Key k plays
-    degree ``keymap[(k-root) % size]`` of period ``(k-root) // size`` (by default
-    consecutive keys play consecutive degrees). The whole keyboard is then
-    shifted so ``reference_key`` sounds at ``reference_hz``.
+    ``degrees`` is one period of the scale, starting with the unison. ``key_degrees[k]`` is the
+    degree key k plays, counted on through the periods (with n degrees, degree n is the unison
+    one period up and -1 the last degree one period down), or None for a silent key. The whole
+    keyboard is then shifted so ``reference_key`` sounds at ``reference_hz``.
     Returns (cents per key, (period number, degree) per key).
     """
     n = len(degrees)
-    size = keymap_size if keymap is not None else n
-    if keymap is None:
-        keymap = list(range(n))
     rel: list[Optional[float]] = [None] * NUM_KEYS
     where: list[Optional[tuple[int, int]]] = [None] * NUM_KEYS
     pc = period.cents
     deg_cents = [d.cents for d in degrees]
-    for k in range(NUM_KEYS):
-        if not (key_range[0] <= k <= key_range[1]):
-            continue
-        rep, idx = divmod(k - root, size)
-        d = keymap[idx]
+    for k, d in enumerate(key_degrees):
         if d is None:
             continue
-        rep2, d2 = divmod(d, n)
-        rel[k] = (rep + rep2) * pc + deg_cents[d2]
-        where[k] = (rep + rep2, d2)
+        rep, idx = divmod(d, n)
+        rel[k] = rep * pc + deg_cents[idx]
+        where[k] = (rep, idx)
     ref = rel[reference_key]
     if ref is None:
-        raise ValueError(f"the reference key {reference_key} is unmapped")
+        raise ValueError(f"the reference key {reference_key} is silent")
     shift = hz_to_cents(reference_hz) - ref
     return [None if c is None else c + shift for c in rel], where
 
