@@ -384,3 +384,34 @@ def test_installed_package_finds_its_builtin_profiles(tmp_path):
     where, ids = json.loads(r.stdout)
     assert not where.startswith(str(tmp_path))
     assert set(ids) >= BUILTIN_IDS
+
+
+def readme_profile_blocks():
+    """The YAML blocks of the README's profile section, as a user would copy them."""
+    import pathlib
+    import re
+    text = (pathlib.Path(__file__).resolve().parent.parent / "README.md").read_text()
+    start = text.index("## Profiles")
+    end = text.index("\n## ", start + 1)
+    return re.findall(r"```yaml\n(.*?)```", text[start:end], re.S)
+
+
+def test_readme_profile_examples_load_as_written():
+    blocks = readme_profile_blocks()
+    seen = set()
+    for block in blocks:
+        t = parse_profile(block, "README.md")
+        seen |= {k for k in ("equal:", "scale:", "temperament:", "layout:", "concert_pitch:")
+                 if f"\n{k}" in "\n" + block}
+        assert t.description
+    # one complete example per definition form, and the layout and concert pitch shown in use
+    assert seen == {"equal:", "scale:", "temperament:", "layout:", "concert_pitch:"}
+    werck = next(parse_profile(b, "README.md") for b in blocks if "temperament:" in b)
+    assert werck.hz(69) == pytest.approx(415.0)
+    # the example's fifths are Werckmeister III's: the same pitches as the built-in, moved to A4 = 415 Hz
+    ref = load_profile("werckmeister-3")
+    shift = werck.cents[69] - ref.cents[69]
+    assert werck.cents == pytest.approx(tuple(c + shift for c in ref.cents), abs=1e-9)
+    piano31 = next(parse_profile(b, "README.md") for b in blocks if "steps: 31" in b)
+    assert piano31.cents[20] is None and piano31.cents[109] is None
+    assert piano31.cents[61] - piano31.cents[60] == pytest.approx(1200 / 31)
