@@ -8,6 +8,7 @@ import textwrap
 from fractions import Fraction
 
 import pytest
+from hypothesis import given, settings, strategies as st
 
 from retuner.errors import RetunerError
 from retuner.profiles.profile import builtin_dir, dump_profile, list_profiles, load_profile, parse_profile
@@ -64,6 +65,7 @@ BAD = [
     ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: [pure, pure]}\n", 3, "temperament.fifths"),  # 2 fifths
     ("id: x\ndescription: d\ntemperament: {start: H, fifths: pure}\n", 3, "temperament.start"),             # bad note
     ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: 696.578}\n", 3, "temperament.fifths"),       # bare
+    ("id: x\ndescription: d\ntemperament: {start: Eb, fifths: -1/0 syntonic}\n", 3, "temperament.fifths"),
     ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {within: 0 to 128}\n", 4, "layout.within"),     # key > 127
     ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {300: 0}}\n", 4, "layout.runs.300"),    # key > 127
     ("id: x\ndescription: d\nequal: {steps: 12}\nlayout: {runs: {C4 to B4: 0 to 12}}\n", 4,
@@ -415,3 +417,33 @@ def test_readme_profile_examples_load_as_written():
     piano31 = next(parse_profile(b, "README.md") for b in blocks if "steps: 31" in b)
     assert piano31.cents[20] is None and piano31.cents[109] is None
     assert piano31.cents[61] - piano31.cents[60] == pytest.approx(1200 / 31)
+
+
+TOKENS = ["0", "-1", "700", "3/2", "0/0", "-3/2", "1/0", "2/1", "386.314 cents", "-100 cents", "1e999 cents",
+          "pure", "-1/4 syntonic", "-1/0 schisma", "C4", "G9", "H2", "60 to 61", "61 to 60", "0 to 1000",
+          "A4 = 440 Hz", "key 200 = 1 Hz", "A4 = 1e9 Hz", "~", "[]", "{}", "[1/1]", "[1/1, 3/2]", "'x'", "true",
+          "{60: 0}", "{C4 to B4: 0 to 11}", "{60: 0, 61: 1}", "[0, 1]", "9999999999999999999999/3"]
+FIELDS = ["equal: {{steps: {0}, period: {1}}}", "scale: {{degrees: {2}, period: {1}}}",
+          "temperament: {{start: {3}, fifths: {1}}}", "layout: {{runs: {4}, repeat: {0}, within: {1}}}",
+          "concert_pitch: {1}", "names: {2}"]
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from(FIELDS), st.lists(st.sampled_from(TOKENS), min_size=5, max_size=5)),
+                min_size=1, max_size=4))
+def test_any_profile_loads_or_gives_one_line(parts):
+    """Whatever the values, a profile loads or is refused with one RetunerError line: never a traceback."""
+    seen = set()
+    lines = ["id: x", "description: d"]
+    for field, toks in parts:
+        name = field.split(":")[0]
+        if name in seen:
+            continue
+        seen.add(name)
+        lines.append(field.format(*toks))
+    try:
+        t = parse_profile("\n".join(lines) + "\n", "p.yaml")
+    except RetunerError as exc:
+        assert "\n" not in str(exc) and str(exc).startswith("p.yaml")
+    else:
+        assert len(t.cents) == 128

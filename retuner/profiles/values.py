@@ -102,7 +102,10 @@ def fifth(value: Any, where: Where, field: str, container: Any, key: Any) -> Int
             comma = m.group(2)
             if comma not in COMMAS:
                 raise where.err(f"unknown comma {comma!r} (known: {', '.join(COMMAS)})", field, container, key)
-            return pure * Interval.ratio(COMMAS[comma]) ** Fraction(m.group(1))
+            part = m.group(1)
+            if part.endswith("/0"):
+                raise where.err(f"a fraction's denominator must not be 0, got {s!r}", field, container, key)
+            return pure * Interval.ratio(COMMAS[comma]) ** Fraction(part)
         if not (_RATIO.fullmatch(s) or _CENTS.fullmatch(s) or _NUMBER.fullmatch(s)):
             raise where.err("expected 'pure', a tempering like '-1/4 syntonic', or an interval like "
                             f"696.578 cents; got {value!r}", field, container, key)
