@@ -2,12 +2,16 @@
 
 import json
 import math
+import os
+import pathlib
+import re
 import subprocess
 import sys
 import textwrap
 from fractions import Fraction
 
 import pytest
+import yaml
 from hypothesis import given, settings, strategies as st
 
 from retuner.errors import RetunerError
@@ -229,7 +233,6 @@ def old_form_pitches(text):
     """What the first form meant, worked out here from its rules: key k plays degree
     keymap[(k - root) % size] of period (k - root) // size; keys outside [lo, hi] are silent;
     the reference key sounds at the reference Hz."""
-    import yaml
     doc = yaml.safe_load(text)
     form = doc.get("equal") or doc.get("scale")
     if "steps" in form:
@@ -266,6 +269,8 @@ def test_old_form_gets_one_line_that_writes_the_new_form(old, line, field):
     assert "\n" not in msg
     # the line's advice, followed to the letter, plays what the old profile meant
     advice = msg.split("write instead: ", 1)[1].split(" and ")
+    if "scale:" in old:
+        assert advice.pop() == "scale.degrees beginning with the root, 1/1"
     kept = [ln for ln in old.splitlines() if ln.split(":")[0] not in ("root", "keymap", "keys", "reference")]
     kept = [ln.replace("degrees: [", "degrees: [1/1, ") for ln in kept]
     new = parse_profile("id: x\ndescription: d\n" + "\n".join(kept + advice) + "\n", "new.yaml")
@@ -376,7 +381,6 @@ def test_builtin_dir_has_all_files():
 def test_installed_package_finds_its_builtin_profiles(tmp_path):
     """Run from a folder outside the source tree, so the installed package is imported (as a
     user's `pip install .` runs it): the built-in profiles ship with it."""
-    import os
     env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
     env["XDG_CONFIG_HOME"] = str(tmp_path / "cfg")
     code = ("import json, retuner, retuner.profiles.profile as p; "
@@ -390,8 +394,6 @@ def test_installed_package_finds_its_builtin_profiles(tmp_path):
 
 def readme_profile_blocks():
     """The YAML blocks of the README's profile section, as a user would copy them."""
-    import pathlib
-    import re
     text = (pathlib.Path(__file__).resolve().parent.parent / "README.md").read_text()
     start = text.index("## Profiles")
     end = text.index("\n## ", start + 1)

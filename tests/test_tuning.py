@@ -10,7 +10,8 @@ from fractions import Fraction
 import pretty_midi
 import pytest
 
-from retuner.profiles.profile import load_profile
+from retuner.pitch.intervals import JUST_INTERVALS, USUAL, candidates
+from retuner.profiles.profile import builtin_dir, load_profile
 from retuner.pitch.tuning import (PYTHAGOREAN_COMMA, SCHISMA, SYNTONIC_COMMA, Interval, Tuning, beat_rate,
                             cents_to_hz, hz_to_cents, ratio_to_cents)
 
@@ -178,7 +179,6 @@ HANDBOOK_JUST = {
 
 
 def test_just_interval_table_against_handbook_values():
-    from retuner.pitch.intervals import JUST_INTERVALS, USUAL, candidates
     by_name = {j.name: j for j in JUST_INTERVALS}
     for name, (ratio, cents) in HANDBOOK_JUST.items():
         assert c(ratio) == pytest.approx(cents, abs=0.0005), name
@@ -227,7 +227,6 @@ def expected_keys(pid):
 
 
 def builtin_ids():
-    from retuner.profiles.profile import builtin_dir
     return sorted(p.stem for p in builtin_dir().glob("*.yaml"))
 
 

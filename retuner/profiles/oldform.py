@@ -101,7 +101,10 @@ def check_old_form(doc: Mapping, where: Where) -> None:
                                        "repeat: KEYS, within: KEY to KEY}")
     if "reference" in present:
         new.append(_new_pitch(doc) or "concert_pitch: A4 = 440 Hz")
+    if isinstance(doc.get("scale"), Mapping) and isinstance(doc["scale"].get("degrees"), Sequence) \
+            and doc["scale"]["degrees"] and str(doc["scale"]["degrees"][0]).strip() not in ("1/1", "0 cents"):
+        new.append("scale.degrees beginning with the root, 1/1")
     others = [f for f in present if f != first]
-    also = f" (as are {', '.join(others)})" if others else ""
+    also = f", and so {'is' if len(others) == 1 else 'are'} {', '.join(others)}" if others else ""
     raise where.err(f"this is retuner's first profile form{also}; write instead: {' and '.join(new)}",
                     first, doc, first)
