@@ -317,6 +317,12 @@ def test_dump_profile_reads_back_the_same_pitches():
                             names=[d.name for d in t.degrees])
         back = parse_profile(text, "dumped.yaml")
         assert back.cents == pytest.approx(t.cents, abs=1e-5)
+    for pid, kw in (("edo19", {"equal": (19, Fraction(2))}),
+                    ("meantone-quarter", {"temperament": ("Eb", "-1/4 syntonic")}),
+                    ("kirnberger-3", {"temperament": ("Eb", ["pure"] * 3 + ["-1/4 syntonic"] * 4
+                                                      + ["pure", "pure", "-1 schisma", "pure"])})):
+        back = parse_profile(dump_profile(id=pid, description="d", **kw), "dumped.yaml")
+        assert back.cents == pytest.approx(load_profile(pid).cents, abs=1e-9)
     text = dump_profile(id="k", description="d", scale=[0.0, 386.3137], period=Fraction(2),
                         runs=[(60, 60, 0), (64, 64, 1)], repeat=12, within=(21, 108),
                         concert_pitch=(60, 261.6))
