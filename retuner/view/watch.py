@@ -235,6 +235,7 @@ class Feed:
         self.retry = retry
         self.lock = threading.Condition()
         self.version = 0
+        self.attached = 0              # subscriptions made so far (0: still waiting for a daemon)
         self.state = WatchState(connected=False)
         self._client: Optional[ControlClient] = None
         self._closed = threading.Event()
@@ -259,6 +260,7 @@ class Feed:
         with self.lock:
             self._client = client
             self.state = state
+            self.attached += 1
             self.version += 1
             self.lock.notify_all()
 
