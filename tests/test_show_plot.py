@@ -124,7 +124,11 @@ def test_handbook_values_show_in_the_picture():
     assert [round(t, 3) for t in edo_thirds] == [13.686] * 12
     # C4-E4 in 12-EDO: |4 * 329.628 - 5 * 261.626| = 10.38 beats a second
     assert edo_beats[0] == pytest.approx(10.38, abs=0.006)
-    # two columns side by side, black and white: every bar outlined in black, no fill colour
+    # side by side on one scale per row, so the columns compare at a glance
+    ylim = {a.get_gid(): a.get_ylim() for a in fig.axes}
+    for row in ("degrees", "fifths", "thirds"):
+        assert ylim[f"{row}:meantone-quarter"] == ylim[f"{row}:edo12"]
+    # black and white: every bar outlined in black, no fill colour
     for ax in fig.axes:
         for p in ax.patches:
             assert p.get_facecolor()[:3] == (1.0, 1.0, 1.0) and p.get_edgecolor()[:3] == (0.0, 0.0, 0.0)

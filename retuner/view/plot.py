@@ -1,6 +1,7 @@
 """A picture of a tuning, for a class: ``retuner show ID --plot FILE.png`` and ``compare --plot``.
 
-One column per tuning (two or more side by side when asked), up to three panels in it:
+One column per tuning (two or more side by side when asked, each row on one scale so the
+columns compare at a glance), up to three panels in it:
 
 1. **Degrees**: how far each degree's key sounds from its 12-EDO pitch (reference pitch
    applied), one bar per degree. For a tuning that is not a 12-note octave tuning each
@@ -111,7 +112,12 @@ def _signed(y: float) -> str:
     return "0.0" if abs(y) < 0.05 else f"{y:+.1f}"
 
 
-def _bars(ax, bars: list[Bar], edo_line: Optional[float], edo_label: str) -> None:
+def _span(bar_lists: list[list[Bar]], edo_line: Optional[float]) -> float:
+    """Half the height a row of panels needs: the same scale for every tuning side by side."""
+    return max([abs(b.cents) for bars in bar_lists for b in bars] + [abs(edo_line or 0.0), 5.0])
+
+
+def _bars(ax, bars: list[Bar], edo_line: Optional[float], edo_label: str, span: float) -> None:
     xs = range(len(bars))
     ys = [b.cents for b in bars]
     hatches = ["///" if y > PURE else "..." if y < -PURE else "" for y in ys]
@@ -129,7 +135,6 @@ def _bars(ax, bars: list[Bar], edo_line: Optional[float], edo_label: str) -> Non
         ax.annotate(edo_label, xy=(1.0, edo_line), xycoords=("axes fraction", "data"),
                     xytext=(-2, 2), textcoords="offset points", ha="right", va="bottom", fontsize=7,
                     bbox=dict(facecolor="white", edgecolor="none", pad=0.5), zorder=6)
-    span = max([abs(y) for y in ys] + [abs(edo_line or 0.0), 5.0])
     # room above the bars for their numbers and the row of beat rates
     lo, hi = -1.3 * span, (1.8 if any(b.beats is not None for b in bars) else 1.3) * span
     ax.set_ylim(lo, hi)
@@ -158,7 +163,7 @@ def draw(pics: list[Picture]):
     for c, p in enumerate(pics):
         ax = grid[0][c]
         ax.set_gid(f"degrees:{p.id}")
-        _bars(ax, p.degrees, None, "")
+        _bars(ax, p.degrees, None, "", _span([q.degrees for q in pics], None))
         title = "\n".join(textwrap.wrap(f"{p.id}: {p.description}", 70)[:2])
         ax.set_title(f"{title}\n\ndegrees: cents from 12-EDO ({p.degrees_note})", fontsize=9)
         ax.set_ylabel("cents from 12-EDO", fontsize=8)
@@ -174,7 +179,7 @@ def draw(pics: list[Picture]):
                         transform=ax.transAxes, ha="center", va="center", fontsize=9)
                 continue
             word = "fifths" if name == "fifths" else "major thirds"
-            _bars(ax, bars, edo, f"12-EDO {edo:+.2f}")
+            _bars(ax, bars, edo, f"12-EDO {edo:+.2f}", _span([getattr(q, name) for q in pics], edo))
             ax.set_title(f"{word} around the circle of fifths: cents from pure {just}\n"
                          f"top row: beats a second, lower note in octave {p.octave}", fontsize=9)
             ax.set_ylabel(f"cents from {just}", fontsize=8)
@@ -184,9 +189,15 @@ def draw(pics: list[Picture]):
 
 
 def save(fig, path: str) -> None:
-    """Write the figure as PNG, all or nothing."""
+    """Write the figure as an 8-bit grey PNG (it has no colour to lose), all or nothing."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg   # lazy: optional extra
+    from PIL import Image                                          # comes with matplotlib
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
+    Image.frombuffer("RGBA", canvas.get_width_height(), canvas.buffer_rgba()).convert("L").save(
+        buf, format="PNG", optimize=True)
     write_atomic(path, buf.getvalue())
 
 
