@@ -260,3 +260,25 @@ def test_a_view_open_to_the_network_says_so(tmp_path):
         proc.wait(10)
     err = proc.stderr.read().strip().splitlines()
     assert len(err) == 1 and "warning" in err[0] and "0.0.0.0" in err[0] and "read-only" in err[0]
+
+
+def test_the_page_frame_from_the_view_state():
+    from retuner.view.watch import WatchState
+    from retuner.view.web import frame
+    s = WatchState()
+    s.snapshot({"tuning": "edo12", "base": "edo12", "reference": None, "transpose": 0, "transpose_cents": 0.0,
+                "adaptive": True, "stats": {"notes": 2},
+                "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
+    f = frame(s)
+    assert f["daemon"] == "live" and f["adaptive"] is True and f["tuning"] == "edo12"
+    assert [(n["name"], round(n["cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
+    [iv] = f["intervals"]
+    # a pure fifth (701.955 c = 3/2) does not beat
+    assert (iv["pair"], iv["name"], iv["ratio"]) == ("C4-G4", "P5", "3/2")
+    assert abs(iv["deviation"]) < 1e-3 and abs(iv["beats"]) < 1e-3
+    assert abs(f["drift"] - 1.955 / 2) < 1e-9
+    # the daemon gone: it released every note, nothing is shown as sounding
+    s.connected = False
+    f = frame(s)
+    assert f["daemon"] == "stopped" and f["notes"] == [] and f["intervals"] == [] and f["drift"] is None
+    assert frame(WatchState(connected=False), waiting=True)["daemon"] == "waiting"
