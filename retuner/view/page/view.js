@@ -33,7 +33,7 @@ function drawHeader(f) {
   const daemon = f.daemon;
   if (body.dataset.daemon !== daemon) body.dataset.daemon = daemon;
   setText($("status"), {live: "LIVE", stopped: "DAEMON STOPPED", waiting: "WAITING FOR THE DAEMON"}[daemon]);
-  setText($("tuning-name"), f.tuning || "?");
+  setText($("tuning-name"), (f.tuning || "?") + (f.base && f.base !== f.tuning ? " (from " + f.base + ")" : ""));
   setText($("adaptive-value"), f.adaptive ? "ON" : "OFF");
   setText($("drift-value"), f.drift === null ? "--" : signed(f.drift, 1) + " c");
   let ref = f.reference ? "A4 = " + f.reference + " Hz" : "A4 as profile";
@@ -144,6 +144,7 @@ function drawIntervals(f) {
     dot.classList.toggle("pure", r.beats < PURE);
     dot.classList.toggle("fast", r.beats > FAST);
     state.beats.set(id, r.beats);
+    dot.dataset.hz = r.beats.toFixed(2);
     if (body.children[i] !== tr) body.insertBefore(tr, body.children[i] || null);
   });
   for (const [id, tr] of state.rows) {
