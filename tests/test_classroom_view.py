@@ -169,6 +169,14 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
             assert code == 200 and b"://" not in body and len(body) < 20000, name
         assert fetch(url + "state", "POST")[0] in (405, 501)
         assert fetch(url + "nothing-here")[0] == 404
+        # only loopback names are answered on a loopback address (a rebound name is refused)
+        req = urllib.request.Request(url + "state", headers={"Host": "rebound.example:80"})
+        try:
+            urllib.request.urlopen(req, timeout=10)
+            refused = None
+        except urllib.error.HTTPError as exc:
+            refused = exc.code
+        assert refused == 403
 
         browser = Browser(str(tmp_path / "chromium"), 1280, 720)
         browser.open(url)
@@ -210,7 +218,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
             fit = browser.evaluate(FITS)
             assert fit["scroll"] and fit["inside"], (w, h, fit)
             assert fit["name_px"] >= 0.08 * h and fit["row_px"] >= 0.04 * h, (w, h, fit)
-        browser.screenshot(str(tmp_path / "classroom-view-four-notes.png"))
+            browser.screenshot(str(tmp_path / f"classroom-view-four-notes-{w}x{h}.png"))
 
         # a panic shows on the page until a note plays again
         r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "panic"],

@@ -174,3 +174,11 @@ def test_compare_plot_draws_every_tuning(tmp_path):
     one = tmp_path / "one.png"
     assert cli.main(["show", "edo12", "--plot", str(one)]) == 0
     assert png_size(out) == (2 * png_size(one)[0], png_size(one)[1])
+
+
+def test_plot_into_a_missing_folder_is_one_line(tmp_path, capsys):
+    out = tmp_path / "no-such-folder" / "x.png"
+    assert cli.main(["show", "edo12", "--plot", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and str(out) in err[0]
+    assert not out.parent.exists()

@@ -21,7 +21,9 @@ return channel the page must not have (it is read-only: no control commands). No
 dependency is needed.
 
 The server answers GET and HEAD only; it binds to 127.0.0.1 unless told otherwise (the
-command prints a warning line when it is told otherwise). Nothing from the page reaches the
+command prints a warning line when it is told otherwise), and there it answers only requests
+addressed to a loopback name, so a web page elsewhere cannot read it by pointing a name at
+127.0.0.1. Nothing from the page reaches the
 daemon: the feed's only request on the control socket is ``subscribe``.
 
 The page draws each frame into elements it keeps (text changes, no rebuilding), so nothing
@@ -106,7 +108,10 @@ class _Handler(BaseHTTPRequestHandler):
 
     def do_GET(self, head: bool = False) -> None:
         path = self.path.split("?", 1)[0]
-        if path in PAGE_FILES:
+        if not self.server.host_allowed(self.headers.get("Host", "")):
+            # a page elsewhere on the web cannot read this one through a name it points at us
+            self._send(403, b"forbidden\n", "text/plain; charset=utf-8", head)
+        elif path in PAGE_FILES:
             name, ctype = PAGE_FILES[path]
             self._send(200, page_file(name), ctype, head)
         elif path == "/state":
@@ -157,6 +162,13 @@ class ClassroomServer(ThreadingHTTPServer):
             self.address_family = socket.AF_INET6
         super().__init__((address, port), _Handler)
         self.thread: Optional[threading.Thread] = None
+
+    def host_allowed(self, host: str) -> bool:
+        """On a loopback address only loopback names are answered (against DNS rebinding)."""
+        if self.server_address[0] not in LOOPBACK:
+            return True
+        name = host.rsplit(":", 1)[0] if not host.endswith("]") else host
+        return name.strip("[]") in LOOPBACK
 
     def frame(self) -> dict:
         with self.feed.lock:
