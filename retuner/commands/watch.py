@@ -71,7 +71,7 @@ def _serve_web(args) -> int:
     from retuner.view import watch, web
     if not 0 <= args.web <= 65535:
         raise RetunerError(f"must be a port number from 0 to 65535, got {args.web}", field="--web")
-    feed = watch.Feed(args.socket, reconnect=True)
+    feed = watch.Feed(args.socket, reconnect=True).start()
     try:
         server = web.ClassroomServer(feed, args.web_address, args.web)
     except OSError as exc:

@@ -226,8 +226,9 @@ class Feed:
     Without ``reconnect`` the first subscription is made here (raising :class:`NoDaemon` or
     RuntimeError when it cannot be) and the feed ends when the daemon goes away. With
     ``reconnect`` it starts disconnected and subscribes again every ``retry`` seconds until a
-    daemon answers, and again after each time the daemon stops. ``lock`` is a Condition:
-    ``version`` grows and waiters are woken at every change.
+    daemon answers, and again after each time the daemon stops. Nothing is read until
+    :meth:`start`, so a view can show the subscription's snapshot first. ``lock`` is a
+    Condition: ``version`` grows and waiters are woken at every change.
     """
 
     def __init__(self, socket_path=None, *, reconnect: bool = False, retry: float = 0.5):
@@ -239,10 +240,17 @@ class Feed:
         self.state = WatchState(connected=False)
         self._client: Optional[ControlClient] = None
         self._closed = threading.Event()
+        self._started = False
         if not reconnect:
             self._attach()
         self.thread = threading.Thread(target=self._run, args=(reconnect,), name="retuner-watch", daemon=True)
-        self.thread.start()
+
+    def start(self) -> "Feed":
+        """Start following the events (until then the state is the subscription's snapshot)."""
+        if not self._started and not self._closed.is_set():
+            self._started = True
+            self.thread.start()
+        return self
 
     def _attach(self) -> None:
         client = ControlClient(self.path, timeout=5.0)
@@ -305,11 +313,13 @@ class Feed:
                 client.sock.shutdown(socket.SHUT_RDWR)     # wakes the reading thread
             except OSError:
                 pass
-        self.thread.join(2.0)
+        if self.thread.is_alive():
+            self.thread.join(2.0)
 
 
 def run_curses(feed: Feed, fps: float = 25.0, big: bool = True) -> None:
     import curses
+    feed.start()
 
     def main(scr) -> None:
         curses.curs_set(0)
@@ -360,6 +370,7 @@ def run_plain(feed: Feed, fps: float = 20.0, frames: int = 0, out=None) -> None:
                 shown += 1
                 if frames and shown >= frames:
                     return
+        feed.start()                       # after the first frame, which is the subscription's snapshot
         if not connected:
             return
         time.sleep(1.0 / fps)
