@@ -230,6 +230,11 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
         browser.wait_for('document.querySelector(\'#notes .note[data-key="65"]\')'
                          ' && document.getElementById("banner").hidden')
         release(jack_client, [60, 64, 67, 72, 65])
+        # adaptive mode switched on from the command line shows on the page
+        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "adaptive", "on"],
+                           capture_output=True, text=True, timeout=30, env=live.env)
+        assert r.returncode == 0, r.stderr
+        browser.wait_for('document.getElementById("adaptive-value").textContent === "ON"')
 
         # the daemon stops: the page says so; it starts again: the page follows it
         live.stop()
