@@ -251,6 +251,11 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
         assert [(n["name"], n["cents"]) for n in page["notes"]] == [("D4", "+0.00 c")] and page["banner"] == ""
         release(jack_client, [62])
         assert view.poll() is None, view.stderr.read()
+        # the view server itself stops: the page says that it no longer hears from it
+        view.terminate()
+        view.wait(10)
+        browser.wait_for('document.body.dataset.daemon === "unknown"'
+                         ' && document.getElementById("status").textContent === "VIEW SERVER NOT ANSWERING"')
     finally:
         if browser is not None:
             browser.close()
