@@ -294,14 +294,14 @@ def test_the_page_frame_from_the_view_state():
                 "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
     f = frame(s)
     assert f["daemon"] == "live" and f["adaptive"] is True and f["tuning"] == "edo12"
-    assert [(n["name"], round(n["cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
+    assert [(n["name"], round(n["offset_cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
     [iv] = f["intervals"]
     # a pure fifth (701.955 c = 3/2) does not beat
     assert (iv["pair"], iv["name"], iv["ratio"]) == ("C4-G4", "P5", "3/2")
-    assert abs(iv["deviation"]) < 1e-3 and abs(iv["beats"]) < 1e-3
-    assert abs(f["drift"] - 1.955 / 2) < 1e-9
+    assert abs(iv["deviation_cents"]) < 1e-3 and abs(iv["beat_rate_hz"]) < 1e-3
+    assert abs(f["drift_cents"] - 1.955 / 2) < 1e-9
     # the daemon gone: it released every note, nothing is shown as sounding
     s.connected = False
     f = frame(s)
-    assert f["daemon"] == "stopped" and f["notes"] == [] and f["intervals"] == [] and f["drift"] is None
+    assert f["daemon"] == "stopped" and f["notes"] == [] and f["intervals"] == [] and f["drift_cents"] is None
     assert frame(WatchState(connected=False), waiting=True)["daemon"] == "waiting"

@@ -55,8 +55,9 @@ LOOPBACK = ("127.0.0.1", "::1", "localhost")
 
 
 def frame(state: WatchState, waiting: bool = False) -> dict:
-    """What the page shows, from the view's state (plain JSON types); ``waiting``: no daemon
-    has answered yet (as against one that stopped)."""
+    """What the page shows, from the view's state (plain JSON types, units in the field names:
+    a note's ``offset_cents`` is from its 12-EDO pitch); ``waiting``: no daemon has answered
+    yet (as against one that stopped)."""
     notes = sorted(state.notes.values(), key=lambda n: (n.get("cents") or 0.0, n["key"]))
     # a daemon that stops releases every note: nothing sounds while it is away
     sounding = [n for n in notes if n.get("cents") is not None] if state.connected else []
@@ -71,12 +72,13 @@ def frame(state: WatchState, waiting: bool = False) -> dict:
         "transpose": info.get("transpose") or 0,
         "transpose_cents": info.get("transpose_cents") or 0.0,
         "adaptive": bool(info.get("adaptive")),
-        "drift": drift(sounding),
-        "notes": [{"key": n["key"], "name": note_name(n["key"]), "cents": n["cents"] - 100.0 * n["key"],
+        "drift_cents": drift(sounding),
+        "notes": [{"key": n["key"], "name": note_name(n["key"]),
+                   "offset_cents": n["cents"] - 100.0 * n["key"],
                    "hz": n.get("hz")} for n in sounding],
         "intervals": [{"low": r.low, "high": r.high, "pair": f"{note_name(r.low)}-{note_name(r.high)}",
                        "name": r.name, "ratio": f"{r.ratio.numerator}/{r.ratio.denominator}",
-                       "size": r.size, "deviation": r.deviation, "beats": r.beats,
+                       "size_cents": r.size, "deviation_cents": r.deviation, "beat_rate_hz": r.beats,
                        "consonant": r.consonant} for r in interval_rows(sounding)],
         "counters": {k: state.counters.get(k, 0) for k in ("notes", "steals", "ringing_retunes")},
     }

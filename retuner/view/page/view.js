@@ -35,7 +35,7 @@ function drawHeader(f) {
   setText($("status"), {live: "LIVE", stopped: "DAEMON STOPPED", waiting: "WAITING FOR THE DAEMON"}[daemon]);
   setText($("tuning-name"), (f.tuning || "?") + (f.base && f.base !== f.tuning ? " (from " + f.base + ")" : ""));
   setText($("adaptive-value"), f.adaptive ? "ON" : "OFF");
-  setText($("drift-value"), f.drift === null ? "--" : signed(f.drift, 1) + " c");
+  setText($("drift-value"), f.drift_cents === null ? "--" : signed(f.drift_cents, 1) + " c");
   let ref = f.reference ? "A4 = " + f.reference + " Hz" : "A4 as profile";
   if (f.transpose || f.transpose_cents) ref += "   transpose " + signed(f.transpose, 0) + " st " + signed(f.transpose_cents, 1) + " c";
   setText($("reference-value"), ref);
@@ -62,7 +62,7 @@ function drawNotes(f) {
       state.cards.set(n.key, card);
     }
     setText(card.children[0], n.name);
-    setText(card.children[1], signed(n.cents, 2) + " c");
+    setText(card.children[1], signed(n.offset_cents, 2) + " c");
     setText(card.children[2], n.hz ? n.hz.toFixed(2) + " Hz" : "");
     if (box.children[i] !== card) box.insertBefore(card, box.children[i] || null);
   });
@@ -138,13 +138,13 @@ function drawIntervals(f) {
     setText(c[1], r.pair);
     setText(c[2], r.name);
     setText(c[3], r.ratio);
-    setText(c[4], signed(r.deviation, 2) + " c");
-    setText(c[5], r.beats.toFixed(2) + " Hz");
+    setText(c[4], signed(r.deviation_cents, 2) + " c");
+    setText(c[5], r.beat_rate_hz.toFixed(2) + " Hz");
     const dot = c[0].firstChild;
-    dot.classList.toggle("pure", r.beats < PURE);
-    dot.classList.toggle("fast", r.beats > FAST);
-    state.beats.set(id, r.beats);
-    dot.dataset.hz = r.beats.toFixed(2);
+    dot.classList.toggle("pure", r.beat_rate_hz < PURE);
+    dot.classList.toggle("fast", r.beat_rate_hz > FAST);
+    state.beats.set(id, r.beat_rate_hz);
+    dot.dataset.hz = r.beat_rate_hz.toFixed(2);
     if (body.children[i] !== tr) body.insertBefore(tr, body.children[i] || null);
   });
   for (const [id, tr] of state.rows) {
