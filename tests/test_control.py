@@ -578,6 +578,10 @@ def test_watch_plain_prints_a_frame_when_the_view_changes(rig):
     import sys
     rig.play(60, 64)
     rig.wait_notes([60, 64])
+    end = time.monotonic() + 10
+    while rig.server.subscribers:                  # wait_notes' own subscriptions have ended
+        assert time.monotonic() < end
+        time.sleep(0.01)
     p = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--socket", rig.path, "--plain",
                           "--frames", "2"], stdout=subprocess.PIPE, text=True)
     try:

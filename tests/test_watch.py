@@ -125,3 +125,24 @@ def test_compound_interval_names():
     from retuner.view.watch import compound_name
     assert [compound_name(n, 1) for n in ("P1", "M3", "m3", "P5", "M6")] == ["P8", "M10", "m10", "P12", "M13"]
     assert compound_name("P5", 0) == "P5" and compound_name("P5", 2) == "P5+2oct"
+
+
+def test_connection_and_panic_survive_an_80x24_terminal():
+    # a chord of 12 notes makes far more than 24 lines; the state must still be on screen
+    s = state_with({k: 100.0 * k for k in range(60, 72)})
+    lines = render(s, width=80, height=24)
+    assert len(lines) == 24 and all(len(l) <= 80 for l in lines)
+    assert lines[0].startswith("LIVE") and "DISCONNECTED" not in " ".join(lines)
+    s.connected = False
+    lines = render(s, width=80, height=24)
+    assert lines[0].startswith("** DISCONNECTED")
+    s.connected = True
+    s.apply({"event": "panic"})
+    lines = render(s, width=80, height=24)
+    assert "PANIC" in lines[0]
+    # counters and note-offs do not end the panic banner; a new note does
+    s.apply({"event": "counters", "notes": 3})
+    s.apply({"event": "note_off", "key": 60, "channel": 1})
+    assert "PANIC" in render(s, width=80, height=24)[0]
+    s.apply({"event": "note_on", "key": 62, "channel": 5, "cents": 6200.0, "hz": None})
+    assert "PANIC" not in " ".join(render(s, width=80, height=24))

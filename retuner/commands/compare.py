@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir, print_json
+from retuner.view import plot
 
 NAME = "compare"
 HELP = "compare tunings on a MIDI file: impurity, motion, drift and beat rates of its main intervals"
@@ -26,6 +27,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("--passthrough", default="10", metavar="LIST",
                         help="input channels left out, e.g. percussion (default 10; 'none')")
     parser.add_argument("--json", action="store_true", help="print JSON")
+    parser.add_argument("--plot", metavar="FILE.png", help="also draw the tunings side by side (degrees, fifths, "
+                        "major thirds, beat rates from middle C; needs matplotlib: pip install 'retuner[plot]')")
     add_profiles_dir(parser)
 
 
@@ -56,6 +59,8 @@ def run(args) -> int:
         from retuner.adaptive.solver import AdaptiveConfig
         acfg = AdaptiveConfig()
     c = report.compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)
+    if args.plot:
+        plot.plot_tunings(tunings, args.plot)
     if args.json:
         print_json(c)
     else:

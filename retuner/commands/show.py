@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 from retuner.profiles.profile import load_profile
+from retuner.view import plot
 from retuner.view.showtable import degree_rows, format_ratio, interval_rows
 from retuner.pitch.tuning import NUM_KEYS, ratio_to_cents, rounded
 from retuner.commands._common import add_profiles_dir, print_json
+from retuner.errors import RetunerError
 
 NAME = "show"
 HELP = "print a tuning: its degrees, and the size and beat rate of every third and fifth"
@@ -21,11 +23,26 @@ def add_arguments(parser):
     parser.add_argument("--octave", type=int, default=4, choices=range(0, 9), metavar="N",
                         help="octave (scientific pitch notation, C4 = middle C) for Hz and beat rates; default 4")
     parser.add_argument("--json", action="store_true", help="print every key's Hz and cents as JSON")
+    parser.add_argument("--plot", metavar="FILE.png",
+                        help="draw a picture instead of the table: each degree against 12-EDO and, for "
+                             "12-note tunings, the fifths and major thirds around the circle of fifths with "
+                             "their beat rates in --octave (needs matplotlib: pip install 'retuner[plot]')")
+    parser.add_argument("--beside", metavar="ID",
+                        help="with --plot: draw this second tuning beside the first, for comparison")
     add_profiles_dir(parser)
 
 
 def run(args) -> int:
+    if args.beside and not args.plot:
+        raise RetunerError("only works with --plot", field="--beside")
+    if args.plot:
+        plot.require_matplotlib()
     t = load_profile(args.id, args.profiles_dir)
+    if args.plot:
+        tunings = [t] + ([load_profile(args.beside, args.profiles_dir)] if args.beside else [])
+        plot.plot_tunings(tunings, args.plot, args.octave)
+        print(f"wrote {args.plot}")
+        return 0
     if args.json:
         print_json({
             "id": t.id,

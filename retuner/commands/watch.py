@@ -10,7 +10,8 @@ ORDER = 45
 DESCRIPTION = ("Show what the running daemon plays, refreshed 25 times a second: every sounding note "
                "(name, key, cents from 12-EDO, Hz), every interval (size, deviation from just, beat "
                "rate), drift, the loaded tuning and counters. Press q to quit. Exit status 1 when no "
-               "daemon is running.")
+               "daemon is running. With --web PORT the same is served as a web page for a projector "
+               "(the classroom view), which waits for the daemon and follows it when it restarts.")
 
 
 def add_arguments(parser) -> None:
@@ -22,6 +23,12 @@ def add_arguments(parser) -> None:
     parser.add_argument("--small", action="store_true",
                         help="no block letters for the sounding notes (they are shown when they fit)")
     parser.add_argument("--fps", type=float, default=25.0, help="frames a second (default 25)")
+    parser.add_argument("--web", type=int, metavar="PORT",
+                        help="instead of the terminal view, serve the classroom view as a web page for a "
+                             "projector on PORT (0: any free port; the address is printed); read-only, and "
+                             "it follows the daemon when it stops and starts again")
+    parser.add_argument("--web-address", default="127.0.0.1", metavar="ADDRESS",
+                        help="with --web: the address to listen on (default 127.0.0.1, this computer only)")
 
 
 def run(args) -> int:
@@ -29,7 +36,9 @@ def run(args) -> int:
     from retuner.errors import RetunerError
     from retuner.view import watch
     if not 1.0 <= args.fps <= 120.0:
-        raise RetunerError("--fps must be from 1 to 120", field="fps")
+        raise RetunerError("must be from 1 to 120", field="--fps")
+    if args.web is not None:
+        return _serve_web(args)
     try:
         feed = watch.Feed(args.socket)
     except NoDaemon as exc:
@@ -55,3 +64,30 @@ def run(args) -> int:
         return 0
     finally:
         feed.close()
+
+
+def _serve_web(args) -> int:
+    from retuner.errors import RetunerError
+    from retuner.view import watch, web
+    if not 0 <= args.web <= 65535:
+        raise RetunerError(f"must be a port number from 0 to 65535, got {args.web}", field="--web")
+    feed = watch.Feed(args.socket, reconnect=True).start()
+    try:
+        server = web.ClassroomServer(feed, args.web_address, args.web)
+    except OSError as exc:
+        feed.close()
+        raise RetunerError(f"cannot listen on {args.web_address} port {args.web}: {exc.strerror or exc}",
+                           field="--web") from None
+    if args.web_address not in web.LOOPBACK:
+        print(f"retuner: warning: the classroom view is open to the network on {args.web_address} "
+              "(read-only: anyone who reaches it sees what is played)", file=sys.stderr)
+    server.start()
+    print(f"classroom view: {server.url}  (read-only; Ctrl-C stops)", flush=True)
+    try:
+        server.thread.join()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.stop()
+        feed.close()
+    return 0

@@ -17,16 +17,24 @@ define it); the counters; every sounding note (name, key, cents from 12-EDO,
 Hz), and every pair of sounding notes: its size in cents, the nearest just
 ratio of its interval class (octaves added), the deviation from it and the
 beat rate |q*f2 - p*f1| of the nearly coinciding partials (f2/f1 near p/q).
+
+The state of the connection (LIVE or DISCONNECTED) and a panic comes first, at the start of the
+first line, so it survives the narrowest (80 columns) and shortest (24 rows) terminal; a
+panic banner stays until a note plays again. :class:`Feed` can follow the daemon across
+restarts (``reconnect=True``, as the classroom page does); the terminal view stops at the
+first disconnection and says so.
 """
 
 from __future__ import annotations
 
+import socket
 import threading
 import time
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Optional
 
+from retuner.control.control import ControlClient, NoDaemon
 from retuner.pitch.intervals import USUAL
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
 
@@ -95,7 +103,7 @@ class WatchState:
     counters: dict = field(default_factory=dict)
     connected: bool = True
     events: int = 0
-    message: str = ""
+    message: str = ""            # a banner (panic) shown until the next note plays
 
     def snapshot(self, reply: dict) -> None:
         """Start from the subscribe reply (a status plus the sounding notes)."""
@@ -109,6 +117,8 @@ class WatchState:
         kind = ev.get("event")
         k = (ev.get("channel", 0), ev.get("key"))
         if kind == "note_on" or kind == "pitch":
+            if kind == "note_on":
+                self.message = ""             # playing again: the panic is over
             n = self.notes.setdefault(k, {"key": ev["key"], "channel": ev.get("channel", 0)})
             n["cents"] = ev.get("cents")
             n["hz"] = ev.get("hz")
@@ -164,7 +174,10 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     info = state.info
     ref = info.get("reference")
     lines: list[str] = []
-    lines.append(f"TUNING  {info.get('tuning') or '?'}"
+    state_word = "LIVE" if state.connected else "** DISCONNECTED: the daemon stopped **"
+    if state.message:
+        state_word += f"  ** {state.message} **"
+    lines.append(f"{state_word}    TUNING  {info.get('tuning') or '?'}"
                  + (f"  (from {info.get('base')})" if info.get("base") and info.get("base") != info.get("tuning") else "")
                  + f"    A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
                  + f"    TRANSPOSE {info.get('transpose') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
@@ -172,10 +185,7 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     d = drift(notes)
     c = state.counters
     lines.append(f"DRIFT {_fmt_signed(d)} c    NOTES {c.get('notes', 0)}    STEALS {c.get('steals', 0)}"
-                 f"    RINGING RETUNES {c.get('ringing_retunes', 0)}    DROPPED EVENTS {c.get('events_dropped', 0)}"
-                 + ("" if state.connected else "    ** DISCONNECTED **"))
-    if state.message:
-        lines.append(state.message)
+                 f"    RINGING RETUNES {c.get('ringing_retunes', 0)}    DROPPED EVENTS {c.get('events_dropped', 0)}")
     lines.append("")
     lines.append(f"SOUNDING {len(notes)}")
     lines.append(f"{'NOTE':<6}{'KEY':>5}{'CENTS vs 12-EDO':>18}{'HZ':>12}")
@@ -207,47 +217,105 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
 # Live loop
 
 class Feed:
-    """Reads the subscription on its own thread and keeps a :class:`WatchState`."""
+    """Reads the subscription on its own thread and keeps a :class:`WatchState`.
 
-    def __init__(self, socket_path=None):
-        from retuner.control.control import ControlClient
-        self.client = ControlClient(socket_path, timeout=5.0)
-        reply = self.client.request("subscribe")
-        if not reply.get("ok"):
-            raise RuntimeError(reply.get("error") or "subscribe refused")
-        self.state = WatchState()
-        self.state.snapshot(reply)
-        self.lock = threading.Lock()
+    Without ``reconnect`` the first subscription is made here (raising :class:`NoDaemon` or
+    RuntimeError when it cannot be) and the feed ends when the daemon goes away. With
+    ``reconnect`` it starts disconnected and subscribes again every ``retry`` seconds until a
+    daemon answers, and again after each time the daemon stops. Nothing is read until
+    :meth:`start`, so a view can show the subscription's snapshot first. ``lock`` is a
+    Condition: ``version`` grows and waiters are woken at every change.
+    """
+
+    def __init__(self, socket_path=None, *, reconnect: bool = False, retry: float = 0.5):
+        self.path = socket_path
+        self.retry = retry
+        self.lock = threading.Condition()
         self.version = 0
-        self.client.sock.settimeout(None)
-        self.thread = threading.Thread(target=self._run, name="retuner-watch", daemon=True)
-        self.thread.start()
+        self.attached = 0              # subscriptions made so far (0: still waiting for a daemon)
+        self.state = WatchState(connected=False)
+        self._client: Optional[ControlClient] = None
+        self._closed = threading.Event()
+        self._started = False
+        if not reconnect:
+            self._attach()
+        self.thread = threading.Thread(target=self._run, args=(reconnect,), name="retuner-watch", daemon=True)
 
-    def _run(self) -> None:
+    def start(self) -> "Feed":
+        """Start following the events (until then the state is the subscription's snapshot)."""
+        if not self._started and not self._closed.is_set():
+            self._started = True
+            self.thread.start()
+        return self
+
+    def _attach(self) -> None:
+        client = ControlClient(self.path, timeout=5.0)
         try:
-            while True:
-                ev = self.client.read()
-                if ev is None:
-                    break
-                with self.lock:
-                    self.state.apply(ev)
-                    self.version += 1
+            reply = client.request("subscribe")
         except (OSError, ValueError):
-            pass
+            client.close()
+            raise
+        if not reply.get("ok"):
+            client.close()
+            raise RuntimeError(reply.get("error") or "subscribe refused")
+        client.sock.settimeout(None)
+        state = WatchState()
+        state.snapshot(reply)
         with self.lock:
-            self.state.connected = False
+            self._client = client
+            self.state = state
+            self.attached += 1
             self.version += 1
+            self.lock.notify_all()
+
+    def _run(self, reconnect: bool) -> None:
+        while not self._closed.is_set():
+            if self._client is None:
+                try:
+                    self._attach()
+                except (NoDaemon, OSError, ValueError, RuntimeError):
+                    self._closed.wait(self.retry)
+                    continue
+            try:
+                while True:
+                    ev = self._client.read()
+                    if ev is None:
+                        break
+                    with self.lock:
+                        self.state.apply(ev)
+                        self.version += 1
+                        self.lock.notify_all()
+            except (OSError, ValueError):
+                pass
+            self._client.close()
+            with self.lock:
+                self._client = None
+                self.state.connected = False
+                self.version += 1
+                self.lock.notify_all()
+            if not reconnect:
+                return
 
     def render(self, width: int, height: int, big: bool = False) -> list[str]:
         with self.lock:
             return render(self.state, width, height, big)
 
     def close(self) -> None:
-        self.client.close()
+        self._closed.set()
+        with self.lock:
+            client = self._client
+        if client is not None:
+            try:
+                client.sock.shutdown(socket.SHUT_RDWR)     # wakes the reading thread
+            except OSError:
+                pass
+        if self.thread.is_alive():
+            self.thread.join(2.0)
 
 
 def run_curses(feed: Feed, fps: float = 25.0, big: bool = True) -> None:
     import curses
+    feed.start()
 
     def main(scr) -> None:
         curses.curs_set(0)
@@ -298,6 +366,7 @@ def run_plain(feed: Feed, fps: float = 20.0, frames: int = 0, out=None) -> None:
                 shown += 1
                 if frames and shown >= frames:
                     return
+        feed.start()                       # after the first frame, which is the subscription's snapshot
         if not connected:
             return
         time.sleep(1.0 / fps)
