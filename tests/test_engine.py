@@ -524,7 +524,7 @@ def test_input_rpn0_sets_wheel_range_and_is_not_forwarded():
     for m in (CC(101, 0), CC(100, 0), CC(6, 12), CC(38, 0)):
         out += e.feed(0.0, m)
     assert not any(m.control in (6, 38) for m in out)
-    assert e._wheel_range == 1200.0
+    assert e.inputs.wheel_range == 1200.0
 
 
 def test_pressure_cc_program_to_every_pool_channel():
@@ -746,7 +746,7 @@ def test_human_timing_spread_chord_with_pedal_and_wheel():
           (0.500, CC(64, 0)), (0.520, CC(64, 127)), (0.800, WHEEL(-4000)), (0.900, WHEEL(0))]
     for t, m in ev:
         s.feed(e.feed(t, m))
-        if e._wheel.get(0, 0) == 0:
+        if e.inputs.wheel.get(0, 0) == 0:
             for c, v in s.sounding():
                 assert abs(s.pitch(c, v) - tu.cents[v.key]) <= half_step(), (t, m)
     for t, m in [(1.0, OFF(64)), (1.0, OFF(72)), (1.1, OFF(50)), (1.1, OFF(57)), (1.2, OFF(65)), (1.3, CC(64, 0))]:

@@ -81,7 +81,7 @@ def perform(events, *, in_channels=(0, 1), wheel=True, pedals=True, panic=True, 
 
 
 def check_stream(engine, tuning, perf, held, t_end, synth=None, target=None):
-    s = synth or SynthModel(mpe_manager=engine._manager if engine.mode == "mpe" else None)
+    s = synth or SynthModel(mpe_manager=engine.output.manager if engine.config.mode == "mpe" else None)
     s.feed(engine.start(0.0))
     step = engine.bend_range_cents / 16384.0
     for t, m in perf:
@@ -90,7 +90,7 @@ def check_stream(engine, tuning, perf, held, t_end, synth=None, target=None):
         if d is not None and d <= t:
             s.feed(engine.tick(t))
         assert not s.problems, s.problems
-        if not any(engine._wheel.values()):
+        if not any(engine.inputs.wheel.values()):
             for c, v in s.sounding():
                 # decoded from the output alone: key*100 + bend/8192*range
                 p = s.pitch(c, v)
@@ -345,7 +345,7 @@ def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode
     def target(engine, c, v, tuning):
         return _profile_pitch_of_input(engine, c, v, tuning)
 
-    s = SynthModel(mpe_manager=e._manager if e.mode == "mpe" else None)
+    s = SynthModel(mpe_manager=e.output.manager if e.config.mode == "mpe" else None)
     s.feed(e.start(0.0))
     for t, m in perf:
         s.feed(e.feed(t, m))

@@ -238,7 +238,7 @@ class Plan:
         if not group.engines:
             return
         e0 = next(iter(group.engines.values()))
-        if e0.mode == "mts":
+        if not e0.output.per_note_bend:
             return
         move_bends_early(song, tracks, self.release_time)
 
@@ -263,7 +263,7 @@ class _PlannedSolver:
         out_h = []
         for k, c in held:
             p = plan.pitch(part, k, t, seg)
-            if p is None and e.mode == "mts":  # one engine serves every part: any part's note
+            if p is None and e.output.keeps_input_channels:  # one engine serves every part: any part's note
                 p = plan.pitch_any(k, t, seg)
             out_h.append(c if p is None else p)
         out_n = []

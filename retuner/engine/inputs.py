@@ -1,0 +1,115 @@
+"""What the player is doing, as the engine tracks it from the input.
+
+* **Press queues**: each (input channel, key) keeps its presses first in, first
+  out; a note-off (or a note-on with velocity 0) ends the oldest press, on the
+  channel and key that press was sent on, whatever happened since (pedals,
+  repeated presses, profile switches). A stolen press keeps its place, so its
+  own note-off sends nothing; an all-notes-off or all-sound-off from the input
+  forgets every press of its domain (the keyboard sends no note-offs for what
+  it cleared).
+* **Pedals** (sustain, sostenuto) and the **wheel**, per pedal domain (the
+  output mode says which input channels form a domain).
+* The input's **RPN selection** per channel: an input RPN 0 (pitch bend
+  sensitivity) sets the assumed wheel range instead of reaching the synth;
+  data entry for the other RPNs the engine manages (tuning program and bank,
+  MPE configuration) is dropped.
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from typing import Any, Callable, Optional
+
+from retuner.midi import encode as E
+from retuner.engine.allocator import Note
+
+#: RPNs whose data entry from the input is the engine's, not the synth's
+MANAGED_RPNS = {E.RPN_PITCH_BEND_SENSITIVITY, E.RPN_TUNING_PROGRAM, E.RPN_TUNING_BANK,
+                E.RPN_MPE_CONFIGURATION}
+DATA_CCS = (E.CC_DATA_ENTRY_MSB, E.CC_DATA_ENTRY_LSB, E.CC_DATA_INCREMENT, E.CC_DATA_DECREMENT)
+
+
+class InputState:
+    """Press queues, pedals, wheel and RPN selection of the input (see the module docstring)."""
+
+    def __init__(self, wheel_range_semitones: float):
+        self.presses: dict[tuple[int, int], deque] = {}
+        self.sustain: dict[int, bool] = {}       # domain -> down
+        self.sostenuto: dict[int, bool] = {}     # domain -> down
+        self.wheel: dict[int, int] = {}          # domain -> signed bend -8192..8191
+        self.wheel_range = wheel_range_semitones * 100.0   # cents the player's full wheel spans
+        self.rpn: dict[int, Any] = {}            # input channel -> (msb, lsb) or "nrpn"
+
+    # ------------------------------------------------------------------ presses
+    def press(self, note: Note) -> None:
+        q = self.presses.get((note.in_ch, note.in_key))
+        if q is None:
+            q = self.presses[(note.in_ch, note.in_key)] = deque()
+        q.append(note)
+
+    def release(self, ch: int, key: int) -> Optional[Note]:
+        """The press a note-off for ``ch``/``key`` ends (taken out of its queue), or None."""
+        q = self.presses.get((ch, key))
+        if not q:
+            return None
+        note = q.popleft()
+        if not q:
+            del self.presses[(ch, key)]
+        return note
+
+    def sounding_press(self, ch: int, key: int) -> Optional[Note]:
+        """The latest press of ``ch``/``key`` that sounds (not waiting in the chord window)."""
+        q = self.presses.get((ch, key))
+        if not q:
+            return None
+        for n in reversed(q):
+            if n.alive and not n.pending:
+                return n
+        return None
+
+    def forget(self, n: Note) -> None:
+        q = self.presses.get((n.in_ch, n.in_key))
+        if q is not None:
+            try:
+                q.remove(n)
+            except ValueError:
+                pass
+            if not q:
+                del self.presses[(n.in_ch, n.in_key)]
+
+    def forget_domain(self, in_domain: Callable[[int], bool]) -> None:
+        """Forget every press on the input channels ``in_domain`` accepts."""
+        for k in [k for k in self.presses if in_domain(k[0])]:
+            del self.presses[k]
+
+    def take_all(self) -> dict:
+        """Every press queue (the input is gone); none are kept."""
+        q, self.presses = self.presses, {}
+        return q
+
+    # ------------------------------------------------------------------ RPN
+    def rpn_data(self, ch: int, cc: int, value: int) -> bool:
+        """Track the input's RPN selection; take data entry for the RPNs the engine
+        manages (RPN 0 sets the assumed wheel range). True if taken."""
+        if cc == E.CC_RPN_MSB:
+            sel = self.rpn.get(ch)
+            lsb = sel[1] if isinstance(sel, tuple) else 127
+            self.rpn[ch] = (value, lsb)
+        elif cc == E.CC_RPN_LSB:
+            sel = self.rpn.get(ch)
+            msb = sel[0] if isinstance(sel, tuple) else 127
+            self.rpn[ch] = (msb, value)
+        elif cc in (E.CC_NRPN_MSB, E.CC_NRPN_LSB):
+            self.rpn[ch] = "nrpn"
+        elif cc in DATA_CCS:
+            sel = self.rpn.get(ch)
+            if sel in MANAGED_RPNS:
+                if sel == E.RPN_PITCH_BEND_SENSITIVITY:
+                    semis, cents = divmod(int(round(self.wheel_range)), 100)
+                    if cc == E.CC_DATA_ENTRY_MSB:
+                        semis = value
+                    elif cc == E.CC_DATA_ENTRY_LSB:
+                        cents = min(value, 99)
+                    self.wheel_range = semis * 100.0 + cents
+                return True
+        return False
