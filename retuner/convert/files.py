@@ -85,6 +85,7 @@ from typing import Any, Callable, Iterable, Optional, Sequence
 import mido
 from mido.messages.messages import Message
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 
@@ -701,12 +702,11 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     playing = note_channels(merged)
     parts = [p for p in all_parts if p in playing]
     quiet = [p for p in all_parts if p not in playing]
-    if config.mode == "mpe" and config.mpe_members is None and not any(
+    wide = MODES[config.mode].without_passthrough(config)
+    if wide is not config and not any(
             kind == CHANNEL and (raw[0] & 0x0F) in pas for _, _, kind, raw in merged):
-        # the zone stops short of the passthrough channels only to keep drums out of it: a file
-        # without drums gives the zone every channel (fewer ringing retunes)
-        config = config.replace(mpe_members=15)
-    if config.mode == "mts" or len(parts) <= 1 or merge:
+        config = wide
+    if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
     groups = _plan_note_groups(merged, parts, tuning, config, pas)
     first_parts, first_cfgs = groups[0]
@@ -717,7 +717,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
 
 
 def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int], dict]]:
-    if config.mode == "mpe":
+    if MODES[config.mode].zone_per_part:
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
         out = []
@@ -809,9 +809,7 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
                 e = plan.engine(tuning, cfg) if plan is not None else _make_engine(tuning, cfg)
                 by_cfg[id(cfg)] = e
             engines[p] = e
-        channels = {p: list(cfgs[p].pool if cfgs[p].mode == "pool" else
-                            (range(16) if cfgs[p].mode == "mts" else cfgs[p].mpe_member_channels()))
-                    for p in parts}
+        channels = {p: MODES[cfgs[p].mode].part_channels(cfgs[p]) for p in parts}
         group = _Group(parts, engines, channels)
         tracks = _drive(song, merged, secs, group, pas, hooks=plan)
         if plan is not None:

@@ -42,7 +42,7 @@ class MPESettings(BendSettings):
 
 class MPEMode(BendMode):
     name = "mpe"
-    summary = "an MPE zone, each note on a member channel of its own"
+    summary = "MPE zone"
     settings_class = MPESettings
     pedals_apart = True
     zone_per_part = True

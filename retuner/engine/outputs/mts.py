@@ -45,7 +45,7 @@ class MTSSettings:
 
 class MTSMode(OutputMode):
     name = "mts"
-    summary = "the synth's key table tuned with the MIDI Tuning Standard"
+    summary = "MIDI Tuning Standard (notes stay on their channels)"
     per_note_bend = False
     keeps_input_channels = True
     takes_input_rpn = False

@@ -45,7 +45,7 @@ class PoolSettings(BendSettings):
 
 class PoolMode(BendMode):
     name = "pool"
-    summary = "a pool of channels, each note bent to its pitch (default)"
+    summary = "per-note pitch bend on a pool of channels (default)"
     settings_class = PoolSettings
 
     @classmethod
