@@ -8,7 +8,6 @@ import math
 
 import pytest
 
-import retuner.adaptive.solver as adaptive
 from retuner.adaptive.solver import AdaptiveConfig
 from retuner.engine.core import Engine, EngineConfig
 from retuner.pitch.tuning import Tuning
@@ -25,7 +24,7 @@ class FakeSolver:
 
     def __init__(self, config, reference):
         self.config, self.reference = config, reference
-        self.calls, self.released = [], []
+        self.calls, self.released, self.contexts = [], [], []
         FakeSolver.instances.append(self)
 
     def reset(self):
@@ -34,27 +33,28 @@ class FakeSolver:
     def release(self, keys):
         self.released.append(sorted(keys))
 
-    def solve(self, held, new):
+    def solve(self, held, new, *, t, part):
         self.calls.append(("solve", list(held), list(new)))
+        self.contexts.append((t, part))
         return [c + 2.0 for _, c in held], [100.0 * k + 5.0 * i for i, k in enumerate(new)]
 
 
 @pytest.fixture
-def fake(monkeypatch):
+def fake():
     FakeSolver.instances = []
-    monkeypatch.setattr(adaptive, "AdaptiveSolver", FakeSolver)
     return FakeSolver
 
 
-def engine(mode="pool", window=0.02, **kw):
-    e = Engine(Tuning.equal12(), EngineConfig(mode=mode, adaptive=AdaptiveConfig(chord_window=window), **kw))
+def engine(mode="pool", window=0.02, solver=None, **kw):
+    e = Engine(Tuning.equal12(), EngineConfig(mode=mode, adaptive=AdaptiveConfig(chord_window=window), **kw),
+               solver=solver)
     s = SynthModel(mpe_manager=e.config.mpe_manager() if mode == "mpe" else None)
     s.feed(e.start(0.0))
     return e, s
 
 
 def test_notes_in_window_are_solved_together(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     assert e.feed(0.000, ON(60)) == []
     assert e.feed(0.006, ON(64)) == []
     assert e.feed(0.013, ON(67)) == []
@@ -65,13 +65,14 @@ def test_notes_in_window_are_solved_together(fake):
     assert [m.note for m in out if m.type == "note_on"] == [60, 64, 67]
     solver = fake.instances[-1]
     assert [c for c in solver.calls if c[0] == "solve"] == [("solve", [], [60, 64, 67])]
+    assert solver.contexts == [(pytest.approx(0.02), 0)]     # solved as of the window's close
     for (c, v), want in zip(sorted(s.sounding(), key=lambda cv: cv[1].key), (6000.0, 6405.0, 6710.0)):
         assert abs(s.pitch(c, v) - want) <= 200 / 16384
     assert e.next_deadline() is None
 
 
 def test_feed_after_deadline_flushes_first(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     e.feed(0.0, ON(60))
     out = e.feed(0.05, ON(72))          # the first window closed at 0.02
     assert [m.note for m in out if m.type == "note_on"] == [60]
@@ -80,7 +81,7 @@ def test_feed_after_deadline_flushes_first(fake):
 
 
 def test_held_notes_move_before_new_notes_sound(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     s.feed(e.feed(0.0, ON(60)) + e.tick(0.02))
     out = e.feed(0.5, ON(64)) + e.tick(0.52)
     s.feed(out)
@@ -96,7 +97,7 @@ def test_held_notes_move_before_new_notes_sound(fake):
 
 
 def test_note_off_in_window_cancels_cleanly(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     assert e.feed(0.0, ON(60)) == []
     assert e.feed(0.01, OFF(60)) == []
     assert e.next_deadline() is None
@@ -110,14 +111,14 @@ def test_note_off_in_window_cancels_cleanly(fake):
 
 
 def test_adaptive_notes_never_share_a_channel(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     out = e.feed(0.0, ON(60)) + e.tick(0.02) + e.feed(1.0, ON(72)) + e.tick(1.02)
     chans = [m.channel for m in out if m.type == "note_on"]
     assert len(set(chans)) == 2
 
 
 def test_solver_told_which_notes_ended(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     e.feed(0.0, ON(60))
     e.feed(0.0, ON(64))
     e.tick(0.02)
@@ -128,14 +129,14 @@ def test_solver_told_which_notes_ended(fake):
 
 
 def test_zero_window_solves_at_once(fake):
-    e, s = engine(window=0.0)
+    e, s = engine(solver=fake, window=0.0)
     out = e.feed(0.0, ON(60))
     assert [m.type for m in out][-1] == "note_on"
     assert e.stats["note_on_messages"] == len(out)    # counted once
 
 
 def test_set_adaptive_off_sounds_waiting_notes(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     e.feed(0.0, ON(60))
     out = e.set_adaptive(None, 0.01)
     assert [m.note for m in out if m.type == "note_on"] == [60]
@@ -144,7 +145,7 @@ def test_set_adaptive_off_sounds_waiting_notes(fake):
 
 
 def test_mts_adaptive_one_message_per_chord_before_note_ons(fake):
-    e, _ = engine(mode="mts")
+    e, _ = engine(solver=fake, mode="mts")
     e.feed(0.0, ON(60))
     e.tick(0.02)
     e.feed(0.5, ON(64))
@@ -159,7 +160,7 @@ def test_mts_adaptive_one_message_per_chord_before_note_ons(fake):
 
 
 def test_release_all_drops_waiting_notes(fake):
-    e, s = engine()
+    e, s = engine(solver=fake)
     e.feed(0.0, ON(60))
     out = e.release_all(0.01)
     assert not any(m.type == "note_on" for m in out)
@@ -183,20 +184,19 @@ def test_real_solver_major_triad_is_just(mode):
 class ShortSolver(FakeSolver):
     """Answers for only the first new note; NaN for held notes (a misbehaving solver)."""
 
-    def solve(self, held, new):
+    def solve(self, held, new, **context):
         self.calls.append(("solve", list(held), list(new)))
         return [float("nan") for _ in held], [100.0 * k + 7.0 for k in new[:1]]
 
 
 class BrokenSolver(FakeSolver):
-    def solve(self, held, new):
+    def solve(self, held, new, **context):
         raise RuntimeError("boom")
 
 
 @pytest.mark.parametrize("cls", [ShortSolver, BrokenSolver])
-def test_misbehaving_solver_never_loses_a_note(monkeypatch, cls):
-    monkeypatch.setattr(adaptive, "AdaptiveSolver", cls)
-    e, s = engine(pool=(0, 1, 2))
+def test_misbehaving_solver_never_loses_a_note(cls):
+    e, s = engine(solver=cls, pool=(0, 1, 2))
     for k in (60, 64, 67, 72):
         s.feed(e.feed(0.0, ON(k)))
     s.feed(e.tick(0.02))
@@ -213,18 +213,17 @@ def test_misbehaving_solver_never_loses_a_note(monkeypatch, cls):
 class KeySolver(FakeSolver):
     """Every key its own small deviation (k % 7 cents): every note needs its own bend."""
 
-    def solve(self, held, new):
+    def solve(self, held, new, **context):
         self.calls.append(("solve", list(held), list(new)))
         return [c for _, c in held], [100.0 * k + k % 7 for k in new]
 
 
-def test_late_tick_gives_the_same_output(monkeypatch):
+def test_late_tick_gives_the_same_output():
     """The chord is placed as of its deadline: a daemon ticking late (or a file
     converter ticking exactly) sends the same messages and counts the same."""
-    monkeypatch.setattr(adaptive, "AdaptiveSolver", KeySolver)
     outs = []
     for tick_at in (0.52, 2.9):
-        e, s = engine(pool=(0,), release_time=2.0)
+        e, s = engine(solver=KeySolver, pool=(0,), release_time=2.0)
         seq = e.feed(0.0, ON(60)) + e.tick(0.02) + e.feed(0.1, OFF(60)) + e.feed(0.5, ON(62))
         seq += e.tick(tick_at)
         outs.append([m.bytes() for m in seq])
@@ -237,7 +236,7 @@ def test_legato_chord_change_never_leaves_a_common_tone_alone(fake):
     """Note-offs are delayed by the chord window like the note-ons they make way for:
     a chord played into the next one at the same moment changes in one step at the
     window's close, note-offs first (common practice: legato means no gap)."""
-    e, s = engine()
+    e, s = engine(solver=fake)
     for k in (60, 64, 67):
         s.feed(e.feed(0.0, ON(k)))
     s.feed(e.tick(0.02))
@@ -258,7 +257,7 @@ def test_legato_chord_change_never_leaves_a_common_tone_alone(fake):
 def test_release_gap_is_kept_and_pedal_order_kept(fake):
     """A note-off 5 ms before the next note-on stays 5 ms before it; a pedal pressed
     after a key was let go does not catch that key (events keep their order)."""
-    e, s = engine()
+    e, s = engine(solver=fake)
     s.feed(e.feed(0.0, ON(60)))
     s.feed(e.tick(0.02))
     s.feed(e.feed(0.500, OFF(60)))

@@ -358,7 +358,9 @@ class AdaptiveSolver:
 
     ``solve(held, new)``: ``held`` are (key, current cents above key 0 of
     12-EDO) of notes that keep sounding, ``new`` the keys starting now. Returns
-    (cents for held notes, cents for new notes), same order.
+    (cents for held notes, cents for new notes), same order. The moment ``t`` and
+    the ``part`` (input channel) the engine also gives are not needed here: live
+    tuning knows only what sounds now, whoever plays it.
     """
 
     def __init__(self, config: Optional[AdaptiveConfig] = None, reference: Optional[Tuning] = None):
@@ -525,7 +527,8 @@ class AdaptiveSolver:
         return D, self._tau0[D].copy(), self._w[D].copy()
 
     # -- public ---------------------------------------------------------------
-    def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
+    def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int], *, t: Optional[float] = None,
+              part: Optional[int] = None) -> tuple[list[float], list[float]]:
         """Pitches (cents above key 0 of 12-EDO) for the held notes and the new ones.
 
         Never raises on a numerical failure: held notes then keep their pitch and

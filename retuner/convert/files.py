@@ -532,8 +532,10 @@ def note_channels(merged: Sequence) -> set[int]:
     return out
 
 
-def _make_engine(tuning, config):
+def _make_engine(tuning, config, plan=None):
     from retuner.engine.core import Engine
+    if plan is not None:    # a lookahead plan plays through the engine as its solver
+        return Engine(tuning, plan.engine_config(config), solver=plan.solver_factory(config))
     return Engine(tuning, config)
 
 
@@ -789,7 +791,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
     live = _render(song, merged, secs, groups, tuning, config, out_path, None)
     chosen = lookahead.choose(
         song, merged, secs, tuning, config, live,
-        lambda plan: _render(song, merged, secs, groups, tuning, config, out_path, plan))
+        lambda plan: _render(song, merged, secs, groups, tuning, config, out_path, plan), output_stream)
     res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
     res.lookahead = chosen.summary
     return res
@@ -806,12 +808,12 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
             cfg = cfgs[p]
             e = by_cfg.get(id(cfg))
             if e is None:
-                e = plan.engine(tuning, cfg) if plan is not None else _make_engine(tuning, cfg)
+                e = _make_engine(tuning, cfg, plan)
                 by_cfg[id(cfg)] = e
             engines[p] = e
         channels = {p: MODES[cfgs[p].mode].part_channels(cfgs[p]) for p in parts}
         group = _Group(parts, engines, channels)
-        tracks = _drive(song, merged, secs, group, pas, hooks=plan)
+        tracks = _drive(song, merged, secs, group, pas)
         if plan is not None:
             plan.after_drive(song, tracks, group)
         data = serialize(song.format, song.header_division, tracks)

@@ -43,8 +43,14 @@ Adaptive mode
 -------------
 With ``EngineConfig.adaptive`` set (an ``AdaptiveConfig`` of
 :mod:`retuner.adaptive.solver`), note-ons are gathered for ``chord_window`` seconds
-from the first note-on of a group, then solved together:
-``AdaptiveSolver.solve(held=[(key, cents), ...], new=[key, ...])`` returns the
+from the first note-on of a group, then solved together.
+
+The solver is handed to the engine: ``Engine(tuning, config, solver=make)``, where
+``make(adaptive_config, tuning)`` returns a solver (default: ``AdaptiveSolver``; the
+lookahead planner of :mod:`retuner.adaptive.lookahead` hands in one that answers from
+its plan). The engine calls it again whenever the tuning or the adaptive settings
+change. ``solver.solve(held=[(key, cents), ...], new=[key, ...], t=seconds,
+part=input channel of the new notes)`` returns the
 pitches of the held notes (they may move) and of the new ones. Moved held notes
 get new bends (each adaptive note has a channel of its own), then the new notes
 sound. Before each solve the solver is told which of its notes have ended
@@ -59,10 +65,11 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
-from typing import Any, Optional
+from typing import Any, Callable, Optional
 
 import mido
 
+from retuner.adaptive.solver import AdaptiveSolver
 from retuner.midi import encode as E
 from retuner.engine.allocator import NEG_INF, Note
 from retuner.engine.chord import ChordWindow
@@ -92,9 +99,12 @@ def _finite(x: Any) -> bool:
 class Engine:
     """The retuning state machine (see the module docstring)."""
 
-    def __init__(self, tuning: Tuning, config: Optional[EngineConfig] = None):
+    def __init__(self, tuning: Tuning, config: Optional[EngineConfig] = None,
+                 solver: Optional[Callable[[Any, Tuning], Any]] = None):
         self.config = (config or EngineConfig()).validate()
         self.tuning = tuning
+        # adaptive mode: makes the solver from (adaptive settings, tuning), again at each change
+        self._solver_factory = solver if solver is not None else AdaptiveSolver
         self.stats: dict[str, int] = {
             "notes": 0, "note_ons_out": 0, "steals": 0, "ringing_retunes": 0,
             "bends_sent": 0, "messages_out": 0, "note_on_messages": 0,
@@ -134,8 +144,7 @@ class Engine:
         self._warned_keys = set()
 
     def _make_solver(self, acfg: Any) -> None:
-        from retuner.adaptive.solver import AdaptiveSolver  # adaptive mode only
-        self._solver = AdaptiveSolver(acfg, self.tuning)
+        self._solver = self._solver_factory(acfg, self.tuning)
         self._solver_keys: set[int] = set()
         self._window = float(getattr(acfg, "chord_window", 0.0) or 0.0)
 
@@ -427,7 +436,7 @@ class Engine:
         self._solver_keys = held_keys | {n.in_key for n in pend}
         try:
             held_new, new_cents = solver.solve(held=[(n.in_key, n.cents) for n in held],
-                                               new=[n.in_key for n in pend])
+                                               new=[n.in_key for n in pend], t=t, part=pend[0].in_ch)
             held_new, new_cents = list(held_new), list(new_cents)
         except Exception:  # the engine must never die on a solver failure
             log.exception("adaptive solver failed: the chord keeps static pitches")
