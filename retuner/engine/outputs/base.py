@@ -20,6 +20,7 @@ counters in ``stats`` (``note_ons_out``, ``bends_sent``, ``steals``,
 
 from __future__ import annotations
 
+import abc
 from typing import Any, ClassVar, Optional, Sequence
 
 import mido
@@ -42,8 +43,11 @@ def config_error(msg: str, field: str) -> RetunerError:
     return RetunerError(msg, field=field)
 
 
-class OutputMode:
+class OutputMode(abc.ABC):
     """One way of making the synth sound the pitches (see the module docstring).
+
+    The abstract methods are what every mode must decide; the others have the
+    behaviour most modes want.
 
     ``inputs`` is the engine's :class:`~retuner.engine.inputs.InputState`: a mode
     reads the pedals and the wheel of a domain from it, never writes it.
@@ -77,9 +81,9 @@ class OutputMode:
         """Raise a RetunerError (with the config field) for settings this mode cannot use."""
 
     @classmethod
+    @abc.abstractmethod
     def part_channels(cls, config: Any) -> list[int]:
         """The output channels a file part converted with ``config`` may use."""
-        raise NotImplementedError
 
     @classmethod
     def without_passthrough(cls, config: Any) -> Any:
@@ -98,47 +102,47 @@ class OutputMode:
         """The pedal and controller domain of input channel ``ch``."""
         return ch if self.keeps_input_channels else 0
 
+    @abc.abstractmethod
     def place(self, cents: float, key: int) -> tuple[int, int]:
         """Output key and tuning bend for a pitch asked for by ``key``."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         """The set-up messages (bend ranges, zone configuration, tuning selection and key table)."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
         """A domain-wide message (pedal, controller, pressure, program change) where it goes."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def channel_mode(self, dom: int, msg: mido.Message) -> list[mido.Message]:
         """A channel mode message (all-notes-off and the like) on every channel of ``dom``."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def all_channels(self) -> list[int]:
         """Every output channel the mode uses (panic reaches each)."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def sound(self, t: float, note: Note, out: list) -> None:
         """Sound ``note`` at its planned pitch (``note.out_key``, ``note.bend``, ``note.cents``)."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def sound_solved(self, t: float, held: Sequence[Note], held_cents: Sequence[float],
                      new: Sequence[Note], new_cents: Sequence[float], out: list) -> None:
         """Adaptive mode: move the held notes to ``held_cents`` (where possible), then sound
         the new notes at ``new_cents``."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def note_off(self, note: Note, msg: mido.Message) -> mido.Message:
         """The player's note-off ``msg`` for ``note``, as the synth must get it."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def poly_pressure(self, msg: mido.Message, note: Optional[Note]) -> list[mido.Message]:
         """Polyphonic pressure ``msg``; ``note`` is the sounding press of its key (or None)."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
         """The player's wheel of ``dom`` moved (already stored in ``inputs.wheel``)."""
-        raise NotImplementedError
 
     def wheel_changed(self) -> None:
         """The wheel or its assumed range changed outside :meth:`wheel`: take note, send nothing."""
@@ -162,6 +166,6 @@ class OutputMode:
     def output_lost(self) -> None:
         """The output went away: forget what was sent."""
 
+    @abc.abstractmethod
     def sounding_cents(self, note: Note) -> float:
         """The pitch ``note`` sounds at, cents above key 0 of 12-EDO (the player's wheel not included)."""
-        raise NotImplementedError
