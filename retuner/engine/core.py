@@ -65,6 +65,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
+from collections import deque
 from typing import Any, Callable, Optional
 
 import mido
@@ -120,6 +121,9 @@ class Engine:
         self._pass = frozenset(cfg.passthrough)
         self.inputs = InputState(cfg.wheel_range)
         self.output: OutputMode = MODES[cfg.mode](cfg, self.inputs, self.stats)
+        self._table = self.output.table
+        self._presses = self.inputs.presses
+        self._domain = [self.output.domain(c) for c in range(16)]    # input channel -> domain
         self._chord = ChordWindow()
         self._plan_tuning()
         if cfg.adaptive is not None:
@@ -193,7 +197,7 @@ class Engine:
         elif typ == "polytouch":
             out += self.output.poly_pressure(msg, self.inputs.sounding_press(ch, msg.note))
         else:  # aftertouch, program_change
-            out += self.output.zone(self.output.domain(ch), msg)
+            out += self.output.zone(self._domain[ch], msg)
         self.stats["messages_out"] += len(out)
         return out
 
@@ -255,8 +259,12 @@ class Engine:
                 log.warning("key %d is unmapped in tuning %s: its notes are dropped", key, self.tuning.id)
             return
         self.stats["notes"] += 1
-        note = Note(ch, key, vel, t, self.output.domain(ch))
-        self.inputs.press(note)
+        note = Note(ch, key, vel, t, self._domain[ch])
+        # its press queue (see retuner.engine.inputs); handled here: the hot path
+        q = self._presses.get((ch, key))
+        if q is None:
+            q = self._presses[(ch, key)] = deque()
+        q.append(note)
         if self._solver is not None:
             self._chord.gather(note, t, self._window)
             if self._window <= 0:
@@ -268,9 +276,14 @@ class Engine:
         self.stats["note_on_messages"] += len(out) - n0
 
     def _note_off(self, t: float, ch: int, key: int, msg: mido.Message, out: list) -> None:
-        note = self.inputs.release(ch, key)
-        if note is None:
+        # the oldest press of this key ends (see retuner.engine.inputs)
+        presses = self._presses
+        q = presses.get((ch, key))
+        if not q:
             return
+        note = q.popleft()
+        if not q:
+            del presses[(ch, key)]
         if self._delaying and not note.pending and note.alive:
             self._chord.delay(t + self._window, ch, note, msg)
             return
@@ -292,7 +305,7 @@ class Engine:
         if self.inputs.sustain.get(dom) or (note.sost and self.inputs.sostenuto.get(dom)):
             return
         note.alive = False
-        self.output.table.remove(note, t)
+        self._table.remove(note, t)
 
     def _end_pedalled(self, t: float, dom: int) -> None:
         """The pedals of ``dom`` changed: notes no longer held stop sounding."""
@@ -312,14 +325,14 @@ class Engine:
                 table.remove(n, t)
 
     def _sounding_notes(self) -> list[Note]:
-        return self.output.table.sounding()
+        return self._table.sounding()
 
     # ------------------------------------------------------------------ controls
     def _control(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
         cc = msg.control
         output = self.output
         inputs = self.inputs
-        dom = output.domain(ch)
+        dom = self._domain[ch]
         if output.takes_input_rpn and inputs.rpn_data(ch, cc, msg.value):
             output.wheel_changed()      # the assumed wheel range may have changed
             return
@@ -405,7 +418,7 @@ class Engine:
         inputs.forget_domain(lambda ch: domain(ch) == dom)
 
     def _wheel_in(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
-        dom = self.output.domain(ch)
+        dom = self._domain[ch]
         self.inputs.wheel[dom] = msg.pitch
         self.output.wheel(t, dom, msg, out)
 

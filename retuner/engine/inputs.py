@@ -41,22 +41,8 @@ class InputState:
         self.rpn: dict[int, Any] = {}            # input channel -> (msb, lsb) or "nrpn"
 
     # ------------------------------------------------------------------ presses
-    def press(self, note: Note) -> None:
-        q = self.presses.get((note.in_ch, note.in_key))
-        if q is None:
-            q = self.presses[(note.in_ch, note.in_key)] = deque()
-        q.append(note)
-
-    def release(self, ch: int, key: int) -> Optional[Note]:
-        """The press a note-off for ``ch``/``key`` ends (taken out of its queue), or None."""
-        q = self.presses.get((ch, key))
-        if not q:
-            return None
-        note = q.popleft()
-        if not q:
-            del self.presses[(ch, key)]
-        return note
-
+    # (a press is queued and taken by the engine's note-on and note-off handling itself,
+    # the hot path; what else happens to the queues is here)
     def sounding_press(self, ch: int, key: int) -> Optional[Note]:
         """The latest press of ``ch``/``key`` that sounds (not waiting in the chord window)."""
         q = self.presses.get((ch, key))
@@ -83,8 +69,10 @@ class InputState:
             del self.presses[k]
 
     def take_all(self) -> dict:
-        """Every press queue (the input is gone); none are kept."""
-        q, self.presses = self.presses, {}
+        """Every press queue (the input is gone); none are kept (the dict is emptied in
+        place: the engine holds it)."""
+        q = dict(self.presses)
+        self.presses.clear()
         return q
 
     # ------------------------------------------------------------------ RPN

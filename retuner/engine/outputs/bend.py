@@ -92,12 +92,11 @@ class BendMode(OutputMode):
             self.send_bend(c, out, force=True)
 
     # ------------------------------------------------------------------ notes
-    def sound(self, t: float, note: Note, out: list) -> None:
-        self.place_note(note, t, out, self.share)
-
-    def place_note(self, note: Note, t: float, out: list, share: bool) -> None:
+    def sound(self, t: float, note: Note, out: list, share: Optional[bool] = None) -> None:
+        """Strike ``note`` on a channel of the pool (shared with notes of the same bend
+        when ``share``, by default the mode's setting)."""
         pool = self.pool
-        c, kind = pool.choose(note.bend, note.out_key, t, share)
+        c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share)
         if kind is STEAL:
             self.steal(c, t, out)
         elif kind is RINGING:
@@ -127,7 +126,7 @@ class BendMode(OutputMode):
         for n, c in zip(new, new_cents):
             n.cents = float(c)
             n.out_key, n.bend = self.place(n.cents, n.in_key)
-            self.place_note(n, t, out, False)
+            self.sound(t, n, out, False)
 
     def steal(self, c: int, t: float, out: list) -> None:
         """Silence every note on channel ``c``: note-offs first; pedalled notes
