@@ -548,8 +548,8 @@ class _Group:
         self.channels = channels
 
 
-def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, passthrough: frozenset,
-           hooks=None) -> list[tuple[list, int]]:
+def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group,
+           passthrough: frozenset) -> list[tuple[list, int]]:
     """Feed the group's engines with the file's events on the file's clock; return output tracks."""
     ntr = len(song.tracks)
     outs: list[list] = [[] for _ in range(ntr)]
@@ -568,7 +568,6 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         outs[ti].extend((0, to_raw(m)) for m in e.start(0.0))
     timed = [e for e in engines if e.adaptive]          # only adaptive engines have deadlines
     last_tick = 0
-    feed_hook = hooks.before_feed if hooks is not None else None
     for idx, (tick, ti, kind, raw) in enumerate(merged):
         t = secs[idx]
         if timed:
@@ -590,8 +589,6 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         if e is None:
             continue  # a part written to another file
         msg = raw_to_message(raw)
-        if feed_hook is not None:
-            feed_hook(e, ch, tick, t, msg)
         res = e.feed(t, msg)
         if res:
             out = outs[ti]
