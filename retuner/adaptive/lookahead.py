@@ -100,7 +100,7 @@ CENTRING_TOL = 0.1
 
 
 class _Note:
-    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0")
+    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0", "stale")
 
     def __init__(self, id_, part, key, on):
         self.id = id_
@@ -112,11 +112,13 @@ class _Note:
         self.s0 = 0
         self.s1 = -1
         self.var0 = -1
+        self.stale = False      # outlived a release of its key (see retuner.engine.inputs)
 
 
 def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
-    """Notes of the file with their sounding times (sustain pedal honoured; FIFO note-off matching
-    per channel and key, as the engine does). ``merged``: (tick, track, kind, raw bytes) of every
+    """Notes of the file with their sounding times (sustain pedal honoured; note-offs matched to
+    presses per channel and key as the engine does: first in, first out, and stale presses
+    ended with the newer press, see :mod:`retuner.engine.inputs`). ``merged``: (tick, track, kind, raw bytes) of every
     event; channel messages are those whose status byte is below 0xF0 (MIDI 1.0)."""
     notes: list[_Note] = []
     fifo: dict[tuple[int, int], list] = {}
@@ -140,12 +142,19 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
         elif hi == 0x80 or hi == 0x90:
             q = fifo.get((ch, raw[1]))
             if q:
-                n = q.pop(0)
-                n.off = t
-                if pedal.get(ch):
-                    pedalled.setdefault(ch, []).append(n)
-                else:
-                    n.end = t
+                ended = [q.pop(0)]
+                if q and ended[0].stale and not q[-1].stale:
+                    while q[0].stale:
+                        ended.append(q.pop(0))
+                    ended.append(q.pop(0))
+                for n in q:
+                    n.stale = True
+                for n in ended:
+                    n.off = t
+                    if pedal.get(ch):
+                        pedalled.setdefault(ch, []).append(n)
+                    else:
+                        n.end = t
         elif hi == 0xB0:
             cc, v = raw[1], raw[2]
             if cc == 64:

@@ -53,7 +53,7 @@ class Note:
     """One note the engine has accepted from the input."""
 
     __slots__ = ("in_ch", "in_key", "out_ch", "out_key", "velocity", "bend", "cents",
-                 "down", "sost", "alive", "pending", "t_on", "t_off", "dom")
+                 "down", "sost", "alive", "pending", "t_on", "t_off", "dom", "stale")
 
     def __init__(self, in_ch: int, in_key: int, velocity: int, t_on: float, dom: int):
         self.in_ch = in_ch
@@ -70,6 +70,7 @@ class Note:
         self.t_on = t_on
         self.t_off = NEG_INF      # when the player released it
         self.dom = dom            # pedal domain (0 in pool/MPE modes, input channel in MTS)
+        self.stale = False        # outlived a release of its key (its own note-off may be lost)
 
     def __repr__(self) -> str:  # pragma: no cover - debugging aid
         return (f"Note(in={self.in_ch}/{self.in_key} out={self.out_ch}/{self.out_key} "

@@ -284,6 +284,22 @@ class Engine:
         note = q.popleft()
         if not q:
             del presses[(ch, key)]
+        else:
+            if note.stale and not q[-1].stale:
+                # presses that outlived an earlier release of their key while a newer press
+                # waits: their own note-offs were lost. They end now, with the newer press
+                # this note-off belongs to
+                self._end_press(t, ch, note, msg, out)
+                while q[0].stale:
+                    self._end_press(t, ch, q.popleft(), msg, out)
+                note = q.popleft()
+                if not q:
+                    del presses[(ch, key)]
+            for n in q:
+                n.stale = True
+        self._end_press(t, ch, note, msg, out)
+
+    def _end_press(self, t: float, ch: int, note: Note, msg: mido.Message, out: list) -> None:
         if self._delaying and not note.pending and note.alive:
             self._chord.delay(t + self._window, ch, note, msg)
             return

@@ -7,6 +7,15 @@
   own note-off sends nothing; an all-notes-off or all-sound-off from the input
   forgets every press of its domain (the keyboard sends no note-offs for what
   it cleared).
+* **A lost note-off** costs at most one note: a press that outlived a release of
+  its key is *stale* (that release may have been its own, taken by an older press
+  whose note-off was lost). When the next note-off of that key comes while a
+  newer press waits behind the stale ones, the stale presses end together with
+  the newer press (whose note-off it is), so the queue is in step again from the
+  key's second release after the loss. The price: of three or more overlapping
+  presses of one key on one channel (merged keyboards, a file's overlapping
+  doubled notes) with a new press between two of their note-offs, the newer
+  press ends early, at the same moment as the stale one.
 * **Pedals** (sustain, sostenuto) and the **wheel**, per pedal domain (the
   output mode says which input channels form a domain).
 * The input's **RPN selection** per channel: an input RPN 0 (pitch bend
