@@ -619,6 +619,38 @@ def test_passthrough_channel_untouched():
         assert e.feed(0.0, m) == [m]
 
 
+@pytest.mark.parametrize("mode", ["pool", "mpe", "mts"])
+def test_passthrough_notes_are_released_by_panic_and_input_loss(mode):
+    """Drums on a passthrough channel are the player's notes too: panic and a lost
+    input end them with a note-off each (MIDI 1.0: 0x8n key), nothing stays stuck."""
+    for end in ("release_all", "input_lost"):
+        e, s = started(mode=mode)
+        e.feed(0.0, ON(36, ch=9))
+        e.feed(0.0, ON(42, ch=9))
+        e.feed(0.1, OFF(42, ch=9))           # this one the player released
+        out = getattr(e, end)(0.5)
+        offs = [m.bytes() for m in out if m.type == "note_off" and m.channel == 9]
+        assert offs == [[0x89, 36, 0]], (end, offs)
+        assert [m for m in getattr(e, end)(0.6) if m.type == "note_off" and m.channel == 9] == []
+
+
+def test_note_off_of_a_former_passthrough_note_reaches_the_synth():
+    """A layout change that takes channel 10 into the pool leaves its drum notes
+    sounding; the player's note-off for them still reaches the synth, on the channel
+    and key the note-on went to."""
+    e, s = started()
+    assert e.feed(0.0, ON(36, ch=9)) == [ON(36, ch=9)]
+    cfg = e.config.replace(passthrough=(), pool=tuple(range(16)))
+    out = e.reconfigure(cfg, 0.1)
+    assert not any(m.type == "note_off" and m.channel == 9 for m in out)
+    off = e.feed(0.2, OFF(36, ch=9))
+    assert [m.bytes() for m in off] == [[0x89, 36, 0]]
+    # the channel is retuned now: its next note goes through the pool like any other
+    s2 = e.feed(0.3, ON(36, ch=9))
+    assert any(m.type == "note_on" and m.note == 36 for m in s2)
+    assert e.feed(0.4, OFF(36, ch=9))[-1].type == "note_off"
+
+
 # ---------------------------------------------------------------------------
 # economy, synth correction
 # ---------------------------------------------------------------------------

@@ -310,7 +310,8 @@ def test_fuzz_any_messages_then_input_lost_leaves_nothing_sounding(raw, mode, pr
             s = SynthModel(mpe_manager=s.mpe_manager)    # the synth was reset
             out = out[1:]
         s.feed([x for x in out if getattr(x, "channel", None) != 9])  # channel 10 is the player's own
-    s.feed(e.input_lost(t + 0.1))
+    # (the note-offs for the player's own channel-10 notes are checked in test_engine)
+    s.feed([x for x in e.input_lost(t + 0.1) if getattr(x, "channel", None) != 9])
     assert not s.problems, s.problems
     assert [(c, v.key) for c, v in s.sounding() if c != 9] == []
 

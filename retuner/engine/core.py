@@ -31,7 +31,10 @@ input's RPN selection), the chord window (:mod:`retuner.engine.chord`) and the
 adaptive solver, and asks the mode object for everything else.
 
 * System exclusive, clock and other system messages pass through; channel
-  messages on passthrough input channels (default channel 10) are untouched.
+  messages on passthrough input channels (default channel 10) are untouched,
+  but their notes are counted: panic and a lost input end them with note-offs,
+  and after a layout change that takes their channel into retuning the
+  player's note-offs for them still go to the synth as they came.
   After a system reset (0xFF) the sounding notes are forgotten and the setup
   (bend range, MPE configuration, MTS tuning) is sent again.
 * Unmapped keys are dropped (logged once per key).
@@ -75,7 +78,7 @@ from retuner.midi import encode as E
 from retuner.engine.allocator import NEG_INF, Note
 from retuner.engine.chord import ChordWindow
 from retuner.engine.config import DEFAULT_POOL, EngineConfig
-from retuner.engine.inputs import InputState
+from retuner.engine.inputs import InputState, PassthroughNotes
 from retuner.engine.outputs import MODES, OutputMode
 from retuner.pitch.tuning import Tuning
 
@@ -113,6 +116,8 @@ class Engine:
         }
         self._warned_keys: set[int] = set()
         self._solver = None
+        self._pass_notes = PassthroughNotes()     # kept across layout changes
+        self._orphaned = self._pass_notes.orphaned
         self._build()
 
     # ------------------------------------------------------------------ setup
@@ -177,7 +182,9 @@ class Engine:
         ch = getattr(msg, "channel", None)
         if ch is None or ch in self._pass:
             out.append(msg)
-            if typ == "reset":
+            if ch is not None:
+                self._pass_notes.track(msg)
+            elif typ == "reset":
                 # a system reset clears the synth: what sounded is gone, set it up again
                 self.output_lost(t)
                 setup = self.start(t)
@@ -276,6 +283,9 @@ class Engine:
         self.stats["note_on_messages"] += len(out) - n0
 
     def _note_off(self, t: float, ch: int, key: int, msg: mido.Message, out: list) -> None:
+        if self._orphaned and self._pass_notes.take_orphan(ch, key):
+            out.append(msg)     # started while its channel was passed through: it goes as it came
+            return
         # the oldest press of this key ends (see retuner.engine.inputs)
         presses = self._presses
         q = presses.get((ch, key))
@@ -522,10 +532,11 @@ class Engine:
                           for f in dataclasses.fields(EngineConfig) if f.name not in _LIGHT_FIELDS)
         out: list[mido.Message] = []
         if not same_layout or not self.output.reconfigures_lightly:
-            out += self.release_all(t)
+            out += self._release_retuned(t)     # notes on passthrough channels sound on
             self.config = config
             self._solver = None
             self._build()
+            self._pass_notes.relayout(self._pass)
             out += self.start(t)
             return out
         if config.adaptive is not old.adaptive:
@@ -540,7 +551,14 @@ class Engine:
     # ------------------------------------------------------------------ endings
     def release_all(self, t: float) -> list[mido.Message]:
         """Panic / shutdown: a note-off per sounding note, then on every output
-        channel pedals up (if down), all-notes-off and the bend reset to centre."""
+        channel pedals up (if down), all-notes-off and the bend reset to centre;
+        then a note-off for each note sounding on a passthrough channel."""
+        out = self._release_retuned(t)
+        passed = self._pass_notes.release()
+        self.stats["messages_out"] += len(passed)
+        return out + passed
+
+    def _release_retuned(self, t: float) -> list[mido.Message]:
         out: list[mido.Message] = []
         chord = self._chord
         chord.drop_pending()
@@ -589,6 +607,7 @@ class Engine:
             if inputs.wheel[dom]:
                 self._wheel_in(t, dom, E.msg("pitchwheel", channel=dom, pitch=0), out)
         inputs.rpn.clear()
+        out += self._pass_notes.release()
         self.stats["messages_out"] += len(out)
         return out
 
@@ -604,6 +623,7 @@ class Engine:
         for c in table.channels:
             table.last_off[c] = NEG_INF     # nothing rings on a device that is gone
         self.inputs.presses.clear()
+        self._pass_notes.forget()
         self.output.output_lost()
 
     # ------------------------------------------------------------------ queries

@@ -110,3 +110,66 @@ class InputState:
                     self.wheel_range = semis * 100.0 + cents
                 return True
         return False
+
+
+class PassthroughNotes:
+    """Notes the player sounds on passthrough channels (drums, by default): the engine
+    passes them untouched but keeps count, so panic and a lost input can end them, and a
+    layout change that takes their channel into retuning still lets their note-offs
+    through (``orphaned``: notes of channels that are no longer passed through)."""
+
+    def __init__(self) -> None:
+        self.held: dict[tuple[int, int], int] = {}        # (channel, key) -> presses sounding
+        self.orphaned: dict[tuple[int, int], int] = {}    # the same, channel no longer passthrough
+
+    def track(self, msg: Any) -> None:
+        """A channel message passed through on a passthrough channel."""
+        typ = msg.type
+        if typ == "note_on" and msg.velocity:
+            k = (msg.channel, msg.note)
+            self.held[k] = self.held.get(k, 0) + 1
+        elif typ == "note_off" or typ == "note_on":
+            _take(self.held, (msg.channel, msg.note))
+        elif typ == "control_change" and (msg.control == E.CC_ALL_SOUND_OFF or msg.control == E.CC_ALL_NOTES_OFF
+                                          or msg.control in E.CC_MODE_NOTES_OFF):
+            for k in [k for k in self.held if k[0] == msg.channel]:
+                del self.held[k]
+
+    def take_orphan(self, ch: int, key: int) -> bool:
+        """A note-off on a retuned channel: True if it ends a note started while the
+        channel was passed through (then it goes to the synth as it is)."""
+        return _take(self.orphaned, (ch, key))
+
+    def relayout(self, passthrough: frozenset) -> None:
+        """The passthrough channels are now ``passthrough``."""
+        both = dict(self.orphaned)
+        for k, n in self.held.items():
+            both[k] = both.get(k, 0) + n
+        self.held.clear()
+        self.orphaned.clear()
+        for k, n in both.items():
+            (self.held if k[0] in passthrough else self.orphaned)[k] = n
+
+    def release(self) -> list:
+        """A note-off for every press still sounding; forget them."""
+        out = []
+        for src in (self.held, self.orphaned):
+            for (ch, key), n in src.items():
+                out.extend(E.note_off(ch, key, 0) for _ in range(n))
+            src.clear()
+        return out
+
+    def forget(self) -> None:
+        self.held.clear()
+        self.orphaned.clear()
+
+
+def _take(counts: dict, k: tuple[int, int]) -> bool:
+    n = counts.get(k)
+    if not n:
+        return False
+    if n == 1:
+        del counts[k]
+    else:
+        counts[k] = n - 1
+    return True
