@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import math
 
+import mido
 import pytest
 
 from retuner.adaptive.solver import AdaptiveConfig
@@ -284,3 +285,66 @@ def test_release_gap_is_kept_and_pedal_order_kept(fake):
 def mido_cc(control, value, channel=0):
     import mido
     return mido.Message("control_change", channel=channel, control=control, value=value)
+
+
+def edo19_pitch(key):
+    """19-EDO (1200/19 cents a step) with A4 (key 69) at 6900 c, as the built-in profile."""
+    return 6900.0 + (key - 69) * 1200.0 / 19
+
+
+def test_adaptive_refuses_a_profile_that_is_not_twelve_notes():
+    """The solver's interval table is per 12-EDO interval class: with another scale it
+    would pull notes to the wrong intervals. Asked for at the start: one line, naming
+    the profile and the setting."""
+    from retuner.errors import RetunerError
+    from retuner.profiles.profile import load_profile
+    with pytest.raises(RetunerError) as ei:
+        Engine(load_profile("edo19"), EngineConfig(adaptive=AdaptiveConfig()))
+    assert ei.value.field == "adaptive"
+    text = str(ei.value)
+    assert "edo19" in text and "\n" not in text
+
+
+def test_command_line_refuses_adaptive_with_edo19(tmp_path):
+    import subprocess
+    import sys
+    src = tmp_path / "in.mid"
+    mf = mido.MidiFile()
+    tr = mido.MidiTrack()
+    tr += [mido.Message("note_on", note=60, velocity=90), mido.Message("note_off", note=60, time=480)]
+    mf.tracks.append(tr)
+    mf.save(src)
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", str(src), "-o", str(tmp_path / "o.mid"),
+                        "--profile", "edo19", "--adaptive"], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert len(r.stderr.strip().splitlines()) == 1 and "edo19" in r.stderr
+    assert not (tmp_path / "o.mid").exists()
+
+
+@pytest.mark.parametrize("mode", ["pool", "mts"])
+def test_switching_to_edo19_while_adaptive_plays_the_profile(mode):
+    """A running daemon switched to a 19-note profile must not die and must not play
+    12-EDO: adaptive mode rests while that profile is in force (its notes at the profile's
+    own pitches: key 43 at 5257.9 c by the definition of 19-EDO), and comes back with
+    the next 12-note profile (a C major triad from silence 4:5:6 again)."""
+    from retuner.profiles.profile import load_profile
+    e, s = engine(mode=mode)
+    assert e.adaptive
+    s.feed(e.set_tuning(load_profile("edo19"), 0.0))
+    assert not e.adaptive
+    s.feed(e.feed(0.1, ON(43)))
+    s.feed(e.tick(0.2))
+    if mode == "pool":
+        (c, v), = s.sounding()
+        assert abs(s.pitch(c, v) - edo19_pitch(43)) <= 200 / 8192
+    else:
+        assert abs(e.sounding()[0]["cents"] - edo19_pitch(43)) < 0.01
+    s.feed(e.feed(0.3, OFF(43)))
+    s.feed(e.set_tuning(Tuning.equal12(), 1.0))
+    assert e.adaptive
+    for k in (60, 64, 67):
+        e.feed(2.0, ON(k))
+    e.tick(2.05)
+    p = {d["key"]: d["cents"] for d in e.sounding()}
+    assert abs((p[64] - p[60]) - 1200 * math.log2(5 / 4)) < 0.1
+    assert abs((p[67] - p[60]) - 1200 * math.log2(3 / 2)) < 0.1

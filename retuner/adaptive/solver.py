@@ -90,6 +90,16 @@ note of a chord are solved together, so every note of a chord is delayed by up
 to 20 ms (about the spread of a pianist's chord; below what most players notice
 as latency). 0 disables gathering (lowest latency, chords struck with a spread
 may first be tuned against a partial chord and then move).
+
+**Only 12-note profiles.** The interval table is per 12-EDO interval class (the
+difference of two keys in semitones), so adaptive mode tunes profiles of 12 notes
+to a 1200 c period only. Asked for with another profile (``run``, ``convert``, an
+engine built with one) it is refused with one line naming the profile; a running
+engine switched to such a profile (program change, reload, control socket) never
+refuses: adaptive mode rests while that profile is in force (its notes sound at
+the profile's own pitches; one warning in the log) and resumes with the next
+12-note profile. Using a 19-note profile's pitches as the starting point would
+still leave every pair judged by the wrong interval class, so it is not offered.
 """
 
 from __future__ import annotations

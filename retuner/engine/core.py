@@ -60,7 +60,11 @@ sound. Before each solve the solver is told which of its notes have ended
 (``solver.release(keys)``; it applies its own policy for silences), or, for a
 solver without ``release``, ``solver.reset()`` is called when nothing sounds.
 The chord window, and the note-offs and pedal changes delayed with it, are
-described in :mod:`retuner.engine.chord`.
+described in :mod:`retuner.engine.chord`. Adaptive mode needs a 12-note profile:
+an engine built with adaptive settings and another profile is refused with one
+line (a RetunerError on the ``adaptive`` setting); switched to such a profile
+while running, adaptive mode rests until a 12-note profile is in force again
+(see :mod:`retuner.adaptive.solver`).
 """
 
 from __future__ import annotations
@@ -80,6 +84,7 @@ from retuner.engine.chord import ChordWindow
 from retuner.engine.config import DEFAULT_POOL, EngineConfig
 from retuner.engine.inputs import InputState, PassthroughNotes
 from retuner.engine.outputs import MODES, OutputMode
+from retuner.errors import RetunerError
 from retuner.pitch.tuning import Tuning
 
 __all__ = ["Engine", "EngineConfig", "MODES", "DEFAULT_POOL"]
@@ -91,6 +96,11 @@ _PEDAL_CCS = (E.CC_SUSTAIN, E.CC_SOSTENUTO)
 #: settings a mode can apply to what sounds without starting again
 _LIGHT_FIELDS = ("bend_range", "wheel_range", "release_time", "bend_scale", "whole_semitone_range",
                  "share_channels", "adaptive", "mpe_member_range", "mpe_manager_range")
+
+
+def _not_twelve(tuning: Tuning) -> str:
+    return (f"adaptive mode tunes 12-note profiles with a 1200 c period only: {tuning.id} has "
+            f"{tuning.size} notes to a period of {tuning.period.cents:.1f} c")
 
 
 def _finite(x: Any) -> bool:
@@ -106,6 +116,8 @@ class Engine:
     def __init__(self, tuning: Tuning, config: Optional[EngineConfig] = None,
                  solver: Optional[Callable[[Any, Tuning], Any]] = None):
         self.config = (config or EngineConfig()).validate()
+        if self.config.adaptive is not None and not tuning.is_twelve:
+            raise RetunerError(_not_twelve(tuning), field="adaptive")
         self.tuning = tuning
         # adaptive mode: makes the solver from (adaptive settings, tuning), again at each change
         self._solver_factory = solver if solver is not None else AdaptiveSolver
@@ -153,6 +165,11 @@ class Engine:
         self._warned_keys = set()
 
     def _make_solver(self, acfg: Any) -> None:
+        if not self.tuning.is_twelve:
+            # a running engine never refuses: adaptive mode rests while this profile is in force
+            log.warning("%s; adaptive mode rests while it is in force", _not_twelve(self.tuning))
+            self._solver = None
+            return
         self._solver = self._solver_factory(acfg, self.tuning)
         self._solver_keys: set[int] = set()
         self._window = float(getattr(acfg, "chord_window", 0.0) or 0.0)
@@ -498,7 +515,7 @@ class Engine:
         """Switch profile: sounding notes keep their pitch, new notes use ``tuning``."""
         self.tuning = tuning
         self._plan_tuning()
-        if self._solver is not None:
+        if self.config.adaptive is not None:
             self._make_solver(self.config.adaptive)
         out = self.output.retuned(tuning, self._sounding_notes())
         self.stats["messages_out"] += len(out)
