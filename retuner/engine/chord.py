@@ -67,11 +67,3 @@ class ChordWindow:
 
     def delay(self, due: float, ch: int, note: Optional[Note], msg: mido.Message) -> None:
         self.deferred.append((due, ch, note, msg))
-
-    def next_deadline(self) -> Optional[float]:
-        d = self.deadline
-        if self.deferred:
-            due = self.deferred[0][0]
-            if d is None or due < d:
-                d = due
-        return d

@@ -226,7 +226,13 @@ class Engine:
         return out
 
     def next_deadline(self) -> Optional[float]:
-        return self._chord.next_deadline()
+        chord = self._chord
+        d = chord.deadline
+        if chord.deferred:
+            due = chord.deferred[0][0]
+            if d is None or due < d:
+                d = due
+        return d
 
     def tick(self, t: float) -> list[mido.Message]:
         """Timers: flush the chord window once ``t`` reached its deadline and
@@ -324,7 +330,10 @@ class Engine:
                     del presses[(ch, key)]
             for n in q:
                 n.stale = True
-        self._end_press(t, ch, note, msg, out)
+        if self._solver is not None and self._window > 0 and not note.pending and note.alive:
+            self._chord.delay(t + self._window, ch, note, msg)
+            return
+        self._release(t, note, msg, out)
 
     def _end_press(self, t: float, ch: int, note: Note, msg: mido.Message, out: list) -> None:
         if self._delaying and not note.pending and note.alive:
