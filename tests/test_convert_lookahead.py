@@ -283,7 +283,7 @@ def test_mixture_of_plans_is_no_worse_than_its_parts():
 
     def measure(plan):
         outs = files._render(song, merged, secs, groups, tun, cfg, "out.mid", plan)
-        return lookahead.measure_outputs(outs, cfg)
+        return lookahead.measure_outputs(outs, cfg, files.output_stream)
 
     p1 = lookahead.plan_song(song, merged, secs, tun, cfg, motion_value=1.0, drift_value=0.1)
     p2 = lookahead.plan_song(song, merged, secs, tun, cfg, motion_value=2.0, drift_value=0.1)

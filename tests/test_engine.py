@@ -433,6 +433,25 @@ def test_repeated_presses_fifo_on_one_input_channel():
     assert s.count() == 0 and not s.problems
 
 
+@pytest.mark.parametrize("mode", ["pool", "mpe", "mts"])
+def test_one_lost_note_off_costs_at_most_one_note(mode):
+    """A note-off lost on the way (a full input queue, a loose cable): the key's next
+    releases must not each end the press before, which would keep one note of that key
+    sounding for good. The press that outlived a release of its key ends at the key's
+    following release; from then on presses and releases pair up again."""
+    e, s = started(mode=mode)
+    s.feed(e.feed(0.0, ON(60)))
+    # its note-off is lost; the player presses and releases the key again, three times
+    for i in range(3):
+        t = 1.0 + i
+        s.feed(e.feed(t, ON(60)))
+        s.feed(e.feed(t + 0.5, OFF(60)))
+        assert s.count() <= 1, f"release {i + 1}: {s.count()} notes of a released key sound"
+        if i >= 1:
+            assert s.count() == 0, f"release {i + 1}: a note still sounds after the second release"
+    assert e.sounding() == [] and not s.problems
+
+
 def test_same_key_from_two_input_channels():
     e, s = started()
     s.feed(e.feed(0.0, ON(64, ch=0)) + e.feed(0.0, ON(64, ch=1)))
@@ -524,7 +543,7 @@ def test_input_rpn0_sets_wheel_range_and_is_not_forwarded():
     for m in (CC(101, 0), CC(100, 0), CC(6, 12), CC(38, 0)):
         out += e.feed(0.0, m)
     assert not any(m.control in (6, 38) for m in out)
-    assert e._wheel_range == 1200.0
+    assert e.inputs.wheel_range == 1200.0
 
 
 def test_pressure_cc_program_to_every_pool_channel():
@@ -598,6 +617,38 @@ def test_passthrough_channel_untouched():
     e, s = started()
     for m in (ON(36, ch=9), WHEEL(300, ch=9), CC(7, 90, ch=9), OFF(36, ch=9)):
         assert e.feed(0.0, m) == [m]
+
+
+@pytest.mark.parametrize("mode", ["pool", "mpe", "mts"])
+def test_passthrough_notes_are_released_by_panic_and_input_loss(mode):
+    """Drums on a passthrough channel are the player's notes too: panic and a lost
+    input end them with a note-off each (MIDI 1.0: 0x8n key), nothing stays stuck."""
+    for end in ("release_all", "input_lost"):
+        e, s = started(mode=mode)
+        e.feed(0.0, ON(36, ch=9))
+        e.feed(0.0, ON(42, ch=9))
+        e.feed(0.1, OFF(42, ch=9))           # this one the player released
+        out = getattr(e, end)(0.5)
+        offs = [m.bytes() for m in out if m.type == "note_off" and m.channel == 9]
+        assert offs == [[0x89, 36, 0]], (end, offs)
+        assert [m for m in getattr(e, end)(0.6) if m.type == "note_off" and m.channel == 9] == []
+
+
+def test_note_off_of_a_former_passthrough_note_reaches_the_synth():
+    """A layout change that takes channel 10 into the pool leaves its drum notes
+    sounding; the player's note-off for them still reaches the synth, on the channel
+    and key the note-on went to."""
+    e, s = started()
+    assert e.feed(0.0, ON(36, ch=9)) == [ON(36, ch=9)]
+    cfg = e.config.replace(passthrough=(), pool=tuple(range(16)))
+    out = e.reconfigure(cfg, 0.1)
+    assert not any(m.type == "note_off" and m.channel == 9 for m in out)
+    off = e.feed(0.2, OFF(36, ch=9))
+    assert [m.bytes() for m in off] == [[0x89, 36, 0]]
+    # the channel is retuned now: its next note goes through the pool like any other
+    s2 = e.feed(0.3, ON(36, ch=9))
+    assert any(m.type == "note_on" and m.note == 36 for m in s2)
+    assert e.feed(0.4, OFF(36, ch=9))[-1].type == "note_off"
 
 
 # ---------------------------------------------------------------------------
@@ -746,7 +797,7 @@ def test_human_timing_spread_chord_with_pedal_and_wheel():
           (0.500, CC(64, 0)), (0.520, CC(64, 127)), (0.800, WHEEL(-4000)), (0.900, WHEEL(0))]
     for t, m in ev:
         s.feed(e.feed(t, m))
-        if e._wheel.get(0, 0) == 0:
+        if e.inputs.wheel.get(0, 0) == 0:
             for c, v in s.sounding():
                 assert abs(s.pitch(c, v) - tu.cents[v.key]) <= half_step(), (t, m)
     for t, m in [(1.0, OFF(64)), (1.0, OFF(72)), (1.1, OFF(50)), (1.1, OFF(57)), (1.2, OFF(65)), (1.3, CC(64, 0))]:

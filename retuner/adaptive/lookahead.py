@@ -65,12 +65,16 @@ against 3 s without.
 from __future__ import annotations
 
 import bisect
+import dataclasses
+import itertools
 import math
-from typing import Optional
+from typing import Callable, Optional
 
 import numpy as np
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
+from retuner.measure import metrics
 
 WINDOW = 32     # segments solved together
 COMMIT = 24     # segments kept from each window
@@ -96,7 +100,7 @@ CENTRING_TOL = 0.1
 
 
 class _Note:
-    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0")
+    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0", "stale")
 
     def __init__(self, id_, part, key, on):
         self.id = id_
@@ -108,20 +112,22 @@ class _Note:
         self.s0 = 0
         self.s1 = -1
         self.var0 = -1
+        self.stale = False      # outlived a release of its key (see retuner.engine.inputs)
 
 
 def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
-    """Notes of the file with their sounding times (sustain pedal honoured; FIFO note-off matching
-    per channel and key, as the engine does)."""
-    from retuner.convert.files import CHANNEL
+    """Notes of the file with their sounding times (sustain pedal honoured; note-offs matched to
+    presses per channel and key as the engine does: first in, first out, and stale presses
+    ended with the newer press, see :mod:`retuner.engine.inputs`). ``merged``: (tick, track, kind, raw bytes) of every
+    event; channel messages are those whose status byte is below 0xF0 (MIDI 1.0)."""
     notes: list[_Note] = []
     fifo: dict[tuple[int, int], list] = {}
     pedal: dict[int, bool] = {}
     pedalled: dict[int, list] = {}
     for (tick, ti, kind, raw), t in zip(merged, secs):
-        if kind != CHANNEL:
-            continue
         st = raw[0]
+        if st >= 0xF0:
+            continue
         ch = st & 0x0F
         if ch in passthrough:
             continue
@@ -136,12 +142,19 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
         elif hi == 0x80 or hi == 0x90:
             q = fifo.get((ch, raw[1]))
             if q:
-                n = q.pop(0)
-                n.off = t
-                if pedal.get(ch):
-                    pedalled.setdefault(ch, []).append(n)
-                else:
-                    n.end = t
+                ended = [q.pop(0)]
+                if q and ended[0].stale and not q[-1].stale:
+                    while q[0].stale:
+                        ended.append(q.pop(0))
+                    ended.append(q.pop(0))
+                for n in q:
+                    n.stale = True
+                for n in ended:
+                    n.off = t
+                    if pedal.get(ch):
+                        pedalled.setdefault(ch, []).append(n)
+                    else:
+                        n.end = t
         elif hi == 0xB0:
             cc, v = raw[1], raw[2]
             if cc == 64:
@@ -204,51 +217,43 @@ class Plan:
                     return p
         return None
 
-    # -- engine hooks ---------------------------------------------------------
-    def engine(self, tuning, config):
-        """An engine that plays this plan (adaptive mode, chord window 0, a planned solver)."""
-        from retuner.engine.core import Engine
-
-        acfg = config.adaptive
-        cfg = config.replace(adaptive=acfg, share_channels=False)
-        plan = self
-
-        class PlannedEngine(Engine):
-            def _make_solver(self, _acfg):
-                super()._make_solver(_acfg)     # the engine's own bookkeeping
-                self._solver = _PlannedSolver(plan, self)
-                self._window = 0.0
-
-        e = PlannedEngine(tuning, cfg)
-        e._la_part = None
-        e._la_t = 0.0
-        e._la_seg = 0
-        return e
-
-    def before_feed(self, engine, ch: int, tick: int, t: float, msg) -> None:
-        engine._la_part = ch
-        engine._la_t = t
+    def segment(self, t: float) -> int:
+        """The segment sounding at ``t``."""
         seg = self._seg_of.get(t)
         if seg is None:
             seg = max(bisect.bisect_right(self.onsets, t) - 1, 0)
-        engine._la_seg = seg
+        return seg
+
+    # -- how the engine plays it ----------------------------------------------
+    def engine_config(self, config):
+        """The settings an engine plays this plan with: adaptive mode with chord window 0 (every
+        note sounds at its own tick and is solved as it starts), no channel sharing."""
+        acfg = dataclasses.replace(config.adaptive, chord_window=0.0)
+        return config.replace(adaptive=acfg, share_channels=False)
+
+    def solver_factory(self, config) -> Callable:
+        """What to hand the engine as its solver (``Engine(..., solver=...)``): it answers from
+        the plan. When one engine serves every part (notes stay on their input channels), a held
+        note of another part is looked up in any part."""
+        any_part = MODES[config.mode].keeps_input_channels
+        return lambda _acfg, _tuning: _PlannedSolver(self, any_part)
 
     def after_drive(self, song, tracks, group) -> None:
         """Move each note's bend back to when its channel fell silent (in place)."""
         if not group.engines:
             return
         e0 = next(iter(group.engines.values()))
-        if e0.mode == "mts":
+        if not e0.output.per_note_bend:
             return
         move_bends_early(song, tracks, self.release_time)
 
 
 class _PlannedSolver:
-    """Answers the engine's ``solve(held, new)`` from the plan."""
+    """Answers the engine's ``solve(held, new, t=..., part=...)`` from the plan."""
 
-    def __init__(self, plan: Plan, engine):
+    def __init__(self, plan: Plan, any_part: bool):
         self.plan = plan
-        self.engine = engine
+        self.any_part = any_part
 
     def reset(self) -> None:
         pass
@@ -256,14 +261,13 @@ class _PlannedSolver:
     def release(self, keys) -> None:
         pass
 
-    def solve(self, held, new):
-        e = self.engine
-        part, t, seg = e._la_part, e._la_t, e._la_seg
+    def solve(self, held, new, *, t: float, part: int):
         plan = self.plan
+        seg = plan.segment(t)
         out_h = []
         for k, c in held:
             p = plan.pitch(part, k, t, seg)
-            if p is None and e.mode == "mts":  # one engine serves every part: any part's note
+            if p is None and self.any_part:  # one engine serves every part: any part's note
                 p = plan.pitch_any(k, t, seg)
             out_h.append(c if p is None else p)
         out_n = []
@@ -662,14 +666,13 @@ class Chosen:
         self.summary = summary
 
 
-def measure_outputs(outputs, config) -> dict:
+def measure_outputs(outputs, config, stream) -> dict:
     """Impurity, motion per note and maximum drift of the output files, decoded from their bytes
-    (the notes of all files of a split arrangement together)."""
-    from retuner.convert import files
-    from retuner.measure import metrics
+    (the notes of all files of a split arrangement together). ``stream(data, path)`` reads a
+    written file as (seconds, message) pairs."""
     notes = []
     for o in outputs:
-        dec = metrics.decode(files.output_stream(o.data, o.path), bend_scale=config.bend_scale,
+        dec = metrics.decode(stream(o.data, o.path), bend_scale=config.bend_scale,
                              exclude_channels=tuple(config.passthrough))
         notes.extend(dec.notes)
     imp, _ = metrics.impurity(notes)
@@ -713,7 +716,6 @@ def _best_mixture(tried: list, live: dict, steps: int = 20):
     impurity, total absolute motion, largest absolute drift) is a convex function of the
     planned pitches, so the mixture's own measures are no worse than the interpolation (up to
     the output's bend step)."""
-    import itertools
     best = None
     ms = [t[1] for t in tried]
     n = len(ms)
@@ -734,9 +736,10 @@ def _best_mixture(tried: list, live: dict, steps: int = 20):
     return best
 
 
-def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
+def choose(song, merged, secs, tuning, config, live_outputs, render, stream) -> Chosen:
     """Plan the piece and check the plan against live playing (``live_outputs``: the same file
-    through the live engine), measured from the output files.
+    through the live engine), measured from the output files (``render(plan)`` makes them,
+    ``stream(data, path)`` reads one back as (seconds, message) pairs).
 
     The plan's objective (see :func:`plan_song`) has two prices: of motion against impurity
     (``motion_value``) and of drift (``drift_value``). The first plan uses the defaults. Its
@@ -750,7 +753,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     interpolated margin, if that beats live, is rendered and measured too. The plan or mixture with the widest
     measured margin is kept; if even that does not beat live, the summary says so
     (``beats_live: false``, with both sets of figures)."""
-    live = measure_outputs(live_outputs, config)
+    live = measure_outputs(live_outputs, config, stream)
     tried = []          # (plan, measures, outputs, description)
     plans = []          # the plans proper (mixtures are made of these)
     mv, dv = MOTION_VALUE, DRIFT_VALUE
@@ -762,7 +765,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
     for _ in range(MAX_PLANS):
         plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_value=dv)
         outs = render(plan)
-        m = measure_outputs(outs, config)
+        m = measure_outputs(outs, config, stream)
         entry = (plan, m, outs, {"motion_value": round(mv, 4), "drift_value": round(dv, 4)})
         tried.append(entry)
         plans.append(entry)
@@ -776,7 +779,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render) -> Chosen:
                 vals = sum(wi * plans[i][0].values for wi, i in zip(w, idx))
                 mix = Plan(p0.notes, p0.onsets, vals, p0.release_time)
                 mouts = render(mix)
-                mm = measure_outputs(mouts, config)
+                mm = measure_outputs(mouts, config, stream)
                 tried.append((mix, mm, mouts,
                               {"mixture": [dict(plans[i][3], weight=round(wi, 4)) for wi, i in zip(w, idx)]}))
                 if best_margin() >= TARGET_MARGIN:

@@ -90,6 +90,16 @@ note of a chord are solved together, so every note of a chord is delayed by up
 to 20 ms (about the spread of a pianist's chord; below what most players notice
 as latency). 0 disables gathering (lowest latency, chords struck with a spread
 may first be tuned against a partial chord and then move).
+
+**Only 12-note profiles.** The interval table is per 12-EDO interval class (the
+difference of two keys in semitones), so adaptive mode tunes profiles of 12 notes
+to a 1200 c period only. Asked for with another profile (``run``, ``convert``, an
+engine built with one) it is refused with one line naming the profile; a running
+engine switched to such a profile (program change, reload, control socket) never
+refuses: adaptive mode rests while that profile is in force (its notes sound at
+the profile's own pitches; one warning in the log) and resumes with the next
+12-note profile. Using a 19-note profile's pitches as the starting point would
+still leave every pair judged by the wrong interval class, so it is not offered.
 """
 
 from __future__ import annotations
@@ -354,7 +364,9 @@ class AdaptiveSolver:
 
     ``solve(held, new)``: ``held`` are (key, current cents above key 0 of
     12-EDO) of notes that keep sounding, ``new`` the keys starting now. Returns
-    (cents for held notes, cents for new notes), same order.
+    (cents for held notes, cents for new notes), same order. The moment ``t`` and
+    the ``part`` (input channel) the engine also gives are not needed here: live
+    tuning knows only what sounds now, whoever plays it.
     """
 
     def __init__(self, config: Optional[AdaptiveConfig] = None, reference: Optional[Tuning] = None):
@@ -521,7 +533,8 @@ class AdaptiveSolver:
         return D, self._tau0[D].copy(), self._w[D].copy()
 
     # -- public ---------------------------------------------------------------
-    def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int]) -> tuple[list[float], list[float]]:
+    def solve(self, held: Sequence[tuple[int, float]], new: Sequence[int], *, t: Optional[float] = None,
+              part: Optional[int] = None) -> tuple[list[float], list[float]]:
         """Pitches (cents above key 0 of 12-EDO) for the held notes and the new ones.
 
         Never raises on a numerical failure: held notes then keep their pitch and

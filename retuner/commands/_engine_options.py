@@ -13,6 +13,8 @@ import argparse
 from fractions import Fraction
 from typing import Any
 
+from retuner.engine.outputs import MODES
+
 ADAPTIVE_OPTIONS = ("policy", "chord_window", "max_drift", "max_motion", "limit", "centre")
 
 
@@ -58,9 +60,8 @@ def _byte(text: str) -> int:
 
 def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     g = parser.add_argument_group("engine")
-    g.add_argument("--mode", choices=("pool", "mpe", "mts"),
-                   help="pool: per-note pitch bend on a pool of channels (default); mpe: MPE zone; "
-                        "mts: MIDI Tuning Standard (notes stay on their channels)")
+    g.add_argument("--mode", choices=tuple(MODES),
+                   help="; ".join(f"{name}: {mode.summary}" for name, mode in MODES.items()))
     g.add_argument("--pool", type=channel_list, metavar="LIST",
                    help="pool channels, e.g. 1-9,11-16 (default: all but the passthrough channels)")
     g.add_argument("--passthrough", type=channel_list, metavar="LIST",
@@ -126,7 +127,8 @@ def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]
     if getattr(args, "mts_non_realtime", None):
         eng["mts_realtime"] = False
     if getattr(args, "bend_range", None) is not None:
-        eng["mpe_member_range" if getattr(args, "mode", None) == "mpe" else "bend_range"] = args.bend_range
+        mode = MODES.get(getattr(args, "mode", None))
+        eng[mode.bend_range_field if mode else "bend_range"] = args.bend_range
     if "passthrough" in eng and "pool" not in eng:
         eng["pool"] = [c for c in range(1, 17) if c not in eng["passthrough"]]
     adaptive = {k: getattr(args, k) for k in ADAPTIVE_OPTIONS if getattr(args, k, None) is not None}

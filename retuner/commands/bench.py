@@ -20,7 +20,8 @@ DESCRIPTION = (
 def add_arguments(parser):
     parser.add_argument("--profile", default="meantone-quarter", metavar="ID",
                         help="profile id or path (default meantone-quarter)")
-    parser.add_argument("--mode", choices=MODES, default="pool", help="output mode (default pool)")
+    parser.add_argument("--mode", choices=tuple(MODES), default=EngineConfig.mode,
+                        help=f"output mode (default {EngineConfig.mode})")
     parser.add_argument("--adaptive", action="store_true", help="adaptive mode with default settings")
     parser.add_argument("--performance", default="generated", metavar="NAME",
                         help="what to play: 'generated' (default) or a progression name")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import sys
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir
 from retuner.commands._engine_options import add_engine_arguments, build_engine_config, engine_overrides
@@ -84,7 +85,7 @@ def run(args) -> int:
     res = files.convert_file(args.input, args.output, opts)
     if res.split:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
-        why = ("in MPE mode a port holds two parts (one per zone)" if opts.config.mode == "mpe"
+        why = ("in MPE mode a port holds two parts (one per zone)" if MODES[opts.config.mode].zone_per_part
                else "the parts need more channels than the pool has")
         print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own",
               file=sys.stderr)

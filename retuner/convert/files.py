@@ -85,6 +85,7 @@ from typing import Any, Callable, Iterable, Optional, Sequence
 import mido
 from mido.messages.messages import Message
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 
@@ -531,8 +532,10 @@ def note_channels(merged: Sequence) -> set[int]:
     return out
 
 
-def _make_engine(tuning, config):
+def _make_engine(tuning, config, plan=None):
     from retuner.engine.core import Engine
+    if plan is not None:    # a lookahead plan plays through the engine as its solver
+        return Engine(tuning, plan.engine_config(config), solver=plan.solver_factory(config))
     return Engine(tuning, config)
 
 
@@ -545,8 +548,8 @@ class _Group:
         self.channels = channels
 
 
-def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, passthrough: frozenset,
-           hooks=None) -> list[tuple[list, int]]:
+def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group,
+           passthrough: frozenset) -> list[tuple[list, int]]:
     """Feed the group's engines with the file's events on the file's clock; return output tracks."""
     ntr = len(song.tracks)
     outs: list[list] = [[] for _ in range(ntr)]
@@ -565,7 +568,6 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         outs[ti].extend((0, to_raw(m)) for m in e.start(0.0))
     timed = [e for e in engines if e.adaptive]          # only adaptive engines have deadlines
     last_tick = 0
-    feed_hook = hooks.before_feed if hooks is not None else None
     for idx, (tick, ti, kind, raw) in enumerate(merged):
         t = secs[idx]
         if timed:
@@ -587,8 +589,6 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         if e is None:
             continue  # a part written to another file
         msg = raw_to_message(raw)
-        if feed_hook is not None:
-            feed_hook(e, ch, tick, t, msg)
         res = e.feed(t, msg)
         if res:
             out = outs[ti]
@@ -701,12 +701,11 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     playing = note_channels(merged)
     parts = [p for p in all_parts if p in playing]
     quiet = [p for p in all_parts if p not in playing]
-    if config.mode == "mpe" and config.mpe_members is None and not any(
+    wide = MODES[config.mode].without_passthrough(config)
+    if wide is not config and not any(
             kind == CHANNEL and (raw[0] & 0x0F) in pas for _, _, kind, raw in merged):
-        # the zone stops short of the passthrough channels only to keep drums out of it: a file
-        # without drums gives the zone every channel (fewer ringing retunes)
-        config = config.replace(mpe_members=15)
-    if config.mode == "mts" or len(parts) <= 1 or merge:
+        config = wide
+    if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
     groups = _plan_note_groups(merged, parts, tuning, config, pas)
     first_parts, first_cfgs = groups[0]
@@ -717,7 +716,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
 
 
 def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int], dict]]:
-    if config.mode == "mpe":
+    if MODES[config.mode].zone_per_part:
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
         out = []
@@ -789,7 +788,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions) -> ConvertResu
     live = _render(song, merged, secs, groups, tuning, config, out_path, None)
     chosen = lookahead.choose(
         song, merged, secs, tuning, config, live,
-        lambda plan: _render(song, merged, secs, groups, tuning, config, out_path, plan))
+        lambda plan: _render(song, merged, secs, groups, tuning, config, out_path, plan), output_stream)
     res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
     res.lookahead = chosen.summary
     return res
@@ -806,14 +805,12 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
             cfg = cfgs[p]
             e = by_cfg.get(id(cfg))
             if e is None:
-                e = plan.engine(tuning, cfg) if plan is not None else _make_engine(tuning, cfg)
+                e = _make_engine(tuning, cfg, plan)
                 by_cfg[id(cfg)] = e
             engines[p] = e
-        channels = {p: list(cfgs[p].pool if cfgs[p].mode == "pool" else
-                            (range(16) if cfgs[p].mode == "mts" else cfgs[p].mpe_member_channels()))
-                    for p in parts}
+        channels = {p: MODES[cfgs[p].mode].part_channels(cfgs[p]) for p in parts}
         group = _Group(parts, engines, channels)
-        tracks = _drive(song, merged, secs, group, pas, hooks=plan)
+        tracks = _drive(song, merged, secs, group, pas)
         if plan is not None:
             plan.after_drive(song, tracks, group)
         data = serialize(song.format, song.header_division, tracks)

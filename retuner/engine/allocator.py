@@ -53,7 +53,7 @@ class Note:
     """One note the engine has accepted from the input."""
 
     __slots__ = ("in_ch", "in_key", "out_ch", "out_key", "velocity", "bend", "cents",
-                 "down", "sost", "alive", "pending", "t_on", "t_off", "dom")
+                 "down", "sost", "alive", "pending", "t_on", "t_off", "dom", "stale")
 
     def __init__(self, in_ch: int, in_key: int, velocity: int, t_on: float, dom: int):
         self.in_ch = in_ch
@@ -70,32 +70,74 @@ class Note:
         self.t_on = t_on
         self.t_off = NEG_INF      # when the player released it
         self.dom = dom            # pedal domain (0 in pool/MPE modes, input channel in MTS)
+        self.stale = False        # outlived a release of its key (its own note-off may be lost)
 
     def __repr__(self) -> str:  # pragma: no cover - debugging aid
         return (f"Note(in={self.in_ch}/{self.in_key} out={self.out_ch}/{self.out_key} "
                 f"bend={self.bend} down={self.down} alive={self.alive})")
 
 
-class Pool:
-    """State of the output channels of the pool (0-based channel numbers)."""
+class NoteTable:
+    """The notes sounding on each output channel (0-based channel numbers), and when
+    each channel last started and last stopped sounding."""
 
-    def __init__(self, channels: Iterable[int], release_time: float):
+    def __init__(self, channels: Iterable[int]):
         self.channels = list(channels)
-        self.release_time = float(release_time)
-        self.bend: dict[int, int] = {c: 8192 for c in self.channels}
         self.notes: dict[int, list[Note]] = {c: [] for c in self.channels}
         self.last_off: dict[int, float] = {c: NEG_INF for c in self.channels}
         self.last_on: dict[int, float] = {c: NEG_INF for c in self.channels}
 
     # -- queries -------------------------------------------------------------
-    def is_ringing(self, c: int, t: float) -> bool:
-        return not self.notes[c] and t - self.last_off[c] < self.release_time
-
     def busy(self) -> list[int]:
         return [c for c in self.channels if self.notes[c]]
 
     def sounding_count(self) -> int:
         return sum(len(v) for v in self.notes.values())
+
+    def sounding(self) -> list[Note]:
+        out: list[Note] = []
+        for c in self.channels:
+            out.extend(self.notes[c])
+        return out
+
+    # -- updates -------------------------------------------------------------
+    def add(self, c: int, note: Note, t: float) -> None:
+        self.notes[c].append(note)
+        self.last_on[c] = t
+
+    def remove(self, note: Note, t: float) -> None:
+        """The note stopped sounding at ``t``."""
+        ns = self.notes.get(note.out_ch)
+        if ns is None:
+            return
+        try:
+            ns.remove(note)
+        except ValueError:
+            return
+        if not ns:
+            self.last_off[note.out_ch] = t
+
+    def clear(self, t: Optional[float] = None) -> list[Note]:
+        """Forget every note; channels become ringing from ``t`` (or idle if None)."""
+        out: list[Note] = []
+        for c in self.channels:
+            if self.notes[c]:
+                out.extend(self.notes[c])
+                self.notes[c] = []
+                self.last_off[c] = NEG_INF if t is None else t
+        return out
+
+
+class Pool(NoteTable):
+    """The output channels of the pool: their notes, bends and ringing."""
+
+    def __init__(self, channels: Iterable[int], release_time: float):
+        super().__init__(channels)
+        self.release_time = float(release_time)
+        self.bend: dict[int, int] = {c: 8192 for c in self.channels}
+
+    def is_ringing(self, c: int, t: float) -> bool:
+        return not self.notes[c] and t - self.last_off[c] < self.release_time
 
     # -- choice --------------------------------------------------------------
     def choose(self, bend: int, out_key: int, t: float, share: bool) -> tuple[int, str]:
@@ -160,30 +202,3 @@ class Pool:
             return best_rel
         assert best_held is not None, "steal from an empty pool"
         return best_held
-
-    # -- updates -------------------------------------------------------------
-    def add(self, c: int, note: Note, t: float) -> None:
-        self.notes[c].append(note)
-        self.last_on[c] = t
-
-    def remove(self, note: Note, t: float) -> None:
-        """The note stopped sounding at ``t``."""
-        ns = self.notes.get(note.out_ch)
-        if ns is None:
-            return
-        try:
-            ns.remove(note)
-        except ValueError:
-            return
-        if not ns:
-            self.last_off[note.out_ch] = t
-
-    def clear(self, t: Optional[float] = None) -> list[Note]:
-        """Forget every note; channels become ringing from ``t`` (or idle if None)."""
-        out: list[Note] = []
-        for c in self.channels:
-            if self.notes[c]:
-                out.extend(self.notes[c])
-                self.notes[c] = []
-                self.last_off[c] = NEG_INF if t is None else t
-        return out

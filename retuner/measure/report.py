@@ -26,6 +26,7 @@ import json
 import math
 from typing import Optional
 
+from retuner.engine.outputs import MODES
 from retuner.measure import metrics
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
@@ -180,7 +181,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
             for c in chans:
                 part_of.setdefault(c, p)
         for n in dec.notes:
-            p = part_of.get(n.channel, n.channel) if config.mode != "mts" else n.channel
+            p = part_of.get(n.channel, n.channel) if not MODES[config.mode].keeps_input_channels else n.channel
             col_i = parts_seen.setdefault(p, len(parts_seen))
             colour = cmap(col_i % 10)
             end = n.end if n.end is not None else n.start

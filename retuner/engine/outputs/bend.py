@@ -1,0 +1,228 @@
+"""What the two per-note-bend modes (pool and MPE) share: a pool of output
+channels, each note on a channel bent to give it its exact pitch.
+
+Channel choice, sharing, ringing and the steal policy are the allocator's
+(:mod:`retuner.engine.allocator`); the bend formula is :mod:`retuner.midi.encode`'s.
+
+* A note plays from its own key when its offset from that key's 12-EDO pitch is
+  within the bend range; otherwise from the **nearest key** to its target
+  (``round(cents / 100)``, kept within 0..127), bent by the remainder. Only a
+  target below key 0 or above key 127 by more than the range is clamped.
+* A bend is sent only when a channel's bend value changes.
+* Note-offs go to the channel and key the note was sent on; polyphonic pressure
+  to the note's channel.
+* Synth correction: ``bend_scale`` (a synth playing bends at 127/128 of their
+  size gets bends 128/127 larger) and ``whole_semitone_range`` (for synths that
+  ignore the cents part of RPN 0: the range is rounded to whole semitones and
+  sent without CC38). To measure ``bend_scale``: play one key unbent and with
+  the full upward bend at a known range, measure both pitches, and divide the
+  measured interval by the specified one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, ClassVar, Optional, Sequence
+
+import mido
+
+from retuner.midi import encode as E
+from retuner.engine.allocator import RINGING, STEAL, Note, Pool
+from retuner.engine.outputs.base import OutputMode, effective_range
+
+
+@dataclass(frozen=True)
+class BendSettings:
+    """Settings of a per-note-bend mode (semitones and seconds, as in the config)."""
+
+    channels: tuple[int, ...]        # the pool's output channels
+    bend_range: float                # semitones, announced with RPN 0 on the pool's channels
+    release_time: float
+    bend_scale: float
+    whole_semitone_range: bool
+    share_channels: bool
+
+
+class BendMode(OutputMode):
+    """Each note on a channel of the pool, bent to its pitch (see the module docstring)."""
+
+    settings_class: ClassVar[type] = BendSettings
+    #: the pedals live on one channel the pool's members do not carry (MPE's manager):
+    #: a steal silences the member alone with all-sound-off
+    pedals_apart: ClassVar[bool] = False
+
+    def __init__(self, config: Any, inputs: Any, stats: dict):
+        super().__init__(config, inputs, stats)
+        self.settings = s = self.settings_class.from_config(config)
+        self.range_cents = effective_range(s.bend_range, s.whole_semitone_range)
+        self.scale = s.bend_scale
+        self.share = s.share_channels
+        self.table = self.pool = Pool(s.channels, s.release_time)
+        self.sent: dict[int, Optional[int]] = {c: None for c in range(16)}
+        self.wheel_units = 0      # the player's wheel in output bend steps (added to every channel)
+
+    # ------------------------------------------------------------------ pitches
+    def place(self, cents: float, key: int) -> tuple[int, int]:
+        rng, sc = self.range_cents, self.scale
+        off = cents - 100.0 * key
+        if E.reachable(off, rng, sc):
+            return key, E.bend_value(off, rng, sc)
+        k = min(127, max(0, int(round(cents / 100.0))))
+        return k, E.bend_value(cents - 100.0 * k, rng, sc)
+
+    def sounding_cents(self, note: Note) -> float:
+        return 100.0 * note.out_key + E.bend_cents(note.bend, self.range_cents * self.scale)
+
+    def send_bend(self, c: int, out: list, force: bool = False) -> None:
+        v = self.pool.bend[c] + self.wheel_units
+        if v < 0:
+            v = 0
+        elif v > 16383:
+            v = 16383
+        if force or self.sent[c] != v:
+            self.sent[c] = v
+            out.append(E.pitchwheel(c, v))
+            self.stats["bends_sent"] += 1
+
+    def centre_pool(self, out: list) -> None:
+        """Set-up: every pool channel's bend at centre, sent."""
+        for c in self.pool.channels:
+            self.pool.bend[c] = E.BEND_CENTRE
+            self.sent[c] = None
+            self.send_bend(c, out, force=True)
+
+    # ------------------------------------------------------------------ notes
+    def sound(self, t: float, note: Note, out: list, share: Optional[bool] = None) -> None:
+        """Strike ``note`` on a channel of the pool (shared with notes of the same bend
+        when ``share``, by default the mode's setting)."""
+        pool = self.pool
+        c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share)
+        if kind is STEAL:
+            self.steal(c, t, out)
+        elif kind is RINGING:
+            self.stats["ringing_retunes"] += 1
+        pool.bend[c] = note.bend
+        self.send_bend(c, out)
+        note.out_ch = c
+        pool.add(c, note, t)
+        out.append(E.note_on(c, note.out_key, note.velocity))
+        self.stats["note_ons_out"] += 1
+
+    def sound_solved(self, t: float, held: Sequence[Note], held_cents: Sequence[float],
+                     new: Sequence[Note], new_cents: Sequence[float], out: list) -> None:
+        pool = self.pool
+        for n, c in zip(held, held_cents):
+            c = float(c)
+            if c == n.cents:
+                continue
+            if len(pool.notes[n.out_ch]) > 1:
+                continue  # shared channel (from static mode): cannot move one note alone
+            n.cents = c
+            b = E.bend_value(c - 100.0 * n.out_key, self.range_cents, self.scale)
+            if b != n.bend:
+                n.bend = b
+                pool.bend[n.out_ch] = b
+                self.send_bend(n.out_ch, out)
+        for n, c in zip(new, new_cents):
+            n.cents = float(c)
+            n.out_key, n.bend = self.place(n.cents, n.in_key)
+            self.sound(t, n, out, False)
+
+    def steal(self, c: int, t: float, out: list) -> None:
+        """Silence every note on channel ``c``: note-offs first; pedalled notes
+        are let go by lifting the pedal on this channel alone (and pressing it
+        again, for notes to come, when the pedal is still down), or with
+        all-sound-off on this channel alone when the pedals live elsewhere."""
+        pool = self.pool
+        sustain, sostenuto = self.inputs.sustain, self.inputs.sostenuto
+        ns = pool.notes[c]
+        sus = sost = False
+        for n in ns:
+            if n.down:
+                out.append(E.note_off(c, n.out_key, 0))
+                # it stays in its press queue (dead): the player's note-off for it will
+                # come and must not be taken for a later press of the same key
+            # a pedal down would keep the note sounding after its note-off
+            if sustain.get(n.dom):
+                sus = True
+            if n.sost and sostenuto.get(n.dom):
+                sost = True
+            n.alive = False
+            self.stats["steals"] += 1
+        if self.pedals_apart and (sus or sost):
+            out.append(E.control_change(c, E.CC_ALL_SOUND_OFF, 0))
+            sus = sost = False
+        if sus:
+            out.append(E.control_change(c, E.CC_SUSTAIN, 0))
+        if sost:
+            out.append(E.control_change(c, E.CC_SOSTENUTO, 0))
+        if sus:
+            out.append(E.control_change(c, E.CC_SUSTAIN, 127))
+        if sost:
+            out.append(E.control_change(c, E.CC_SOSTENUTO, 127))
+        pool.notes[c] = []
+        pool.last_off[c] = t
+
+    def note_off(self, note: Note, msg: mido.Message) -> mido.Message:
+        m = E.with_channel(msg, note.out_ch)
+        vars(m)["note"] = note.out_key
+        return m
+
+    # ------------------------------------------------------------------ controllers
+    def channel_mode(self, dom: int, msg: mido.Message) -> list[mido.Message]:
+        return E.on_channels(msg, self.all_channels())
+
+    def resend_bends(self, t: float, out: list) -> None:
+        """Send the bend of every busy or ringing channel (if it changed)."""
+        for c in self.pool.channels:
+            if self.pool.notes[c] or self.pool.is_ringing(c, t):
+                self.send_bend(c, out)
+
+    def released(self) -> None:
+        for c in self.all_channels():
+            self.sent[c] = E.BEND_CENTRE
+            if c in self.pool.bend:
+                self.pool.bend[c] = E.BEND_CENTRE
+
+    def output_lost(self) -> None:
+        self.sent = {c: None for c in range(16)}
+
+    # ------------------------------------------------------------------ settings
+    def reconfigure(self, config: Any, old: Any, t: float, out: list) -> None:
+        """A changed bend range is announced again and the sounding notes keep their pitch."""
+        s = self.settings_class.from_config(config)
+        self.settings = s
+        self.pool.release_time = s.release_time
+        self.scale = s.bend_scale
+        self.share = s.share_channels
+        new_range = effective_range(s.bend_range, s.whole_semitone_range)
+        range_changed = new_range != self.range_cents or config.whole_semitone_range != old.whole_semitone_range
+        self.range_cents = new_range
+        self.wheel_changed()
+        if range_changed:
+            for c in self.range_channels():
+                out += E.bend_range_rpn(c, self.range_cents, s.whole_semitone_range)
+        self.reconfigure_extra(config, old, range_changed, out)
+        pool = self.pool
+        for c in pool.channels:
+            ns = pool.notes[c]
+            if ns:
+                n = ns[0]
+                b = E.bend_value(n.cents - 100.0 * n.out_key, self.range_cents, self.scale)
+                for m in ns:
+                    m.bend = b
+                pool.bend[c] = b
+            elif range_changed:
+                pool.bend[c] = E.bend_value(
+                    E.bend_cents(pool.bend[c], self.range_cents), self.range_cents, self.scale)
+            if ns or pool.is_ringing(c, t):
+                self.send_bend(c, out)
+            else:
+                self.sent[c] = None if range_changed else self.sent[c]
+
+    def range_channels(self) -> list[int]:
+        """The channels that get the pool's bend range with RPN 0."""
+        return list(self.pool.channels)
+
+    def reconfigure_extra(self, config: Any, old: Any, range_changed: bool, out: list) -> None:
+        """What a mode adds to a light reconfiguration after the bend range is announced."""
