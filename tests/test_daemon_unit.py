@@ -120,3 +120,21 @@ def test_run_help_lists_the_options():
     for opt in ("--config", "--profile", "--backend", "--input", "--output", "--virtual", "--mode",
                 "--pool", "--bend-range", "--release-time", "--bend-scale", "-v"):
         assert opt in r.stdout
+
+
+def test_start_limit_survives_a_late_sound_server():
+    """systemd.unit(5): StartLimitIntervalSec= and StartLimitBurst= belong to [Unit]; more than Burst
+    starts within the interval stop the unit (start-limit-hit). systemd.service(5): RestartSec= is the
+    pause before a restart. Defaults from systemd-system.conf(5): DefaultStartLimitIntervalSec=10s,
+    DefaultStartLimitBurst=5."""
+    unit, service = _unit()["Unit"], _unit()["Service"]
+    assert "StartLimitIntervalSec" not in service and "StartLimitBurst" not in service
+    interval = float(unit.get("StartLimitIntervalSec", ["10"])[0])
+    burst = int(unit.get("StartLimitBurst", ["5"])[0])
+    pause = float(service["RestartSec"][0])
+    assert interval > 0 and burst > 0                     # 0 would switch the limit off: endless loop
+    # a unit failing at once is started every `pause` seconds: it keeps retrying for (burst - 1) * pause
+    retrying_for = (burst - 1) * pause
+    assert retrying_for >= 120, retrying_for              # a sound server two minutes late is caught
+    # ... and the limit still stops a unit that can never start: more than `burst` starts fit the interval
+    assert interval / pause + 1 > burst
