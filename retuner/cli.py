@@ -52,6 +52,8 @@ def build_parser() -> argparse.ArgumentParser:
         description="Give every MIDI note the exact pitch of a tuning: live, or in MIDI files.",
     )
     parser.add_argument("--version", action="version", version=f"retuner {__version__}")
+    # the whole parser, for the commands that write the man page and the shell completion from it
+    parser.set_defaults(_parser=parser)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for mod in _command_modules():
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
