@@ -14,6 +14,7 @@ import re
 import shlex
 import shutil
 import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -125,3 +126,19 @@ def test_without_root_and_without_sudo_the_command_stops_at_once(tmp_path):
                        text=True, timeout=30)
     assert r.returncode == 127 and "sudo" in r.stderr                  # bash: sudo: command not found
     assert not (tmp_path / VENV).exists()
+
+
+def test_man_page_and_completion_block_runs_as_written(tmp_path):
+    start = README.index("The man page and bash completion are written from the options themselves")
+    block = re.search(r"```sh\n(.*?)\n```", README[start:], re.S).group(1)
+    work = tmp_path / "clone"
+    (work / VENV / "bin").mkdir(parents=True)
+    os.symlink(Path(sys.executable).with_name("retuner"), work / VENV / "bin" / "retuner")
+    env = dict(os.environ, HOME=str(tmp_path))
+    r = subprocess.run(["bash", "-euo", "pipefail", "-c", block], cwd=work, env=env, capture_output=True,
+                       text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    page = (tmp_path / ".local/share/man/man1/retuner.1").read_text()
+    assert page.startswith(".TH RETUNER 1 ")
+    completion = (tmp_path / ".local/share/bash-completion/completions/retuner").read_text()
+    assert "complete -o filenames -F _retuner retuner" in completion
