@@ -108,6 +108,8 @@ c.close()
 def test_the_wheels_own_jack_does_not_reach_pipewire_and_preloading_pipewires_does(pipewire):
     env, preload = pipewire
     r = _retuner(env, "ports", "--backend", "jack")
+    assert r.returncode != 0, ("the wheel's libjack reached a server without help: is a jackd with the "
+                               "default name running on this machine? " + r.stdout)
     assert r.returncode == 1 and "JACK server not running" in r.stderr, r.stderr
     pw_jack = shutil.which("pw-jack")
     assert pw_jack, "pw-jack is missing (it comes with pipewire-jack)"
