@@ -95,6 +95,16 @@ def _option_tag(opt: Option) -> str:
     return flags
 
 
+ENVIRONMENT = [
+    ("XDG_CONFIG_HOME", "where the config and your own profiles are (default ~/.config)."),
+    ("XDG_RUNTIME_DIR", "where the control socket is."),
+    ("JACK_DEFAULT_SERVER", "the JACK server to use (--backend jack), when it is not the default one."),
+    ("JOURNAL_STREAM", "set by systemd when standard error goes to the journal: the log then drops its "
+                       "time stamps and marks each line's priority."),
+    ("NOTIFY_SOCKET", "set by systemd for a Type=notify service: the daemon reports ready and pings the "
+                      "watchdog there."),
+]
+
 EXIT_STATUS = [
     ("0", "success."),
     ("1", "something retuner needs is not there (yet): the MIDI system, a running daemon; in a folder "
@@ -146,6 +156,9 @@ def man_page(parser: argparse.ArgumentParser, version: str) -> str:
     out.append(".SH FILES")
     for path, text in FILES:
         out += [".TP", f"\\fI{_roff(path)}\\fR", _roff(text)]
+    out.append(".SH ENVIRONMENT")
+    for var, text in ENVIRONMENT:
+        out += [".TP", f"\\fB{var}\\fR", _roff(text)]
     out.append(".SH EXIT STATUS")
     for status, text in EXIT_STATUS:
         out += [".TP", f"\\fB{status}\\fR", _roff(text)]

@@ -56,7 +56,7 @@ def test_man_page_has_every_command_and_option(rendered):
             assert "retuner " + " ".join(path) in lines, path          # a heading of its own
         for flag in _flags(parser):
             assert any(line.startswith(flag) or f", {flag}" in line for line in lines), (path, flag)
-    for section in ("NAME", "SYNOPSIS", "DESCRIPTION", "COMMANDS", "FILES", "EXIT STATUS"):
+    for section in ("NAME", "SYNOPSIS", "DESCRIPTION", "COMMANDS", "FILES", "ENVIRONMENT", "EXIT STATUS"):
         assert section in lines
 
 
