@@ -19,6 +19,8 @@ from pathlib import Path
 
 import pytest
 
+from retuner.cli import build_parser
+
 REPO = Path(__file__).resolve().parent.parent
 README = (REPO / "README.md").read_text()
 PREFIX = 'S=$(test "$(id -u)" = 0 || echo sudo)'
@@ -142,3 +144,17 @@ def test_man_page_and_completion_block_runs_as_written(tmp_path):
     assert page.startswith(".TH RETUNER 1 ")
     completion = (tmp_path / ".local/share/bash-completion/completions/retuner").read_text()
     assert "complete -o filenames -F _retuner retuner" in completion
+
+
+def test_jack_block_starts_the_server_the_tests_use_and_the_command_parses():
+    start = README.index("use a JACK server; with no sound")
+    block = re.search(r"```sh\n(.*?)\n```", README[start:], re.S).group(1).splitlines()
+    assert block[0].startswith("$S apt-get install ") and "jackd2" in block[0].split()
+    # the same dummy-driver server the JACK tests start (tests/jack.py), under the default name
+    jackd = shlex.split(block[1])
+    assert jackd[0] == "jackd" and jackd[-1] == "&"
+    assert {"--no-realtime", "-d"} <= set(jackd) and jackd[jackd.index("-d") + 1] == "dummy"
+    retuner = shlex.split(block[2])
+    assert retuner[0] == f"{VENV}/bin/retuner"
+    args = build_parser().parse_args(retuner[1:])              # parses with the live options
+    assert args.command == "run" and args.backend == "jack" and args.virtual
