@@ -67,7 +67,7 @@ def test_venv_paths_match_across_the_readme():
         assert f"python3 -m venv {VENV} " in cmd, which
     used = set(re.findall(r"([\w$./~-]*venv[\w-]*)/bin/", README))
     assert used and {u.removeprefix("$PWD/") for u in used} == {VENV}, used
-    assert f".{VENV[1:]}/" in (REPO / ".gitignore").read_text()       # the venv is never committed
+    assert f"{VENV}/" in (REPO / ".gitignore").read_text()       # the venv is never committed
     # the user unit is pointed at the same venv
     assert f'ExecStart=$PWD/{VENV}/bin/retuner run' in README
 
@@ -84,7 +84,7 @@ def _fake_bin(tmp_path: Path, uid: int, with_sudo: bool) -> tuple[dict, Path]:
         p.write_text("#!/bin/bash\n" + record + body)
         p.chmod(0o755)
 
-    script("id", f'[ "$1" = -u ] && echo "$FAKE_UID"\n')
+    script("id", '[ "$1" = -u ] && echo "$FAKE_UID"\n')
     script("apt-get", '[ "$FAKE_UID" = 0 ] || { echo "apt-get: are you root?" >&2; exit 100; }\n')
     if with_sudo:
         script("sudo", 'FAKE_UID=0 exec env "$@"\n')      # sudo takes VAR=value too
