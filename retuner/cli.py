@@ -9,7 +9,10 @@ A command module defines::
     def run(args) -> int: ...  # exit status
 
 Errors a user can cause are raised as :class:`retuner.errors.RetunerError` and
-printed here as one line with exit status 2.
+printed here as one line with exit status 2; something outside that is not there
+(the MIDI system, the daemon) is :class:`retuner.errors.Unavailable`, status 1.
+The exit status is decided here only, so every command gives the same one for
+the same error.
 """
 
 from __future__ import annotations
@@ -21,7 +24,7 @@ import sys
 
 from retuner import __version__
 from retuner import commands as _commands_pkg
-from retuner.errors import RetunerError
+from retuner.errors import RetunerError, Unavailable
 
 
 def _command_modules():
@@ -49,12 +52,24 @@ def build_parser() -> argparse.ArgumentParser:
         description="Give every MIDI note the exact pitch of a tuning: live, or in MIDI files.",
     )
     parser.add_argument("--version", action="version", version=f"retuner {__version__}")
+    # the whole parser, for the commands that write the man page and the shell completion from it
+    parser.set_defaults(_parser=parser)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for mod in _command_modules():
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
         mod.add_arguments(p)
         p.set_defaults(_run=mod.run)
     return parser
+
+
+def exit_status(exc: RetunerError) -> int:
+    """The exit status for an error: 2 for a mistake, 1 for something that is not there (yet)."""
+    if exc.field == "backend" and exc.file is None and not isinstance(exc, Unavailable):
+        # retuner.live.ports reports a MIDI system it cannot open as a plain error on the field
+        # "backend" (a backend named in a config file comes with the file, and the options only
+        # offer known backends): that is the MIDI system not being there, not a mistake
+        return Unavailable.exit_status
+    return exc.exit_status
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -67,7 +82,7 @@ def main(argv: list[str] | None = None) -> int:
         return int(args._run(args) or 0)
     except RetunerError as exc:
         print(f"retuner: {exc}", file=sys.stderr)
-        return 2
+        return exit_status(exc)
     except BrokenPipeError:
         return 0
     except KeyboardInterrupt:

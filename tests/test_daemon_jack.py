@@ -34,7 +34,7 @@ from jack import Daemon, NotifySocket, TestClient, decode
 FIFTH = 1200 * math.log2(3 / 2)
 PYTH_COMMA = 1200 * math.log2(3 ** 12 / 2 ** 19)
 SYNT_COMMA = 1200 * math.log2(81 / 80)
-LATENCY_FILE = "/tmp/retuner-jack-latency.json"
+LATENCY_FILE = f"/tmp/retuner-jack-latency-{os.getuid()}.json"   # per user: another may own the last one
 
 
 def chain_pitch_classes(start_pc: int, fifths: list[float]) -> dict[int, float]:

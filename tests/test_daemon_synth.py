@@ -13,6 +13,7 @@ piece in quarter-comma meantone, and the measured pitch of every note is within 
 from __future__ import annotations
 
 import json
+import os
 import random
 import time
 
@@ -22,7 +23,7 @@ from jack import decode
 from synth import cents, key_hz, measure_pitch, render, require_fluidsynth, write_midi
 from test_daemon_jack import MEANTONE, Run, note_offs, note_ons, runs  # noqa: F401 (fixture)
 
-ERRORS_FILE = "/tmp/retuner-synth-errors.json"
+ERRORS_FILE = f"/tmp/retuner-synth-errors-{os.getuid()}.json"   # per user: another may own the last one
 
 
 def test_fluidsynth_plays_the_daemons_meantone_within_1_5_cents(jack_server, jack_client, tmp_path, runs):

@@ -7,12 +7,12 @@ priorities from RFC 5424: 3 error, 4 warning, 6 info, 7 debug)."""
 
 from __future__ import annotations
 
-import io
 import logging
 import os
 import shutil
 import subprocess
 import sys
+import tempfile
 from pathlib import Path
 
 import pytest
@@ -81,28 +81,34 @@ def test_systemd_analyze_verify(tmp_path):
     assert r.returncode != 0 or "notifyy" in (r.stdout + r.stderr)
 
 
-def _capture(environ, level="info", verbose=0):
+def _capture(environ, level="info", verbose=0, journal=False):
+    """The lines setup_logging writes to stderr; journal=True puts the stream's own device:inode in
+    $JOURNAL_STREAM, as systemd does for a stream connected to the journal (systemd.exec(5))."""
     from retuner.live import daemon
-    buf = io.StringIO()
     old = sys.stderr
-    sys.stderr = buf
-    try:
-        daemon.setup_logging(level, verbose, environ=environ)
-        log = logging.getLogger("retuner.test")
-        log.debug("per-event line")
-        log.info("status: fine")
-        log.warning("input gone")
-        log.error("reload failed")
-    finally:
-        sys.stderr = old
-        daemon.setup_logging("info", 0, environ={})
-    return buf.getvalue().splitlines()
+    with tempfile.TemporaryFile("w+") as err:
+        if journal:
+            st = os.fstat(err.fileno())
+            environ = dict(environ, JOURNAL_STREAM=f"{st.st_dev}:{st.st_ino}")
+        sys.stderr = err
+        try:
+            daemon.setup_logging(level, verbose, environ=environ)
+            log = logging.getLogger("retuner.test")
+            log.debug("per-event line")
+            log.info("status: fine")
+            log.warning("input gone")
+            log.error("reload failed")
+        finally:
+            sys.stderr = old
+            daemon.setup_logging("info", 0, environ={})
+        err.seek(0)
+        return err.read().splitlines()
 
 
 def test_journald_lines_have_priority_and_no_time_stamp():
-    lines = _capture({"JOURNAL_STREAM": "8:1234"})
+    lines = _capture({}, journal=True)
     assert lines == ["<6>status: fine", "<4>input gone", "<3>reload failed"]
-    lines = _capture({"JOURNAL_STREAM": "8:1234"}, verbose=1)
+    lines = _capture({}, verbose=1, journal=True)
     assert lines[0] == "<7>per-event line"
 
 
@@ -120,3 +126,21 @@ def test_run_help_lists_the_options():
     for opt in ("--config", "--profile", "--backend", "--input", "--output", "--virtual", "--mode",
                 "--pool", "--bend-range", "--release-time", "--bend-scale", "-v"):
         assert opt in r.stdout
+
+
+def test_start_limit_survives_a_late_sound_server():
+    """systemd.unit(5): StartLimitIntervalSec= and StartLimitBurst= belong to [Unit]; more than Burst
+    starts within the interval stop the unit (start-limit-hit). systemd.service(5): RestartSec= is the
+    pause before a restart. Defaults from systemd-system.conf(5): DefaultStartLimitIntervalSec=10s,
+    DefaultStartLimitBurst=5."""
+    unit, service = _unit()["Unit"], _unit()["Service"]
+    assert "StartLimitIntervalSec" not in service and "StartLimitBurst" not in service
+    interval = float(unit.get("StartLimitIntervalSec", ["10"])[0])
+    burst = int(unit.get("StartLimitBurst", ["5"])[0])
+    pause = float(service["RestartSec"][0])
+    assert interval > 0 and burst > 0                     # 0 would switch the limit off: endless loop
+    # a unit failing at once is started every `pause` seconds: it keeps retrying for (burst - 1) * pause
+    retrying_for = (burst - 1) * pause
+    assert retrying_for >= 120, retrying_for              # a sound server two minutes late is caught
+    # ... and the limit still stops a unit that can never start: more than `burst` starts fit the interval
+    assert interval / pause + 1 > burst

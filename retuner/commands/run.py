@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import sys
-
 from retuner.live import config as _config
 from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir
@@ -89,12 +87,4 @@ def run(args) -> int:
     setup_logging(s.log_level, args.verbose)
     daemon = Daemon(s, reload_settings=settings)
     daemon.verbose = args.verbose
-    try:
-        return daemon.run()
-    except RetunerError as exc:
-        if exc.field != "backend":
-            raise
-        # the MIDI system is not there (yet): not a mistake in the config, so exit status 1,
-        # which a service manager may retry (the unit's Restart=on-failure), unlike 2
-        print(f"retuner: {exc}", file=sys.stderr)
-        return 1
+    return daemon.run()
