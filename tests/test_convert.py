@@ -486,7 +486,7 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
     """Random parts (channels 1-4, notes on a grid of 120 ticks) plus drums: every note comes out
     at its ticks on its key with its profile pitch (targets from the profile here, checked against
     the definitions above for edo12 and meantone-quarter), drums untouched, in one file or split."""
-    from retuner.convert import files
+    from retuner.convert import conversion
     from retuner.engine.core import EngineConfig
     from retuner.profiles.profile import load_profile
 
@@ -509,7 +509,7 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
     src = tmp / "r.mid"
     mf.save(src)
     tuning = load_profile(profile)
-    res = files.convert_file(src, tmp / "o.mid", files.ConvertOptions(tuning, EngineConfig()))
+    res = conversion.convert_file(src, tmp / "o.mid", conversion.ConvertOptions(tuning, EngineConfig()))
     inp = input_notes(src)
     drums_in = [n for n in input_notes(src, exclude=()) if n[2] == 9]
     total = 0

@@ -1,4 +1,4 @@
-"""retuner.convert.files: the Standard MIDI File reader and writer, the tempo map, messages.
+"""retuner.smf: the Standard MIDI File reader and writer, the tempo map, messages.
 
 Sources: "Standard MIDI Files 1.0" (MIDI Manufacturers Association, 1988/1996): header and
 track chunks, variable-length quantities (its table of examples), running status, meta events
@@ -13,7 +13,10 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from data import midigen
-from retuner.convert import files
+from retuner.convert import conversion
+from retuner.smf import messages
+from retuner.smf import reader
+from retuner.smf import writer
 from retuner.errors import RetunerError
 
 # SMF 1.0, "Variable Length Quantities": number -> bytes (the specification's own examples)
@@ -26,8 +29,8 @@ VLQ_EXAMPLES = [(0x00, "00"), (0x40, "40"), (0x7F, "7F"), (0x80, "81 00"), (0x20
 @pytest.mark.parametrize("n,hexbytes", VLQ_EXAMPLES)
 def test_variable_length_quantities_as_the_specification_lists_them(n, hexbytes):
     b = bytes.fromhex(hexbytes)
-    assert files.varlen(n) == b
-    assert files._varlen(b, 0, len(b), str) == (n, len(b))
+    assert writer.varlen(n) == b
+    assert reader.read_varlen(b, 0, len(b), str) == (n, len(b))
 
 
 def _smf(fmt, div, *tracks, ntrks=None):
@@ -46,18 +49,18 @@ def test_running_status_sysex_escapes_and_alien_chunks():
             b"\x20\x3C\x00"              # running status is cancelled by sysex: a data byte now is bad
             )
     with pytest.raises(RetunerError) as ei:
-        files.parse_smf(_smf(0, 96, body + b"\x00\xFF\x2F\x00"), "rs.mid")
+        reader.parse_smf(_smf(0, 96, body + b"\x00\xFF\x2F\x00"), "rs.mid")
     assert "running status" in str(ei.value) and "rs.mid" in str(ei.value) and "track 1" in str(ei.value)
     good = body[:-3] + b"\x20\x80\x3C\x00\x00\x40\x00\x00\xFF\x2F\x00"
     data = _smf(0, 96, good)
     alien = b"XFIH" + (3).to_bytes(4, "big") + b"abc"
     data = data[:14] + alien + data[14:]
-    song = files.parse_smf(data, "ok.mid")
+    song = reader.parse_smf(data, "ok.mid")
     ev = song.tracks[0].events
     assert [(t, k, r.hex()) for t, k, r in ev] == [
-        (0, files.CHANNEL, "903c40"), (16, files.CHANNEL, "904040"),
-        (16, files.SYSEX, "f0057e7f0901f7"), (16, files.SYSEX, "f702f301"),
-        (48, files.CHANNEL, "803c00"), (48, files.CHANNEL, "804000")]
+        (0, reader.CHANNEL, "903c40"), (16, reader.CHANNEL, "904040"),
+        (16, reader.SYSEX, "f0057e7f0901f7"), (16, reader.SYSEX, "f702f301"),
+        (48, reader.CHANNEL, "803c00"), (48, reader.CHANNEL, "804000")]
 
 
 def test_sysex_and_meta_pass_through_conversion_byte_for_byte(tmp_path):
@@ -69,10 +72,10 @@ def test_sysex_and_meta_pass_through_conversion_byte_for_byte(tmp_path):
             b"\x00\xFF\x2F\x00")
     src = tmp_path / "s.mid"
     src.write_bytes(_smf(0, 96, body))
-    res = files.convert_file(src, tmp_path / "o.mid", files.ConvertOptions(
+    res = conversion.convert_file(src, tmp_path / "o.mid", conversion.ConvertOptions(
         __import__("retuner.pitch.tuning", fromlist=["Tuning"]).Tuning.equal12()))
-    out = files.parse_smf((tmp_path / "o.mid").read_bytes())
-    kept = [(t, r) for t, k, r in out.tracks[0].events if k != files.CHANNEL]
+    out = reader.parse_smf((tmp_path / "o.mid").read_bytes())
+    kept = [(t, r) for t, k, r in out.tracks[0].events if k != reader.CHANNEL]
     assert kept == [(0, b"\xFF\x03\x04Lead"), (0, b"\xF0\x05\x7E\x7F\x09\x01\xF7"),
                     (0, b"\xFF\x05\x03la!"), (96, b"\xFF\x06\x03End")]
     assert out.tracks[0].end_tick == 96
@@ -93,7 +96,7 @@ def test_sysex_and_meta_pass_through_conversion_byte_for_byte(tmp_path):
 ])
 def test_malformed_bytes_name_the_place(data, words):
     with pytest.raises(RetunerError) as ei:
-        files.parse_smf(data, "x.mid")
+        reader.parse_smf(data, "x.mid")
     msg = str(ei.value)
     assert words in msg and msg.startswith("x.mid")
     assert "\n" not in msg
@@ -102,7 +105,7 @@ def test_malformed_bytes_name_the_place(data, words):
 def test_tempo_map_agrees_with_pretty_midi(tmp_path):
     src = tmp_path / "hymn.mid"
     midigen.four_part_piece(src, type_=1)
-    song = files.read_smf(src)
+    song = reader.read_smf(src)
     pm = pretty_midi.PrettyMIDI(str(src))
     for tick in (0, 1, 479, 480, 12 * 480 - 1, 12 * 480, 12 * 480 + 1, 20000, 26 * 480):
         assert song.tempo_map.seconds(tick) == pytest.approx(pm.tick_to_time(tick), abs=1e-9)
@@ -115,11 +118,11 @@ def test_tempo_map_agrees_with_pretty_midi(tmp_path):
 def test_smpte_division_clock():
     # SMF 1.0: division with bit 15 set: -frames per second (two's complement) and ticks per frame
     div = ((256 - 25) << 8) | 40          # 25 fps, 40 ticks per frame = 1000 ticks per second
-    song = files.parse_smf(_smf(0, div, b"\x00\x90\x3C\x40\x87\x68\x80\x3C\x00\x00\xFF\x2F\x00"))
+    song = reader.parse_smf(_smf(0, div, b"\x00\x90\x3C\x40\x87\x68\x80\x3C\x00\x00\xFF\x2F\x00"))
     assert song.smpte
     assert song.tempo_map.seconds(1000) == pytest.approx(1.0)
     assert song.tempo_map.seconds(1000) == song.tempo_map.seconds(1000)  # tempo events do not apply
-    out = files.serialize(0, song.header_division, [(list((t, r) for t, k, r in song.tracks[0].events), 1000)])
+    out = writer.serialize(0, song.header_division, [(list((t, r) for t, k, r in song.tracks[0].events), 1000)])
     assert out[12:14] == div.to_bytes(2, "big")
 
 
@@ -135,8 +138,8 @@ _channel_msg = st.one_of(
 @given(st.lists(st.tuples(st.integers(0, 5000), _channel_msg), max_size=60), st.integers(1, 0x7FFF))
 def test_writer_and_reader_round_trip_and_agree_with_mido(evs, tpb):
     evs = sorted(evs, key=lambda e: e[0])
-    data = files.serialize(1, tpb, [([], 0), (evs, (evs[-1][0] if evs else 0) + 10)])
-    song = files.parse_smf(data)
+    data = writer.serialize(1, tpb, [([], 0), (evs, (evs[-1][0] if evs else 0) + 10)])
+    song = reader.parse_smf(data)
     assert [(t, r) for t, k, r in song.tracks[1].events] == evs
     mf = mido.MidiFile(file=__import__("io").BytesIO(data))
     assert mf.ticks_per_beat == tpb and len(mf.tracks) == 2
@@ -149,5 +152,5 @@ def test_writer_and_reader_round_trip_and_agree_with_mido(evs, tpb):
     assert got == evs
     # raw -> mido message -> raw is the identity
     for _, r in evs:
-        m = files.raw_to_message(r)
-        assert bytes(m.bytes()) == r and files.message_to_raw(m) == r
+        m = messages.raw_to_message(r)
+        assert bytes(m.bytes()) == r and messages.message_to_raw(m) == r

@@ -113,7 +113,7 @@ class _Note:
 def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
     """Notes of the file with their sounding times (sustain pedal honoured; FIFO note-off matching
     per channel and key, as the engine does)."""
-    from retuner.convert.files import CHANNEL
+    from retuner.smf.reader import CHANNEL
     notes: list[_Note] = []
     fifo: dict[tuple[int, int], list] = {}
     pedal: dict[int, bool] = {}
@@ -665,7 +665,7 @@ class Chosen:
 def measure_outputs(outputs, config) -> dict:
     """Impurity, motion per note and maximum drift of the output files, decoded from their bytes
     (the notes of all files of a split arrangement together)."""
-    from retuner.convert import files
+    from retuner.smf import messages as files
     from retuner.measure import metrics
     notes = []
     for o in outputs:

@@ -31,6 +31,10 @@ from typing import Iterable, Optional, Sequence
 
 import mido
 
+from retuner.engine.core import Engine, EngineConfig
+from retuner.engine.drive import play
+from retuner.pitch.tuning import Tuning
+
 Event = tuple[float, mido.Message]
 
 # -- block-chord progressions -------------------------------------------------
@@ -457,25 +461,8 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
 
 def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, mode: str = "pool"):
     """Play events through a fresh engine (as the daemon would) and return its output stream."""
-    from retuner.engine.core import Engine, EngineConfig
-    from retuner.pitch.tuning import Tuning
-
     eng = Engine(tuning or Tuning.equal12(), EngineConfig(mode=mode, adaptive=adaptive))
-    out: list[Event] = [(0.0, m) for m in eng.start(0.0)]
-    for t, m in events:
-        d = eng.next_deadline()
-        while d is not None and d <= t:
-            out += [(d, x) for x in eng.tick(d)]
-            d = eng.next_deadline()
-        out += [(t, x) for x in eng.feed(t, m)]
-    d = eng.next_deadline()
-    while d is not None:
-        out += [(d, x) for x in eng.tick(d)]
-        d2 = eng.next_deadline()
-        if d2 is not None and d2 <= d:
-            break
-        d = d2
-    return out
+    return play(eng, events)
 
 
 def _figures(stream) -> dict:

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from retuner.bench.timing import JSON_KEYS, measure, performance, performance_names
+from retuner.bench.files import convert_speed_bench
+from retuner.bench.performance import performance, performance_names
+from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig, MODES
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
@@ -38,14 +40,27 @@ def add_arguments(parser):
 
 
 def _files_bench(args) -> int:
-    from retuner.convert.files import convert_speed_bench
     figs = convert_speed_bench(profile=args.profile, batch_events=40_000)
     if args.json:
         print_json(figs)
         return 0
+    g = figs["goals"]
     print(f"convert {figs['events']} events ({figs['profile']}): {figs['convert_s']:.3f} s; "
-          f"mido load+save {figs['mido_load_save_s']:.3f} s; ratio {figs['ratio']:.2f} (goal <= 2); "
-          f"{figs['events_per_s']} events/s")
+          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['ratio']:.2f} mido's time "
+          f"(goal <= {g['ratio']:g}); {figs['events_per_s']} events/s")
+    p = figs["piano"]
+    print(f"piano-like file of {p['events']} events, converted with its summary: "
+          f"{p['convert_with_summary_s']:.3f} s; mido load+save {p['mido_load_save_s']:.3f} s; "
+          f"x{p['ratio']:.2f} mido's time (goal <= {g['piano_ratio']:g})")
+    if "lookahead_s" in p:
+        print(f"  adaptive {p['adaptive_s']:.3f} s, with lookahead {p['lookahead_s']:.3f} s: "
+              f"x{p['lookahead_ratio']:.2f} (goal <= {g['lookahead_ratio']:g})")
+    if "big" in figs:
+        b = figs["big"]
+        state = "" if b["status"] == 0 else f" FAILED (exit {b['status']}: {b['error']})"
+        print(f"retuner convert with its summary on {b['events']} events ({b['file_mb']} MB): "
+              f"{b['seconds']:.1f} s, peak RSS {b['peak_rss_mb']:.0f} MB "
+              f"(goal <= {g['big_peak_rss_mb']:g} MB){state}")
     b = figs["batch"]
     runs = ", ".join(f"{j} worker(s) {t:.2f} s (x{b['speedup'][j]:.2f})" for j, t in b["seconds_by_jobs"].items())
     print(f"batch of {b['files']} files x {b['events_per_file']} events on {b['cpus']} CPUs: {runs}")

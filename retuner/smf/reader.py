@@ -1,0 +1,284 @@
+"""Reading Standard MIDI Files, strictly and fast.
+
+Standard MIDI Files (type 0 and type 1; "Standard MIDI Files 1.0", MIDI Manufacturers
+Association) are parsed here byte by byte rather than with mido's reader, for two reasons: a
+malformed file must give one line that names the file and the place (track, byte offset or
+tick), and the parse must be fast. Every event is kept with its absolute tick and its exact
+bytes as they would stand in a file without running status.
+
+What a file can make us compute is bounded (:data:`LIMITS`): its size, its tracks and its
+events. A file over a limit is refused with one line naming the file and the place, before
+any work on it is done. Events that a general reader cannot read back are refused too rather
+than copied into an output: a Set Tempo that is not 3 bytes or is 0, a meta event shorter
+than its type's fixed length, events after a track's End of Track.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Callable, Optional, Sequence
+
+from retuner.errors import RetunerError
+from retuner.smf.tempo import TempoMap
+
+#: Status bytes of channel messages and their number of data bytes (MIDI 1.0).
+DATA_LEN = {0x80: 2, 0x90: 2, 0xA0: 2, 0xB0: 2, 0xC0: 1, 0xD0: 1, 0xE0: 2}
+META_TEMPO = 0x51
+META_END_OF_TRACK = 0x2F
+#: Meta event types with a fixed data length (SMF 1.0): sequence number (2, or 0 for "the
+#: track's position"), MIDI channel prefix, End of Track, Set Tempo, SMPTE offset, time
+#: signature, key signature. The port meta event (0x21, 1 byte) is common practice.
+META_LENGTHS = {0x00: (0, 2), 0x20: (1,), 0x21: (1,), 0x2F: (0,), 0x51: (3,), 0x54: (5,),
+                0x58: (4,), 0x59: (2,)}
+
+# event kinds
+CHANNEL, SYSEX, META = 0, 1, 2
+
+
+@dataclass(frozen=True)
+class Limits:
+    """What one file may make us compute. Each is far above what a piece of music needs
+    (a long piano piece holds some 100 000 events; General MIDI files a few dozen tracks)."""
+
+    file_bytes: int = 64 * 1024 * 1024
+    tracks: int = 1024
+    events: int = 4_000_000
+
+
+LIMITS = Limits()
+
+
+@dataclass
+class Track:
+    """One track: events as (tick, kind, raw bytes) in file order, plus its end tick.
+
+    Raw bytes are as the event appears in a file without running status:
+    channel messages with their status byte; system exclusive as F0/F7 + length
+    + data; meta events as FF type length data.
+    """
+
+    events: list = field(default_factory=list)
+    end_tick: int = 0
+
+
+@dataclass
+class Song:
+    path: str
+    format: int
+    division: int                 # ticks per quarter note (>0), or ticks per 1000 s for SMPTE
+    smpte: bool
+    tracks: list[Track]
+    header_division: int = 480    # the division field exactly as in the header
+    tempo_map: TempoMap = None  # type: ignore[assignment]
+
+    @property
+    def end_tick(self) -> int:
+        return max((t.end_tick for t in self.tracks), default=0)
+
+
+def read_varlen(data: bytes, pos: int, end: int, where: Callable[[int], str]) -> tuple[int, int]:
+    """A variable-length quantity at ``pos``: (value, position after it)."""
+    value = 0
+    for i in range(4):
+        if pos >= end:
+            raise RetunerError("truncated: a variable-length number runs past the end of the track",
+                               file=None, field=where(pos))
+        b = data[pos]
+        pos += 1
+        value = (value << 7) | (b & 0x7F)
+        if not b & 0x80:
+            return value, pos
+    raise RetunerError("bad variable-length number (more than 4 bytes)", field=where(pos - 4))
+
+
+def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget: int) -> Track:
+    """One MTrk body; at most ``budget`` events (else an error naming the place)."""
+    def where(pos: int) -> str:
+        return f"track {tno + 1}, byte {pos}"
+
+    def at(tick: int) -> str:
+        return f"track {tno + 1}, tick {tick}"
+
+    events: list = []
+    append = events.append
+    pos = start
+    tick = 0
+    running = 0
+    data_len = DATA_LEN
+    try:
+        while pos < end:
+            delta, pos = read_varlen(data, pos, end, where)
+            tick += delta
+            if pos >= end:
+                raise RetunerError("truncated: an event is missing after its delta time", field=where(pos))
+            if len(events) >= budget:
+                raise RetunerError(f"more than {LIMITS.events} events in the file (the limit)", field=at(tick))
+            status = data[pos]
+            if status == 0xFF:
+                if pos + 2 > end:
+                    raise RetunerError("truncated meta event", field=where(pos))
+                mtype = data[pos + 1]
+                length, p = read_varlen(data, pos + 2, end, where)
+                if p + length > end:
+                    raise RetunerError(f"meta event of {length} bytes runs past the end of the track",
+                                       field=where(pos))
+                fixed = META_LENGTHS.get(mtype)
+                if fixed is not None and length not in fixed:
+                    raise RetunerError(f"meta event FF {mtype:02X} has {length} data bytes, SMF 1.0 "
+                                       f"gives it {' or '.join(map(str, fixed))}", field=at(tick))
+                if mtype == META_END_OF_TRACK:
+                    pos = p + length
+                    if pos < end:
+                        extra, q = read_varlen(data, pos, end, where)
+                        raise RetunerError("events after End of Track (SMF 1.0: it is the last event "
+                                           "of a track)", field=at(tick + extra))
+                    break
+                if mtype == META_TEMPO and not int.from_bytes(data[p:p + 3], "big"):
+                    raise RetunerError("Set Tempo of 0 microseconds per quarter note", field=at(tick))
+                append((tick, META, data[pos:p + length]))
+                pos = p + length
+                running = 0  # SMF 1.0: meta and sysex events cancel running status
+            elif status == 0xF0 or status == 0xF7:
+                length, p = read_varlen(data, pos + 1, end, where)
+                if p + length > end:
+                    raise RetunerError(f"system exclusive of {length} bytes runs past the end of the track "
+                                       f"({end - p} bytes left)", field=where(pos))
+                append((tick, SYSEX, data[pos:p + length]))
+                pos = p + length
+                running = 0
+            elif status >= 0xF0:
+                raise RetunerError(f"status byte 0x{status:02X} is not allowed in a MIDI file", field=where(pos))
+            else:
+                if status & 0x80:
+                    running = status
+                    pos += 1
+                elif not running:
+                    raise RetunerError(f"data byte 0x{status:02X} without a status byte (bad running status)",
+                                       field=where(pos))
+                n = data_len[running & 0xF0]
+                if pos + n > end:
+                    raise RetunerError("truncated channel message", field=where(pos))
+                body = data[pos:pos + n]
+                for b in body:
+                    if b & 0x80:
+                        raise RetunerError(f"data byte 0x{b:02X} out of range in a channel message",
+                                           field=where(pos))
+                append((tick, CHANNEL, bytes((running,)) + body))
+                pos += n
+    except RetunerError as exc:
+        exc.file = path
+        raise
+    return Track(events, tick)
+
+
+def parse_smf(data: bytes, path: str = "<file>") -> Song:
+    """Parse a Standard MIDI File, strictly. Raises RetunerError naming the place."""
+    def err(msg: str, pos: Optional[int] = None) -> RetunerError:
+        return RetunerError(msg, file=path, field=None if pos is None else f"byte {pos}")
+
+    if len(data) > LIMITS.file_bytes:
+        raise err(f"{len(data)} bytes: more than the limit of {LIMITS.file_bytes} for a MIDI file")
+    if len(data) < 14 or data[:4] != b"MThd":
+        if data[:4] == b"RIFF" and data[8:12] == b"RMID":
+            raise err("RIFF MIDI (RMID) files are not supported: extract the Standard MIDI File")
+        raise err("not a Standard MIDI File (no MThd header)" if len(data) >= 4 and data[:4] != b"MThd"
+                  else "not a Standard MIDI File (file too short)")
+    hlen = int.from_bytes(data[4:8], "big")
+    if hlen < 6:
+        raise err(f"bad header: length {hlen}, expected 6", 4)
+    if 8 + hlen > len(data):
+        raise err("truncated header", 8)
+    fmt = int.from_bytes(data[8:10], "big")
+    ntrks = int.from_bytes(data[10:12], "big")
+    div = int.from_bytes(data[12:14], "big")
+    if fmt == 2:
+        raise err("type 2 (sequential tracks) files are not supported", 8)
+    if fmt not in (0, 1):
+        raise err(f"bad header: format {fmt} (expected 0 or 1)", 8)
+    if ntrks == 0:
+        raise err("bad header: no tracks", 10)
+    if fmt == 0 and ntrks != 1:
+        raise err(f"bad header: a type 0 file has exactly one track, header says {ntrks}", 10)
+    if ntrks > LIMITS.tracks:
+        raise err(f"bad header: {ntrks} tracks, more than the limit of {LIMITS.tracks}", 10)
+    smpte = bool(div & 0x8000)
+    if smpte:
+        fps = 256 - (div >> 8)
+        tpf = div & 0xFF
+        if fps not in (24, 25, 29, 30) or tpf == 0:
+            raise err(f"bad header: SMPTE division {fps} frames/s x {tpf} ticks", 12)
+        division = int(round((29.97 if fps == 29 else fps) * tpf * 1000))  # ticks per 1000 s
+    else:
+        if div == 0:
+            raise err("bad header: 0 ticks per quarter note", 12)
+        division = div
+    pos = 8 + hlen
+    tracks: list[Track] = []
+    budget = LIMITS.events
+    while pos < len(data) and len(tracks) < ntrks:
+        if pos + 8 > len(data):
+            raise err(f"truncated: chunk header of track {len(tracks) + 1} is cut off", pos)
+        ctype = data[pos:pos + 4]
+        clen = int.from_bytes(data[pos + 4:pos + 8], "big")
+        body = pos + 8
+        if body + clen > len(data):
+            raise err(f"truncated: track {len(tracks) + 1} announces {clen} bytes, "
+                      f"only {len(data) - body} are left", pos)
+        if ctype == b"MTrk":
+            tr = _parse_track(data, body, body + clen, len(tracks), path, budget)
+            budget -= len(tr.events)
+            tracks.append(tr)
+        elif not all(0x20 <= c <= 0x7E for c in ctype):
+            raise err(f"bad chunk type {ctype!r}", pos)
+        # other (alien) chunk types are skipped, as SMF 1.0 asks
+        pos = body + clen
+    if len(tracks) < ntrks:
+        raise err(f"truncated: header announces {ntrks} tracks, the file holds {len(tracks)}")
+    song = Song(path, fmt, division, smpte, tracks, div)
+    song.tempo_map = TempoMap(division, tempo_changes(tracks), smpte)
+    return song
+
+
+def tempo_changes(tracks: Sequence[Track]) -> list[tuple[int, int]]:
+    """(tick, microseconds per quarter note) of every Set Tempo in any track."""
+    changes = []
+    for tr in tracks:
+        for tick, kind, raw in tr.events:
+            if kind == META and raw[1] == META_TEMPO:
+                changes.append((tick, int.from_bytes(raw[3:6], "big")))
+    return changes
+
+
+def read_smf(path: str | os.PathLike) -> Song:
+    try:
+        size = os.path.getsize(path)
+        if size > LIMITS.file_bytes:
+            raise RetunerError(f"{size} bytes: more than the limit of {LIMITS.file_bytes} for a MIDI file",
+                               file=str(path))
+        with open(path, "rb") as fh:
+            data = fh.read()
+    except FileNotFoundError:
+        raise RetunerError("no such file", file=str(path))
+    except IsADirectoryError:
+        raise RetunerError("is a directory", file=str(path))
+    except OSError as exc:
+        raise RetunerError(f"cannot read: {exc.strerror or exc}", file=str(path))
+    return parse_smf(data, str(path))
+
+
+def merged_events(song: Song) -> list:
+    """Every event of every track as (tick, track index, kind, raw), in time order
+    (events at one tick: lower track first, then file order)."""
+    if len(song.tracks) == 1:
+        return [(tick, 0, kind, raw) for tick, kind, raw in song.tracks[0].events]
+    out = []
+    for ti, tr in enumerate(song.tracks):
+        out.extend((tick, ti, kind, raw) for tick, kind, raw in tr.events)
+    out.sort(key=lambda e: (e[0], e[1]))  # stable: file order kept within a track
+    return out
+
+
+def event_seconds(song: Song, merged: Sequence) -> list[float]:
+    """Seconds of each merged event (walks the tempo map once)."""
+    return song.tempo_map.seconds_of(e[0] for e in merged)
