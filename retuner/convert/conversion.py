@@ -41,7 +41,7 @@ from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, raw_to_message
 from retuner.smf.reader import CHANNEL, Song, event_seconds, merged_events, read_smf
-from retuner.smf.writer import serialize
+from retuner.smf.writer import TrackBytes, serialize
 
 
 @dataclass
@@ -100,7 +100,8 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
            hooks=None) -> list[tuple[list, int]]:
     """Feed the group's engines with the file's events on the file's clock; return output tracks."""
     ntr = len(song.tracks)
-    outs: list[list] = [[] for _ in range(ntr)]
+    # a plan rewrites the tracks after the drive: it gets lists; otherwise bytes as they come
+    outs: list = [[] for _ in range(ntr)] if hooks is not None else [TrackBytes() for _ in range(ntr)]
     tm = song.tempo_map
     engine_of = group.engines                           # part -> engine
     engines = list({id(e): e for e in engine_of.values()}.values())
@@ -151,7 +152,8 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
     result = []
     for ti, tr in enumerate(song.tracks):
         evs = outs[ti]
-        end = max(tr.end_tick, evs[-1][0] if evs else 0)
+        last = evs.last if isinstance(evs, TrackBytes) else (evs[-1][0] if evs else 0)
+        end = max(tr.end_tick, last)
         result.append((evs, end))
     return result
 

@@ -58,7 +58,7 @@ RPN_TUNING_PROGRAM = (0, 3)
 RPN_TUNING_BANK = (0, 4)
 
 
-@dataclass
+@dataclass(slots=True)
 class NoteTrack:
     """One sounding note of the output: its key, channel, start, end and pitch steps."""
 

@@ -31,7 +31,7 @@ from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
-from retuner.smf.messages import output_stream
+from retuner.smf.messages import iter_output_stream, output_stream
 
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
             "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
@@ -47,7 +47,7 @@ def require_matplotlib():
 
 
 def _decode(o, config):
-    stream = output_stream(o.data, o.path)
+    stream = iter_output_stream(o.data, o.path)
     return metrics.decode(stream, bend_scale=config.bend_scale,
                           exclude_channels=tuple(config.passthrough))
 

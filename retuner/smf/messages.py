@@ -12,7 +12,7 @@ from typing import Iterable, Optional
 import mido
 from mido.messages.messages import Message
 
-from retuner.smf.reader import CHANNEL, SYSEX, event_seconds, merged_events, parse_smf, read_varlen
+from retuner.smf.reader import CHANNEL, SYSEX, read_varlen, stream_events
 from retuner.smf.writer import varlen
 
 #: mido message types by status high nibble.
@@ -75,25 +75,28 @@ def is_channel_raw(raw: bytes) -> bool:
     return raw[0] < 0xF0
 
 
-def output_stream(data: bytes, path: str = "<output>", channels: Optional[Iterable[int]] = None) -> list:
+def iter_output_stream(data: bytes, path: str = "<output>", channels: Optional[Iterable[int]] = None):
     """(seconds, mido message) of every channel message and system exclusive of a written file,
-    in time order (the file's own tempo map)."""
-    song = parse_smf(data, path)
-    merged = merged_events(song)
-    secs = event_seconds(song, merged)
+    in time order (the file's own tempo map), made as they are read: a caller that decodes
+    as it goes keeps no more than one message."""
     keep = None if channels is None else set(channels)
-    out = []
-    for (tick, ti, kind, raw), t in zip(merged, secs):
+    to_message = raw_to_message
+    for t, tick, ti, kind, raw in stream_events(data, path):
         if kind == CHANNEL:
             if keep is None or (raw[0] & 0x0F) in keep:
-                out.append((t, raw_to_message(raw)))
+                yield t, to_message(raw)
         elif kind == SYSEX and raw[0] == 0xF0:
             length, p = read_varlen(raw, 1, len(raw), lambda pos: "")
             body = raw[p:p + length]
             if body.endswith(b"\xF7"):
                 body = body[:-1]
             try:
-                out.append((t, mido.Message("sysex", data=body)))
+                msg = mido.Message("sysex", data=body)
             except ValueError:
-                pass
-    return out
+                continue
+            yield t, msg
+
+
+def output_stream(data: bytes, path: str = "<output>", channels: Optional[Iterable[int]] = None) -> list:
+    """:func:`iter_output_stream` as a list."""
+    return list(iter_output_stream(data, path, channels))

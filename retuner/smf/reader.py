@@ -15,12 +15,13 @@ than its type's fixed length, events after a track's End of Track.
 
 from __future__ import annotations
 
+import heapq
 import os
 from dataclasses import dataclass, field
 from typing import Callable, Optional, Sequence
 
 from retuner.errors import RetunerError
-from retuner.smf.tempo import TempoMap
+from retuner.smf.tempo import DEFAULT_TEMPO, TempoMap
 
 #: Status bytes of channel messages and their number of data bytes (MIDI 1.0).
 DATA_LEN = {0x80: 2, 0x90: 2, 0xA0: 2, 0xB0: 2, 0xC0: 1, 0xD0: 1, 0xE0: 2}
@@ -94,14 +95,19 @@ def read_varlen(data: bytes, pos: int, end: int, where: Callable[[int], str]) ->
 
 def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget: int) -> Track:
     """One MTrk body; at most ``budget`` events (else an error naming the place)."""
+    events = list(_track_events(data, start, end, tno, path, budget))
+    return Track(events, events.pop()[0])
+
+
+def _track_events(data: bytes, start: int, end: int, tno: int, path: str, budget: int):
+    """The events of one MTrk body as (tick, kind, raw), then (end tick, None, None)."""
     def where(pos: int) -> str:
         return f"track {tno + 1}, byte {pos}"
 
     def at(tick: int) -> str:
         return f"track {tno + 1}, tick {tick}"
 
-    events: list = []
-    append = events.append
+    count = 0
     pos = start
     tick = 0
     running = 0
@@ -112,7 +118,7 @@ def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget:
             tick += delta
             if pos >= end:
                 raise RetunerError("truncated: an event is missing after its delta time", field=where(pos))
-            if len(events) >= budget:
+            if count >= budget:
                 raise RetunerError(f"more than {LIMITS.events} events in the file (the limit)", field=at(tick))
             status = data[pos]
             if status == 0xFF:
@@ -136,7 +142,8 @@ def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget:
                     break
                 if mtype == META_TEMPO and not int.from_bytes(data[p:p + 3], "big"):
                     raise RetunerError("Set Tempo of 0 microseconds per quarter note", field=at(tick))
-                append((tick, META, data[pos:p + length]))
+                yield tick, META, data[pos:p + length]
+                count += 1
                 pos = p + length
                 running = 0  # SMF 1.0: meta and sysex events cancel running status
             elif status == 0xF0 or status == 0xF7:
@@ -144,7 +151,8 @@ def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget:
                 if p + length > end:
                     raise RetunerError(f"system exclusive of {length} bytes runs past the end of the track "
                                        f"({end - p} bytes left)", field=where(pos))
-                append((tick, SYSEX, data[pos:p + length]))
+                yield tick, SYSEX, data[pos:p + length]
+                count += 1
                 pos = p + length
                 running = 0
             elif status >= 0xF0:
@@ -164,16 +172,26 @@ def _parse_track(data: bytes, start: int, end: int, tno: int, path: str, budget:
                     if b & 0x80:
                         raise RetunerError(f"data byte 0x{b:02X} out of range in a channel message",
                                            field=where(pos))
-                append((tick, CHANNEL, bytes((running,)) + body))
+                yield tick, CHANNEL, bytes((running,)) + body
+                count += 1
                 pos += n
     except RetunerError as exc:
         exc.file = path
         raise
-    return Track(events, tick)
+    yield tick, None, None
 
 
-def parse_smf(data: bytes, path: str = "<file>") -> Song:
-    """Parse a Standard MIDI File, strictly. Raises RetunerError naming the place."""
+@dataclass
+class _Header:
+    format: int
+    division: int
+    smpte: bool
+    header_division: int
+    spans: list          # (start, end) of each MTrk body, in file order
+
+
+def _header(data: bytes, path: str) -> _Header:
+    """The header and where each track lies; every check that needs no event."""
     def err(msg: str, pos: Optional[int] = None) -> RetunerError:
         return RetunerError(msg, file=path, field=None if pos is None else f"byte {pos}")
 
@@ -214,30 +232,60 @@ def parse_smf(data: bytes, path: str = "<file>") -> Song:
             raise err("bad header: 0 ticks per quarter note", 12)
         division = div
     pos = 8 + hlen
-    tracks: list[Track] = []
-    budget = LIMITS.events
-    while pos < len(data) and len(tracks) < ntrks:
+    spans: list = []
+    while pos < len(data) and len(spans) < ntrks:
         if pos + 8 > len(data):
-            raise err(f"truncated: chunk header of track {len(tracks) + 1} is cut off", pos)
+            raise err(f"truncated: chunk header of track {len(spans) + 1} is cut off", pos)
         ctype = data[pos:pos + 4]
         clen = int.from_bytes(data[pos + 4:pos + 8], "big")
         body = pos + 8
         if body + clen > len(data):
-            raise err(f"truncated: track {len(tracks) + 1} announces {clen} bytes, "
+            raise err(f"truncated: track {len(spans) + 1} announces {clen} bytes, "
                       f"only {len(data) - body} are left", pos)
         if ctype == b"MTrk":
-            tr = _parse_track(data, body, body + clen, len(tracks), path, budget)
-            budget -= len(tr.events)
-            tracks.append(tr)
+            spans.append((body, body + clen))
         elif not all(0x20 <= c <= 0x7E for c in ctype):
             raise err(f"bad chunk type {ctype!r}", pos)
         # other (alien) chunk types are skipped, as SMF 1.0 asks
         pos = body + clen
-    if len(tracks) < ntrks:
-        raise err(f"truncated: header announces {ntrks} tracks, the file holds {len(tracks)}")
-    song = Song(path, fmt, division, smpte, tracks, div)
-    song.tempo_map = TempoMap(division, tempo_changes(tracks), smpte)
+    if len(spans) < ntrks:
+        raise err(f"truncated: header announces {ntrks} tracks, the file holds {len(spans)}")
+    return _Header(fmt, division, smpte, div, spans)
+
+
+def parse_smf(data: bytes, path: str = "<file>") -> Song:
+    """Parse a Standard MIDI File, strictly. Raises RetunerError naming the place."""
+    h = _header(data, path)
+    tracks: list[Track] = []
+    budget = LIMITS.events
+    for tno, (start, end) in enumerate(h.spans):
+        tr = _parse_track(data, start, end, tno, path, budget)
+        budget -= len(tr.events)
+        tracks.append(tr)
+    song = Song(path, h.format, h.division, h.smpte, tracks, h.header_division)
+    song.tempo_map = TempoMap(h.division, tempo_changes(tracks), h.smpte)
     return song
+
+
+def stream_events(data: bytes, path: str = "<file>"):
+    """Every event of a file as (seconds, tick, track index, kind, raw) in the order of
+    :func:`merged_events`, read as it goes: memory stays that of one event per track. The
+    seconds follow the tempo map as it is met (a Set Tempo at tick T changes only what comes
+    after T, so meeting it in tick order gives the same times as the whole map)."""
+    h = _header(data, path)
+    budget = LIMITS.events          # each track is held to the whole file's limit
+    gens = [((tick, ti, kind, raw) for tick, kind, raw in _track_events(data, s, e, ti, path, budget)
+             if kind is not None) for ti, (s, e) in enumerate(h.spans)]
+    merged = gens[0] if len(gens) == 1 else heapq.merge(*gens, key=lambda ev: ev[0])
+    tm = TempoMap(h.division, (), h.smpte)
+    spt = tm._spt(DEFAULT_TEMPO)
+    base_tick, base_sec = 0, 0.0
+    for tick, ti, kind, raw in merged:
+        t = base_sec + (tick - base_tick) * spt
+        yield t, tick, ti, kind, raw
+        if kind == META and raw[1] == META_TEMPO and not h.smpte:
+            base_tick, base_sec = tick, t
+            spt = tm._spt(int.from_bytes(raw[3:6], "big"))
 
 
 def tempo_changes(tracks: Sequence[Track]) -> list[tuple[int, int]]:
