@@ -154,3 +154,89 @@ def test_writer_and_reader_round_trip_and_agree_with_mido(evs, tpb):
     for _, r in evs:
         m = messages.raw_to_message(r)
         assert bytes(m.bytes()) == r and messages.message_to_raw(m) == r
+
+
+# -- what a general reader could not read back is refused, not copied ------------------------
+# SMF 1.0: End of Track (FF 2F 00) is the last event of every track; Set Tempo is FF 51 03
+# tttttt (microseconds per quarter note); time signature FF 58 04, key signature FF 59 02.
+# mido (a general-purpose reader) is the outside check that such an output would be unreadable.
+
+def _convert_cli(tmp_path, data):
+    import subprocess
+    import sys
+    src = tmp_path / "in.mid"
+    src.write_bytes(data)
+    dst = tmp_path / "out.mid"
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", src, "-o", dst, "-q"],
+                       capture_output=True, text=True, timeout=60)
+    return r, dst
+
+
+def test_notes_after_end_of_track_are_an_error_naming_track_and_tick(tmp_path):
+    # a note at tick 96, End of Track, then a note 200 ticks later that a player would lose
+    track = (b"\x00\x90\x3C\x40\x60\x80\x3C\x00" + b"\x00\xFF\x2F\x00"
+             + b"\x81\x48\x90\x40\x40\x60\x80\x40\x00")
+    r, dst = _convert_cli(tmp_path, _smf(1, 96, b"\x00\xFF\x2F\x00", track))
+    assert r.returncode == 2 and not dst.exists()
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "in.mid" in lines[0], r.stderr
+    assert "track 2" in lines[0] and "tick 296" in lines[0] and "End of Track" in lines[0]
+
+
+@pytest.mark.parametrize("meta,words", [
+    (b"\xFF\x51\x01\x07", "FF 51"),                 # Set Tempo of 1 byte: mido cannot read it
+    (b"\xFF\x58\x03\x04\x02\x18", "FF 58"),         # time signature of 3 bytes
+    (b"\xFF\x59\x01\x00", "FF 59"),                 # key signature of 1 byte
+    (b"\xFF\x51\x03\x00\x00\x00", "Set Tempo of 0"),
+])
+def test_meta_events_a_reader_cannot_read_back_are_refused(tmp_path, meta, words):
+    import io
+    body = b"\x00\x90\x3C\x40\x60" + meta + b"\x00\x80\x3C\x00\x00\xFF\x2F\x00"
+    data = _smf(0, 96, body)
+    if not meta.startswith(b"\xFF\x51\x03"):
+        with pytest.raises(Exception):             # the outside check: mido cannot read it
+            mido.MidiFile(file=io.BytesIO(data))
+    r, dst = _convert_cli(tmp_path, data)
+    assert r.returncode == 2 and not dst.exists(), r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and words in lines[0] and "track 1, tick 96" in lines[0], r.stderr
+    assert lines[0].startswith(f"retuner: {tmp_path / 'in.mid'}")
+
+
+def test_limits_each_breach_is_one_line_naming_file_and_place(tmp_path, monkeypatch):
+    """Tracks, events and size are bounded; a breach is refused before the work starts."""
+    import time
+    monkeypatch.setattr(reader, "LIMITS", reader.Limits(file_bytes=10_000, tracks=4, events=50))
+    many_tracks = _smf(1, 96, *([b"\x00\xFF\x2F\x00"] * 5))
+    with pytest.raises(RetunerError) as ei:
+        reader.parse_smf(many_tracks, "t.mid")
+    assert str(ei.value).startswith("t.mid: byte 10:") and "5 tracks" in str(ei.value)
+    notes = b"".join(b"\x00\x90\x3C\x40\x10\x80\x3C\x00" for _ in range(30)) + b"\x00\xFF\x2F\x00"
+    with pytest.raises(RetunerError) as ei:
+        reader.parse_smf(_smf(0, 96, notes), "e.mid")
+    assert str(ei.value).startswith("e.mid: track 1, tick 400:") and "50 events" in str(ei.value)
+    t0 = time.process_time()
+    with pytest.raises(RetunerError) as ei:
+        reader.parse_smf(_smf(0, 96, notes * 400), "s.mid")
+    assert "more than the limit" in str(ei.value) and str(ei.value).startswith("s.mid")
+    assert time.process_time() - t0 < 1.0
+    # the default limits leave room for far more than a piece needs
+    d = reader.Limits()
+    assert d.events >= 2_000_000 and d.tracks >= 256 and d.file_bytes >= 16 * 1024 * 1024
+
+
+def test_streamed_events_match_the_whole_file_and_pretty_midi(tmp_path):
+    """stream_events (used to measure outputs without holding them) gives the same events,
+    order and seconds as reading the whole file; seconds checked against pretty_midi."""
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    data = src.read_bytes()
+    song = reader.parse_smf(data)
+    merged = reader.merged_events(song)
+    secs = reader.event_seconds(song, merged)
+    streamed = list(reader.stream_events(data))
+    assert [(tick, ti, k, r) for _, tick, ti, k, r in streamed] == merged
+    assert [t for t, *_ in streamed] == pytest.approx(secs, abs=1e-12)
+    pm = pretty_midi.PrettyMIDI(str(src))
+    for t, tick, *_ in streamed[::7]:
+        assert t == pytest.approx(pm.tick_to_time(tick), abs=1e-9)

@@ -33,8 +33,10 @@ def add_arguments(parser):
                         help="time each event by the wall clock (default) or by this thread's CPU time "
                              "(steadier on a busy machine)")
     parser.add_argument("--files", action="store_true",
-                        help="measure file conversion instead: a generated file of about 100 000 events "
-                             "against mido loading and saving it, and a batch with 1..N worker processes")
+                        help="measure file conversion instead: generated files against mido loading and "
+                             "saving them (100 000 events; a piano-like 10 000 with the summary), "
+                             "--lookahead against plain --adaptive, peak memory on 1 000 000 events, "
+                             "and a batch with 1..N worker processes")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
     add_profiles_dir(parser)
 
@@ -53,7 +55,8 @@ def _files_bench(args) -> int:
           f"{p['convert_with_summary_s']:.3f} s; mido load+save {p['mido_load_save_s']:.3f} s; "
           f"x{p['ratio']:.2f} mido's time (goal <= {g['piano_ratio']:g})")
     if "lookahead_s" in p:
-        print(f"  adaptive {p['adaptive_s']:.3f} s, with lookahead {p['lookahead_s']:.3f} s: "
+        print(f"  convert --adaptive on {p['lookahead_events']} events: {p['adaptive_s']:.3f} s, "
+              f"with --lookahead {p['lookahead_s']:.3f} s: "
               f"x{p['lookahead_ratio']:.2f} (goal <= {g['lookahead_ratio']:g})")
     if "big" in figs:
         b = figs["big"]

@@ -274,8 +274,12 @@ def stream_events(data: bytes, path: str = "<file>"):
     after T, so meeting it in tick order gives the same times as the whole map)."""
     h = _header(data, path)
     budget = LIMITS.events          # each track is held to the whole file's limit
-    gens = [((tick, ti, kind, raw) for tick, kind, raw in _track_events(data, s, e, ti, path, budget)
-             if kind is not None) for ti, (s, e) in enumerate(h.spans)]
+    def tagged(ti: int, start: int, end: int):
+        for tick, kind, raw in _track_events(data, start, end, ti, path, budget):
+            if kind is not None:
+                yield tick, ti, kind, raw
+
+    gens = [tagged(ti, s, e) for ti, (s, e) in enumerate(h.spans)]
     merged = gens[0] if len(gens) == 1 else heapq.merge(*gens, key=lambda ev: ev[0])
     tm = TempoMap(h.division, (), h.smpte)
     spt = tm._spt(DEFAULT_TEMPO)
