@@ -574,3 +574,22 @@ def test_mpe_zone_takes_every_channel_unless_drums_pass_through(tmp_path, drums,
     cc = [(m.channel, m.control, m.value) for t in mido.MidiFile(dst).tracks for m in t if m.type == "control_change"]
     k = cc.index((0, 100, 6))
     assert cc[k - 1] == (0, 101, 0) and cc[k + 1] == (0, 6, members)
+
+
+def test_quiet_prints_nothing_and_computes_no_measures(tmp_path, monkeypatch, capsys):
+    """-q: no output at all, and the measures are not computed (they cost more than the
+    conversion on long files); without -q the same file gets its summary."""
+    from retuner import cli
+    from retuner.measure import report
+
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    calls = []
+    real = report._decode
+    monkeypatch.setattr(report, "_decode", lambda o, c: calls.append(o.path) or real(o, c))
+    assert cli.main(["convert", str(src), "-o", str(tmp_path / "q.mid"), "-q"]) == 0
+    cap = capsys.readouterr()
+    assert cap.out == "" and cap.err == "" and calls == []
+    assert mido.MidiFile(tmp_path / "q.mid").tracks                # the file itself is written
+    assert cli.main(["convert", str(src), "-o", str(tmp_path / "s.mid")]) == 0
+    assert f"notes {sum(len(v) for v in midigen.VOICES)}," in capsys.readouterr().out and len(calls) == 1

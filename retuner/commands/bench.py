@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from retuner.bench.files import convert_speed_bench
 from retuner.bench.performance import performance, performance_names
+from retuner.bench.progressions import adaptive_bench, format_adaptive_bench
 from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig, MODES
 from retuner.errors import RetunerError
@@ -76,7 +77,7 @@ def run(args) -> int:
     tuning = load_profile(args.profile, args.profiles_dir)
     adaptive = None
     if args.adaptive:
-        from retuner.adaptive.solver import AdaptiveConfig
+        from retuner.adaptive.solver import AdaptiveConfig   # lazy: it loads numpy
         adaptive = AdaptiveConfig()
     if args.performance not in performance_names():
         raise RetunerError(f"unknown performance {args.performance!r} "
@@ -88,7 +89,6 @@ def run(args) -> int:
     if args.json:
         figs = {k: res[k] for k in JSON_KEYS}
         if args.adaptive:  # the adaptive goals: progressions measured from the output
-            from retuner.bench.progressions import adaptive_bench
             figs["adaptive"] = adaptive_bench(mode=args.mode, clock=args.clock)
         print_json(figs)
         return 0
@@ -103,6 +103,5 @@ def run(args) -> int:
           f"({res['ringing_retunes_below_pool']} while fewer notes sounded than pool channels)")
     print(f"steals: {res['steals']}")
     if args.adaptive:
-        from retuner.bench.progressions import adaptive_bench, format_adaptive_bench
         print(format_adaptive_bench(adaptive_bench(mode=args.mode, clock=args.clock)))
     return 0

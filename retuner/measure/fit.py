@@ -41,6 +41,7 @@ degrees on key 0 whose period lies beyond key 127.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
@@ -54,6 +55,7 @@ import numpy as np
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
 from retuner.engine.notes import NoteTracker
+from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 from retuner.smf.reader import CHANNEL, event_seconds, merged_events, read_smf
 
@@ -501,7 +503,6 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
         lim.append("binding limits: " + ", ".join(result.active))
     body = ", ".join(f"{d:.6f}" for d in deg[1:])
     offs = ", ".join(f"{KEY_NAMES[i]} {rounded(result.offsets[i], 3):+.3f}" for i in range(12))
-    import json
     description = (f"best-fit 12-note tuning for {Path(source_name).name} "
                    f"(impurity {result.impurity:.3f} cents)")
     source = ("retuner fit: time-weighted fit of the piece's consonant intervals to just ratios"
@@ -521,7 +522,6 @@ def profile_yaml(result: FitResult, *, profile_id: str, source_name: str,
 
 def _per_key_yaml(result: FitResult, *, profile_id: str, source_name: str, reference_hz: float) -> str:
     """A per-key fit as a scale of 128 degrees rooted on key 0 whose period lies beyond key 127."""
-    import json
     x = result.key_offsets
     assert x is not None
     rel = [100.0 * k + x[k] - x[0] for k in range(NUM_KEYS)]
@@ -562,7 +562,6 @@ def profile_id_for(path: str | os.PathLike) -> str:
 def compare(weights: dict[tuple[int, int], float], profile_ids: Sequence[str] = COMPARE_PROFILES,
             dirs: Sequence = ()) -> list[tuple[str, float]]:
     """Impurity of each named profile on the piece (12-note profiles compared key by key)."""
-    from retuner.profiles.profile import load_profile
     out = []
     for pid in profile_ids:
         t = load_profile(pid, dirs)

@@ -41,6 +41,7 @@ from typing import Iterable, Optional, Sequence
 
 import mido
 
+from retuner.midi.mts import is_mts, parse_sysex
 from retuner.pitch.tuning import Tuning
 
 # interval class (semitones mod 12) -> just ratio, for the consonances counted in impurity
@@ -89,10 +90,6 @@ class Decoded:
 
 def _parse_mts(msg: mido.Message):
     """MTS sysex -> (realtime, bank, program, [(key, cents|None)]) or None."""
-    try:
-        from retuner.midi.mts import is_mts, parse_sysex
-    except ImportError:  # pragma: no cover - mts.py is part of the package
-        return None
     if not is_mts(msg):
         return None
     try:
