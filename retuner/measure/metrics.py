@@ -160,8 +160,8 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
                     nt.steps.append((t, p))
 
     for t, msg in stream:
-        t = float(t)
-        t_last = max(t_last, t)
+        if t > t_last:
+            t_last = t
         typ = msg.type
         if typ == "sysex":
             parsed = _parse_mts(msg)

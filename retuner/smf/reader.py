@@ -279,15 +279,22 @@ def stream_events(data: bytes, path: str = "<file>"):
             if kind is not None:
                 yield tick, ti, kind, raw
 
-    gens = [tagged(ti, s, e) for ti, (s, e) in enumerate(h.spans)]
-    merged = gens[0] if len(gens) == 1 else heapq.merge(*gens, key=lambda ev: ev[0])
+    if len(h.spans) == 1:           # one track: no merge to make
+        s, e = h.spans[0]
+        merged = ((tick, 0, kind, raw) for tick, kind, raw in _track_events(data, s, e, 0, path, budget))
+    else:
+        merged = heapq.merge(*(tagged(ti, s, e) for ti, (s, e) in enumerate(h.spans)),
+                             key=lambda ev: ev[0])
     tm = TempoMap(h.division, (), h.smpte)
     spt = tm._spt(DEFAULT_TEMPO)
     base_tick, base_sec = 0, 0.0
+    smpte = h.smpte
     for tick, ti, kind, raw in merged:
+        if kind is None:
+            return                  # the end of the only track
         t = base_sec + (tick - base_tick) * spt
         yield t, tick, ti, kind, raw
-        if kind == META and raw[1] == META_TEMPO and not h.smpte:
+        if kind == META and raw[1] == META_TEMPO and not smpte:
             base_tick, base_sec = tick, t
             spt = tm._spt(int.from_bytes(raw[3:6], "big"))
 
