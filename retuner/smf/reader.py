@@ -40,11 +40,13 @@ CHANNEL, SYSEX, META = 0, 1, 2
 @dataclass(frozen=True)
 class Limits:
     """What one file may make us compute. Each is far above what a piece of music needs
-    (a long piano piece holds some 100 000 events; General MIDI files a few dozen tracks)."""
+    (a long piano piece holds some 100 000 events; General MIDI files a few dozen tracks),
+    and low enough that a breach is found within about a second: the size and the tracks
+    from the header at once, the events while reading them (about a million a second)."""
 
-    file_bytes: int = 64 * 1024 * 1024
+    file_bytes: int = 16 * 1024 * 1024
     tracks: int = 1024
-    events: int = 4_000_000
+    events: int = 1_100_000
 
 
 LIMITS = Limits()
@@ -253,9 +255,55 @@ def _header(data: bytes, path: str) -> _Header:
     return _Header(fmt, division, smpte, div, spans)
 
 
+def _count_events(data: bytes, start: int, end: int, limit: int) -> int:
+    """How many events a track holds, counted without reading them (stops past ``limit``).
+    Only for a file big enough to break the limit: the count is a few times faster than the
+    reading, so the breach is found quickly; the reading checks everything this skips."""
+    n = 0
+    pos = start
+    running = 0
+    data_len = DATA_LEN
+    while pos < end and n <= limit:
+        while pos < end and data[pos] & 0x80:       # the delta time
+            pos += 1
+        pos += 1
+        if pos >= end:
+            break
+        status = data[pos]
+        if status == 0xFF or status == 0xF0 or status == 0xF7:
+            pos += 2 if status == 0xFF else 1
+            length = 0
+            while pos < end:
+                b = data[pos]
+                pos += 1
+                length = (length << 7) | (b & 0x7F)
+                if not b & 0x80:
+                    break
+            pos += length
+            running = 0
+            if status == 0xFF and pos <= end and data[pos - length - 2] == META_END_OF_TRACK:
+                break
+        elif status & 0x80:
+            running = status
+            pos += 1 + data_len.get(status & 0xF0, 0)
+        elif running:
+            pos += data_len[running & 0xF0]
+        else:
+            break                                   # bad running status: the reading says where
+        n += 1
+    return n
+
+
 def parse_smf(data: bytes, path: str = "<file>") -> Song:
     """Parse a Standard MIDI File, strictly. Raises RetunerError naming the place."""
     h = _header(data, path)
+    if len(data) > 2 * LIMITS.events:               # an event takes 2 bytes at least
+        left = LIMITS.events
+        for tno, (start, end) in enumerate(h.spans):
+            left -= _count_events(data, start, end, left)
+            if left < 0:
+                raise RetunerError(f"more than {LIMITS.events} events in the file (the limit)",
+                                   file=path, field=f"track {tno + 1}")
     tracks: list[Track] = []
     budget = LIMITS.events
     for tno, (start, end) in enumerate(h.spans):
