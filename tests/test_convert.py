@@ -593,3 +593,19 @@ def test_quiet_prints_nothing_and_computes_no_measures(tmp_path, monkeypatch, ca
     assert mido.MidiFile(tmp_path / "q.mid").tracks                # the file itself is written
     assert cli.main(["convert", str(src), "-o", str(tmp_path / "s.mid")]) == 0
     assert f"notes {sum(len(v) for v in midigen.VOICES)}," in capsys.readouterr().out and len(calls) == 1
+
+
+def test_lookahead_reports_progress_while_it_works(tmp_path):
+    """The lookahead takes many times the plain conversion: it says what it is doing."""
+    from retuner.adaptive.solver import AdaptiveConfig
+    from retuner.convert import conversion
+    from retuner.engine.core import EngineConfig
+    from retuner.pitch.tuning import Tuning
+
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=0)
+    said = []
+    opts = conversion.ConvertOptions(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()), lookahead=True)
+    conversion.convert_file(src, tmp_path / "out.mid", opts, said.append)
+    assert said[:2] == ["lookahead: playing the file live", "lookahead: planning"]
+    assert said[2] == "lookahead: 1 plan tried" and all("plans tried" in s for s in said[3:])

@@ -181,7 +181,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
 
     def render_plan(plan):
         tries[0] += 1
-        say(f"lookahead: rendering plan {tries[0]}")
+        say(f"lookahead: {tries[0]} plan{'s' if tries[0] > 1 else ''} tried")
         return _render(song, merged, secs, groups, tuning, config, out_path, plan)
 
     say("lookahead: planning")
