@@ -609,3 +609,27 @@ def test_lookahead_reports_progress_while_it_works(tmp_path):
     conversion.convert_file(src, tmp_path / "out.mid", opts, said.append)
     assert said[:2] == ["lookahead: playing the file live", "lookahead: planning"]
     assert said[2] == "lookahead: 1 plan tried" and all("plans tried" in s for s in said[3:])
+
+
+def test_output_larger_than_the_input_limits_is_still_measured(tmp_path, monkeypatch):
+    """The limits bound an input file; the output of a file within them may hold more events
+    (the sustain pedal goes to every channel of the pool) and must still be read back for the
+    summary."""
+    from retuner.bench.performance import piano_tracks, write_file
+    from retuner.convert import conversion
+    from retuner.engine.core import EngineConfig
+    from retuner.measure import report
+    from retuner.pitch.tuning import Tuning
+    from retuner.smf import reader
+
+    src = tmp_path / "piano.mid"
+    n = write_file(str(src), piano_tracks(200))
+    monkeypatch.setattr(reader, "LIMITS", reader.Limits(events=n + 1))
+    opts = conversion.ConvertOptions(Tuning.equal12(), EngineConfig())
+    res = conversion.convert_file(src, tmp_path / "out.mid", opts)
+    data = (tmp_path / "out.mid").read_bytes()
+    with pytest.raises(Exception):              # as an input it would be over the limit
+        reader.parse_smf(data, "out.mid")
+    summary = report.build_report(res, opts, report.decode_outputs(res, opts))
+    on_in = sum(1 for evs, _ in piano_tracks(200) for _, raw in evs if raw[0] & 0xF0 == 0x90 and raw[2])
+    assert summary["notes"] == on_in                # every note of the input, read from the output

@@ -12,7 +12,7 @@ from typing import Iterable, Optional
 import mido
 from mido.messages.messages import Message
 
-from retuner.smf.reader import CHANNEL, SYSEX, read_varlen, stream_events
+from retuner.smf.reader import CHANNEL, NO_LIMITS, SYSEX, read_varlen, stream_events
 from retuner.smf.writer import varlen
 
 #: mido message types by status high nibble.
@@ -76,12 +76,13 @@ def is_channel_raw(raw: bytes) -> bool:
 
 
 def iter_output_stream(data: bytes, path: str = "<output>", channels: Optional[Iterable[int]] = None):
-    """(seconds, mido message) of every channel message and system exclusive of a written file,
-    in time order (the file's own tempo map), made as they are read: a caller that decodes
-    as it goes keeps no more than one message."""
+    """(seconds, mido message) of every channel message and system exclusive of a file we
+    wrote, in time order (the file's own tempo map), made as they are read: a caller that
+    decodes as it goes keeps no more than one message. The input limits do not apply: an
+    output holds more events than its input."""
     keep = None if channels is None else set(channels)
     to_message = raw_to_message
-    for t, tick, ti, kind, raw in stream_events(data, path):
+    for t, tick, ti, kind, raw in stream_events(data, path, NO_LIMITS):
         if kind == CHANNEL:
             if keep is None or (raw[0] & 0x0F) in keep:
                 yield t, to_message(raw)

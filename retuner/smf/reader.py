@@ -50,6 +50,9 @@ class Limits:
 
 
 LIMITS = Limits()
+#: for reading back what we wrote ourselves: an output holds more events than its input (a
+#: pedal goes to every channel of the pool), and its input was held to :data:`LIMITS`
+NO_LIMITS = Limits(file_bytes=1 << 62, tracks=1 << 16, events=1 << 62)
 
 
 @dataclass
@@ -192,13 +195,16 @@ class _Header:
     spans: list          # (start, end) of each MTrk body, in file order
 
 
-def _header(data: bytes, path: str) -> _Header:
-    """The header and where each track lies; every check that needs no event."""
+def _header(data: bytes, path: str, limits: Optional[Limits] = None) -> _Header:
+    """The header and where each track lies; every check that needs no event. ``limits``
+    (default :data:`LIMITS`) bound an input file; our own outputs are read with
+    :data:`NO_LIMITS`."""
+    lim = LIMITS if limits is None else limits
     def err(msg: str, pos: Optional[int] = None) -> RetunerError:
         return RetunerError(msg, file=path, field=None if pos is None else f"byte {pos}")
 
-    if len(data) > LIMITS.file_bytes:
-        raise err(f"{len(data)} bytes: more than the limit of {LIMITS.file_bytes} for a MIDI file")
+    if len(data) > lim.file_bytes:
+        raise err(f"{len(data)} bytes: more than the limit of {lim.file_bytes} for a MIDI file")
     if len(data) < 14 or data[:4] != b"MThd":
         if data[:4] == b"RIFF" and data[8:12] == b"RMID":
             raise err("RIFF MIDI (RMID) files are not supported: extract the Standard MIDI File")
@@ -220,8 +226,8 @@ def _header(data: bytes, path: str) -> _Header:
         raise err("bad header: no tracks", 10)
     if fmt == 0 and ntrks != 1:
         raise err(f"bad header: a type 0 file has exactly one track, header says {ntrks}", 10)
-    if ntrks > LIMITS.tracks:
-        raise err(f"bad header: {ntrks} tracks, more than the limit of {LIMITS.tracks}", 10)
+    if ntrks > lim.tracks:
+        raise err(f"bad header: {ntrks} tracks, more than the limit of {lim.tracks}", 10)
     smpte = bool(div & 0x8000)
     if smpte:
         fps = 256 - (div >> 8)
@@ -315,13 +321,13 @@ def parse_smf(data: bytes, path: str = "<file>") -> Song:
     return song
 
 
-def stream_events(data: bytes, path: str = "<file>"):
+def stream_events(data: bytes, path: str = "<file>", limits: Optional[Limits] = None):
     """Every event of a file as (seconds, tick, track index, kind, raw) in the order of
     :func:`merged_events`, read as it goes: memory stays that of one event per track. The
     seconds follow the tempo map as it is met (a Set Tempo at tick T changes only what comes
     after T, so meeting it in tick order gives the same times as the whole map)."""
-    h = _header(data, path)
-    budget = LIMITS.events          # each track is held to the whole file's limit
+    h = _header(data, path, limits)
+    budget = (LIMITS if limits is None else limits).events   # each track is held to the file's limit
     def tagged(ti: int, start: int, end: int):
         for tick, kind, raw in _track_events(data, start, end, ti, path, budget):
             if kind is not None:
