@@ -60,7 +60,7 @@ def test_batch_empty_folder_is_an_error(tmp_path):
 
 
 def test_progress_bar_on_a_terminal():
-    from retuner.convert.files import _Progress
+    from retuner.convert.batch import _Progress
 
     class Tty:
         def __init__(self):

@@ -7,7 +7,8 @@ import json
 import subprocess
 import sys
 
-from retuner.bench.timing import JSON_KEYS, generate_performance, measure, performance, performance_names
+from retuner.bench.performance import generate_performance, performance, performance_names
+from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig
 from retuner.profiles.profile import load_profile
 

@@ -486,7 +486,7 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
     """Random parts (channels 1-4, notes on a grid of 120 ticks) plus drums: every note comes out
     at its ticks on its key with its profile pitch (targets from the profile here, checked against
     the definitions above for edo12 and meantone-quarter), drums untouched, in one file or split."""
-    from retuner.convert import files
+    from retuner.convert import conversion
     from retuner.engine.core import EngineConfig
     from retuner.profiles.profile import load_profile
 
@@ -509,7 +509,7 @@ def test_random_arrangements_decode_note_by_note(tmp_path_factory, notes, profil
     src = tmp / "r.mid"
     mf.save(src)
     tuning = load_profile(profile)
-    res = files.convert_file(src, tmp / "o.mid", files.ConvertOptions(tuning, EngineConfig()))
+    res = conversion.convert_file(src, tmp / "o.mid", conversion.ConvertOptions(tuning, EngineConfig()))
     inp = input_notes(src)
     drums_in = [n for n in input_notes(src, exclude=()) if n[2] == 9]
     total = 0
@@ -574,3 +574,62 @@ def test_mpe_zone_takes_every_channel_unless_drums_pass_through(tmp_path, drums,
     cc = [(m.channel, m.control, m.value) for t in mido.MidiFile(dst).tracks for m in t if m.type == "control_change"]
     k = cc.index((0, 100, 6))
     assert cc[k - 1] == (0, 101, 0) and cc[k + 1] == (0, 6, members)
+
+
+def test_quiet_prints_nothing_and_computes_no_measures(tmp_path, monkeypatch, capsys):
+    """-q: no output at all, and the measures are not computed (they cost more than the
+    conversion on long files); without -q the same file gets its summary."""
+    from retuner import cli
+    from retuner.measure import report
+
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=1)
+    calls = []
+    real = report._decode
+    monkeypatch.setattr(report, "_decode", lambda o, c: calls.append(o.path) or real(o, c))
+    assert cli.main(["convert", str(src), "-o", str(tmp_path / "q.mid"), "-q"]) == 0
+    cap = capsys.readouterr()
+    assert cap.out == "" and cap.err == "" and calls == []
+    assert mido.MidiFile(tmp_path / "q.mid").tracks                # the file itself is written
+    assert cli.main(["convert", str(src), "-o", str(tmp_path / "s.mid")]) == 0
+    assert f"notes {sum(len(v) for v in midigen.VOICES)}," in capsys.readouterr().out and len(calls) == 1
+
+
+def test_lookahead_reports_progress_while_it_works(tmp_path):
+    """The lookahead takes many times the plain conversion: it says what it is doing."""
+    from retuner.adaptive.solver import AdaptiveConfig
+    from retuner.convert import conversion
+    from retuner.engine.core import EngineConfig
+    from retuner.pitch.tuning import Tuning
+
+    src = tmp_path / "hymn.mid"
+    midigen.four_part_piece(src, type_=0)
+    said = []
+    opts = conversion.ConvertOptions(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()), lookahead=True)
+    conversion.convert_file(src, tmp_path / "out.mid", opts, said.append)
+    assert said[:2] == ["lookahead: playing the file live", "lookahead: planning"]
+    assert said[2] == "lookahead: 1 plan tried" and all("plans tried" in s for s in said[3:])
+
+
+def test_output_larger_than_the_input_limits_is_still_measured(tmp_path, monkeypatch):
+    """The limits bound an input file; the output of a file within them may hold more events
+    (the sustain pedal goes to every channel of the pool) and must still be read back for the
+    summary."""
+    from retuner.bench.performance import piano_tracks, write_file
+    from retuner.convert import conversion
+    from retuner.engine.core import EngineConfig
+    from retuner.measure import report
+    from retuner.pitch.tuning import Tuning
+    from retuner.smf import reader
+
+    src = tmp_path / "piano.mid"
+    n = write_file(str(src), piano_tracks(200))
+    monkeypatch.setattr(reader, "LIMITS", reader.Limits(events=n + 1))
+    opts = conversion.ConvertOptions(Tuning.equal12(), EngineConfig())
+    res = conversion.convert_file(src, tmp_path / "out.mid", opts)
+    data = (tmp_path / "out.mid").read_bytes()
+    with pytest.raises(Exception):              # as an input it would be over the limit
+        reader.parse_smf(data, "out.mid")
+    summary = report.build_report(res, opts, report.decode_outputs(res, opts))
+    on_in = sum(1 for evs, _ in piano_tracks(200) for _, raw in evs if raw[0] & 0xF0 == 0x90 and raw[2])
+    assert summary["notes"] == on_in                # every note of the input, read from the output

@@ -15,7 +15,11 @@ import sys
 import mido
 import pytest
 
-from retuner.convert import files
+from retuner.convert import arrange
+from retuner.convert import conversion
+from retuner.smf import messages
+from retuner.smf import reader
+from retuner.smf import writer
 from retuner.measure import metrics
 from retuner.adaptive.solver import AdaptiveConfig
 from retuner.engine.core import EngineConfig
@@ -26,14 +30,14 @@ from retuner.pitch.tuning import Tuning
 def _song(name, legato):
     buf = io.BytesIO()
     to_midifile(progression(name, legato=legato)).save(file=buf)
-    return files.parse_smf(buf.getvalue(), f"{name}.mid")
+    return reader.parse_smf(buf.getvalue(), f"{name}.mid")
 
 
 def _measure(song, lookahead):
     cfg = EngineConfig(adaptive=AdaptiveConfig())
-    res = files.convert_song(song, "out.mid", files.ConvertOptions(Tuning.equal12(), cfg, lookahead=lookahead))
+    res = conversion.convert_song(song, "out.mid", conversion.ConvertOptions(Tuning.equal12(), cfg, lookahead=lookahead))
     assert len(res.outputs) == 1
-    stream = files.output_stream(res.outputs[0].data)
+    stream = messages.output_stream(res.outputs[0].data)
     rep = metrics.report(stream, exclude_channels=(9,))
     return rep, res.outputs[0].data
 
@@ -50,7 +54,7 @@ def test_lookahead_beats_live_on_legato_progressions(name):
     # and within the adaptive settings' drift limit (to a bend step, 200/8192 c: MIDI 1.0)
     assert la["drift_max_cents"] <= AdaptiveConfig().max_drift + 200 / 8192
     # no held note steps further than the settings allow per event (policy "limited")
-    dec = metrics.decode(files.output_stream(data), exclude_channels=(9,))
+    dec = metrics.decode(messages.output_stream(data), exclude_channels=(9,))
     steps = [abs(b[1] - a[1]) for nt in dec.notes for a, b in zip(nt.steps, nt.steps[1:])]
     assert max(steps, default=0.0) <= AdaptiveConfig().max_motion + 200 / 8192
     if live["motion_cents_per_note"] > 0.01:
@@ -73,11 +77,11 @@ def test_lookahead_keeps_ticks_and_places_bends_before_note_ons():
     not at the note-on's tick (except at tick 0, where nothing can come earlier)."""
     song = _song("pump", legato=True)
     la, data = _measure(song, True)
-    out = files.parse_smf(data)
+    out = reader.parse_smf(data)
     ev = out.tracks[0].events
     # ticks of note-ons are the input's
-    ins = sorted((t, r[1]) for t, k, r in song.tracks[0].events if k == files.CHANNEL and r[0] & 0xF0 == 0x90 and r[2])
-    outs = sorted((t, r[1]) for t, k, r in ev if k == files.CHANNEL and r[0] & 0xF0 == 0x90 and r[2])
+    ins = sorted((t, r[1]) for t, k, r in song.tracks[0].events if k == reader.CHANNEL and r[0] & 0xF0 == 0x90 and r[2])
+    outs = sorted((t, r[1]) for t, k, r in ev if k == reader.CHANNEL and r[0] & 0xF0 == 0x90 and r[2])
     assert ins == outs
     late = 0
     sounding = [0] * 16
@@ -175,10 +179,10 @@ def test_lookahead_beats_live_in_mpe_and_mts_modes(mode):
     cfg = EngineConfig(mode=mode, adaptive=AdaptiveConfig())
     reps = {}
     for la in (False, True):
-        res = files.convert_song(song, "out.mid", files.ConvertOptions(Tuning.equal12(), cfg, lookahead=la))
+        res = conversion.convert_song(song, "out.mid", conversion.ConvertOptions(Tuning.equal12(), cfg, lookahead=la))
         notes = []
         for o in res.outputs:
-            notes += metrics.decode(files.output_stream(o.data), exclude_channels=(9,)).notes
+            notes += metrics.decode(messages.output_stream(o.data), exclude_channels=(9,)).notes
         reps[la] = (metrics.impurity(notes)[0], metrics.motion(notes), metrics.drift(notes)["max"])
     live, la = reps[False], reps[True]
     assert la[0] <= live[0] + 1e-3
@@ -192,7 +196,7 @@ def test_move_bends_early_rules():
     and stays at the note-on when the channel still rings."""
     from retuner.adaptive.lookahead import move_bends_early
 
-    song = files.parse_smf(files.serialize(0, 480, [([(0, b"\xFF\x51\x03\x07\xA1\x20")], 0)]))  # 120 bpm
+    song = reader.parse_smf(writer.serialize(0, 480, [([(0, b"\xFF\x51\x03\x07\xA1\x20")], 0)]))  # 120 bpm
 
     def run(extra, release):
         evs = [(0, b"\x90\x3C\x40"), (96, b"\x80\x3C\x00")] + extra + [(2000, b"\xE0\x00\x50"), (2000, b"\x90\x3E\x40")]
@@ -276,14 +280,14 @@ def test_mixture_of_plans_is_no_worse_than_its_parts():
 
     song = _song("pump", legato=True)
     cfg = EngineConfig(adaptive=AdaptiveConfig())
-    merged = files.merged_events(song)
-    secs = files.event_seconds(song, merged)
-    groups = files.plan_groups(song, merged, secs, Tuning.equal12(), cfg)
+    merged = reader.merged_events(song)
+    secs = reader.event_seconds(song, merged)
+    groups = arrange.plan_groups(song, merged, secs, Tuning.equal12(), cfg)
     tun = Tuning.equal12()
 
     def measure(plan):
-        outs = files._render(song, merged, secs, groups, tun, cfg, "out.mid", plan)
-        return lookahead.measure_outputs(outs, cfg, files.output_stream)
+        outs = conversion._render(song, merged, secs, groups, tun, cfg, "out.mid", plan)
+        return lookahead.measure_outputs(outs, cfg, messages.output_stream)
 
     p1 = lookahead.plan_song(song, merged, secs, tun, cfg, motion_value=1.0, drift_value=0.1)
     p2 = lookahead.plan_song(song, merged, secs, tun, cfg, motion_value=2.0, drift_value=0.1)
@@ -302,8 +306,8 @@ def test_lookahead_keeps_the_drift_limit():
     from the output, to a bend step), even where live playing of the comma pump needs more."""
     song = _song("pump", legato=True)
     cfg = EngineConfig(adaptive=AdaptiveConfig(max_drift=1.5))
-    res = files.convert_song(song, "out.mid", files.ConvertOptions(Tuning.equal12(), cfg, lookahead=True))
-    rep = metrics.report(files.output_stream(res.outputs[0].data), exclude_channels=(9,))
+    res = conversion.convert_song(song, "out.mid", conversion.ConvertOptions(Tuning.equal12(), cfg, lookahead=True))
+    rep = metrics.report(messages.output_stream(res.outputs[0].data), exclude_channels=(9,))
     assert rep["drift_max_cents"] <= 1.5 + 200 / 8192
 
 
@@ -317,9 +321,9 @@ def test_lookahead_lone_note_sits_at_the_reference():
     tr.append(mido.Message("note_off", note=64, time=480))
     buf = io.BytesIO()
     mf.save(file=buf)
-    song = files.parse_smf(buf.getvalue(), "one.mid")
-    res = files.convert_song(song, "out.mid", files.ConvertOptions(
+    song = reader.parse_smf(buf.getvalue(), "one.mid")
+    res = conversion.convert_song(song, "out.mid", conversion.ConvertOptions(
         Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()), lookahead=True))
-    dec = metrics.decode(files.output_stream(res.outputs[0].data))
+    dec = metrics.decode(messages.output_stream(res.outputs[0].data))
     assert len(dec.notes) == 1
     assert abs(dec.notes[0].pitch - 6400.0) <= 200 / 8192

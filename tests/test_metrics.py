@@ -209,3 +209,33 @@ def test_restrike_and_all_notes_off_end_notes():
 def test_excluded_channel_is_ignored():
     s = [(0.0, on(9, 36)), (0.0, on(0, 60)), (1.0, off(9, 36)), (1.0, off(0, 60))]
     assert len(M.decode(s, exclude_channels=(9,)).notes) == 1
+
+
+def test_a_note_that_has_ended_no_longer_sounds():
+    """A note of zero length (on and off at one instant: a grace note, a file's ghost note)
+    and a note bent at the very instant it ends sound no more after that instant: the
+    major third C4-E4 that follows is measured alone, at the 12-EDO 13.686 c (common
+    practice: 400 - 386.314), and the sounding set never grows past what sounds."""
+    s = [(0.0, on(0, 67)), (0.0, off(0, 67)),                       # zero length
+         (0.5, on(1, 72)), (1.0, bend(1, 100)), (1.0, off(1, 72)),  # bent as it ends
+         (2.0, on(2, 60)), (2.0, on(3, 64)), (3.0, off(2, 60)), (3.0, off(3, 64))]
+    dec = M.decode(s)
+    sizes = [len(snd) for _, _, snd in M.segments(dec.notes)]
+    assert max(sizes) == 2, sizes
+    imp, pair_time = M.impurity(dec.notes)
+    assert abs(imp - (400.0 - JUST_M3)) < 1e-9 and abs(pair_time - 1.0) < 1e-9
+
+
+def test_measures_walk_only_the_notes_that_sound():
+    """A long stream of short notes, three at a time, with a zero-length note among each
+    chord: the segments never hold more than the three notes that sound."""
+    s = []
+    for i in range(300):
+        t = float(i)
+        for k in (60, 64, 67):
+            s.append((t, on(0, k + i % 5)))
+        s += [(t + 0.1, on(1, 72)), (t + 0.1, off(1, 72))]
+        for k in (60, 64, 67):
+            s.append((t + 0.9, off(0, k + i % 5)))
+    dec = M.decode(s)
+    assert max(len(snd) for _, _, snd in M.segments(dec.notes)) == 3

@@ -27,9 +27,17 @@ note-ons at the same time.
 from __future__ import annotations
 
 import itertools
+import random
+import time
 from typing import Iterable, Optional, Sequence
 
 import mido
+
+from retuner.engine.core import Engine, EngineConfig
+from retuner.engine.drive import play
+from retuner.measure.metrics import NoteTrack, report
+from retuner.profiles.profile import load_profile
+from retuner.pitch.tuning import Tuning
 
 Event = tuple[float, mido.Message]
 
@@ -395,8 +403,7 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
     together (tuned at the window's start, as if the window cost no time).
     Returns a list of :class:`retuner.measure.metrics.NoteTrack` (the ideal output).
     """
-    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver
-    from retuner.measure.metrics import NoteTrack
+    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver  # lazy: numpy, not at start-up
 
     cfg = config if config is not None else AdaptiveConfig()
     solver = AdaptiveSolver(cfg, reference)
@@ -457,29 +464,11 @@ def simulate(events: Sequence[Event], config=None, reference=None, *, chord_wind
 
 def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, mode: str = "pool"):
     """Play events through a fresh engine (as the daemon would) and return its output stream."""
-    from retuner.engine.core import Engine, EngineConfig
-    from retuner.pitch.tuning import Tuning
-
     eng = Engine(tuning or Tuning.equal12(), EngineConfig(mode=mode, adaptive=adaptive))
-    out: list[Event] = [(0.0, m) for m in eng.start(0.0)]
-    for t, m in events:
-        d = eng.next_deadline()
-        while d is not None and d <= t:
-            out += [(d, x) for x in eng.tick(d)]
-            d = eng.next_deadline()
-        out += [(t, x) for x in eng.feed(t, m)]
-    d = eng.next_deadline()
-    while d is not None:
-        out += [(d, x) for x in eng.tick(d)]
-        d2 = eng.next_deadline()
-        if d2 is not None and d2 <= d:
-            break
-        d = d2
-    return out
+    return play(eng, events)
 
 
 def _figures(stream) -> dict:
-    from retuner.measure.metrics import report
     r = report(stream)
     return {"impurity": r["impurity_cents"], "motion": r["motion_cents_per_note"],
             "drift_max": r["drift_max_cents"], "drift_max_settled": r["drift_max_settled_cents"],
@@ -488,7 +477,7 @@ def _figures(stream) -> dict:
 
 def bench_setups() -> dict:
     """The tunings compared by ``adaptive_bench``: name -> (tuning id, AdaptiveConfig or None)."""
-    from retuner.adaptive.solver import AdaptiveConfig
+    from retuner.adaptive.solver import AdaptiveConfig  # lazy: numpy, not at start-up
     return {
         "adaptive": ("edo12", AdaptiveConfig()),
         "edo12": ("edo12", None),
@@ -508,10 +497,7 @@ def solver_timing(events: int = 5000, voices: int = 8, seed: int = 1, clock: str
     diatonic set, so the chords are musical), the rest are held at the pitches the
     solver gave them.
     """
-    import random
-    import time
-
-    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver
+    from retuner.adaptive.solver import AdaptiveConfig, AdaptiveSolver  # lazy: numpy, not at start-up
 
     rng = random.Random(seed)
     solver = AdaptiveSolver(AdaptiveConfig())
@@ -544,7 +530,6 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
     """Figures for ``retuner bench --adaptive``: the comma pump and the chorales through the
     engine, measured from its output (retuner.measure.metrics), for adaptive mode and for the
     tunings it is compared with; and the solver's time per event with 8 voices."""
-    from retuner.profiles.profile import load_profile
 
     setups = bench_setups()
     pump = progression("pump", legato=True, rounds=rounds)

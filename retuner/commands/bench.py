@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
-from retuner.bench.timing import JSON_KEYS, measure, performance, performance_names
+from retuner.bench.files import convert_speed_bench
+from retuner.bench.performance import performance, performance_names
+from retuner.bench.progressions import adaptive_bench, format_adaptive_bench
+from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig, MODES
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
@@ -32,21 +35,37 @@ def add_arguments(parser):
                         help="time each event by the wall clock (default) or by this thread's CPU time "
                              "(steadier on a busy machine)")
     parser.add_argument("--files", action="store_true",
-                        help="measure file conversion instead: a generated file of about 100 000 events "
-                             "against mido loading and saving it, and a batch with 1..N worker processes")
+                        help="measure file conversion instead: generated files against mido loading and "
+                             "saving them (100 000 events; a piano-like 10 000 with the summary), "
+                             "--lookahead against plain --adaptive, peak memory on 1 000 000 events, "
+                             "and a batch with 1..N worker processes")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
     add_profiles_dir(parser)
 
 
 def _files_bench(args) -> int:
-    from retuner.convert.files import convert_speed_bench
     figs = convert_speed_bench(profile=args.profile, batch_events=40_000)
     if args.json:
         print_json(figs)
         return 0
+    g = figs["goals"]
     print(f"convert {figs['events']} events ({figs['profile']}): {figs['convert_s']:.3f} s; "
-          f"mido load+save {figs['mido_load_save_s']:.3f} s; ratio {figs['ratio']:.2f} (goal <= 2); "
-          f"{figs['events_per_s']} events/s")
+          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['ratio']:.2f} mido's time "
+          f"(goal <= {g['ratio']:g}); {figs['events_per_s']} events/s")
+    p = figs["piano"]
+    print(f"piano-like file of {p['events']} events, converted with its summary: "
+          f"{p['convert_with_summary_s']:.3f} s; mido load+save {p['mido_load_save_s']:.3f} s; "
+          f"x{p['ratio']:.2f} mido's time (goal <= {g['piano_ratio']:g})")
+    if "lookahead_s" in p:
+        print(f"  convert --adaptive on {p['lookahead_events']} events: {p['adaptive_s']:.3f} s, "
+              f"with --lookahead {p['lookahead_s']:.3f} s: "
+              f"x{p['lookahead_ratio']:.2f} (goal <= {g['lookahead_ratio']:g})")
+    if "big" in figs:
+        b = figs["big"]
+        state = "" if b["status"] == 0 else f" FAILED (exit {b['status']}: {b['error']})"
+        print(f"retuner convert with its summary on {b['events']} events ({b['file_mb']} MB): "
+              f"{b['seconds']:.1f} s, peak RSS {b['peak_rss_mb']:.0f} MB "
+              f"(goal <= {g['big_peak_rss_mb']:g} MB){state}")
     b = figs["batch"]
     runs = ", ".join(f"{j} worker(s) {t:.2f} s (x{b['speedup'][j]:.2f})" for j, t in b["seconds_by_jobs"].items())
     print(f"batch of {b['files']} files x {b['events_per_file']} events on {b['cpus']} CPUs: {runs}")
@@ -59,7 +78,7 @@ def run(args) -> int:
     tuning = load_profile(args.profile, args.profiles_dir)
     adaptive = None
     if args.adaptive:
-        from retuner.adaptive.solver import AdaptiveConfig
+        from retuner.adaptive.solver import AdaptiveConfig   # lazy: it loads numpy
         adaptive = AdaptiveConfig()
     if args.performance not in performance_names():
         raise RetunerError(f"unknown performance {args.performance!r} "
@@ -71,7 +90,6 @@ def run(args) -> int:
     if args.json:
         figs = {k: res[k] for k in JSON_KEYS}
         if args.adaptive:  # the adaptive goals: progressions measured from the output
-            from retuner.bench.progressions import adaptive_bench
             figs["adaptive"] = adaptive_bench(mode=args.mode, clock=args.clock)
         print_json(figs)
         return 0
@@ -86,6 +104,5 @@ def run(args) -> int:
           f"({res['ringing_retunes_below_pool']} while fewer notes sounded than pool channels)")
     print(f"steals: {res['steals']}")
     if args.adaptive:
-        from retuner.bench.progressions import adaptive_bench, format_adaptive_bench
         print(format_adaptive_bench(adaptive_bench(mode=args.mode, clock=args.clock)))
     return 0

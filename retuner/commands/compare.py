@@ -2,8 +2,16 @@
 
 from __future__ import annotations
 
-from retuner.errors import RetunerError
+import argparse
+
 from retuner.commands._common import add_profiles_dir, print_json
+from retuner.commands._engine_options import channel_list as _channels_or_none
+from retuner.commands.convert import _one_blas_thread
+from retuner.engine.core import EngineConfig
+from retuner.errors import RetunerError
+from retuner.measure import report
+from retuner.profiles.profile import load_profile
+from retuner.smf.reader import read_smf
 from retuner.view import plot
 
 NAME = "compare"
@@ -33,29 +41,23 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from retuner.commands.convert import _one_blas_thread
     _one_blas_thread()
-    from retuner.convert import files
-    from retuner.measure import report
-    from retuner.engine.core import EngineConfig
-    from retuner.profiles.profile import load_profile
-    from retuner.commands._engine_options import channel_list as _channels_or_none
 
     names = [n.strip() for n in args.profiles.split(",") if n.strip()]
     if not names:
         raise RetunerError("give at least one profile", field="--profiles")
     if not 1 <= args.top <= 50:
         raise RetunerError("must be 1..50", field="--top")
-    import argparse
     try:
         pas = tuple(sorted(c - 1 for c in _channels_or_none(args.passthrough)))
     except argparse.ArgumentTypeError as exc:
         raise RetunerError(str(exc), field="--passthrough")
     tunings = [load_profile(n, args.profiles_dir) for n in names]
-    song = files.read_smf(args.input)
+    song = read_smf(args.input)
     cfg = EngineConfig(passthrough=pas, pool=tuple(c for c in range(16) if c not in pas)).validate()
     acfg = None
     if args.adaptive:
+        # lazy: the solver loads numpy, which must come after _one_blas_thread
         from retuner.adaptive.solver import AdaptiveConfig
         acfg = AdaptiveConfig()
     c = report.compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)

@@ -6,9 +6,13 @@ import os
 import sys
 
 from retuner.engine.outputs import MODES
-from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir
 from retuner.commands._engine_options import add_engine_arguments, build_engine_config, engine_overrides
+from retuner.convert.batch import convert_batch
+from retuner.convert.conversion import ConvertOptions, convert_file
+from retuner.errors import RetunerError
+from retuner.measure import report as rp
+from retuner.profiles.profile import load_profile
 
 NAME = "convert"
 HELP = "retune a MIDI file (or every .mid below a folder) into new MIDI files"
@@ -43,14 +47,13 @@ def add_arguments(parser) -> None:
                    "(needs matplotlib: pip install 'retuner[plot]')")
     o.add_argument("--jobs", "-j", type=int, default=None, metavar="N",
                    help="worker processes for a folder (default: number of CPUs)")
-    o.add_argument("-q", "--quiet", action="store_true", help="no summary on stdout")
+    o.add_argument("-q", "--quiet", action="store_true",
+                   help="no summary (it is not even computed); only errors, and the one line "
+                        "that says where split output went")
 
 
 def build_options(args):
     """ConvertOptions from the command line."""
-    from retuner.convert.files import ConvertOptions
-    from retuner.profiles.profile import load_profile
-
     tuning = load_profile(args.profile, args.profiles_dir)
     if args.lookahead and not args.adaptive:
         raise RetunerError("needs --adaptive", field="--lookahead")
@@ -69,31 +72,56 @@ def _one_blas_thread() -> None:
             os.environ.setdefault(var, "1")
 
 
+class _Progress:
+    """Progress of a long conversion (the lookahead) on stderr: one line rewritten in place
+    on a terminal, nothing otherwise (a log should not fill with it)."""
+
+    def __init__(self, stream):
+        self.stream = stream
+        self.tty = hasattr(stream, "isatty") and stream.isatty()
+        self.shown = False
+
+    def __call__(self, text: str) -> None:
+        if self.tty:
+            self.stream.write("\r\x1b[K" + text)
+            self.stream.flush()
+            self.shown = True
+
+    def done(self) -> None:
+        if self.shown:
+            self.stream.write("\r\x1b[K")
+            self.stream.flush()
+
+
 def run(args) -> int:
     _one_blas_thread()
-    from retuner.convert import files
-
     if args.plot:
-        from retuner.measure.report import require_matplotlib
-        require_matplotlib()
+        rp.require_matplotlib()
     opts = build_options(args)
     if os.path.isdir(args.input):
         if args.report or args.plot:
             raise RetunerError("--report and --plot are for single files", field="--report")
-        return files.convert_batch(args.input, args.output, opts, jobs=args.jobs, quiet=args.quiet)
-    from retuner.measure import report as rp
-    res = files.convert_file(args.input, args.output, opts)
-    if res.split:
+        return convert_batch(args.input, args.output, opts, jobs=args.jobs, quiet=args.quiet)
+    progress = _Progress(sys.stderr) if opts.lookahead and not args.quiet else None
+    try:
+        res = convert_file(args.input, args.output, opts, progress)
+    finally:
+        if progress is not None:
+            progress.done()
+    if res.split:     # said even with -q: the output is not where -o said
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
         why = ("in MPE mode a port holds two parts (one per zone)" if MODES[opts.config.mode].zone_per_part
                else "the parts need more channels than the pool has")
         print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own",
               file=sys.stderr)
-    summary = rp.build_report(res, opts)
+    if not (args.report or args.plot or not args.quiet):
+        return 0      # -q and nothing asked for: the measures are not computed at all
+    decoded = rp.decode_outputs(res, opts)
+    summary = rp.build_report(res, opts, decoded)
     if args.report:
         rp.write_report(args.report, summary)
     if args.plot:
-        rp.plot(res, opts, args.plot)
+        rp.plot(res, opts, args.plot, decoded)
     if not args.quiet:
         print(rp.text_summary(summary))
     return 0

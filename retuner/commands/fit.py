@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import sys
 
+from retuner.errors import RetunerError
 from retuner.pitch.tuning import rounded
+from retuner.profiles.profile import parse_profile
 from retuner.commands._engine_options import channel_list
 
 
@@ -42,9 +44,8 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from retuner.errors import RetunerError
+    # lazy: the fit solves with numpy, which no other command needs at start-up
     from retuner.measure import fit
-    from retuner.profiles.profile import parse_profile
     if not (args.reference > 0):
         raise RetunerError("--reference must be a positive frequency in Hz", field="reference")
     notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.passthrough])

@@ -41,6 +41,7 @@ degrees on key 0 whose period lies beyond key 127.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
@@ -53,9 +54,12 @@ import numpy as np
 
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic  # noqa: F401  (fit.write_atomic is used by the command)
+from retuner.engine.notes import NoteTracker
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.profiles.dump import dump_profile
+from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
+from retuner.smf.reader import CHANNEL, event_seconds, merged_events, read_smf
 
 #: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
 JUST_TARGETS: dict[int, Fraction] = dict(CONSONANT_RATIOS)
@@ -85,13 +89,12 @@ def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CH
     note-ons of one key on one channel stack and are released first-in, first-out; notes
     still held at the end end at the last event.
     """
-    from retuner.convert.files import CHANNEL, event_seconds, merged_events, read_smf
     song = read_smf(path)
     merged = merged_events(song)
     secs = event_seconds(song, merged)
     skip = set(passthrough)
     t = 0.0
-    held: dict[tuple[int, int], list[float]] = {}
+    held = NoteTracker()               # no pedals: a note lasts from its key's press to its release
     notes: list[Note] = []
     for (tick, ti, kind, raw), t in zip(merged, secs):
         if kind != CHANNEL:
@@ -100,19 +103,15 @@ def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CH
         if status not in (0x80, 0x90) or ch in skip:
             continue
         key, vel = raw[1], raw[2]
-        k = (ch, key)
         if status == 0x90 and vel > 0:
-            held.setdefault(k, []).append(t)
+            held.note_on(ch, key, (t, key, ch))
         else:
-            starts = held.get(k)
-            if starts:
-                st = starts.pop(0)
-                if t > st:
-                    notes.append(Note(st, t, key, ch))
-    for (ch, key), starts in held.items():
-        for st in starts:
-            if t > st:
-                notes.append(Note(st, t, key, ch))
+            pressed, _ = held.note_off(ch, key)
+            if pressed is not None and t > pressed[0]:
+                notes.append(Note(pressed[0], t, key, ch))
+    for st, key, ch in held.remaining():
+        if t > st:
+            notes.append(Note(st, t, key, ch))
     notes.sort(key=lambda n: (n.start, n.key))
     return notes
 
@@ -547,7 +546,6 @@ def profile_id_for(path: str | os.PathLike) -> str:
 def compare(weights: dict[tuple[int, int], float], profile_ids: Sequence[str] = COMPARE_PROFILES,
             dirs: Sequence = ()) -> list[tuple[str, float]]:
     """Impurity of each named profile on the piece (12-note profiles compared key by key)."""
-    from retuner.profiles.profile import load_profile
     out = []
     for pid in profile_ids:
         t = load_profile(pid, dirs)

@@ -41,6 +41,7 @@ from typing import Iterable, Optional, Sequence
 
 import mido
 
+from retuner.midi.mts import is_mts, parse_sysex
 from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
@@ -59,7 +60,7 @@ RPN_TUNING_PROGRAM = (0, 3)
 RPN_TUNING_BANK = (0, 4)
 
 
-@dataclass
+@dataclass(slots=True)
 class NoteTrack:
     """One sounding note of the output: its key, channel, start, end and pitch steps."""
 
@@ -90,10 +91,6 @@ class Decoded:
 
 def _parse_mts(msg: mido.Message):
     """MTS sysex -> (realtime, bank, program, [(key, cents|None)]) or None."""
-    try:
-        from retuner.midi.mts import is_mts, parse_sysex
-    except ImportError:  # pragma: no cover - mts.py is part of the package
-        return None
     if not is_mts(msg):
         return None
     try:
@@ -164,8 +161,8 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
                     nt.steps.append((t, p))
 
     for t, msg in stream:
-        t = float(t)
-        t_last = max(t_last, t)
+        if t > t_last:
+            t_last = t
         typ = msg.type
         if typ == "sysex":
             parsed = _parse_mts(msg)
@@ -256,24 +253,31 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
 # -- the measures ----------------------------------------------------------------
 
 def segments(notes: Sequence[NoteTrack]):
-    """Yield (t0, t1, [(key, cents)]) for every interval over which the sounding set is constant."""
-    ev: list[tuple[float, int, int, float]] = []  # (time, kind 0=change/start 1=end, id, cents)
+    """Yield (t0, t1, [(key, cents)]) for every interval over which the sounding set is constant.
+
+    A note sounds from its start until its end and not after: at one instant its pitch
+    changes are applied before its end, and nothing brings an ended note back (a note of zero
+    length, or one bent at the instant it ends, once stayed in the set for good and made
+    every later moment count it). The set holds only what sounds, so the work is linear in
+    the notes times the notes sounding at once."""
+    ev: list[tuple[float, int, int, float]] = []  # (time, kind 0=start/change 1=end, index, cents)
     for i, n in enumerate(notes):
         for t, c in n.steps:
             ev.append((t, 0, i, c))
-        ev.append((n.end if n.end is not None else n.start, -1, i, 0.0))
-    # ends before starts at the same instant; zero-length intervals carry no weight anyway
+        ev.append((n.end if n.end is not None else n.start, 1, i, 0.0))
     ev.sort(key=lambda e: (e[0], e[1]))
     cur: dict[int, float] = {}
+    ended: set[int] = set()
     prev_t: Optional[float] = None
     for t, kind, i, c in ev:
         if prev_t is not None and t > prev_t + TIME_EPS and cur:
             yield prev_t, t, [(notes[j].key, p) for j, p in cur.items()]
         if prev_t is None or t > prev_t + TIME_EPS:
             prev_t = t
-        if kind == -1:
+        if kind:
             cur.pop(i, None)
-        else:
+            ended.add(i)
+        elif i not in ended:
             cur[i] = c
 
 

@@ -26,10 +26,14 @@ import json
 import math
 from typing import Optional
 
+from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
-from retuner.measure import metrics
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
+from retuner.measure import metrics
+from retuner.outfile import write_atomic
+from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
+from retuner.smf.messages import iter_output_stream, output_stream
 
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
             "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
@@ -45,15 +49,17 @@ def require_matplotlib():
 
 
 def _decode(o, config):
-    from retuner.convert import files
-    from retuner.measure import metrics
-    stream = files.output_stream(o.data, o.path)
+    stream = iter_output_stream(o.data, o.path)
     return metrics.decode(stream, bend_scale=config.bend_scale,
                           exclude_channels=tuple(config.passthrough))
 
 
+def decode_outputs(res, opts) -> list:
+    """Every output file of a conversion, decoded as a synth hears it."""
+    return [_decode(o, opts.config) for o in res.outputs]
+
+
 def _measures(dec, tuning, stats: dict) -> dict:
-    from retuner.measure import metrics
     imp, _ = metrics.impurity(dec.notes)
     dr = metrics.drift(dec.notes)
     rep = {
@@ -114,7 +120,6 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
 
 
 def write_report(path: str, rep: dict) -> None:
-    from retuner.outfile import write_atomic
     write_atomic(path, (json.dumps(rep, indent=2) + "\n").encode())
 
 
@@ -210,7 +215,6 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     ax.grid(True, alpha=0.3)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    from retuner.outfile import write_atomic
     write_atomic(path, buf.getvalue())
 
 
@@ -228,7 +232,6 @@ def pair_times(notes) -> dict:
     """(low key, high key) -> [seconds sounding together, sum of beat rate * seconds] for the
     consonant pairs (a whole octave and more counts as an octave's multiple: compound 2:1 only
     for octaves; other compound intervals are reduced to their simple form for the ratio)."""
-    from retuner.pitch.tuning import beat_rate, cents_to_hz
     acc: dict = {}
     for t0, t1, snd in metrics.segments(notes):
         dt = t1 - t0
@@ -258,9 +261,6 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
     """Impurity, motion, drift and beat rates of the piece's most frequent consonant key pairs,
     per tuning (static), and for adaptive tuning live and with lookahead when
     ``adaptive_config`` is given (reference: the first tuning)."""
-    from retuner.convert import files
-    from retuner.measure import metrics
-    from retuner.pitch.tuning import note_name
     rows = []
     runs = [(t.id, t, config.replace(adaptive=None), False) for t in tunings]
     if adaptive_config is not None:
@@ -268,10 +268,10 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         runs.append(("adaptive+lookahead", tunings[0], config.replace(adaptive=adaptive_config), True))
     decoded = []
     for name, tun, cfg, la in runs:
-        res = files.convert_song(song, "compare.mid", files.ConvertOptions(tun, cfg, lookahead=la))
+        res = convert_song(song, "compare.mid", ConvertOptions(tun, cfg, lookahead=la))
         notes = []
         for o in res.outputs:
-            notes += metrics.decode(files.output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
+            notes += metrics.decode(output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
                                     exclude_channels=tuple(cfg.passthrough)).notes
         decoded.append((name, tun, notes))
     # the piece's most frequent consonant pairs (by time sounding together), from the first run

@@ -1,0 +1,244 @@
+"""Converting one MIDI file: drive the engines with the file's own clock, write.
+
+Clock
+-----
+The tempo map (every Set Tempo meta event, in any track, at its tick) turns ticks into
+seconds; the engine sees exactly the times a live performance of the file would have, so
+``convert --adaptive`` behaves as the daemon does on the same performance (chord window,
+release time and every timer included).
+
+Writing
+-------
+Every output event is written at its ORIGINAL tick: the engine output for an input event at
+tick T is written at tick T; output the engine produces at a timer (``engine.tick(deadline)``)
+is written at the tick of that time. Meta events (tempo, time signature, markers, lyrics,
+track names, ...) and system exclusive stay in their tracks at their ticks, byte for byte;
+type 1 files keep their track layout (the conductor track included), each retuned event
+landing in the track its input came from. Files are written atomically: a temporary file in
+the target folder, then ``os.replace`` -- there is never a half-written output.
+
+Parts
+-----
+How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode without
+``--lookahead`` runs one engine per part, as a daemon per part would: each part is tuned
+against itself (for a file with one part -- a keyboard performance -- that is exactly the
+live daemon). ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
+as the daemon treats a multi-channel input: the parts are then tuned together but share
+their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
+parts together (see :mod:`retuner.adaptive.lookahead`).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Any, Optional, Sequence
+
+from retuner.engine.outputs import MODES
+from retuner.convert.arrange import plan_groups, split_name
+from retuner.engine.core import Engine, EngineConfig
+from retuner.engine.drive import Drive
+from retuner.errors import RetunerError
+from retuner.outfile import write_atomic
+from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
+from retuner.smf.reader import CHANNEL, Song, event_seconds, merged_events, read_smf
+from retuner.smf.writer import TrackBytes, serialize
+
+
+@dataclass
+class ConvertOptions:
+    """What ``convert`` does to one file. ``config`` is the engine configuration
+    for the whole port (its pool, passthrough channels, mode, adaptive settings);
+    arrangements carve each part's share out of ``config.pool``."""
+
+    tuning: object                      # retuner.pitch.tuning.Tuning
+    config: object = None               # retuner.engine.core.EngineConfig
+    lookahead: bool = False
+    want_report: bool = False
+    merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
+
+
+@dataclass
+class Output:
+    path: str
+    parts: list[int]                    # 0-based source channels in this file
+    channels: dict                      # part -> list of 0-based output channels (pool / MPE members)
+    data: bytes = b""
+    stats: dict = field(default_factory=dict)
+    report: Optional[dict] = None
+
+
+@dataclass
+class ConvertResult:
+    input: str
+    outputs: list[Output]
+    split: bool = False
+    lookahead: Optional[dict] = None    # what the lookahead planner chose, and the live figures
+
+    @property
+    def stats(self) -> dict:
+        tot: dict = {}
+        for o in self.outputs:
+            for k, v in o.stats.items():
+                tot[k] = tot.get(k, 0) + v
+        return tot
+
+
+def _make_engine(tuning, config, plan=None):
+    if plan is not None:    # a lookahead plan plays through the engine as its solver
+        return Engine(tuning, plan.engine_config(config), solver=plan.solver_factory(config))
+    return Engine(tuning, config)
+
+
+class _Group:
+    """One output file: the parts it holds and one engine per part (or one for all)."""
+
+    def __init__(self, parts: list[int], engines: dict, channels: dict):
+        self.parts = parts
+        self.engines = engines          # part -> Engine (the same engine may serve several parts)
+        self.channels = channels
+
+
+def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, passthrough: frozenset,
+           as_lists: bool = False) -> list[tuple[list, int]]:
+    """Feed the group's engines with the file's events on the file's clock; return output tracks."""
+    ntr = len(song.tracks)
+    # a plan rewrites the tracks after the drive: it gets lists; otherwise bytes as they come
+    outs: list = [[] for _ in range(ntr)] if as_lists else [TrackBytes() for _ in range(ntr)]
+    tm = song.tempo_map
+    engine_of = group.engines                           # part -> engine
+    engines = list({id(e): e for e in engine_of.values()}.values())
+    home: dict[int, int] = {}                           # id(engine) -> track of its first event
+    for tick, ti, kind, raw in merged:
+        if kind == CHANNEL:
+            e = engine_of.get(raw[0] & 0x0F)
+            if e is not None and id(e) not in home:
+                home[id(e)] = ti
+    to_raw = message_to_raw
+    drives = {id(e): Drive(e) for e in engines}
+    for e in engines:
+        ti = home.get(id(e), 0)
+        outs[ti].extend((0, to_raw(m)) for m in drives[id(e)].start(0.0))
+    timed = [(e, drives[id(e)]) for e in engines if e.adaptive]   # only adaptive engines have deadlines
+    last_tick = 0
+    for idx, (tick, ti, kind, raw) in enumerate(merged):
+        t = secs[idx]
+        for e, dr in timed:
+            for d, res in dr.due(t):
+                dt = min(max(int(round(tm.tick(d))), last_tick), tick)
+                outs[home.get(id(e), ti)].extend((dt, to_raw(m)) for m in res)
+        last_tick = tick
+        if kind != CHANNEL:
+            outs[ti].append((tick, raw))
+            continue
+        ch = raw[0] & 0x0F
+        if ch in passthrough:
+            outs[ti].append((tick, raw))
+            continue
+        e = engine_of.get(ch)
+        if e is None:
+            continue  # a part written to another file
+        msg = raw_to_message(raw)
+        res = e.feed(t, msg)
+        if res:
+            out = outs[ti]
+            for m in res:
+                out.append((tick, to_raw(m)))
+    # timers after the last event (chord windows still open)
+    for e, dr in timed:
+        for d, res in dr.finish():
+            dt = max(int(round(tm.tick(d))), last_tick)
+            outs[home.get(id(e), 0)].extend((dt, to_raw(m)) for m in res)
+    result = []
+    for ti, tr in enumerate(song.tracks):
+        evs = outs[ti]
+        last = evs.last if isinstance(evs, TrackBytes) else (evs[-1][0] if evs else 0)
+        end = max(tr.end_tick, last)
+        result.append((evs, end))
+    return result
+
+
+def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None) -> ConvertResult:
+    """Convert a parsed file; return the outputs (bytes not yet written). ``progress``
+    (optional) is called with a short text while a long conversion (the lookahead) works."""
+    config = opts.config or EngineConfig()
+    config.validate()
+    tuning = opts.tuning
+    merged = merged_events(song)
+    secs = event_seconds(song, merged)
+    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts)
+    if not opts.lookahead:
+        outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
+        return ConvertResult(song.path, outputs, len(groups) > 1)
+    if config.adaptive is None:
+        raise RetunerError("--lookahead needs --adaptive", field="lookahead")
+    # lazy: the planner needs numpy, and the command line sets numpy's thread count first
+    from retuner.adaptive import lookahead
+    say = progress or (lambda text: None)
+    say("lookahead: playing the file live")
+    live = _render(song, merged, secs, groups, tuning, config, out_path, None)
+    tries = [0]
+
+    def render_plan(plan):
+        tries[0] += 1
+        say(f"lookahead: {tries[0]} plan{'s' if tries[0] > 1 else ''} tried")
+        return _render(song, merged, secs, groups, tuning, config, out_path, plan)
+
+    say("lookahead: planning")
+    chosen = lookahead.choose(song, merged, secs, tuning, config, live, render_plan, output_stream)
+    res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
+    res.lookahead = chosen.summary
+    return res
+
+
+def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[Output]:
+    pas = frozenset(config.passthrough)
+    outputs = []
+    split = len(groups) > 1
+    for gi, (parts, cfgs) in enumerate(groups):
+        engines = {}
+        by_cfg: dict[int, Any] = {}      # parts given the very same config share one engine
+        for p in parts:
+            cfg = cfgs[p]
+            e = by_cfg.get(id(cfg))
+            if e is None:
+                e = _make_engine(tuning, cfg, plan)
+                by_cfg[id(cfg)] = e
+            engines[p] = e
+        channels = {p: MODES[cfgs[p].mode].part_channels(cfgs[p]) for p in parts}
+        group = _Group(parts, engines, channels)
+        tracks = _drive(song, merged, secs, group, pas, as_lists=plan is not None)
+        if plan is not None:
+            plan.after_drive(song, tracks, group)
+        data = serialize(song.format, song.header_division, tracks)
+        stats: dict = {}
+        for e in {id(e): e for e in engines.values()}.values():
+            for k, v in e.stats.items():
+                stats[k] = stats.get(k, 0) + v
+        path = split_name(out_path, gi + 1) if split else str(out_path)
+        outputs.append(Output(path, parts, channels, data, stats))
+    return outputs
+
+
+def convert_file(in_path: str | os.PathLike, out_path: str | os.PathLike, opts: ConvertOptions,
+                 progress=None) -> ConvertResult:
+    """Read, convert and write (atomically; all output files or none). The input is never
+    overwritten: an output path that names the input file is refused."""
+    song = read_smf(in_path)
+    res = convert_song(song, str(out_path), opts, progress)
+    for o in res.outputs:
+        if os.path.exists(o.path) and os.path.samefile(o.path, in_path):
+            raise RetunerError("the output would overwrite the input; give another -o", file=str(o.path))
+    written = []
+    try:
+        for o in res.outputs:
+            write_atomic(o.path, o.data)
+            written.append(o.path)
+    except BaseException:
+        for p in written:
+            try:
+                os.unlink(p)
+            except OSError:
+                pass
+        raise
+    return res
