@@ -23,8 +23,10 @@ import time
 import mido
 import pytest
 
-from retuner.control.control import (COMMANDS, ControlClient, ControlServer, EngineControl, EngineHost,
-                             default_socket_path)
+from retuner.control.client import ControlClient
+from retuner.control.commands import EngineControl, EngineHost
+from retuner.control.protocol import COMMANDS, default_socket_path
+from retuner.control.server import ControlServer
 from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
 from retuner.profiles.profile import list_profiles, load_profile

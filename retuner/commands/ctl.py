@@ -113,7 +113,7 @@ def _fmt(reply: dict) -> str:
 
 
 def run(args) -> int:
-    from retuner.control.control import ControlClient, NoDaemon
+    from retuner.control.client import ControlClient, NoDaemon
     req = _request(args)
     try:
         with ControlClient(args.socket, timeout=5.0) as client:

@@ -26,7 +26,7 @@ defaults). Every field is optional::
                                    # before a note-on after this many quiet seconds with nothing
                                    # sounding or ringing, for a synth connected after the start; 0 = never
     log_level: info                # debug, info, warning, error
-    control:                       # the control socket (JSON lines; see retuner.control.control)
+    control:                       # the control socket (JSON lines; see retuner.control.protocol)
       enabled: true
       path: null                   # default $XDG_RUNTIME_DIR/retuner/control.sock
 

@@ -12,7 +12,7 @@ handler):
 * a port watcher thread lists the backend's ports every ``port_poll`` seconds
   (only when a port is named) and puts ``("ports", inputs, outputs)``;
 * signal handlers put ``("signal", signum)``;
-* the control socket (retuner.control.control) wakes the loop with ``("wake",)``.
+* the control socket (retuner.control.server) wakes the loop with ``("wake",)``.
 
 The loop waits on the queue with a timeout: the earliest of the engine's
 ``next_deadline()``, the watchdog ping and the status line. Output is sent the
@@ -35,7 +35,7 @@ settings stay); SIGTERM and SIGINT release every sounding note
 
 Control socket
 --------------
-When ``control.enabled`` (default) the daemon starts retuner.control.control's server
+When ``control.enabled`` (default) the daemon starts retuner.control's server
 (``EngineControl`` + ``ControlServer``); the engine thread applies its commands
 (``serve_pending``) and publishes events (``observe``) on every wake-up.
 """
@@ -144,8 +144,8 @@ class Daemon:
         self._errors = 0
         self.running = False
         self.exit_status = 0
-        self.control = None         # retuner.control.control.EngineControl
-        self.control_server = None  # retuner.control.control.ControlServer
+        self.control = None         # retuner.control.commands.EngineControl
+        self.control_server = None  # retuner.control.server.ControlServer
         self.started_at = time.monotonic()
 
     # ------------------------------------------------------------------ engine
@@ -485,7 +485,8 @@ class Daemon:
         if not self.settings.control.enabled:
             return
         try:
-            from retuner.control.control import ControlServer, EngineControl, EngineHost
+            from retuner.control.commands import EngineControl, EngineHost
+            from retuner.control.server import ControlServer
             host = EngineHost(engine=self.engine, emit=self.emit, tuning=self.tuning,
                               clock=time.monotonic, profile_dirs=tuple(self.settings.profile_dirs),
                               on_switch=self._on_control_switch, status_extra=self.status)

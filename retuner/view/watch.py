@@ -1,7 +1,7 @@
 """A live view of a running daemon, for a terminal (and a projector).
 
 The view is built from the control socket's subscription (see
-:mod:`retuner.control.control`): the daemon only queues events, so a slow terminal
+:mod:`retuner.control.server`): the daemon only queues events, so a slow terminal
 never touches the engine's timing (the server drops the oldest events of a
 subscriber that falls behind, and counts them).
 
@@ -214,7 +214,7 @@ class Feed:
     """Reads the subscription on its own thread and keeps a :class:`WatchState`."""
 
     def __init__(self, socket_path=None):
-        from retuner.control.control import ControlClient
+        from retuner.control.client import ControlClient
         self.client = ControlClient(socket_path, timeout=5.0)
         reply = self.client.request("subscribe")
         if not reply.get("ok"):
