@@ -29,6 +29,7 @@ from retuner.control.protocol import COMMANDS, default_socket_path
 from retuner.control.server import ControlServer
 from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
+from retuner.live.session import Session
 from retuner.profiles.profile import list_profiles, load_profile
 from retuner.pitch.tuning import ratio_to_cents
 from fractions import Fraction
@@ -46,8 +47,7 @@ class Rig:
         self.out: list[mido.Message] = []
         self.midi: "queue.SimpleQueue" = queue.SimpleQueue()
         self.calls: "queue.SimpleQueue" = queue.SimpleQueue()
-        host = EngineHost(engine=self.engine, emit=self.out.extend, tuning=self.engine.tuning,
-                          clock=time.monotonic)
+        host = EngineHost(session=Session(self.engine), emit=self.out.extend, clock=time.monotonic)
         self.ctl = EngineControl(host)
         self.server = ControlServer(self.path, self.ctl)
         self.ctl.server = self.server
@@ -150,14 +150,14 @@ def test_socket_permissions_default_path(monkeypatch):
         assert str(path) == os.path.join(base, "retuner", "control.sock")
         os.makedirs(os.path.join(base, "retuner"), mode=0o755)   # a folder left too open is tightened
         os.chmod(os.path.join(base, "retuner"), 0o755)
-        srv = ControlServer(None, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(None, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_ISSOCK(os.stat(path).st_mode)
             assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
             assert stat.S_IMODE(os.stat(path.parent).st_mode) == 0o700
             # a second server on the same live socket is refused, the first keeps it
             with pytest.raises(RetunerError, match="already listening"):
-                ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+                ControlServer(path, EngineControl(EngineHost(session=None, emit=list))).start()
             assert os.path.exists(path)
         finally:
             srv.close()
@@ -174,7 +174,7 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         dead = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
         dead.bind(path)
         dead.close()                                   # a leftover of a daemon that died
-        srv = ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(path, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
             with ControlClient(path) as c:
@@ -183,7 +183,7 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         finally:
             srv.close()
         fresh = os.path.join(base, "new", "retuner", "c.sock")
-        srv = ControlServer(fresh, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(fresh, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_IMODE(os.stat(os.path.dirname(fresh)).st_mode) == 0o700
         finally:
@@ -192,11 +192,11 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         os.symlink(base, os.path.join(base, "retuner"))
         with pytest.raises(RetunerError, match="not ours"):
             ControlServer(os.path.join(base, "retuner", "c.sock"),
-                          EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+                          EngineControl(EngineHost(session=None, emit=list))).start()
         with open(os.path.join(base, "plain"), "w") as fh:
             fh.write("x")
         with pytest.raises(RetunerError, match="not a socket"):
-            ControlServer(os.path.join(base, "plain"), EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+            ControlServer(os.path.join(base, "plain"), EngineControl(EngineHost(session=None, emit=list))).start()
     finally:
         shutil.rmtree(base, ignore_errors=True)
 
@@ -525,7 +525,7 @@ def test_commands_are_served_in_small_batches_and_the_loop_is_woken_for_the_rest
     base = tempfile.mkdtemp(prefix="rtb")
     wakes = []
     engine = Engine(load_profile("edo12"), EngineConfig())
-    ctl = EngineControl(EngineHost(engine=engine, emit=list, tuning=engine.tuning))
+    ctl = EngineControl(EngineHost(session=Session(engine), emit=list))
     srv = ControlServer(os.path.join(base, "c.sock"), ctl, on_command=lambda: wakes.append(1))
     ctl.server = srv
     srv.start()

@@ -19,7 +19,7 @@ from retuner.adaptive.solver import AdaptiveConfig
 from retuner.control.protocol import Command
 from retuner.control.server import ControlServer, Handler
 from retuner.errors import RetunerError
-from retuner.pitch.tuning import NUM_KEYS, Tuning, cents_to_hz
+from retuner.pitch.tuning import cents_to_hz
 from retuner.profiles.profile import list_profiles, load_profile
 
 log = logging.getLogger(__name__)
@@ -28,66 +28,31 @@ log = logging.getLogger(__name__)
 class EngineHost:
     """What :class:`EngineControl` needs from the daemon that owns the engine.
 
-    ``engine`` is the running engine (see retuner.engine.core); ``emit(messages)`` sends
-    output messages to the output port; ``clock()`` is the engine clock
-    (seconds, monotonic). ``tuning`` is the loaded profile; ``profile_dirs`` are
-    searched by ``load`` and ``profiles``. ``adaptive_config(settings)`` turns a
-    settings dict into the engine's adaptive configuration (None: use
-    ``retuner.adaptive.solver``'s defaults). ``on_switch(tuning)`` is told about a
-    profile switch made from the socket (for logging and config state).
+    ``session`` owns the tuning in force and the engine (retuner.live.session);
+    ``emit(messages)`` sends output messages to the output port; ``clock()`` is the
+    engine clock (seconds, monotonic); ``profile_dirs`` are searched by ``load`` and
+    ``profiles``. ``adaptive_config(settings)`` turns a settings dict into the
+    engine's adaptive configuration (None: use ``retuner.adaptive.solver``'s
+    defaults). ``panic(t)`` silences the output and returns the messages sent
+    (None: the engine's ``release_all``). ``status_extra()`` adds the daemon's
+    own fields to ``status``.
     """
 
-    engine: Any
+    session: Any
     emit: Callable[[list], None]
-    tuning: Any
     clock: Callable[[], float] = time.monotonic
     profile_dirs: tuple = ()
     adaptive_config: Optional[Callable[[dict], Any]] = None
-    on_switch: Optional[Callable[[Any], None]] = None
     status_extra: Optional[Callable[[], dict]] = None
-
-
-def rotate_tuning(tuning, semitones: int):
-    """The tuning with its pattern moved up ``semitones`` keys (the root moves with it).
-
-    Key k plays what key k - n played, raised by n equal-tempered semitones, so
-    the intervals between keys are those of the tuning with its root n keys
-    higher. Keys whose source would lie outside 0..127 are mapped through the
-    tuning's period when it has whole-key periods (12-note tunings), else unmapped.
-    """
-    n = int(semitones)
-    if n == 0:
-        return tuning
-    cents = tuning.cents
-    size = tuning.size if getattr(tuning, "is_twelve", False) else None
-    out = []
-    for k in range(NUM_KEYS):
-        src = k - n
-        shift = 0.0
-        if size:
-            while src < 0:
-                src += 12
-                shift -= 1200.0
-            while src >= NUM_KEYS:
-                src -= 12
-                shift += 1200.0
-        if 0 <= src < NUM_KEYS and cents[src] is not None:
-            out.append(cents[src] + 100.0 * n + shift)
-        else:
-            out.append(None)
-    return Tuning(id=tuning.id, cents=tuple(out), description=tuning.description,
-                  source=tuning.source, degrees=tuning.degrees, period=tuning.period,
-                  root=tuning.root + n)
+    panic: Optional[Callable[[float], list]] = None
 
 
 class EngineControl(Handler):
-    """The control commands, applied to a daemon's engine (see :class:`EngineHost`).
+    """The control commands, applied to a daemon's session and engine (see :class:`EngineHost`).
 
-    The tuning in force is ``base`` (the loaded profile) with its root moved by
-    ``transpose`` semitones, the whole keyboard shifted so A4 (key 69) sounds at
-    ``reference`` Hz (None: as the profile says), then shifted by
-    ``transpose_cents``. Switching keeps sounding notes at their pitch (the
-    engine's set_tuning contract); new notes use the new tuning.
+    What the tuning in force is, and how a switch treats sounding notes, is the
+    session's business (retuner.live.session); this class turns requests into
+    session calls, replies and events.
     """
 
     COUNTER_INTERVAL = 0.25   # seconds between counters events
@@ -95,18 +60,19 @@ class EngineControl(Handler):
     def __init__(self, host: EngineHost, server: Optional[ControlServer] = None):
         self.host = host
         self.server = server
-        self.base = host.tuning
-        self.reference: Optional[float] = None
-        self.transpose = 0
-        self.transpose_cents = 0.0
-        self.adaptive: Optional[dict] = None
-        self.current = getattr(host.engine, "tuning", None) or host.tuning
         self._sounding: dict[tuple, dict] = {}
         self._next_counters = 0.0
-        self._last_tuning_id: Optional[str] = None
         self._profiles_cache: Optional[tuple[float, list]] = None
-        # the adaptive settings in force or last used: "adaptive on" starts from them
-        self._adaptive_base = getattr(getattr(host.engine, "config", None), "adaptive", None)
+        if host.session is not None:
+            host.session.listen(self._session_changed)
+
+    @property
+    def session(self):
+        return self.host.session
+
+    @property
+    def engine(self):
+        return self.host.session.engine
 
     # -------------------------------------------------------- server thread
     def prepare(self, cmd: Command) -> Command | dict:
@@ -153,7 +119,7 @@ class EngineControl(Handler):
     def _adaptive_config(self, settings: dict):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
-        base = self._adaptive_base
+        base = self.session.adaptive_base
         if base is not None and dataclasses.is_dataclass(base):
             merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
             merged.update({str(k).replace("-", "_"): v for k, v in settings.items()})
@@ -170,89 +136,43 @@ class EngineControl(Handler):
             raise RetunerError(f"adaptive: {exc}", field="settings") from None
 
     # -------------------------------------------------------- engine thread
-    def _effective(self):
-        t = rotate_tuning(self.base, self.transpose)
-        a4, a4_new = self.base.cents[69], t.cents[69]
-        if self.transpose and a4 is not None and a4_new is not None:
-            t = t.shifted(a4 - a4_new)        # A4 keeps its pitch; the pattern moves around it
-        if self.reference is not None:
-            t = t.with_reference_hz(self.reference)
-        if self.transpose_cents:
-            t = t.shifted(self.transpose_cents)
-        return t
+    def _session_changed(self, kind: str, t: float) -> None:
+        if kind == "tuning":
+            self._publish({"event": "tuning", "t": t, **self.session.info()})
+        else:
+            self._publish({"event": "adaptive", "t": t, "on": self.session.adaptive_settings is not None,
+                           "settings": self.session.adaptive_settings})
 
-    def _switch(self, now: float) -> None:
-        tuning = self._effective()
-        out = self.host.engine.set_tuning(tuning, now)
-        self.current = tuning
+    def _emit(self, out) -> None:
         if out:
             self.host.emit(out)
-        self._publish({"event": "tuning", "t": now, **self._tuning_info()})
-        if self.host.on_switch is not None:
-            self.host.on_switch(tuning)
-
-    def _tuning_info(self) -> dict:
-        eng = self.host.engine
-        on = getattr(eng, "adaptive", None)
-        if not isinstance(on, bool):
-            on = getattr(getattr(eng, "config", None), "adaptive", None) is not None
-        return {"tuning": self.current.id, "base": self.base.id, "reference": self.reference,
-                "transpose": self.transpose, "transpose_cents": self.transpose_cents,
-                "adaptive": on}
 
     def apply(self, cmd: Command) -> dict:
         now = self.host.clock()
         a = cmd.args
         name = cmd.name
+        session = self.session
         if name == "status":
             return self.status()
         if name == "load":
-            old = self.base
-            self.base = cmd.data
-            try:
-                self._switch(now)
-            except Exception:
-                self.base = old
-                raise
-            return self._tuning_info()
+            self._emit(session.load(cmd.data, now, "control socket"))
+            return session.info()
         if name == "reference":
-            old_ref = self.reference
-            self.reference = float(a["hz"])
-            try:
-                self._switch(now)
-            except Exception:
-                self.reference = old_ref
-                raise
-            log.info("reference: A4 = %.3f Hz (control socket)", self.reference)
-            return self._tuning_info()
+            self._emit(session.set_reference(float(a["hz"]), now))
+            return session.info()
         if name == "transpose":
-            old = (self.transpose, self.transpose_cents)
-            self.transpose = int(a.get("semitones", 0))
-            self.transpose_cents = float(a.get("cents", 0.0))
-            try:
-                self._switch(now)
-            except Exception:
-                self.transpose, self.transpose_cents = old
-                raise
-            log.info("transpose: %+d semitones %+.2f cents (control socket)", self.transpose, self.transpose_cents)
-            return self._tuning_info()
+            self._emit(session.set_transpose(int(a.get("semitones", 0)), float(a.get("cents", 0.0)), now))
+            return session.info()
         if name == "adaptive":
-            out = self.host.engine.set_adaptive(cmd.data, now)
-            self.adaptive = dict(a.get("settings") or {}) if cmd.data is not None else None
-            if cmd.data is not None:
-                self._adaptive_base = cmd.data
-            if out:
-                self.host.emit(out)
-            self._publish({"event": "adaptive", "t": now, "on": self.adaptive is not None,
-                           "settings": self.adaptive})
-            log.info("adaptive %s (control socket)", "on" if self.adaptive is not None else "off")
-            return self._tuning_info()
+            self._emit(session.set_adaptive(cmd.data, now, a.get("settings")))
+            return session.info()
         if name == "panic":
-            sounding = len(self.host.engine.sounding())
-            out = self.host.engine.release_all(now)
+            sounding = len(self.engine.sounding())
+            if self.host.panic is not None:
+                self.host.panic(now)
+            else:
+                self._emit(self.engine.release_all(now))
             log.warning("panic: every note released (control socket)")
-            if out:
-                self.host.emit(out)
             self._publish({"event": "panic", "t": now})
             self.observe(now, force=True)
             # notes held by a pedal have had their note-off already: count every sounding note
@@ -260,7 +180,7 @@ class EngineControl(Handler):
         if name == "subscribe":
             self.observe(now)                 # existing subscribers get what changed first
             snap = self.status()
-            sounding = self.host.engine.sounding()
+            sounding = self.engine.sounding()
             snap["notes"] = self._notes(sounding)
             # the new subscriber's events continue from exactly this snapshot
             self._sounding = {(n.get("channel", 0), n["key"]): dict(n) for n in sounding}
@@ -270,27 +190,16 @@ class EngineControl(Handler):
 
     def _notes(self, sounding=None) -> list[dict]:
         out = []
-        for n in (self.host.engine.sounding() if sounding is None else sounding):
+        for n in (self.engine.sounding() if sounding is None else sounding):
             c = n.get("cents")
             out.append({"key": n["key"], "cents": c, "channel": n.get("channel", 0) + 1,
                         "hz": None if c is None else cents_to_hz(c)})
         out.sort(key=lambda d: (d["cents"] if d["cents"] is not None else d["key"] * 100.0))
         return out
 
-    def _check_external_switch(self) -> None:
-        """The daemon switched profile itself (program change, A/B controller): follow it."""
-        t = getattr(self.host.engine, "tuning", None)
-        if t is not None and t is not self.current:
-            self.base = self.current = t
-            self.reference = None
-            self.transpose = 0
-            self.transpose_cents = 0.0
-            self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
-
     def status(self) -> dict:
-        self._check_external_switch()
-        eng = self.host.engine
-        out = self._tuning_info()
+        eng = self.engine
+        out = self.session.info()
         out["stats"] = dict(getattr(eng, "stats", {}) or {})
         out["sounding"] = len(eng.sounding())
         if self.server is not None:
@@ -303,13 +212,6 @@ class EngineControl(Handler):
         if self.server is not None:
             self.server.publish(event)
 
-    def tuning_changed(self, tuning) -> None:
-        """Tell the control state about a switch the daemon made itself (program change, A/B CC)."""
-        self.base = tuning
-        self.current = self._effective() if (self.transpose or self.reference or self.transpose_cents) \
-            else tuning
-        self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
-
     def observe(self, now: float, force: bool = False) -> None:
         """Publish what changed since the last call: note on/off, pitch changes, counters.
 
@@ -320,9 +222,8 @@ class EngineControl(Handler):
         if server is None or not server.subscribers:
             self._sounding.clear()
             return
-        self._check_external_switch()
         now_notes = {}
-        for n in self.host.engine.sounding():
+        for n in self.engine.sounding():
             now_notes[(n.get("channel", 0), n["key"])] = n
         old = self._sounding
         for k, n in old.items():
@@ -341,6 +242,6 @@ class EngineControl(Handler):
         self._sounding = {k: dict(v) for k, v in now_notes.items()}
         if force or now >= self._next_counters:
             self._next_counters = now + self.COUNTER_INTERVAL
-            stats = dict(getattr(self.host.engine, "stats", {}) or {})
+            stats = dict(getattr(self.engine, "stats", {}) or {})
             stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
-            server.publish({"event": "counters", "t": now, "tuning": self.current.id, **stats})
+            server.publish({"event": "counters", "t": now, "tuning": self.session.current.id, **stats})

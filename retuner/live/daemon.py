@@ -51,10 +51,16 @@ import threading
 import time
 from typing import Callable, Optional
 
+from retuner.control.commands import EngineControl, EngineHost
+from retuner.control.server import ControlServer
+from retuner.engine.core import Engine
+from retuner.errors import RetunerError
 from retuner.live import ports as _ports
 from retuner.live.config import Settings, engine_config
-from retuner.errors import RetunerError
 from retuner.live.notify import Notifier
+from retuner.live.session import Session
+from retuner.measure.metrics import StreamWindow, report
+from retuner.profiles.profile import load_profile
 
 log = logging.getLogger("retuner")
 
@@ -93,8 +99,6 @@ class Profiles:
     """The tunings a configuration needs, loaded up front (no disk reads while switching)."""
 
     def __init__(self, settings: Settings):
-        from retuner.profiles.profile import load_profile
-
         dirs = settings.profile_dirs
 
         def load(name: str, fld: str):
@@ -124,8 +128,8 @@ class Daemon:
         self.notifier = notifier or Notifier()
         self.q: "queue.SimpleQueue[tuple]" = queue.SimpleQueue()
         self.profiles = Profiles(settings)
-        self.tuning = self.profiles.main
-        self.engine = self._new_engine(settings, self.tuning)
+        self.engine = self._new_engine(settings, self.profiles.main)
+        self.session = Session(self.engine, self.profiles.main)     # the tuning in force
         self.inp: Optional[_ports.InputPort] = None
         self.outp: Optional[_ports.OutputPort] = None
         self.lister: Optional[_ports.PortLister] = None
@@ -136,7 +140,6 @@ class Daemon:
         self._last_out = float("-inf")
         # what was sent lately, for the status line's impurity, motion and drift (measured from
         # the output, as 'retuner convert --report' does)
-        from retuner.measure.metrics import StreamWindow
         self.recent = StreamWindow()
         self._figures: Optional[dict] = None
         self._figures_busy = False
@@ -151,7 +154,6 @@ class Daemon:
     # ------------------------------------------------------------------ engine
     @staticmethod
     def _new_engine(settings: Settings, tuning):
-        from retuner.engine.core import Engine
         return Engine(tuning, engine_config(settings))
 
     def emit(self, messages) -> None:
@@ -322,14 +324,7 @@ class Daemon:
 
     # ------------------------------------------------------------------ switching
     def switch_to(self, tuning, now: float, why: str) -> None:
-        if self.control is not None:
-            self.control.tuning_changed(tuning)
-            effective = self.control.current
-        else:
-            effective = tuning
-        self.emit(self.engine.set_tuning(effective, now))
-        self.tuning = tuning
-        log.info("tuning: %s (%s)", tuning.id, why)
+        self.emit(self.session.load(tuning, now, why))
 
     def _control_message(self, msg, now: float) -> bool:
         """Handle program change / the A/B CC on the control channel; True when consumed."""
@@ -351,7 +346,8 @@ class Daemon:
             pressed = msg.value >= 64
             if pressed and self._ab_last < 64:
                 a, b = self.profiles.ab
-                target = b if (self.tuning is a or self.tuning.id == a.id) else a
+                base = self.session.base
+                target = b if (base is a or base.id == a.id) else a
                 self.switch_to(target, now, f"A/B switch CC{sw.ab_cc}")
             self._ab_last = msg.value
             return True
@@ -408,7 +404,7 @@ class Daemon:
             self._close_ports()
         if new_engine_cfg != self.engine.config:
             # a new layout releases everything and starts again; lighter changes keep notes sounding
-            self.emit(self.engine.reconfigure(new_engine_cfg, now))
+            self.emit(self.session.reconfigure(new_engine_cfg, now))
             log.info("engine settings changed")
         if ports_changed:
             try:
@@ -419,16 +415,16 @@ class Daemon:
             log.warning("control socket settings take effect at the next start")
         if (profiles.main.id, profiles.main.cents) != (old_main.id, old_main.cents):
             self.switch_to(profiles.main, now, "reload")
-        elif self.tuning.id != profiles.main.id:
+        elif self.session.base.id != profiles.main.id:
             # the config's tuning is unchanged: a tuning switched to live (program change, A/B,
             # control socket) stays
-            log.info("keeping the tuning switched to live: %s", self.tuning.id)
+            log.info("keeping the tuning switched to live: %s", self.session.base.id)
         log.info("reloaded %s", new.source or "built-in defaults")
         self.notifier.ready(status=self._status_text())
 
     def _status_text(self) -> str:
         st = dict(getattr(self.engine, "stats", {}) or {})
-        parts = [f"tuning {self.tuning.id} ({self.engine.config.mode}"
+        parts = [f"tuning {self.session.base.id} ({self.engine.config.mode}"
                  f"{', adaptive' if self.engine.config.adaptive is not None else ''})",
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
@@ -458,7 +454,6 @@ class Daemon:
 
         def measure():
             try:
-                from retuner.measure.metrics import report
                 fig = self._figures = report(stream, **kw)
                 if fig.get("notes"):
                     log.info("status: last %d notes: impurity %.2f c, motion %.2f c/note, drift max %.2f c, "
@@ -485,11 +480,8 @@ class Daemon:
         if not self.settings.control.enabled:
             return
         try:
-            from retuner.control.commands import EngineControl, EngineHost
-            from retuner.control.server import ControlServer
-            host = EngineHost(engine=self.engine, emit=self.emit, tuning=self.tuning,
-                              clock=time.monotonic, profile_dirs=tuple(self.settings.profile_dirs),
-                              on_switch=self._on_control_switch, status_extra=self.status)
+            host = EngineHost(session=self.session, emit=self.emit, clock=time.monotonic,
+                              profile_dirs=tuple(self.settings.profile_dirs), status_extra=self.status)
             ctl = EngineControl(host)
             server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
             ctl.server = server
@@ -498,10 +490,6 @@ class Daemon:
             log.error("control socket not started: %s", exc)
             return
         self.control, self.control_server = ctl, server
-
-    def _on_control_switch(self, tuning) -> None:
-        self.tuning = getattr(self.control, "base", tuning)
-        log.info("tuning: %s (control socket)", tuning.id)
 
     # ------------------------------------------------------------------ main loop
     def _install_signals(self) -> dict:
