@@ -7,16 +7,20 @@ The engine is single-threaded and is only ever touched by the thread that runs
 one queue (:class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
 handler):
 
-* the backend's input callback stamps each parsed message with
-  ``time.monotonic()`` and puts ``("midi", t, msg)``;
-* a port watcher thread lists the backend's ports every ``port_poll`` seconds
-  (only when a port is named) and puts ``("ports", inputs, outputs)``;
+* the backend's input callback stamps each parsed message with the daemon's
+  clock and puts ``("midi", t, msg)``;
+* the backend's port watcher (only when a port is named; the rtmidi backend
+  lists the ports every ``port_poll`` seconds) puts ``("ports", inputs, outputs)``;
 * signal handlers put ``("signal", signum)``;
 * the control socket (retuner.control.server) wakes the loop with ``("wake",)``.
 
 The loop waits on the queue with a timeout: the earliest of the engine's
 ``next_deadline()``, the watchdog ping and the status line. Output is sent the
 moment the engine returns it.
+
+The ports come from a backend (retuner.live.backend: rtmidi over ALSA or JACK, or
+ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
+is one turn of the loop, so a test can drive the daemon in-process.
 
 Hotplug
 -------
@@ -56,6 +60,7 @@ from retuner.control.server import ControlServer
 from retuner.engine.core import Engine
 from retuner.errors import RetunerError
 from retuner.live import ports as _ports
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend
 from retuner.live.config import Settings, engine_config
 from retuner.live.notify import Notifier
 from retuner.live.session import Session
@@ -122,19 +127,24 @@ class Profiles:
 class Daemon:
     def __init__(self, settings: Settings, *,
                  reload_settings: Optional[Callable[[], Settings]] = None,
-                 notifier: Optional[Notifier] = None):
+                 notifier: Optional[Notifier] = None,
+                 backend: Optional[PortBackend] = None,
+                 clock: Callable[[], float] = time.monotonic):
         self.settings = settings
+        self.clock = clock
+        # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
+        # rtmidi one is made again when the port settings change
+        self._own_backend = backend is None
+        self.backend: PortBackend = backend or self._new_backend(settings)
         self.reload_settings = reload_settings
         self.notifier = notifier or Notifier()
         self.q: "queue.SimpleQueue[tuple]" = queue.SimpleQueue()
         self.profiles = Profiles(settings)
         self.engine = self._new_engine(settings, self.profiles.main)
         self.session = Session(self.engine, self.profiles.main)     # the tuning in force
-        self.inp: Optional[_ports.InputPort] = None
-        self.outp: Optional[_ports.OutputPort] = None
-        self.lister: Optional[_ports.PortLister] = None
-        self._watcher: Optional[threading.Thread] = None
-        self._stop_watch = threading.Event()
+        self.inp: Optional[InputHandle] = None
+        self.outp: Optional[OutputHandle] = None
+        self._watching = False
         self._lost_logged = {"input": False, "output": False}
         self._ab_last = 0
         self._last_out = float("-inf")
@@ -149,9 +159,15 @@ class Daemon:
         self.exit_status = 0
         self.control = None         # retuner.control.commands.EngineControl
         self.control_server = None  # retuner.control.server.ControlServer
-        self.started_at = time.monotonic()
+        self.started_at = clock()
+        self._next_wd: Optional[float] = None
+        self._next_status: Optional[float] = None
 
     # ------------------------------------------------------------------ engine
+    @staticmethod
+    def _new_backend(settings: Settings) -> PortBackend:
+        return _ports.RtMidiBackend(settings.backend, f"{settings.client_name}-probe")
+
     @staticmethod
     def _new_engine(settings: Settings, tuning):
         return Engine(tuning, engine_config(settings))
@@ -166,7 +182,7 @@ class Daemon:
             if debug:
                 log.debug("no output: dropped %d messages", len(messages))
             return
-        now = time.monotonic()
+        now = self.clock()
         recent = self.recent
         for m in messages:
             try:
@@ -182,13 +198,8 @@ class Daemon:
 
     # ------------------------------------------------------------------ ports
     def _client(self, side: str) -> str:
-        """Our client names. ALSA: "retuner" for both ports ("retuner:in", "retuner:out"; ALSA
-        allows two clients of one name). JACK renames a second client of the same name, so
-        there each side has its own: "retuner-in:in", "retuner-out:out"."""
-        base = self.settings.client_name
-        if self.settings.backend == "alsa" and side in ("in", "out"):
-            return base
-        return f"{base}-{side}"
+        """Our client name for one side (the backend decides: see its ``client_name``)."""
+        return self.backend.client_name(self.settings.client_name, side)
 
     def _own(self) -> list[str]:
         base = self.settings.client_name
@@ -201,93 +212,72 @@ class Daemon:
         return self.settings.input if side == "in" else self.settings.output
 
     def _on_midi(self, msg) -> None:                      # backend thread
-        self.q.put(("midi", time.monotonic(), msg))
+        self.q.put(("midi", self.clock(), msg))
 
     def _on_bad_bytes(self, exc: Exception, data: list) -> None:   # backend thread
-        self.q.put(("bad", time.monotonic(), data, repr(exc)))
+        self.q.put(("bad", self.clock(), data, repr(exc)))
+
+    def _on_ports(self, inputs: list[str], outputs: list[str]) -> None:   # watcher thread
+        self.q.put(("ports", inputs, outputs))
 
     def _open_input(self, names: Optional[list[str]] = None) -> bool:
         spec = self._side_spec("in")
-        backend = self.settings.backend
+        word = self.backend.word
         if spec is None:
-            self.inp = _ports.InputPort(backend, self._client("in"), "in",
-                                        callback=self._on_midi, on_error=self._on_bad_bytes)
-            log.info("input: our own port %s:in (%s)", self._client("in"), backend)
+            self.inp = self.backend.open_input(self._client("in"), "in", connect_to=None,
+                                               callback=self._on_midi, on_error=self._on_bad_bytes)
+            log.info("input: our own port %s:in (%s)", self._client("in"), word)
             return True
         if names is None:
-            names = self.lister.inputs() if self.lister else []
+            names = self.backend.inputs()
         name = _ports.match_port(spec, names, exclude=self._own())
         if name is None:
             if not self._lost_logged["input"]:
                 log.warning("input %r: no such port (yet); waiting for it", spec)
                 self._lost_logged["input"] = True
             return False
-        self.inp = _ports.InputPort(backend, self._client("in"), "in", connect_to=name,
-                                    callback=self._on_midi, on_error=self._on_bad_bytes)
+        self.inp = self.backend.open_input(self._client("in"), "in", connect_to=name,
+                                           callback=self._on_midi, on_error=self._on_bad_bytes)
         self._lost_logged["input"] = False
-        log.info("input: connected to %s (%s)", name, backend)
+        log.info("input: connected to %s (%s)", name, word)
         return True
 
     def _open_output(self, now: float, names: Optional[list[str]] = None) -> bool:
         spec = self._side_spec("out")
-        backend = self.settings.backend
+        word = self.backend.word
         if spec is None:
-            self.outp = _ports.OutputPort(backend, self._client("out"), "out")
-            log.info("output: our own port %s:out (%s)", self._client("out"), backend)
+            self.outp = self.backend.open_output(self._client("out"), "out", connect_to=None)
+            log.info("output: our own port %s:out (%s)", self._client("out"), word)
         else:
             if names is None:
-                names = self.lister.outputs() if self.lister else []
+                names = self.backend.outputs()
             name = _ports.match_port(spec, names, exclude=self._own())
             if name is None:
                 if not self._lost_logged["output"]:
                     log.warning("output %r: no such port (yet); waiting for it", spec)
                     self._lost_logged["output"] = True
                 return False
-            self.outp = _ports.OutputPort(backend, self._client("out"), "out", connect_to=name)
+            self.outp = self.backend.open_output(self._client("out"), "out", connect_to=name)
             self._lost_logged["output"] = False
-            log.info("output: connected to %s (%s)", name, backend)
+            log.info("output: connected to %s (%s)", name, word)
         self.emit(self.engine.start(now))
         return True
 
     def _open_ports(self, now: float) -> None:
         named = self._side_spec("in") is not None or self._side_spec("out") is not None
-        if named and self.lister is None:
-            self.lister = _ports.PortLister(self.settings.backend, self._client("probe"))
         self._open_output(now)
         self._open_input()
-        if named:
-            self._start_watcher()
+        if named and not self._watching:
+            self.backend.watch(self.settings.port_poll, self._on_ports)
+            self._watching = True
 
     def _close_ports(self) -> None:
-        self._stop_watch.set()
-        if self._watcher is not None:
-            self._watcher.join(2)
-            self._watcher = None
         for p in (self.inp, self.outp):
             if p is not None:
                 p.close()
         self.inp = self.outp = None
-        if self.lister is not None:
-            self.lister.close()
-            self.lister = None
-
-    def _start_watcher(self) -> None:
-        if self._watcher is not None:
-            return
-        self._stop_watch = threading.Event()
-        stop = self._stop_watch
-        lister = self.lister
-        interval = self.settings.port_poll
-
-        def watch():
-            while not stop.wait(interval):
-                try:
-                    self.q.put(("ports", lister.inputs(), lister.outputs()))
-                except Exception as exc:  # pragma: no cover - backend trouble
-                    log.debug("listing ports: %s", exc)
-
-        self._watcher = threading.Thread(target=watch, name="retuner-ports", daemon=True)
-        self._watcher.start()
+        self.backend.close()
+        self._watching = False
 
     def _check_ports(self, now: float, inputs: list[str], outputs: list[str]) -> None:
         # output first: input is dropped while there is no output
@@ -402,6 +392,8 @@ class Daemon:
             log.info("port settings changed: releasing every note and reopening the ports")
             self.emit(self.engine.release_all(now))
             self._close_ports()
+            if self._own_backend:
+                self.backend = self._new_backend(new)
         if new_engine_cfg != self.engine.config:
             # a new layout releases everything and starts again; lighter changes keep notes sounding
             self.emit(self.session.reconfigure(new_engine_cfg, now))
@@ -468,7 +460,7 @@ class Daemon:
 
     def status(self) -> dict:
         """For the control socket's status command."""
-        return {"uptime": time.monotonic() - self.started_at,
+        return {"uptime": self.clock() - self.started_at,
                 "input": getattr(self.inp, "connected_to", None) if self.inp else None,
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,
@@ -480,7 +472,7 @@ class Daemon:
         if not self.settings.control.enabled:
             return
         try:
-            host = EngineHost(session=self.session, emit=self.emit, clock=time.monotonic,
+            host = EngineHost(session=self.session, emit=self.emit, clock=self.clock,
                               profile_dirs=tuple(self.settings.profile_dirs), status_extra=self.status)
             ctl = EngineControl(host)
             server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
@@ -492,82 +484,104 @@ class Daemon:
         self.control, self.control_server = ctl, server
 
     # ------------------------------------------------------------------ main loop
+    def post_signal(self, signum: int) -> None:
+        """What a signal handler does (safe in one): queue the signal for the engine thread."""
+        self.q.put(("signal", signum))
+
     def _install_signals(self) -> dict:
         old = {}
         for s in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
-            old[s] = signal.signal(s, lambda signum, frame: self.q.put(("signal", signum)))
+            old[s] = signal.signal(s, lambda signum, frame: self.post_signal(signum))
         return old
 
     def run(self) -> int:
         old_handlers = self._install_signals()
-        now = time.monotonic()
         try:
-            self._open_ports(now)
-            self._start_control()
-            self.running = True
-            status = self._status_text()
-            self.notifier.ready(status=status)
-            log.info("retuner running: %s", status)
-            self._loop()
+            self.start()
+            while not self.step():
+                pass
             return self.exit_status
         finally:
-            self.running = False
-            self.notifier.stopping()
-            if self.control_server is not None:
-                try:
-                    self.control_server.close()
-                except Exception:  # pragma: no cover
-                    pass
-            self._close_ports()
+            self.shutdown()
             for s, h in old_handlers.items():
                 signal.signal(s, h)
 
-    def _loop(self) -> None:
+    def start(self) -> None:
+        """Open the ports and the control socket, tell the service manager we are ready."""
+        now = self.clock()
+        self._open_ports(now)
+        self._start_control()
+        self.running = True
+        status = self._status_text()
+        self.notifier.ready(status=status)
+        log.info("retuner running: %s", status)
         wd_interval = self.notifier.watchdog_interval
-        now = time.monotonic()
-        next_wd = now + wd_interval if wd_interval else None
+        self._next_wd = now + wd_interval if wd_interval else None
         if wd_interval:
             self.notifier.watchdog()
         status_every = self.settings.status_interval * 60.0
-        next_status = now + status_every if status_every > 0 else None
+        self._next_status = now + status_every if status_every > 0 else None
+
+    def shutdown(self) -> None:
+        self.running = False
+        self.notifier.stopping()
+        if self.control_server is not None:
+            try:
+                self.control_server.close()
+            except Exception:  # pragma: no cover
+                pass
+            self.control_server = None
+        self._close_ports()
+
+    def step(self, wait: bool = True) -> bool:
+        """One turn of the main loop: wait for events (``wait``: at most until the next thing
+        due), handle all that are queued, run the engine's timers, serve the control socket,
+        ping the watchdog and log the status line when due. True when the daemon must stop."""
         q = self.q
-        while True:
-            now = time.monotonic()
-            wake = [x for x in (self.engine.next_deadline(), next_wd, next_status) if x is not None]
+        if wait:
+            now = self.clock()
+            wake = [x for x in (self.engine.next_deadline(), self._next_wd, self._next_status)
+                    if x is not None]
             timeout = max(0.0, min(wake) - now) if wake else 1.0
             try:
                 item = q.get(timeout=min(timeout, 1.0))
             except queue.Empty:
                 item = None
-            while item is not None:
-                if self._handle(item):
-                    return
-                try:
-                    item = q.get_nowait()
-                except queue.Empty:
-                    item = None
-            now = time.monotonic()
-            dl = self.engine.next_deadline()
-            if dl is not None and dl <= now:
-                try:
-                    self.emit(self.engine.tick(now))
-                except Exception:  # noqa: BLE001
-                    self._errors += 1
-                    log.exception("engine tick failed")
-            if self.control_server is not None:
-                try:
-                    self.control_server.serve_pending()
-                    self.control.observe(now)
-                except Exception:  # noqa: BLE001
-                    self._errors += 1
-                    log.exception("control socket")
-            if next_wd is not None and now >= next_wd:
-                self.notifier.watchdog()
-                next_wd = now + wd_interval
-            if next_status is not None and now >= next_status:
-                self._status_line()
-                status_every = self.settings.status_interval * 60.0   # a reload may change it
-                next_status = now + status_every if status_every > 0 else None
+        else:
+            try:
+                item = q.get_nowait()
+            except queue.Empty:
+                item = None
+        while item is not None:
+            if self._handle(item):
+                return True
+            try:
+                item = q.get_nowait()
+            except queue.Empty:
+                item = None
+        now = self.clock()
+        dl = self.engine.next_deadline()
+        if dl is not None and dl <= now:
+            try:
+                self.emit(self.engine.tick(now))
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("engine tick failed")
+        if self.control_server is not None:
+            try:
+                self.control_server.serve_pending()
+                self.control.observe(now)
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("control socket")
+        if self._next_wd is not None and now >= self._next_wd:
+            self.notifier.watchdog()
+            self._next_wd = now + self.notifier.watchdog_interval
+        if self._next_status is not None and now >= self._next_status:
+            self._status_line()
+            status_every = self.settings.status_interval * 60.0   # a reload may change it
+            self._next_status = now + status_every if status_every > 0 else None
+        return False
 
     def _handle(self, item: tuple) -> bool:
         """Handle one queued event; True when the daemon must stop."""
@@ -577,7 +591,7 @@ class Daemon:
                 self._handle_midi(item[1], item[2])
             elif kind == "signal":
                 signum = item[1]
-                now = time.monotonic()
+                now = self.clock()
                 if signum == signal.SIGHUP:
                     log.info("SIGHUP: reloading")
                     self._reload(now)
@@ -587,7 +601,7 @@ class Daemon:
                 self.exit_status = 0
                 return True
             elif kind == "ports":
-                self._check_ports(time.monotonic(), item[1], item[2])
+                self._check_ports(self.clock(), item[1], item[2])
             elif kind == "bad":
                 self._bad_input += 1
                 if self._bad_input <= 10:

@@ -36,6 +36,7 @@ import mido
 import rtmidi
 
 from retuner.errors import RetunerError
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver
 
 log = logging.getLogger("retuner.live.ports")
 
@@ -192,7 +193,7 @@ def _index_of(rt, name: str) -> int:
     return names.index(name)
 
 
-class InputPort:
+class InputPort(InputHandle):
     """An open input; ``callback(msg)`` runs on a backend thread for every parsed message.
 
     ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse.
@@ -241,18 +242,7 @@ class InputPort:
         self.closed = False
 
     def _on_bytes(self, event, data=None) -> None:
-        raw, _delta = event
-        try:
-            # python-rtmidi delivers one whole message per event (a system exclusive message
-            # complete from F0 to F7), so each event parses on its own; anything else is refused
-            msg = mido.Message.from_bytes(raw)
-            self._callback(msg)
-        except Exception as exc:  # never let bad bytes kill the backend thread
-            if self._on_error is not None:
-                try:
-                    self._on_error(exc, list(raw))
-                except Exception:
-                    pass
+        deliver(event[0], self._callback, self._on_error)
 
     def _read_loop(self) -> None:
         rt, stop, poll, on_bytes = self._rt, self._stop, self._poll, self._on_bytes
@@ -281,7 +271,7 @@ class InputPort:
             log.debug("closing input: %s", exc)
 
 
-class OutputPort:
+class OutputPort(OutputHandle):
     """An open output; ``send(msg)`` writes at once."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
@@ -322,3 +312,69 @@ class OutputPort:
             self._rt.delete()
         except Exception as exc:  # pragma: no cover - teardown
             log.debug("closing output: %s", exc)
+
+
+class RtMidiBackend(PortBackend):
+    """The ALSA sequencer or a JACK server, through python-rtmidi.
+
+    Client names: ALSA allows two clients of one name, so both sides are "retuner"
+    ("retuner:in", "retuner:out"); JACK renames a second client of the same name, so
+    there each side has its own ("retuner-in:in", "retuner-out:out")."""
+
+    def __init__(self, backend: str, probe_name: str = "retuner-probe"):
+        self.word = backend_word(backend)
+        self._probe_name = probe_name
+        self._lister: Optional[PortLister] = None
+        self._lock = threading.Lock()
+        self._watcher: Optional[threading.Thread] = None
+        self._stop = threading.Event()
+
+    def client_name(self, base: str, side: str) -> str:
+        if self.word == "alsa" and side in ("in", "out"):
+            return base
+        return f"{base}-{side}"
+
+    def _list(self) -> PortLister:
+        with self._lock:
+            if self._lister is None:
+                self._lister = PortLister(self.word, self._probe_name)
+            return self._lister
+
+    def inputs(self) -> list[str]:
+        return self._list().inputs()
+
+    def outputs(self) -> list[str]:
+        return self._list().outputs()
+
+    def open_input(self, client, port, *, connect_to, callback, on_error=None) -> InputPort:
+        return InputPort(self.word, client, port, connect_to=connect_to, callback=callback,
+                         on_error=on_error)
+
+    def open_output(self, client, port, *, connect_to) -> OutputPort:
+        return OutputPort(self.word, client, port, connect_to=connect_to)
+
+    def watch(self, interval, on_change) -> None:
+        if self._watcher is not None:
+            return
+        lister = self._list()
+        self._stop = stop = threading.Event()
+
+        def run():
+            while not stop.wait(interval):
+                try:
+                    on_change(lister.inputs(), lister.outputs())
+                except Exception as exc:  # pragma: no cover - backend trouble
+                    log.debug("listing ports: %s", exc)
+
+        self._watcher = threading.Thread(target=run, name="retuner-ports", daemon=True)
+        self._watcher.start()
+
+    def close(self) -> None:
+        self._stop.set()
+        if self._watcher is not None:
+            self._watcher.join(2)
+            self._watcher = None
+        with self._lock:
+            if self._lister is not None:
+                self._lister.close()
+                self._lister = None

@@ -1,0 +1,150 @@
+"""The daemon in-process: ports in memory (retuner.live.memory), a clock the test moves, and one
+turn of the main loop at a time (``Daemon.step(wait=False)``), so a test is fast and needs no waiting.
+The real JACK tests (test_daemon_jack.py) stay the end-to-end proof."""
+
+from __future__ import annotations
+
+import logging
+import os
+import shutil
+import signal
+import tempfile
+from typing import Optional
+
+import mido
+
+from jack import Decoder, Received
+from retuner.live.config import load_config
+from retuner.live.daemon import Daemon
+from retuner.live.memory import MemoryBackend
+
+KEYS = "Stage Piano:MIDI Out"       # a keyboard's port (we read from it)
+SYNTH = "Sound Module:MIDI In"      # a synth's port (we write to it)
+
+
+class Clock:
+    """Seconds, moved by the test."""
+
+    def __init__(self, t: float = 1000.0):
+        self.t = t
+
+    def __call__(self) -> float:
+        return self.t
+
+    def advance(self, dt: float) -> None:
+        self.t += dt
+
+
+class LogLines(logging.Handler):
+    def __init__(self):
+        super().__init__(logging.DEBUG)
+        self.lines: list[str] = []
+
+    def emit(self, record):
+        self.lines.append(record.getMessage())
+
+    def count(self, part: str) -> int:
+        return sum(part in line for line in self.lines)
+
+
+class Rig:
+    """A daemon between a keyboard and a synth in memory; ``config`` is the YAML of its config file."""
+
+    def __init__(self, config: str = "", *, control: bool = False, named: bool = True,
+                 inputs=(KEYS,), outputs=(SYNTH,), overrides: Optional[dict] = None):
+        self.dir = tempfile.mkdtemp(prefix="rtd")
+        self.config_path = os.path.join(self.dir, "config.yaml")
+        self.socket_path = os.path.join(self.dir, "run", "control.sock")
+        self.write_config(config)
+        self.named = named
+        self.control = control
+        self.overrides = dict(overrides or {})
+        self.backend = MemoryBackend(inputs, outputs)
+        self.clock = Clock()
+        self.log = LogLines()
+        logging.getLogger("retuner").addHandler(self.log)
+        logging.getLogger("retuner").setLevel(logging.INFO)
+        self.daemon = Daemon(self.settings(), reload_settings=self.settings, backend=self.backend,
+                             clock=self.clock)
+        self.daemon.start()
+        self.stopped = False
+
+    def write_config(self, text: str) -> None:
+        with open(self.config_path, "w") as fh:
+            fh.write(text)
+
+    def settings(self):
+        s = load_config(self.config_path)
+        if self.named:
+            s.input, s.output = KEYS, SYNTH
+        else:
+            s.virtual = True
+        s.status_interval = 0
+        s.control.enabled = self.control
+        s.control.path = self.socket_path
+        for k, v in self.overrides.items():
+            setattr(s, k, v)
+        return s
+
+    # ------------------------------------------------------------------ driving
+    def pump(self) -> bool:
+        """Handle everything queued and whatever is due by the clock; True once the daemon stopped."""
+        while not self.stopped:
+            if self.daemon.step(wait=False):
+                self.stopped = True
+                break
+            if self.daemon.q.empty():
+                break
+        return self.stopped
+
+    def play(self, *msgs: mido.Message, port: Optional[str] = None) -> None:
+        self.backend.play(port or self.in_port, *msgs)
+        self.pump()
+
+    def signal(self, signum: int) -> bool:
+        self.daemon.post_signal(signum)
+        return self.pump()
+
+    def wait(self, seconds: float) -> None:
+        self.clock.advance(seconds)
+        self.pump()
+
+    # ------------------------------------------------------------------ reading
+    @property
+    def out_port(self) -> str:
+        return SYNTH if self.named else self.daemon._client("out") + ":out"
+
+    @property
+    def in_port(self) -> str:
+        return KEYS if self.named else self.daemon._client("in") + ":in"
+
+    def sent(self) -> list[mido.Message]:
+        return self.backend.received(self.out_port)
+
+    def decode(self, default_range: float = 2.0) -> Decoder:
+        d = Decoder(default_range=default_range)
+        for i, m in enumerate(self.sent()):
+            d.feed(float(i), m)
+        return d
+
+    def close(self) -> None:
+        if not self.stopped:
+            self.signal(signal.SIGTERM)
+        self.daemon.shutdown()
+        logging.getLogger("retuner").removeHandler(self.log)
+        shutil.rmtree(self.dir, ignore_errors=True)
+
+
+def note_on(key: int, channel: int = 0, velocity: int = 90) -> mido.Message:
+    return mido.Message("note_on", note=key, velocity=velocity, channel=channel)
+
+
+def note_off(key: int, channel: int = 0) -> mido.Message:
+    return mido.Message("note_off", note=key, channel=channel)
+
+
+def cc(control: int, value: int, channel: int = 0) -> mido.Message:
+    return mido.Message("control_change", control=control, value=value, channel=channel)
+
+
+__all__ = ["Rig", "Clock", "KEYS", "SYNTH", "note_on", "note_off", "cc", "Received"]
