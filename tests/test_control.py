@@ -644,3 +644,76 @@ def test_panic_counts_notes_held_by_the_pedal(rig):
     after = rig.out[start:]
     assert any(m.type == "control_change" and m.control == 64 and m.value == 0 for m in after)
     assert any(m.type == "control_change" and m.control == 123 for m in after)
+
+
+# --------------------------------------------------------------------------- faults
+def test_an_empty_line_gets_a_reply(rig):
+    s = raw(rig.path)
+    buf = bytearray()
+    for line in (b"\n", b"   \r\n"):
+        s.sendall(line)
+        r = read_line(s, buf)
+        assert r["ok"] is False and "empty" in r["error"]
+    s.sendall(b"{\"cmd\": \"status\", \"id\": 3}\n")          # and the connection still serves
+    assert read_line(s, buf)["id"] == 3
+    s.close()
+
+
+def test_deeply_nested_json_gets_a_reply_and_no_traceback(rig, caplog):
+    s = raw(rig.path)
+    buf = bytearray()
+    for depth in (2_000, 10_000):         # both within MAX_LINE
+        s.sendall(b"[" * depth + b"]" * depth + b"\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "nested" in r["error"]
+        s.sendall(b"{\"a\":" * depth + b"1" + b"}" * depth + b"\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "nested" in r["error"]
+    s.close()
+    assert not [rec for rec in caplog.records if rec.exc_info]
+
+
+def test_panic_gets_in_with_every_connection_taken(rig):
+    """The server holds MAX_CLIENTS connections and keeps one more slot for a panic."""
+    held = []
+    try:
+        end = time.monotonic() + 20
+        for i in range(ControlServer.MAX_CLIENTS):
+            if i % 64 == 0:       # the listen backlog is smaller: let the server accept them first
+                while rig.server.stats()["clients"] < i:
+                    assert time.monotonic() < end
+                    time.sleep(0.01)
+            held.append(raw(rig.path))
+        while rig.server.stats()["clients"] < ControlServer.MAX_CLIENTS:
+            assert time.monotonic() < end
+            time.sleep(0.01)
+        with ControlClient(rig.path) as c:
+            r = c.request("panic")
+        assert r["ok"] is True and r["cmd"] == "panic"
+        # the engine thread applied it: every output channel got All Notes Off (MIDI 1.0, CC123)
+        assert {m.channel for m in list(rig.out) if m.type == "control_change" and m.control == 123} \
+            >= set(rig.engine.config.pool)
+        # anything else through the reserved slot: a reason, then the connection is closed
+        s = raw(rig.path)
+        buf = bytearray()
+        s.sendall(b"{\"cmd\": \"status\"}\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "panic" in r["error"]
+        assert s.recv(10) == b""
+        s.close()
+    finally:
+        for s in held:
+            s.close()
+
+
+def test_a_socket_folder_not_ours_is_refused(tmp_path):
+    other = tmp_path / "theirs"
+    other.mkdir(mode=0o700)
+    os.chown(other, 65534, 65534)          # nobody's (the tests run as root here)
+    with pytest.raises(RetunerError, match="not ours"):
+        ControlServer(str(other / "c.sock"), EngineControl(EngineHost(session=None, emit=list))).start()
+    shared = tmp_path / "shared"
+    shared.mkdir()
+    os.chmod(shared, 0o1777)               # like /tmp
+    with pytest.raises(RetunerError, match="writable by other users"):
+        ControlServer(str(shared / "c.sock"), EngineControl(EngineHost(session=None, emit=list))).start()

@@ -82,6 +82,8 @@ def parse_request(line: bytes | str) -> tuple[Optional[Command], Optional[dict]]
         obj = json.loads(text)
     except (UnicodeDecodeError, ValueError) as exc:
         return None, error_reply(f"malformed JSON: {exc}")
+    except RecursionError:
+        return None, error_reply("request nested too deeply (send one flat JSON object per line)")
     if not isinstance(obj, dict):
         return None, error_reply("a request must be a JSON object such as {\"cmd\": \"status\"}")
     req_id = obj.get("id")

@@ -68,6 +68,25 @@ from retuner.errors import RetunerError
 log = logging.getLogger(__name__)
 
 
+def check_folder(folder: Path) -> None:
+    """Make ``folder`` (mode 0700) if needed; refuse it unless it is ours: a real folder owned by
+    us and not writable by group or others. A folder of ours named ``retuner*`` is tightened."""
+    new = not folder.exists()
+    try:
+        folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+        st = os.lstat(folder)
+    except OSError as exc:
+        raise RetunerError(f"cannot make the folder {folder}: {exc.strerror or exc}") from None
+    if stat.S_ISLNK(st.st_mode) or not stat.S_ISDIR(st.st_mode) or st.st_uid != os.getuid():
+        raise RetunerError(f"the folder {folder} is not ours (a link, or owned by another user): "
+                           "refusing to use it")
+    if new or folder.name.startswith("retuner"):
+        os.chmod(folder, 0o700)          # our own folder: private, whatever the umask left
+    elif stat.S_IMODE(st.st_mode) & 0o022:
+        raise RetunerError(f"the folder {folder} is writable by other users: refusing to use it "
+                           "(choose a private folder, e.g. under $XDG_RUNTIME_DIR)")
+
+
 class Handler:
     """What a control server needs from its daemon (see :class:`EngineControl`).
 
@@ -86,7 +105,7 @@ class Handler:
 
 class _Client:
     __slots__ = ("sock", "fd", "id", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
-                 "dropped", "closing", "reading", "mask", "tokens", "stamp", "throttled_until")
+                 "dropped", "closing", "reading", "mask", "tokens", "stamp", "throttled_until", "reserved")
 
     def __init__(self, sock: socket.socket, cid: int):
         self.sock = sock
@@ -105,6 +124,7 @@ class _Client:
         self.tokens = float(ControlServer.CLIENT_BURST)   # requests it may send now
         self.stamp = time.monotonic()
         self.throttled_until = 0.0
+        self.reserved = 0.0                   # in the panic slot: its request is due by then
 
 
 class ControlServer:
@@ -112,7 +132,8 @@ class ControlServer:
 
     MAX_LINE = 64 * 1024         # bytes in one request line
     MAX_INFLIGHT = 8             # commands of one client waiting for the engine thread
-    MAX_CLIENTS = 256
+    MAX_CLIENTS = 256            # and one more connection, kept for a panic
+    RESERVED_WAIT = 2.0          # seconds the panic slot waits for its request
     SUBSCRIBER_QUEUE = 512       # events kept per subscriber (drop-oldest)
     CENTRAL_QUEUE = 8192         # events published but not yet fanned out (drop-oldest)
     MAX_REPLY_BACKLOG = 64       # unread replies of one client before we stop reading from it
@@ -141,6 +162,7 @@ class ControlServer:
         self._tokens = float(self.TOTAL_BURST)
         self._stamp = time.monotonic()
         self._throttled: set[int] = set()
+        self._reserved_id = -1                     # the client in the panic slot, if any
         self._wake_r = self._wake_w = -1
         self._inode: Optional[tuple[int, int]] = None
         # subscribers, counted from the moment the engine thread answers "subscribe" (so no event
@@ -154,15 +176,7 @@ class ControlServer:
         """Create the folder (0700) and socket (0600) and start the server thread."""
         path = self.path
         try:
-            if path.parent != Path("/"):
-                new_dir = not path.parent.exists()
-                path.parent.mkdir(mode=0o700, parents=True, exist_ok=True)
-                if new_dir or path.parent.name.startswith("retuner"):
-                    st = os.lstat(path.parent)
-                    if stat.S_ISLNK(st.st_mode) or st.st_uid != os.getuid():
-                        raise RetunerError(f"control socket folder {path.parent} is not ours "
-                                           "(a link, or owned by another user): refusing to use it")
-                    os.chmod(path.parent, 0o700)
+            check_folder(path.parent)
             self._remove_stale(path)
             tmp = path.with_name(f".rt{os.getpid()}-{threading.get_ident() % 100000}")
             if max(len(os.fsencode(str(tmp))), len(os.fsencode(str(path)))) > 107:
@@ -356,6 +370,7 @@ class ControlServer:
                 continue
             if self._throttled:
                 self._resume_throttled()
+            self._expire_reserved()
             for key, mask in ready:
                 try:
                     if key.fileobj is self._listener:
@@ -375,6 +390,14 @@ class ControlServer:
             except Exception:
                 log.exception("control server error")
 
+    def _expire_reserved(self) -> None:
+        c = self._clients.get(self._reserved_id)
+        if c is not None:
+            if not c.closing and time.monotonic() > c.reserved:
+                c.closing = True
+                c.inbuf.clear()
+                self._reply(c, encode_line(error_reply("no request in the panic slot in time")))
+
     def _drain_wake(self) -> None:
         try:
             while os.read(self._wake_r, 4096):
@@ -393,15 +416,21 @@ class ControlServer:
                 if exc.errno in (errno.EMFILE, errno.ENFILE):
                     log.warning("control socket: out of file descriptors")
                 return
+            reserved = False
             if len(self._clients) >= self.MAX_CLIENTS:
-                try:
-                    sock.send(encode_line(error_reply("too many control clients")))
-                except OSError:
-                    pass
-                sock.close()
-                continue
+                if self._reserved_id in self._clients:
+                    try:
+                        sock.send(encode_line(error_reply("too many control clients")))
+                    except OSError:
+                        pass
+                    sock.close()
+                    continue
+                reserved = True       # the slot kept for a panic
             sock.setblocking(False)
             c = _Client(sock, next(self._ids))
+            if reserved:
+                c.reserved = time.monotonic() + self.RESERVED_WAIT
+                self._reserved_id = c.id
             self._clients[c.id] = c
             self.counters["connections"] += 1
             self.counters["clients"] = len(self._clients)
@@ -468,6 +497,13 @@ class ControlServer:
     def _request(self, c: _Client, line: bytes) -> None:
         self.counters["commands"] += 1
         cmd, err = parse_request(line)
+        if c.reserved:
+            # the connection in the reserved slot serves one panic, then makes room again
+            c.closing = True
+            c.inbuf.clear()
+            if cmd is not None and cmd.name != "panic":
+                cmd, err = None, error_reply(f"too many control clients ({self.MAX_CLIENTS}): "
+                                             "only panic is accepted now", cmd.req_id, cmd.name)
         if cmd is not None:
             try:
                 prepared = self.handler.prepare(cmd)
@@ -620,6 +656,9 @@ class ControlServer:
                 break
             if not c.inbuf[:nl].strip():
                 del c.inbuf[:nl + 1]
+                self.counters["errors"] += 1
+                self._reply(c, encode_line(error_reply(
+                    "empty request line (send one JSON object per line, e.g. {\"cmd\": \"status\"})")))
                 continue
             if not self._take_token(c):
                 break
