@@ -14,7 +14,8 @@ from typing import Optional
 import mido
 
 from jack import Decoder, Received
-from retuner.live.config import load_config
+from retuner.cli import build_parser
+from retuner.commands import run as run_cmd
 from retuner.live.daemon import Daemon
 from retuner.live.memory import MemoryBackend
 
@@ -51,8 +52,13 @@ class Rig:
     """A daemon between a keyboard and a synth in memory; ``config`` is the YAML of its config file."""
 
     def __init__(self, config: str = "", *, control: bool = False, named: bool = True,
-                 inputs=(KEYS,), outputs=(SYNTH,), overrides: Optional[dict] = None):
+                 inputs=(KEYS,), outputs=(SYNTH,), overrides: Optional[dict] = None,
+                 runtime: Optional[str] = None, start: bool = True):
         self.dir = tempfile.mkdtemp(prefix="rtd")
+        # the folder every daemon of the user shares (lock files): private to this test unless given
+        self.runtime = runtime or os.path.join(self.dir, "xdg")
+        self._saved_runtime = os.environ.get("XDG_RUNTIME_DIR")
+        os.environ["XDG_RUNTIME_DIR"] = self.runtime
         self.config_path = os.path.join(self.dir, "config.yaml")
         self.socket_path = os.path.join(self.dir, "run", "control.sock")
         self.write_config(config)
@@ -64,24 +70,24 @@ class Rig:
         self.log = LogLines()
         logging.getLogger("retuner").addHandler(self.log)
         logging.getLogger("retuner").setLevel(logging.INFO)
-        self.daemon = Daemon(self.settings(), reload_settings=self.settings, backend=self.backend,
-                             clock=self.clock)
-        self.daemon.start()
+        self.daemon = Daemon(self.settings(), reload_settings=lambda: self.settings(reload=True),
+                             backend=self.backend, clock=self.clock)
         self.stopped = False
+        if start:
+            self.daemon.start()
 
     def write_config(self, text: str) -> None:
         with open(self.config_path, "w") as fh:
             fh.write(text)
 
-    def settings(self):
-        s = load_config(self.config_path)
-        if self.named:
-            s.input, s.output = KEYS, SYNTH
-        else:
-            s.virtual = True
-        s.status_interval = 0
-        s.control.enabled = self.control
-        s.control.path = self.socket_path
+    def settings(self, reload: bool = False):
+        """Read as ``retuner run`` reads them (its options over the config file)."""
+        argv = ["run", "--config", self.config_path, "--status-interval", "0",
+                "--control-socket", self.socket_path]
+        argv += ["--input", KEYS, "--output", SYNTH] if self.named else ["--virtual"]
+        if not self.control:
+            argv.append("--no-control-socket")
+        s = run_cmd.settings_loader(build_parser().parse_args(argv))(reload=reload)
         for k, v in self.overrides.items():
             setattr(s, k, v)
         return s
@@ -132,6 +138,10 @@ class Rig:
             self.signal(signal.SIGTERM)
         self.daemon.shutdown()
         logging.getLogger("retuner").removeHandler(self.log)
+        if self._saved_runtime is None:
+            os.environ.pop("XDG_RUNTIME_DIR", None)
+        else:
+            os.environ["XDG_RUNTIME_DIR"] = self._saved_runtime
         shutil.rmtree(self.dir, ignore_errors=True)
 
 

@@ -464,8 +464,14 @@ def test_sighup_with_a_new_bend_range_keeps_sounding_notes_in_tune(jack_server, 
     run.daemon.signal(signal.SIGHUP)
     run.notify.wait_for("READY=1", count=2)
     # the new range is announced (RPN 0, data entry 12: MIDI 1.0) ...
-    recs = jack_client.wait_for(lambda r: any(x.msg.type == "control_change" and x.msg.control == 6
-                                              and x.msg.value == 12 for x in r))
+    # (JACK hands a burst over once per period, so wait for the held note's channel to get its new
+    # range and then its bend, not just for the first announcement)
+    def rebent(r) -> bool:
+        ch = decode(r).stuck()[0].channel if len(decode(r).stuck()) == 1 else None
+        msgs = [x.msg for x in r if getattr(x.msg, "channel", None) == ch]
+        at = [i for i, m in enumerate(msgs) if m.type == "control_change" and m.control == 6 and m.value == 12]
+        return bool(at) and any(m.type == "pitchwheel" for m in msgs[at[-1]:])
+    recs = jack_client.wait_for(rebent)
     d = decode(recs)
     (held,) = d.stuck()
     # ... and the held note, re-bent for it, still sounds at its pitch (MIDI 1.0: key + bend/8192 * range)

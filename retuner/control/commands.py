@@ -33,8 +33,8 @@ class EngineHost:
     engine clock (seconds, monotonic); ``profile_dirs`` are searched by ``load`` and
     ``profiles``. ``adaptive_config(settings)`` turns a settings dict into the
     engine's adaptive configuration (None: use ``retuner.adaptive.solver``'s
-    defaults). ``panic(t)`` silences the output and returns the messages sent
-    (None: the engine's ``release_all``). ``status_extra()`` adds the daemon's
+    defaults). ``panic(t)`` silences the output and returns how many notes it
+    knew of (None: the engine's ``release_all``). ``status_extra()`` adds the daemon's
     own fields to ``status``.
     """
 
@@ -44,7 +44,7 @@ class EngineHost:
     profile_dirs: tuple = ()
     adaptive_config: Optional[Callable[[dict], Any]] = None
     status_extra: Optional[Callable[[], dict]] = None
-    panic: Optional[Callable[[float], list]] = None
+    panic: Optional[Callable[[float], int]] = None
 
 
 class EngineControl(Handler):
@@ -167,10 +167,10 @@ class EngineControl(Handler):
             self._emit(session.set_adaptive(cmd.data, now, a.get("settings")))
             return session.info()
         if name == "panic":
-            sounding = len(self.engine.sounding())
             if self.host.panic is not None:
-                self.host.panic(now)
+                sounding = self.host.panic(now)
             else:
+                sounding = len(self.engine.sounding())
                 self._emit(self.engine.release_all(now))
             log.warning("panic: every note released (control socket)")
             self._publish({"event": "panic", "t": now})

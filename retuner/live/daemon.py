@@ -27,15 +27,24 @@ Hotplug
 A side with a port name (``--input``/``--output``) is connected to the first
 port that matches (see retuner.live.ports). When that port disappears the daemon
 keeps running and logs it once; notes held from a lost input are released
-(``engine.input_lost``); notes sounding on a lost output are forgotten
-(``engine.output_lost``), input is dropped while there is no output, and when
-the output returns the engine's setup is sent again (``engine.start``).
+(``engine.input_lost``, and the passthrough notes); notes sounding on a lost output
+are forgotten (``engine.output_lost``). While there is no output the engine still
+follows the input (pedals, wheel) and nothing is sent. Whenever an output is opened
+(start-up, return) it is silenced first (retuner.live.silence: pedals up and All Notes
+Off on every channel), then the engine's set-up is sent (``engine.start``: bend range,
+and the pedals the input still holds).
+
+Panic
+-----
+:meth:`Daemon.panic` (control socket, SIGTERM/SIGINT) silences the output whatever we
+believe sounds: pedals up on every channel, a note-off for each note we know of
+(passthrough included), All Notes Off on every channel, All Sound Off where the config
+allows it (``panic_all_sound_off``).
 
 Signals
 -------
 SIGHUP reloads the config file and the profiles (a bad one is logged and the old
-settings stay); SIGTERM and SIGINT release every sounding note
-(``engine.release_all``) and exit with status 0.
+settings stay); SIGTERM and SIGINT panic and exit with status 0.
 
 Control socket
 --------------
@@ -61,9 +70,11 @@ from retuner.engine.core import Engine
 from retuner.errors import RetunerError
 from retuner.live import ports as _ports
 from retuner.live.backend import InputHandle, OutputHandle, PortBackend
+from retuner.live.claim import Claim
 from retuner.live.config import Settings, engine_config
 from retuner.live.notify import Notifier
 from retuner.live.session import Session
+from retuner.live.silence import PassthroughNotes, all_notes_off, pedals_up
 from retuner.measure.metrics import StreamWindow, report
 from retuner.profiles.profile import load_profile
 
@@ -151,6 +162,9 @@ class Daemon:
         # what was sent lately, for the status line's impurity, motion and drift (measured from
         # the output, as 'retuner convert --report' does)
         self.recent = StreamWindow()
+        # notes and pedals on passthrough channels (the engine keeps no account of them)
+        self.passthrough = PassthroughNotes()
+        self._pass_channels = frozenset(self.engine.config.passthrough)
         self._figures: Optional[dict] = None
         self._figures_busy = False
         self._bad_input = 0
@@ -159,6 +173,7 @@ class Daemon:
         self.exit_status = 0
         self.control = None         # retuner.control.commands.EngineControl
         self.control_server = None  # retuner.control.server.ControlServer
+        self.claim: Optional[Claim] = None
         self.started_at = clock()
         self._next_wd: Optional[float] = None
         self._next_status: Optional[float] = None
@@ -184,6 +199,7 @@ class Daemon:
             return
         now = self.clock()
         recent = self.recent
+        passing = self._pass_channels
         for m in messages:
             try:
                 outp.send(m)
@@ -192,6 +208,8 @@ class Daemon:
                 log.warning("sending %s failed: %s", m, exc)
                 return
             recent.add(now, m)
+            if passing and getattr(m, "channel", None) in passing:
+                self.passthrough.sent(m)
             if debug:
                 log.debug("out %s", m)
         self._last_out = now
@@ -260,8 +278,26 @@ class Daemon:
             self.outp = self.backend.open_output(self._client("out"), "out", connect_to=name)
             self._lost_logged["output"] = False
             log.info("output: connected to %s (%s)", name, word)
+        # whatever sounded on it before (a crash, an outage) is silenced first; the engine
+        # forgets notes it played while the output was away but keeps the input's pedals,
+        # which the set-up then sends again
+        self.engine.output_lost(now)
+        self.passthrough.forget()
+        self.emit(pedals_up() + all_notes_off(sound_off=self.settings.panic_all_sound_off))
         self.emit(self.engine.start(now))
         return True
+
+    def panic(self, now: float) -> int:
+        """Silence the output whatever we believe sounds: pedals up on every channel, a
+        note-off for every note we know of (passthrough included), All Notes Off on every
+        channel (and All Sound Off where allowed). Returns how many notes we knew of."""
+        known = len(self.engine.sounding()) + len(self.passthrough)
+        out = pedals_up()
+        out += self.engine.release_all(now)
+        out += self.passthrough.release()
+        out += all_notes_off(sound_off=self.settings.panic_all_sound_off, already=out)
+        self.emit(out)
+        return known
 
     def _open_ports(self, now: float) -> None:
         named = self._side_spec("in") is not None or self._side_spec("out") is not None
@@ -289,6 +325,7 @@ class Daemon:
                 self.outp.close()
                 self.outp = None
                 self.engine.output_lost(now)
+                self.passthrough.forget()
                 self._lost_logged["output"] = True
             elif self.outp is None:
                 try:
@@ -303,7 +340,7 @@ class Daemon:
                             self.inp.connected_to)
                 self.inp.close()
                 self.inp = None
-                self.emit(self.engine.input_lost(now))
+                self.emit(self.engine.input_lost(now) + self.passthrough.release())
                 self._lost_logged["input"] = True
             elif self.inp is None:
                 try:
@@ -349,8 +386,8 @@ class Daemon:
             log.debug("in  %s", msg)
         if self._control_message(msg, t):
             return
-        if self.outp is None:
-            return          # no synth to play on: nothing is sent, nothing is remembered
+        # with no synth to play on nothing is sent, but the engine still follows the input
+        # (pedals, wheel), so the synth gets the right state when it comes back
         if msg.type == "note_on" and msg.velocity and self._refresh_due(t):
             # a synth may have been connected to our own port since the setup was sent
             log.debug("sending the setup again before the first note after a pause")
@@ -373,6 +410,8 @@ class Daemon:
             new = self.reload_settings()
             profiles = Profiles(new)
             new_engine_cfg = engine_config(new)
+            if self.claim is not None:
+                self.claim.move_ports(new)      # other ports: not if another daemon has them
         except RetunerError as exc:
             log.error("reload failed, keeping the running settings: %s", exc)
             self.notifier.ready(status=f"reload failed: {exc}")
@@ -390,10 +429,15 @@ class Daemon:
         set_level(new.log_level, getattr(self, "verbose", 0))
         if ports_changed:
             log.info("port settings changed: releasing every note and reopening the ports")
-            self.emit(self.engine.release_all(now))
+            self.panic(now)
             self._close_ports()
             if self._own_backend:
                 self.backend = self._new_backend(new)
+        new_pass = frozenset(new_engine_cfg.passthrough)
+        if new_pass != self._pass_channels:
+            # notes on a channel that stops passing through would never get their note-off
+            self.emit(self.passthrough.release(self._pass_channels - new_pass))
+            self._pass_channels = new_pass
         if new_engine_cfg != self.engine.config:
             # a new layout releases everything and starts again; lighter changes keep notes sounding
             self.emit(self.session.reconfigure(new_engine_cfg, now))
@@ -471,16 +515,13 @@ class Daemon:
     def _start_control(self) -> None:
         if not self.settings.control.enabled:
             return
-        try:
-            host = EngineHost(session=self.session, emit=self.emit, clock=self.clock,
-                              profile_dirs=tuple(self.settings.profile_dirs), status_extra=self.status)
-            ctl = EngineControl(host)
-            server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
-            ctl.server = server
-            server.start()
-        except Exception as exc:  # noqa: BLE001 - the daemon plays on without it
-            log.error("control socket not started: %s", exc)
-            return
+        host = EngineHost(session=self.session, emit=self.emit, clock=self.clock,
+                          profile_dirs=tuple(self.settings.profile_dirs), status_extra=self.status,
+                          panic=self.panic)
+        ctl = EngineControl(host)
+        server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
+        ctl.server = server
+        server.start()        # a RetunerError here stops the start: one line, exit status 2
         self.control, self.control_server = ctl, server
 
     # ------------------------------------------------------------------ main loop
@@ -508,9 +549,12 @@ class Daemon:
 
     def start(self) -> None:
         """Open the ports and the control socket, tell the service manager we are ready."""
+        # claim the ports and the socket before touching either: a second daemon on them refuses
+        # here, before its start-up panic could cut the first one's notes
+        self.claim = Claim(self.settings).take()
+        self._start_control()
         now = self.clock()
         self._open_ports(now)
-        self._start_control()
         self.running = True
         status = self._status_text()
         self.notifier.ready(status=status)
@@ -532,6 +576,9 @@ class Daemon:
                 pass
             self.control_server = None
         self._close_ports()
+        if self.claim is not None:
+            self.claim.release()
+            self.claim = None
 
     def step(self, wait: bool = True) -> bool:
         """One turn of the main loop: wait for events (``wait``: at most until the next thing
@@ -597,7 +644,7 @@ class Daemon:
                     self._reload(now)
                     return False
                 log.info("%s: releasing every note and stopping", signal.Signals(signum).name)
-                self.emit(self.engine.release_all(now))
+                self.panic(now)
                 self.exit_status = 0
                 return True
             elif kind == "ports":
