@@ -53,7 +53,7 @@ class Rig:
 
     def __init__(self, config: str = "", *, control: bool = False, named: bool = True,
                  inputs=(KEYS,), outputs=(SYNTH,), overrides: Optional[dict] = None,
-                 runtime: Optional[str] = None, start: bool = True):
+                 runtime: Optional[str] = None, start: bool = True, capacity: Optional[int] = None):
         self.dir = tempfile.mkdtemp(prefix="rtd")
         # the folder every daemon of the user shares (lock files): private to this test unless given
         self.runtime = runtime or os.path.join(self.dir, "xdg")
@@ -70,8 +70,9 @@ class Rig:
         self.log = LogLines()
         logging.getLogger("retuner").addHandler(self.log)
         logging.getLogger("retuner").setLevel(logging.INFO)
+        kw = {} if capacity is None else {"input_capacity": capacity}
         self.daemon = Daemon(self.settings(), reload_settings=lambda: self.settings(reload=True),
-                             backend=self.backend, clock=self.clock)
+                             backend=self.backend, clock=self.clock, **kw)
         self.stopped = False
         if start:
             self.daemon.start()
@@ -106,6 +107,10 @@ class Rig:
     def play(self, *msgs: mido.Message, port: Optional[str] = None) -> None:
         self.backend.play(port or self.in_port, *msgs)
         self.pump()
+
+    def send(self, *msgs: mido.Message) -> None:
+        """Into the daemon's input, without letting the daemon run (a burst waiting for it)."""
+        self.backend.play(self.in_port, *msgs)
 
     def signal(self, signum: int) -> bool:
         self.daemon.post_signal(signum)

@@ -72,6 +72,7 @@ from retuner.live import ports as _ports
 from retuner.live.backend import InputHandle, OutputHandle, PortBackend
 from retuner.live.claim import Claim
 from retuner.live.config import Settings, engine_config
+from retuner.live.inputqueue import InputQueue
 from retuner.live.notify import Notifier
 from retuner.live.session import Session
 from retuner.live.silence import PassthroughNotes, all_notes_off, pedals_up
@@ -136,11 +137,14 @@ class Profiles:
 
 
 class Daemon:
+    MIDI_BATCH = 64        # input messages per turn of the loop, between signals and commands
+
     def __init__(self, settings: Settings, *,
                  reload_settings: Optional[Callable[[], Settings]] = None,
                  notifier: Optional[Notifier] = None,
                  backend: Optional[PortBackend] = None,
-                 clock: Callable[[], float] = time.monotonic):
+                 clock: Callable[[], float] = time.monotonic,
+                 input_capacity: int = 2048):
         self.settings = settings
         self.clock = clock
         # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
@@ -149,7 +153,12 @@ class Daemon:
         self.backend: PortBackend = backend or self._new_backend(settings)
         self.reload_settings = reload_settings
         self.notifier = notifier or Notifier()
+        # signals, port changes, control wake-ups (and a "midi" token): served first, never
+        # behind MIDI, which waits in its own bounded queue
         self.q: "queue.SimpleQueue[tuple]" = queue.SimpleQueue()
+        self.midi = InputQueue(input_capacity)
+        self._drops_logged = 0
+        self._next_drop_log = float("-inf")
         self.profiles = Profiles(settings)
         self.engine = self._new_engine(settings, self.profiles.main)
         self.session = Session(self.engine, self.profiles.main)     # the tuning in force
@@ -230,7 +239,8 @@ class Daemon:
         return self.settings.input if side == "in" else self.settings.output
 
     def _on_midi(self, msg) -> None:                      # backend thread
-        self.q.put(("midi", self.clock(), msg))
+        if self.midi.put(self.clock(), msg):
+            self.q.put(("midi",))
 
     def _on_bad_bytes(self, exc: Exception, data: list) -> None:   # backend thread
         self.q.put(("bad", self.clock(), data, repr(exc)))
@@ -292,6 +302,9 @@ class Daemon:
         note-off for every note we know of (passthrough included), All Notes Off on every
         channel (and All Sound Off where allowed). Returns how many notes we knew of."""
         known = len(self.engine.sounding()) + len(self.passthrough)
+        waiting = self.midi.clear()       # played before the panic: it must not sound after it
+        if waiting:
+            log.info("panic: %d waiting input messages discarded", waiting)
         out = pedals_up()
         out += self.engine.release_all(now)
         out += self.passthrough.release()
@@ -471,6 +484,9 @@ class Daemon:
             pass
         if self._bad_input:
             parts.append(f"{self._bad_input} bad input")
+        dropped = self.midi.total_dropped()
+        if dropped:
+            parts.append(f"{dropped} input messages dropped (overload)")
         if self._errors:
             parts.append(f"{self._errors} errors")
         return ", ".join(parts)
@@ -509,7 +525,8 @@ class Daemon:
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,
                 "backend": self.settings.backend, "config": self.settings.source,
-                "bad_input": self._bad_input, "errors": self._errors}
+                "bad_input": self._bad_input, "errors": self._errors,
+                "input_dropped": self.midi.counts(), "input_waiting": len(self.midi)}
 
     # ------------------------------------------------------------------ control socket
     def _start_control(self) -> None:
@@ -600,12 +617,20 @@ class Daemon:
             except queue.Empty:
                 item = None
         while item is not None:
-            if self._handle(item):
+            if item[0] != "midi" and self._handle(item):
                 return True
             try:
                 item = q.get_nowait()
             except queue.Empty:
                 item = None
+        # control commands (a panic) before the MIDI waiting, then one batch of MIDI; more
+        # waiting: come back at once, after whatever signal or command arrived meanwhile
+        self._serve_control()
+        batch = self.midi.take(self.MIDI_BATCH)
+        for t, msg in batch:
+            self._handle(("midi", t, msg))
+        if len(self.midi):
+            q.put(("midi",))
         now = self.clock()
         dl = self.engine.next_deadline()
         if dl is not None and dl <= now:
@@ -616,11 +641,13 @@ class Daemon:
                 log.exception("engine tick failed")
         if self.control_server is not None:
             try:
-                self.control_server.serve_pending()
                 self.control.observe(now)
             except Exception:  # noqa: BLE001
                 self._errors += 1
                 log.exception("control socket")
+        dropped = self.midi.total_dropped()
+        if dropped != self._drops_logged and now >= self._next_drop_log:
+            self._log_drops(now, dropped)
         if self._next_wd is not None and now >= self._next_wd:
             self.notifier.watchdog()
             self._next_wd = now + self.notifier.watchdog_interval
@@ -629,6 +656,23 @@ class Daemon:
             status_every = self.settings.status_interval * 60.0   # a reload may change it
             self._next_status = now + status_every if status_every > 0 else None
         return False
+
+    def _serve_control(self) -> None:
+        if self.control_server is not None:
+            try:
+                self.control_server.serve_pending()
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("control socket")
+
+    def _log_drops(self, now: float, dropped: int) -> None:
+        """One summary line, at most once a second."""
+        c = self.midi.counts()
+        log.warning("input overload: %d messages dropped since the last report (%d note-ons and their "
+                    "note-offs, %d others, %d releases); in all %d", dropped - self._drops_logged,
+                    c["note_on"], c["other"], c["release"], dropped)
+        self._drops_logged = dropped
+        self._next_drop_log = now + 1.0
 
     def _handle(self, item: tuple) -> bool:
         """Handle one queued event; True when the daemon must stop."""
