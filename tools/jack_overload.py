@@ -47,6 +47,9 @@ def main() -> int:
     ap.add_argument("--rate", type=float, default=10000.0)
     ap.add_argument("--seconds", type=float, default=3.0)
     ap.add_argument("--repo", default=HERE)
+    ap.add_argument("--held", type=int, default=0, metavar="N",
+                    help="keep N notes held under the flood (the pool busy, every note-on a steal)")
+    ap.add_argument("daemon_args", nargs="*", help="more options for 'retuner run' (after --), e.g. --adaptive")
     a = ap.parse_args()
     name = f"ovl-{uuid.uuid4().hex[:6]}"
     server = JackServer(name)
@@ -59,7 +62,7 @@ def main() -> int:
     log = open(os.path.join(tmp, "daemon.log"), "wb")
     proc = subprocess.Popen([sys.executable, "-m", "retuner", "run", "--backend", "jack", "--virtual",
                              "--client-name", client, "--control-socket", sock, "--status-interval", "0",
-                             "--profile", "edo12"], stdout=log, stderr=subprocess.STDOUT, env=env, cwd=a.repo)
+                             "--profile", "edo12", *a.daemon_args], stdout=log, stderr=subprocess.STDOUT, env=env, cwd=a.repo)
     out = {"rate": a.rate, "repo": a.repo}
     try:
         in_port = server.wait_port(lambda p: p.startswith(client) and p.endswith(":in"), 20)
@@ -88,13 +91,15 @@ def main() -> int:
         stop = threading.Event()
         sent = [0]
 
+        for k in range(a.held):
+            sender.send_message([0x90 | (k % 8), 30 + k % 60, 80])
         def flood():
             t0 = time.perf_counter()
             i = 0
             while not stop.is_set():
                 due = int((time.perf_counter() - t0) * a.rate) - sent[0]
                 for _ in range(max(0, due)):
-                    ch, key = i % 8, 36 + (i // 16) % 48
+                    ch, key = i % 8, 91 + (i // 16) % 30
                     on = i % 2 == 0
                     sender.send_message([(0x90 if on else 0x80) | ch, key, 90 if on else 0])
                     i += 1

@@ -292,6 +292,7 @@ class OutputPort(OutputHandle):
             raise _rt_error(exc, f"cannot open output {connect_to or port_name!r}", self.backend) from exc
         self.closed = False
         self._last_send = float("-inf")
+        self._client, self._port = client_name, port_name
 
     def send(self, msg: mido.Message) -> None:
         self._rt.send_message(msg.bytes())
@@ -301,17 +302,58 @@ class OutputPort(OutputHandle):
         if self.closed:
             return
         self.closed = True
-        if self.backend == "jack":
-            # JACK hands queued events over once per period; closing at once would drop the last
-            # ones (the note-offs of a shutdown). 0.25 s covers long periods and a late process cycle.
-            wait = 0.25 - (time.monotonic() - self._last_send)
-            if wait > 0:
-                time.sleep(wait)
+        if self.backend == "jack" and time.monotonic() - self._last_send < 1.0:
+            self.drain()
         try:
             self._rt.close_port()
             self._rt.delete()
         except Exception as exc:  # pragma: no cover - teardown
             log.debug("closing output: %s", exc)
+
+    def drain(self, timeout: float = 2.0) -> bool:
+        """JACK: wait until what was sent has left in a process cycle (closing at once would lose
+        it: JACK hands queued events over once per period, and a cycle may be late). A loop-back
+        input of our own is connected to our output and a marker (Active Sensing, FE: MIDI 1.0;
+        a synth may take it as a request to silence its notes should nothing follow, which at
+        shutdown is welcome) is sent until it comes back: the ring buffer is first in, first out,
+        so everything before it has gone out to every port connected. Without the loop-back
+        (it cannot be opened), a fixed wait of 0.25 s."""
+        try:
+            with _quiet_library():
+                probe = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, f"{self._client}-drain")
+        except Exception:  # noqa: BLE001 - no loop-back: the old fixed wait
+            time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
+            return False
+        try:
+            names = probe.get_ports()
+            ours = [i for i, n in enumerate(names) if n == f"{self._client}:{self._port}"] or \
+                   [i for i, n in enumerate(names) if n.startswith(self._client) and n.endswith(f":{self._port}")]
+            if not ours:
+                time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
+                return False
+            probe.ignore_types(sysex=True, timing=True, active_sense=False)
+            probe.open_port(ours[0], "drain")
+            end = time.monotonic() + timeout
+            while time.monotonic() < end:
+                self._rt.send_message([0xFE])
+                resend = time.monotonic() + 0.05
+                while time.monotonic() < resend:
+                    ev = probe.get_message()
+                    if ev is None:
+                        time.sleep(0.001)
+                    elif ev[0] == [0xFE]:
+                        return True
+            log.debug("the output did not drain within %.1f s", timeout)
+            return False
+        except Exception as exc:  # noqa: BLE001 - teardown: never fail the exit
+            log.debug("draining the output: %s", exc)
+            return False
+        finally:
+            try:
+                probe.close_port()
+                probe.delete()
+            except Exception:  # pragma: no cover - teardown
+                pass
 
 
 class RtMidiBackend(PortBackend):
