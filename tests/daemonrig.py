@@ -53,7 +53,9 @@ class Rig:
 
     def __init__(self, config: str = "", *, control: bool = False, named: bool = True,
                  inputs=(KEYS,), outputs=(SYNTH,), overrides: Optional[dict] = None,
-                 runtime: Optional[str] = None, start: bool = True, capacity: Optional[int] = None):
+                 runtime: Optional[str] = None, start: bool = True, capacity: Optional[int] = None,
+                 input_name: str = KEYS, output_name: str = SYNTH):
+        self.input_name, self.output_name = input_name, output_name
         self.dir = tempfile.mkdtemp(prefix="rtd")
         # the folder every daemon of the user shares (lock files): private to this test unless given
         self.runtime = runtime or os.path.join(self.dir, "xdg")
@@ -85,7 +87,7 @@ class Rig:
         """Read as ``retuner run`` reads them (its options over the config file)."""
         argv = ["run", "--config", self.config_path, "--status-interval", "0",
                 "--control-socket", self.socket_path]
-        argv += ["--input", KEYS, "--output", SYNTH] if self.named else ["--virtual"]
+        argv += ["--input", self.input_name, "--output", self.output_name] if self.named else ["--virtual"]
         if not self.control:
             argv.append("--no-control-socket")
         s = run_cmd.settings_loader(build_parser().parse_args(argv))(reload=reload)

@@ -158,3 +158,21 @@ def test_setup_is_sent_again_after_a_quiet_spell_on_our_own_port():
 def test_reference_pitch_check():
     # the tables the checks above use: quarter-comma meantone's major third C-E is pure (5/4)
     assert MEANTONE[64] - MEANTONE[60] == pytest.approx(1200 * math.log2(5 / 4), abs=1e-9)
+
+
+def test_a_misspelt_port_lists_the_closest_names_once_and_keeps_waiting():
+    others = ("Midi Through:Port-0", "Drum Pads:Out 1", KEYS, "Pedal Board:MIDI Out")
+    r = Rig("profile: edo12\n", inputs=others, input_name="Stage Pinao")
+    try:
+        lines = [line for line in r.log.lines if "no such port" in line]
+        assert len(lines) == 1 and "Stage Pinao" in lines[0]
+        assert f"closest existing: {KEYS!r}" in lines[0]          # the likest name first
+        r.backend.plug("Sequencer:Out", output=False)      # the lists change: no second line
+        r.pump()
+        assert r.log.count("no such port") == 1
+        assert r.daemon.inp is None
+        r.backend.plug("Stage Pinao 2:MIDI Out", output=False)   # a port of that name appears
+        r.pump()
+        assert r.daemon.inp is not None and r.daemon.inp.connected_to == "Stage Pinao 2:MIDI Out"
+    finally:
+        r.close()

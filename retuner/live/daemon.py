@@ -261,7 +261,8 @@ class Daemon:
         name = _ports.match_port(spec, names, exclude=self._own())
         if name is None:
             if not self._lost_logged["input"]:
-                log.warning("input %r: no such port (yet); waiting for it", spec)
+                log.warning("input %r: no such port (yet); waiting for it%s", spec,
+                            _ports.closest_hint(spec, names, exclude=self._own()))
                 self._lost_logged["input"] = True
             return False
         self.inp = self.backend.open_input(self._client("in"), "in", connect_to=name,
@@ -282,7 +283,8 @@ class Daemon:
             name = _ports.match_port(spec, names, exclude=self._own())
             if name is None:
                 if not self._lost_logged["output"]:
-                    log.warning("output %r: no such port (yet); waiting for it", spec)
+                    log.warning("output %r: no such port (yet); waiting for it%s", spec,
+                                _ports.closest_hint(spec, names, exclude=self._own()))
                     self._lost_logged["output"] = True
                 return False
             self.outp = self.backend.open_output(self._client("out"), "out", connect_to=name)

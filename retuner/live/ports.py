@@ -16,12 +16,14 @@ Names a user gives (``--input``, ``--output``) match a port when they are:
 3. a shell-style pattern (``*``, ``?``, ``[...]``), matched without regard to case;
 4. otherwise a part of the name, without regard to case.
 
-The first port (in the order the backend lists them) that matches wins.
+The first port (in the order the backend lists them) that matches wins. When none does, the
+daemon logs the closest existing names once (:func:`closest`) and keeps waiting for it.
 """
 
 from __future__ import annotations
 
 import contextlib
+import difflib
 import fnmatch
 import logging
 import os
@@ -137,6 +139,30 @@ def match_port(spec: str, names: Sequence[str], exclude: Sequence[str] = ()) -> 
         if low in n.lower():
             return n
     return None
+
+
+def closest(spec: str, names: Sequence[str], exclude: Sequence[str] = (), n: int = 3) -> list[str]:
+    """The ``n`` names most like ``spec`` (a misspelt name, a pattern that matches nothing),
+    best first, without regard to case or ALSA's client:port numbers."""
+    cand = [x for x in names if not any(x.startswith(e) for e in exclude)]
+    want = spec.lower().strip("*?[]")
+
+    def likeness(name: str) -> float:
+        plain = strip_alsa_numbers(name).lower()
+        whole = difflib.SequenceMatcher(None, want, plain).ratio()
+        # a name given as part of a longer one ("Piano" for "Stage Piano:MIDI Out"): its best part
+        parts = max((difflib.SequenceMatcher(None, want, p).ratio() for p in re.split(r"[:\s]+", plain) if p),
+                    default=0.0)
+        return max(whole, parts)
+    return sorted(cand, key=lambda x: -likeness(x))[:n]
+
+
+def closest_hint(spec: str, names: Sequence[str], exclude: Sequence[str] = ()) -> str:
+    """For the "no such port" line: "; closest: 'a', 'b'" or "; there are no ports"."""
+    near = closest(spec, names, exclude)
+    if not near:
+        return "; there are no ports at all yet"
+    return "; closest existing: " + ", ".join(repr(x) for x in near)
 
 
 class PortLister:
