@@ -4,19 +4,25 @@ Threads
 -------
 The engine is single-threaded and is only ever touched by the thread that runs
 :meth:`Daemon.run` (the *engine thread*). Everything else talks to it through
-one queue (:class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
-handler):
+two queues:
 
-* the backend's input callback stamps each parsed message with the daemon's
-  clock and puts ``("midi", t, msg)``;
-* the backend's port watcher (only when a port is named; the rtmidi backend
-  lists the ports every ``port_poll`` seconds) puts ``("ports", inputs, outputs)``;
-* signal handlers put ``("signal", signum)``;
-* the control socket (retuner.control.server) wakes the loop with ``("wake",)``.
+* MIDI input: the backend's input callback stamps each parsed message with the
+  daemon's clock and puts it in a bounded queue of its own (retuner.live.inputqueue:
+  when full, note-ons are dropped first, never a note-off or a pedal-up; drops are
+  counted in the status line and ``ctl status`` and logged at most once a second),
+  and puts a ``("midi",)`` token in the event queue when it was empty;
+* events (a :class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
+  handler): the backend's port watcher (only when a port is named; the rtmidi
+  backend lists the ports every ``port_poll`` seconds) puts ``("ports", inputs,
+  outputs)``; signal handlers put ``("signal", signum)``; the control socket
+  (retuner.control.server) wakes the loop with ``("wake",)``.
 
-The loop waits on the queue with a timeout: the earliest of the engine's
-``next_deadline()``, the watchdog ping and the status line. Output is sent the
-moment the engine returns it.
+Each turn of the loop (:meth:`Daemon.step`) handles every waiting event first, then
+the control commands (a panic), then at most :attr:`Daemon.MIDI_BATCH` MIDI
+messages, coming back at once when more wait: signals and commands never wait
+behind MIDI. The loop waits on the event queue with a timeout: the earliest of the
+engine's ``next_deadline()``, the watchdog ping and the status line. Output is sent
+the moment the engine returns it.
 
 The ports come from a backend (retuner.live.backend: rtmidi over ALSA or JACK, or
 ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
