@@ -12,9 +12,11 @@ from __future__ import annotations
 import math
 import signal
 
+import mido
 import pytest
 
 from daemonrig import KEYS, SYNTH, Rig, cc, note_off, note_on
+from retuner.control.protocol import Command
 from temperaments import EDO12, MEANTONE, W3, half_step
 
 
@@ -104,7 +106,6 @@ def test_program_change_and_ab_switch():
 
 
 def mido_program(program: int, channel: int):
-    import mido
     return mido.Message("program_change", program=program, channel=channel)
 
 
@@ -174,5 +175,20 @@ def test_a_misspelt_port_lists_the_closest_names_once_and_keeps_waiting():
         r.backend.plug("Stage Pinao 2:MIDI Out", output=False)   # a port of that name appears
         r.pump()
         assert r.daemon.inp is not None and r.daemon.inp.connected_to == "Stage Pinao 2:MIDI Out"
+    finally:
+        r.close()
+
+
+def test_a_transpose_from_the_control_socket_survives_a_program_change():
+    """The session owns the tuning in force: switching profile by program change keeps the cents
+    shift given over the control socket (A4 = 440 Hz, ISO 16, in both profiles; +10 c on top)."""
+    r = Rig("profile: edo12\nprofiles: [edo12, just-5limit]\nswitch: {channel: 16}\n", control=True)
+    try:
+        reply = r.daemon.control.apply(Command("transpose", {"cents": 10.0}))
+        assert reply["transpose_cents"] == 10.0
+        r.play(mido_program(1, channel=15), note_on(69))
+        (n,) = r.decode().stuck()
+        assert abs(n.cents - (6900.0 + 10.0)) <= half_step(2)
+        assert r.daemon.control.status()["base"] == "just-5limit"
     finally:
         r.close()
