@@ -64,11 +64,6 @@ def build_parser() -> argparse.ArgumentParser:
 
 def exit_status(exc: RetunerError) -> int:
     """The exit status for an error: 2 for a mistake, 1 for something that is not there (yet)."""
-    if exc.field == "backend" and exc.file is None and not isinstance(exc, Unavailable):
-        # retuner.live.ports reports a MIDI system it cannot open as a plain error on the field
-        # "backend" (a backend named in a config file comes with the file, and the options only
-        # offer known backends): that is the MIDI system not being there, not a mistake
-        return Unavailable.exit_status
     return exc.exit_status
 
 

@@ -23,10 +23,13 @@ import time
 import mido
 import pytest
 
-from retuner.control.control import (COMMANDS, ControlClient, ControlServer, EngineControl, EngineHost,
-                             default_socket_path)
+from retuner.control.client import ControlClient
+from retuner.control.commands import EngineControl, EngineHost
+from retuner.control.protocol import COMMANDS, default_socket_path
+from retuner.control.server import ControlServer
 from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
+from retuner.live.session import Session
 from retuner.profiles.profile import list_profiles, load_profile
 from retuner.pitch.tuning import ratio_to_cents
 from fractions import Fraction
@@ -44,8 +47,7 @@ class Rig:
         self.out: list[mido.Message] = []
         self.midi: "queue.SimpleQueue" = queue.SimpleQueue()
         self.calls: "queue.SimpleQueue" = queue.SimpleQueue()
-        host = EngineHost(engine=self.engine, emit=self.out.extend, tuning=self.engine.tuning,
-                          clock=time.monotonic)
+        host = EngineHost(session=Session(self.engine), emit=self.out.extend, clock=time.monotonic)
         self.ctl = EngineControl(host)
         self.server = ControlServer(self.path, self.ctl)
         self.ctl.server = self.server
@@ -148,14 +150,14 @@ def test_socket_permissions_default_path(monkeypatch):
         assert str(path) == os.path.join(base, "retuner", "control.sock")
         os.makedirs(os.path.join(base, "retuner"), mode=0o755)   # a folder left too open is tightened
         os.chmod(os.path.join(base, "retuner"), 0o755)
-        srv = ControlServer(None, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(None, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_ISSOCK(os.stat(path).st_mode)
             assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
             assert stat.S_IMODE(os.stat(path.parent).st_mode) == 0o700
             # a second server on the same live socket is refused, the first keeps it
             with pytest.raises(RetunerError, match="already listening"):
-                ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+                ControlServer(path, EngineControl(EngineHost(session=None, emit=list))).start()
             assert os.path.exists(path)
         finally:
             srv.close()
@@ -172,7 +174,7 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         dead = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
         dead.bind(path)
         dead.close()                                   # a leftover of a daemon that died
-        srv = ControlServer(path, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(path, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
             with ControlClient(path) as c:
@@ -181,7 +183,7 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         finally:
             srv.close()
         fresh = os.path.join(base, "new", "retuner", "c.sock")
-        srv = ControlServer(fresh, EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+        srv = ControlServer(fresh, EngineControl(EngineHost(session=None, emit=list))).start()
         try:
             assert stat.S_IMODE(os.stat(os.path.dirname(fresh)).st_mode) == 0o700
         finally:
@@ -190,11 +192,11 @@ def test_stale_socket_is_replaced_and_new_folder_is_private():
         os.symlink(base, os.path.join(base, "retuner"))
         with pytest.raises(RetunerError, match="not ours"):
             ControlServer(os.path.join(base, "retuner", "c.sock"),
-                          EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+                          EngineControl(EngineHost(session=None, emit=list))).start()
         with open(os.path.join(base, "plain"), "w") as fh:
             fh.write("x")
         with pytest.raises(RetunerError, match="not a socket"):
-            ControlServer(os.path.join(base, "plain"), EngineControl(EngineHost(engine=None, emit=list, tuning=None))).start()
+            ControlServer(os.path.join(base, "plain"), EngineControl(EngineHost(session=None, emit=list))).start()
     finally:
         shutil.rmtree(base, ignore_errors=True)
 
@@ -523,7 +525,7 @@ def test_commands_are_served_in_small_batches_and_the_loop_is_woken_for_the_rest
     base = tempfile.mkdtemp(prefix="rtb")
     wakes = []
     engine = Engine(load_profile("edo12"), EngineConfig())
-    ctl = EngineControl(EngineHost(engine=engine, emit=list, tuning=engine.tuning))
+    ctl = EngineControl(EngineHost(session=Session(engine), emit=list))
     srv = ControlServer(os.path.join(base, "c.sock"), ctl, on_command=lambda: wakes.append(1))
     ctl.server = srv
     srv.start()
@@ -646,3 +648,76 @@ def test_panic_counts_notes_held_by_the_pedal(rig):
     after = rig.out[start:]
     assert any(m.type == "control_change" and m.control == 64 and m.value == 0 for m in after)
     assert any(m.type == "control_change" and m.control == 123 for m in after)
+
+
+# --------------------------------------------------------------------------- faults
+def test_an_empty_line_gets_a_reply(rig):
+    s = raw(rig.path)
+    buf = bytearray()
+    for line in (b"\n", b"   \r\n"):
+        s.sendall(line)
+        r = read_line(s, buf)
+        assert r["ok"] is False and "empty" in r["error"]
+    s.sendall(b"{\"cmd\": \"status\", \"id\": 3}\n")          # and the connection still serves
+    assert read_line(s, buf)["id"] == 3
+    s.close()
+
+
+def test_deeply_nested_json_gets_a_reply_and_no_traceback(rig, caplog):
+    s = raw(rig.path)
+    buf = bytearray()
+    for depth in (2_000, 10_000):         # both within MAX_LINE
+        s.sendall(b"[" * depth + b"]" * depth + b"\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "nested" in r["error"]
+        s.sendall(b"{\"a\":" * depth + b"1" + b"}" * depth + b"\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "nested" in r["error"]
+    s.close()
+    assert not [rec for rec in caplog.records if rec.exc_info]
+
+
+def test_panic_gets_in_with_every_connection_taken(rig):
+    """The server holds MAX_CLIENTS connections and keeps one more slot for a panic."""
+    held = []
+    try:
+        end = time.monotonic() + 20
+        for i in range(ControlServer.MAX_CLIENTS):
+            if i % 64 == 0:       # the listen backlog is smaller: let the server accept them first
+                while rig.server.stats()["clients"] < i:
+                    assert time.monotonic() < end
+                    time.sleep(0.01)
+            held.append(raw(rig.path))
+        while rig.server.stats()["clients"] < ControlServer.MAX_CLIENTS:
+            assert time.monotonic() < end
+            time.sleep(0.01)
+        with ControlClient(rig.path) as c:
+            r = c.request("panic")
+        assert r["ok"] is True and r["cmd"] == "panic"
+        # the engine thread applied it: every output channel got All Notes Off (MIDI 1.0, CC123)
+        assert {m.channel for m in list(rig.out) if m.type == "control_change" and m.control == 123} \
+            >= set(rig.engine.config.pool)
+        # anything else through the reserved slot: a reason, then the connection is closed
+        s = raw(rig.path)
+        buf = bytearray()
+        s.sendall(b"{\"cmd\": \"status\"}\n")
+        r = read_line(s, buf)
+        assert r["ok"] is False and "panic" in r["error"]
+        assert s.recv(10) == b""
+        s.close()
+    finally:
+        for s in held:
+            s.close()
+
+
+def test_a_socket_folder_not_ours_is_refused(tmp_path):
+    other = tmp_path / "theirs"
+    other.mkdir(mode=0o700)
+    os.chown(other, 65534, 65534)          # nobody's (the tests run as root here)
+    with pytest.raises(RetunerError, match="not ours"):
+        ControlServer(str(other / "c.sock"), EngineControl(EngineHost(session=None, emit=list))).start()
+    shared = tmp_path / "shared"
+    shared.mkdir()
+    os.chmod(shared, 0o1777)               # like /tmp
+    with pytest.raises(RetunerError, match="writable by other users"):
+        ControlServer(str(shared / "c.sock"), EngineControl(EngineHost(session=None, emit=list))).start()

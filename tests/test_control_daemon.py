@@ -32,7 +32,7 @@ import mido
 import pytest
 
 from jack import Daemon, JackError, NotifySocket, decode
-from retuner.control.control import ControlClient
+from retuner.control.client import ControlClient
 from retuner.pitch.tuning import ratio_to_cents
 
 FIFTH = ratio_to_cents(Fraction(3, 2))
@@ -257,7 +257,7 @@ def test_subscribe_events_from_the_daemon(run_daemon, jack_client):
 
 CLIENTS_SCRIPT = r"""
 import json, socket, sys, threading
-from retuner.control.control import ControlClient
+from retuner.control.client import ControlClient
 path = sys.argv[1]
 sleeper = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
 sleeper.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)

@@ -14,6 +14,7 @@ import sys
 import pytest
 
 from retuner.cli import exit_status
+from retuner.live import ports
 from retuner.errors import RetunerError, Unavailable
 
 
@@ -54,7 +55,7 @@ def test_a_mistake_is_status_2_from_every_command(tmp_path):
 def test_the_status_comes_from_the_error_kind():
     assert exit_status(RetunerError("bad value", field="--bend-range")) == 2
     assert exit_status(Unavailable("no daemon is running")) == 1
-    # the MIDI system not opening is reported on the field 'backend' by the port layer
-    assert exit_status(RetunerError("cannot open the alsa MIDI system: x", field="backend")) == 1
+    # the port layer reports a MIDI system it cannot open as Unavailable
+    assert exit_status(ports._rt_error(OSError("x"), "cannot open the alsa MIDI system", "alsa")) == 1
     # ... while a backend named wrongly in a config file is a mistake in that file
     assert exit_status(RetunerError("unknown backend 'x'", file="config.yaml", line=3, field="backend")) == 2

@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 import sys
 
+from retuner.control.client import ControlClient, NoDaemon
+
 NAME = "ctl"
 HELP = "steer a running daemon: status, profiles, load, adaptive, reference, transpose, panic, subscribe"
 ORDER = 40
@@ -88,6 +90,11 @@ def _fmt_status(r: dict) -> str:
     lines.append(f"sounding    {r.get('sounding', 0)} notes")
     for k, v in sorted((r.get("stats") or {}).items()):
         lines.append(f"{k:<11} {v}")
+    dropped = r.get("input_dropped")
+    if dropped is not None:
+        lines.append(f"input       {sum(dropped.values())} messages dropped under overload "
+                     f"({dropped.get('note_on', 0)} note-ons, {dropped.get('other', 0)} others, "
+                     f"{dropped.get('release', 0)} releases), {r.get('input_waiting', 0)} waiting")
     ctl = r.get("control") or {}
     if ctl:
         lines.append("control     " + ", ".join(f"{k} {v}" for k, v in sorted(ctl.items())))
@@ -113,7 +120,6 @@ def _fmt(reply: dict) -> str:
 
 
 def run(args) -> int:
-    from retuner.control.control import ControlClient, NoDaemon
     req = _request(args)
     try:
         with ControlClient(args.socket, timeout=5.0) as client:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from retuner.live import config as _config
+from retuner.live.daemon import Daemon, setup_logging
 from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir
 from retuner.commands._engine_options import add_engine_arguments, engine_overrides, option_for_field
@@ -77,14 +78,18 @@ def _apply_flags(s: _config.Settings, args) -> _config.Settings:
     return s
 
 
+def settings_loader(args):
+    """The daemon's settings as these options make them: ``load(reload=False)``. A reload
+    refuses an empty config file (an editor saving by truncate-then-write leaves one for a moment)."""
+    def load(reload: bool = False) -> _config.Settings:
+        return _apply_flags(_config.load_config(args.config, reload=reload), args)
+    return load
+
+
 def run(args) -> int:
-    from retuner.live.daemon import Daemon, setup_logging
-
-    def settings() -> _config.Settings:
-        return _apply_flags(_config.load_config(args.config), args)
-
-    s = settings()
+    load = settings_loader(args)
+    s = load()
     setup_logging(s.log_level, args.verbose)
-    daemon = Daemon(s, reload_settings=settings)
+    daemon = Daemon(s, reload_settings=lambda: load(reload=True))
     daemon.verbose = args.verbose
     return daemon.run()

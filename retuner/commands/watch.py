@@ -32,7 +32,7 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from retuner.control.control import NoDaemon
+    from retuner.control.client import NoDaemon
     from retuner.errors import RetunerError
     from retuner.view import watch
     if not 1.0 <= args.fps <= 120.0:

@@ -26,7 +26,10 @@ defaults). Every field is optional::
                                    # before a note-on after this many quiet seconds with nothing
                                    # sounding or ringing, for a synth connected after the start; 0 = never
     log_level: info                # debug, info, warning, error
-    control:                       # the control socket (JSON lines; see retuner.control.control)
+    panic_all_sound_off: false     # panic also sends All Sound Off (CC120) on every channel, which
+                                   # cuts release tails and reverb at once; pedals up and All Notes
+                                   # Off (CC64/CC66 = 0, CC123) are always sent
+    control:                       # the control socket (JSON lines; see retuner.control.protocol)
       enabled: true
       path: null                   # default $XDG_RUNTIME_DIR/retuner/control.sock
 
@@ -40,6 +43,7 @@ import copy
 import dataclasses
 import enum
 import os
+import time
 import types
 import typing
 from dataclasses import dataclass, field
@@ -88,6 +92,7 @@ class Settings:
     port_poll: float = 0.5                   # seconds
     setup_refresh: float = 1.0               # seconds; 0 = never (see the module doc)
     log_level: str = "info"
+    panic_all_sound_off: bool = False        # see the module doc
     control: ControlSettings = field(default_factory=ControlSettings)
     lines: dict[str, int] = field(default_factory=dict, compare=False, repr=False)  # field -> line in source
 
@@ -168,7 +173,7 @@ def _unknown(sub, allowed, w, prefix):
 
 TOP_FIELDS = {"profile", "profile_dirs", "backend", "input", "output", "virtual", "client_name",
               "engine", "mode", "profiles", "switch", "status_interval", "port_poll", "log_level",
-              "control", "setup_refresh"}
+              "control", "setup_refresh", "panic_all_sound_off"}
 
 
 def parse_config(text: str, filename: str = "<config>", base: Optional[Settings] = None) -> Settings:
@@ -237,6 +242,8 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         s.port_poll = _num(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
     if "setup_refresh" in d:
         s.setup_refresh = _num(d["setup_refresh"], w, "setup_refresh", d, "setup_refresh", 0, 3600)
+    if "panic_all_sound_off" in d:
+        s.panic_all_sound_off = _bool(d["panic_all_sound_off"], w, "panic_all_sound_off", d, "panic_all_sound_off")
     if "log_level" in d:
         lv = _str(d["log_level"], w, "log_level", d, "log_level")
         if lv not in LOG_LEVELS:
@@ -269,19 +276,33 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
     return s
 
 
-def load_config(path: Optional[str], *, required: bool = False) -> Settings:
+def load_config(path: Optional[str], *, required: bool = False, reload: bool = False) -> Settings:
     """Read ``path`` (or the default file when ``path`` is None); built-in defaults when absent.
 
-    A file the user named explicitly (``required``) must exist."""
+    A file the user named explicitly (``required``) must exist. On a ``reload`` the file must be
+    complete: one that is empty (or only comments) is refused, since an editor that saves by
+    truncate-then-write leaves it so for a moment, and one that changes while it is read is read
+    again (a few times, then refused)."""
     p = Path(path) if path else default_config_path()
     if not p.is_file():
         if required or path:
             raise RetunerError("no such config file", file=str(p))
         return Settings()
-    try:
-        text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RetunerError(f"cannot read: {exc}", file=str(p)) from None
+    for attempt in range(5):
+        try:
+            before = p.stat()
+            text = p.read_text(encoding="utf-8")
+            after = p.stat()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise RetunerError(f"cannot read: {exc}", file=str(p)) from None
+        if (before.st_size, before.st_mtime_ns) == (after.st_size, after.st_mtime_ns) \
+                and len(text.encode("utf-8")) == after.st_size:
+            break
+        time.sleep(0.05)           # being written right now: read it again in a moment
+    else:
+        raise RetunerError("the file kept changing while it was read; not loaded", file=str(p))
+    if reload and not any(line.strip() and not line.lstrip().startswith("#") for line in text.splitlines()):
+        raise RetunerError("the file is empty (an editor may be saving it); not loaded", file=str(p))
     return parse_config(text, str(p))
 
 

@@ -4,38 +4,57 @@ Threads
 -------
 The engine is single-threaded and is only ever touched by the thread that runs
 :meth:`Daemon.run` (the *engine thread*). Everything else talks to it through
-one queue (:class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
-handler):
+two queues:
 
-* the backend's input callback stamps each parsed message with
-  ``time.monotonic()`` and puts ``("midi", t, msg)``;
-* a port watcher thread lists the backend's ports every ``port_poll`` seconds
-  (only when a port is named) and puts ``("ports", inputs, outputs)``;
-* signal handlers put ``("signal", signum)``;
-* the control socket (retuner.control.control) wakes the loop with ``("wake",)``.
+* MIDI input: the backend's input callback stamps each parsed message with the
+  daemon's clock and puts it in a bounded queue of its own (retuner.live.inputqueue:
+  when full, note-ons are dropped first, never a note-off or a pedal-up; drops are
+  counted in the status line and ``ctl status`` and logged at most once a second),
+  and puts a ``("midi",)`` token in the event queue when it was empty;
+* events (a :class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
+  handler): the backend's port watcher (only when a port is named; the rtmidi
+  backend lists the ports every ``port_poll`` seconds) puts ``("ports", inputs,
+  outputs)``; signal handlers put ``("signal", signum)``; the control socket
+  (retuner.control.server) wakes the loop with ``("wake",)``.
 
-The loop waits on the queue with a timeout: the earliest of the engine's
-``next_deadline()``, the watchdog ping and the status line. Output is sent the
-moment the engine returns it.
+Each turn of the loop (:meth:`Daemon.step`) handles every waiting event first, then
+the control commands (a panic), then at most :attr:`Daemon.MIDI_BATCH` MIDI
+messages, coming back at once when more wait: signals and commands never wait
+behind MIDI. The loop waits on the event queue with a timeout: the earliest of the
+engine's ``next_deadline()``, the watchdog ping and the status line. Output is sent
+the moment the engine returns it.
+
+The ports come from a backend (retuner.live.backend: rtmidi over ALSA or JACK, or
+ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
+is one turn of the loop, so a test can drive the daemon in-process.
 
 Hotplug
 -------
 A side with a port name (``--input``/``--output``) is connected to the first
 port that matches (see retuner.live.ports). When that port disappears the daemon
 keeps running and logs it once; notes held from a lost input are released
-(``engine.input_lost``); notes sounding on a lost output are forgotten
-(``engine.output_lost``), input is dropped while there is no output, and when
-the output returns the engine's setup is sent again (``engine.start``).
+(``engine.input_lost``, and the passthrough notes); notes sounding on a lost output
+are forgotten (``engine.output_lost``). While there is no output the engine still
+follows the input (pedals, wheel) and nothing is sent. Whenever an output is opened
+(start-up, return) it is silenced first (retuner.live.silence: pedals up and All Notes
+Off on every channel), then the engine's set-up is sent (``engine.start``: bend range,
+and the pedals the input still holds).
+
+Panic
+-----
+:meth:`Daemon.panic` (control socket, SIGTERM/SIGINT) silences the output whatever we
+believe sounds: pedals up on every channel, a note-off for each note we know of
+(passthrough included), All Notes Off on every channel, All Sound Off where the config
+allows it (``panic_all_sound_off``).
 
 Signals
 -------
 SIGHUP reloads the config file and the profiles (a bad one is logged and the old
-settings stay); SIGTERM and SIGINT release every sounding note
-(``engine.release_all``) and exit with status 0.
+settings stay); SIGTERM and SIGINT panic and exit with status 0.
 
 Control socket
 --------------
-When ``control.enabled`` (default) the daemon starts retuner.control.control's server
+When ``control.enabled`` (default) the daemon starts retuner.control's server
 (``EngineControl`` + ``ControlServer``); the engine thread applies its commands
 (``serve_pending``) and publishes events (``observe``) on every wake-up.
 """
@@ -51,10 +70,21 @@ import threading
 import time
 from typing import Callable, Optional
 
-from retuner.live import ports as _ports
-from retuner.live.config import Settings, engine_config
+from retuner.control.commands import EngineControl, EngineHost
+from retuner.control.server import ControlServer
+from retuner.engine.core import Engine
 from retuner.errors import RetunerError
+from retuner.live.journal import stream_is_journal
+from retuner.live import ports as _ports
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend
+from retuner.live.claim import Claim
+from retuner.live.config import Settings, engine_config
+from retuner.live.inputqueue import InputQueue
 from retuner.live.notify import Notifier
+from retuner.live.session import Session
+from retuner.live.silence import PassthroughNotes, all_notes_off, pedals_up
+from retuner.measure.metrics import StreamWindow, report
+from retuner.profiles.profile import load_profile
 
 log = logging.getLogger("retuner")
 
@@ -72,7 +102,7 @@ def setup_logging(level: str = "info", verbose: int = 0, environ=None) -> None:
     """Log to stderr; journald-friendly (no time stamps, priority prefix) under $JOURNAL_STREAM."""
     env = os.environ if environ is None else environ
     handler = logging.StreamHandler(sys.stderr)
-    if env.get("JOURNAL_STREAM"):
+    if stream_is_journal(sys.stderr, env):
         handler.setFormatter(_JournalFormatter("%(message)s"))
     else:
         handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%H:%M:%S"))
@@ -93,8 +123,6 @@ class Profiles:
     """The tunings a configuration needs, loaded up front (no disk reads while switching)."""
 
     def __init__(self, settings: Settings):
-        from retuner.profiles.profile import load_profile
-
         dirs = settings.profile_dirs
 
         def load(name: str, fld: str):
@@ -116,42 +144,63 @@ class Profiles:
 
 
 class Daemon:
+    MIDI_BATCH = 64        # input messages per turn of the loop, between signals and commands
+
     def __init__(self, settings: Settings, *,
                  reload_settings: Optional[Callable[[], Settings]] = None,
-                 notifier: Optional[Notifier] = None):
+                 notifier: Optional[Notifier] = None,
+                 backend: Optional[PortBackend] = None,
+                 clock: Callable[[], float] = time.monotonic,
+                 input_capacity: int = 2048):
         self.settings = settings
+        self.clock = clock
+        # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
+        # rtmidi one is made again when the port settings change
+        self._own_backend = backend is None
+        self.backend: PortBackend = backend or self._new_backend(settings)
         self.reload_settings = reload_settings
         self.notifier = notifier or Notifier()
+        # signals, port changes, control wake-ups (and a "midi" token): served first, never
+        # behind MIDI, which waits in its own bounded queue
         self.q: "queue.SimpleQueue[tuple]" = queue.SimpleQueue()
+        self.midi = InputQueue(input_capacity)
+        self._drops_logged = 0
+        self._next_drop_log = float("-inf")
         self.profiles = Profiles(settings)
-        self.tuning = self.profiles.main
-        self.engine = self._new_engine(settings, self.tuning)
-        self.inp: Optional[_ports.InputPort] = None
-        self.outp: Optional[_ports.OutputPort] = None
-        self.lister: Optional[_ports.PortLister] = None
-        self._watcher: Optional[threading.Thread] = None
-        self._stop_watch = threading.Event()
+        self.engine = self._new_engine(settings, self.profiles.main)
+        self.session = Session(self.engine, self.profiles.main)     # the tuning in force
+        self.inp: Optional[InputHandle] = None
+        self.outp: Optional[OutputHandle] = None
+        self._watching = False
         self._lost_logged = {"input": False, "output": False}
         self._ab_last = 0
         self._last_out = float("-inf")
         # what was sent lately, for the status line's impurity, motion and drift (measured from
         # the output, as 'retuner convert --report' does)
-        from retuner.measure.metrics import StreamWindow
         self.recent = StreamWindow()
+        # notes and pedals on passthrough channels (the engine keeps no account of them)
+        self.passthrough = PassthroughNotes()
+        self._pass_channels = frozenset(self.engine.config.passthrough)
         self._figures: Optional[dict] = None
         self._figures_busy = False
         self._bad_input = 0
         self._errors = 0
         self.running = False
         self.exit_status = 0
-        self.control = None         # retuner.control.control.EngineControl
-        self.control_server = None  # retuner.control.control.ControlServer
-        self.started_at = time.monotonic()
+        self.control = None         # retuner.control.commands.EngineControl
+        self.control_server = None  # retuner.control.server.ControlServer
+        self.claim: Optional[Claim] = None
+        self.started_at = clock()
+        self._next_wd: Optional[float] = None
+        self._next_status: Optional[float] = None
 
     # ------------------------------------------------------------------ engine
     @staticmethod
+    def _new_backend(settings: Settings) -> PortBackend:
+        return _ports.RtMidiBackend(settings.backend, f"{settings.client_name}-probe")
+
+    @staticmethod
     def _new_engine(settings: Settings, tuning):
-        from retuner.engine.core import Engine
         return Engine(tuning, engine_config(settings))
 
     def emit(self, messages) -> None:
@@ -164,8 +213,9 @@ class Daemon:
             if debug:
                 log.debug("no output: dropped %d messages", len(messages))
             return
-        now = time.monotonic()
+        now = self.clock()
         recent = self.recent
+        passing = self._pass_channels
         for m in messages:
             try:
                 outp.send(m)
@@ -174,19 +224,16 @@ class Daemon:
                 log.warning("sending %s failed: %s", m, exc)
                 return
             recent.add(now, m)
+            if passing and getattr(m, "channel", None) in passing:
+                self.passthrough.sent(m)
             if debug:
                 log.debug("out %s", m)
         self._last_out = now
 
     # ------------------------------------------------------------------ ports
     def _client(self, side: str) -> str:
-        """Our client names. ALSA: "retuner" for both ports ("retuner:in", "retuner:out"; ALSA
-        allows two clients of one name). JACK renames a second client of the same name, so
-        there each side has its own: "retuner-in:in", "retuner-out:out"."""
-        base = self.settings.client_name
-        if self.settings.backend == "alsa" and side in ("in", "out"):
-            return base
-        return f"{base}-{side}"
+        """Our client name for one side (the backend decides: see its ``client_name``)."""
+        return self.backend.client_name(self.settings.client_name, side)
 
     def _own(self) -> list[str]:
         base = self.settings.client_name
@@ -199,93 +246,96 @@ class Daemon:
         return self.settings.input if side == "in" else self.settings.output
 
     def _on_midi(self, msg) -> None:                      # backend thread
-        self.q.put(("midi", time.monotonic(), msg))
+        if self.midi.put(self.clock(), msg):
+            self.q.put(("midi",))
 
     def _on_bad_bytes(self, exc: Exception, data: list) -> None:   # backend thread
-        self.q.put(("bad", time.monotonic(), data, repr(exc)))
+        self.q.put(("bad", self.clock(), data, repr(exc)))
+
+    def _on_ports(self, inputs: list[str], outputs: list[str]) -> None:   # watcher thread
+        self.q.put(("ports", inputs, outputs))
 
     def _open_input(self, names: Optional[list[str]] = None) -> bool:
         spec = self._side_spec("in")
-        backend = self.settings.backend
+        word = self.backend.word
         if spec is None:
-            self.inp = _ports.InputPort(backend, self._client("in"), "in",
-                                        callback=self._on_midi, on_error=self._on_bad_bytes)
-            log.info("input: our own port %s:in (%s)", self._client("in"), backend)
+            self.inp = self.backend.open_input(self._client("in"), "in", connect_to=None,
+                                               callback=self._on_midi, on_error=self._on_bad_bytes)
+            log.info("input: our own port %s:in (%s)", self._client("in"), word)
             return True
         if names is None:
-            names = self.lister.inputs() if self.lister else []
+            names = self.backend.inputs()
         name = _ports.match_port(spec, names, exclude=self._own())
         if name is None:
             if not self._lost_logged["input"]:
-                log.warning("input %r: no such port (yet); waiting for it", spec)
+                log.warning("input %r: no such port (yet); waiting for it%s", spec,
+                            _ports.closest_hint(spec, names, exclude=self._own()))
                 self._lost_logged["input"] = True
             return False
-        self.inp = _ports.InputPort(backend, self._client("in"), "in", connect_to=name,
-                                    callback=self._on_midi, on_error=self._on_bad_bytes)
+        self.inp = self.backend.open_input(self._client("in"), "in", connect_to=name,
+                                           callback=self._on_midi, on_error=self._on_bad_bytes)
         self._lost_logged["input"] = False
-        log.info("input: connected to %s (%s)", name, backend)
+        log.info("input: connected to %s (%s)", name, word)
         return True
 
     def _open_output(self, now: float, names: Optional[list[str]] = None) -> bool:
         spec = self._side_spec("out")
-        backend = self.settings.backend
+        word = self.backend.word
         if spec is None:
-            self.outp = _ports.OutputPort(backend, self._client("out"), "out")
-            log.info("output: our own port %s:out (%s)", self._client("out"), backend)
+            self.outp = self.backend.open_output(self._client("out"), "out", connect_to=None)
+            log.info("output: our own port %s:out (%s)", self._client("out"), word)
         else:
             if names is None:
-                names = self.lister.outputs() if self.lister else []
+                names = self.backend.outputs()
             name = _ports.match_port(spec, names, exclude=self._own())
             if name is None:
                 if not self._lost_logged["output"]:
-                    log.warning("output %r: no such port (yet); waiting for it", spec)
+                    log.warning("output %r: no such port (yet); waiting for it%s", spec,
+                                _ports.closest_hint(spec, names, exclude=self._own()))
                     self._lost_logged["output"] = True
                 return False
-            self.outp = _ports.OutputPort(backend, self._client("out"), "out", connect_to=name)
+            self.outp = self.backend.open_output(self._client("out"), "out", connect_to=name)
             self._lost_logged["output"] = False
-            log.info("output: connected to %s (%s)", name, backend)
+            log.info("output: connected to %s (%s)", name, word)
+        # whatever sounded on it before (a crash, an outage) is silenced first; the engine
+        # forgets notes it played while the output was away but keeps the input's pedals,
+        # which the set-up then sends again
+        self.engine.output_lost(now)
+        self.passthrough.forget()
+        self.emit(pedals_up() + all_notes_off(sound_off=self.settings.panic_all_sound_off))
         self.emit(self.engine.start(now))
         return True
 
+    def panic(self, now: float) -> int:
+        """Silence the output whatever we believe sounds: pedals up on every channel, a
+        note-off for every note we know of (passthrough included), All Notes Off on every
+        channel (and All Sound Off where allowed). Returns how many notes we knew of."""
+        known = len(self.engine.sounding()) + len(self.passthrough)
+        waiting = self.midi.clear()       # played before the panic: it must not sound after it
+        if waiting:
+            log.info("panic: %d waiting input messages discarded", waiting)
+        out = pedals_up()
+        out += self.engine.release_all(now)
+        out += self.passthrough.release()
+        out += all_notes_off(sound_off=self.settings.panic_all_sound_off, already=out)
+        self.emit(out)
+        return known
+
     def _open_ports(self, now: float) -> None:
         named = self._side_spec("in") is not None or self._side_spec("out") is not None
-        if named and self.lister is None:
-            self.lister = _ports.PortLister(self.settings.backend, self._client("probe"))
         self._open_output(now)
         self._open_input()
-        if named:
-            self._start_watcher()
+        if named and not self._watching:
+            self.backend.watch(self.settings.port_poll, self._on_ports)
+            self._watching = True
 
     def _close_ports(self) -> None:
-        self._stop_watch.set()
-        if self._watcher is not None:
-            self._watcher.join(2)
-            self._watcher = None
         for p in (self.inp, self.outp):
             if p is not None:
                 p.close()
         self.inp = self.outp = None
-        if self.lister is not None:
-            self.lister.close()
-            self.lister = None
-
-    def _start_watcher(self) -> None:
-        if self._watcher is not None:
-            return
-        self._stop_watch = threading.Event()
-        stop = self._stop_watch
-        lister = self.lister
-        interval = self.settings.port_poll
-
-        def watch():
-            while not stop.wait(interval):
-                try:
-                    self.q.put(("ports", lister.inputs(), lister.outputs()))
-                except Exception as exc:  # pragma: no cover - backend trouble
-                    log.debug("listing ports: %s", exc)
-
-        self._watcher = threading.Thread(target=watch, name="retuner-ports", daemon=True)
-        self._watcher.start()
+        self.backend.close()
+        self._watching = False
 
     def _check_ports(self, now: float, inputs: list[str], outputs: list[str]) -> None:
         # output first: input is dropped while there is no output
@@ -297,6 +347,7 @@ class Daemon:
                 self.outp.close()
                 self.outp = None
                 self.engine.output_lost(now)
+                self.passthrough.forget()
                 self._lost_logged["output"] = True
             elif self.outp is None:
                 try:
@@ -311,7 +362,7 @@ class Daemon:
                             self.inp.connected_to)
                 self.inp.close()
                 self.inp = None
-                self.emit(self.engine.input_lost(now))
+                self.emit(self.engine.input_lost(now) + self.passthrough.release())
                 self._lost_logged["input"] = True
             elif self.inp is None:
                 try:
@@ -322,14 +373,7 @@ class Daemon:
 
     # ------------------------------------------------------------------ switching
     def switch_to(self, tuning, now: float, why: str) -> None:
-        if self.control is not None:
-            self.control.tuning_changed(tuning)
-            effective = self.control.current
-        else:
-            effective = tuning
-        self.emit(self.engine.set_tuning(effective, now))
-        self.tuning = tuning
-        log.info("tuning: %s (%s)", tuning.id, why)
+        self.emit(self.session.load(tuning, now, why))
 
     def _control_message(self, msg, now: float) -> bool:
         """Handle program change / the A/B CC on the control channel; True when consumed."""
@@ -351,7 +395,8 @@ class Daemon:
             pressed = msg.value >= 64
             if pressed and self._ab_last < 64:
                 a, b = self.profiles.ab
-                target = b if (self.tuning is a or self.tuning.id == a.id) else a
+                base = self.session.base
+                target = b if (base is a or base.id == a.id) else a
                 self.switch_to(target, now, f"A/B switch CC{sw.ab_cc}")
             self._ab_last = msg.value
             return True
@@ -363,8 +408,8 @@ class Daemon:
             log.debug("in  %s", msg)
         if self._control_message(msg, t):
             return
-        if self.outp is None:
-            return          # no synth to play on: nothing is sent, nothing is remembered
+        # with no synth to play on nothing is sent, but the engine still follows the input
+        # (pedals, wheel), so the synth gets the right state when it comes back
         if msg.type == "note_on" and msg.velocity and self._refresh_due(t):
             # a synth may have been connected to our own port since the setup was sent
             log.debug("sending the setup again before the first note after a pause")
@@ -387,6 +432,8 @@ class Daemon:
             new = self.reload_settings()
             profiles = Profiles(new)
             new_engine_cfg = engine_config(new)
+            if self.claim is not None:
+                self.claim.move_ports(new)      # other ports: not if another daemon has them
         except RetunerError as exc:
             log.error("reload failed, keeping the running settings: %s", exc)
             self.notifier.ready(status=f"reload failed: {exc}")
@@ -404,11 +451,18 @@ class Daemon:
         set_level(new.log_level, getattr(self, "verbose", 0))
         if ports_changed:
             log.info("port settings changed: releasing every note and reopening the ports")
-            self.emit(self.engine.release_all(now))
+            self.panic(now)
             self._close_ports()
+            if self._own_backend:
+                self.backend = self._new_backend(new)
+        new_pass = frozenset(new_engine_cfg.passthrough)
+        if new_pass != self._pass_channels:
+            # notes on a channel that stops passing through would never get their note-off
+            self.emit(self.passthrough.release(self._pass_channels - new_pass))
+            self._pass_channels = new_pass
         if new_engine_cfg != self.engine.config:
             # a new layout releases everything and starts again; lighter changes keep notes sounding
-            self.emit(self.engine.reconfigure(new_engine_cfg, now))
+            self.emit(self.session.reconfigure(new_engine_cfg, now))
             log.info("engine settings changed")
         if ports_changed:
             try:
@@ -419,16 +473,16 @@ class Daemon:
             log.warning("control socket settings take effect at the next start")
         if (profiles.main.id, profiles.main.cents) != (old_main.id, old_main.cents):
             self.switch_to(profiles.main, now, "reload")
-        elif self.tuning.id != profiles.main.id:
+        elif self.session.base.id != profiles.main.id:
             # the config's tuning is unchanged: a tuning switched to live (program change, A/B,
             # control socket) stays
-            log.info("keeping the tuning switched to live: %s", self.tuning.id)
+            log.info("keeping the tuning switched to live: %s", self.session.base.id)
         log.info("reloaded %s", new.source or "built-in defaults")
         self.notifier.ready(status=self._status_text())
 
     def _status_text(self) -> str:
         st = dict(getattr(self.engine, "stats", {}) or {})
-        parts = [f"tuning {self.tuning.id} ({self.engine.config.mode}"
+        parts = [f"tuning {self.session.base.id} ({self.engine.config.mode}"
                  f"{', adaptive' if self.engine.config.adaptive is not None else ''})",
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
@@ -439,6 +493,9 @@ class Daemon:
             pass
         if self._bad_input:
             parts.append(f"{self._bad_input} bad input")
+        dropped = self.midi.total_dropped()
+        if dropped:
+            parts.append(f"{dropped} input messages dropped (overload)")
         if self._errors:
             parts.append(f"{self._errors} errors")
         return ", ".join(parts)
@@ -458,7 +515,6 @@ class Daemon:
 
         def measure():
             try:
-                from retuner.measure.metrics import report
                 fig = self._figures = report(stream, **kw)
                 if fig.get("notes"):
                     log.info("status: last %d notes: impurity %.2f c, motion %.2f c/note, drift max %.2f c, "
@@ -473,112 +529,159 @@ class Daemon:
 
     def status(self) -> dict:
         """For the control socket's status command."""
-        return {"uptime": time.monotonic() - self.started_at,
+        return {"uptime": self.clock() - self.started_at,
                 "input": getattr(self.inp, "connected_to", None) if self.inp else None,
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,
                 "backend": self.settings.backend, "config": self.settings.source,
-                "bad_input": self._bad_input, "errors": self._errors}
+                "bad_input": self._bad_input, "errors": self._errors,
+                "input_dropped": self.midi.counts(), "input_waiting": len(self.midi)}
 
     # ------------------------------------------------------------------ control socket
     def _start_control(self) -> None:
         if not self.settings.control.enabled:
             return
-        try:
-            from retuner.control.control import ControlServer, EngineControl, EngineHost
-            host = EngineHost(engine=self.engine, emit=self.emit, tuning=self.tuning,
-                              clock=time.monotonic, profile_dirs=tuple(self.settings.profile_dirs),
-                              on_switch=self._on_control_switch, status_extra=self.status)
-            ctl = EngineControl(host)
-            server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
-            ctl.server = server
-            server.start()
-        except Exception as exc:  # noqa: BLE001 - the daemon plays on without it
-            log.error("control socket not started: %s", exc)
-            return
+        host = EngineHost(session=self.session, emit=self.emit, clock=self.clock,
+                          profile_dirs=tuple(self.settings.profile_dirs), status_extra=self.status,
+                          panic=self.panic)
+        ctl = EngineControl(host)
+        server = ControlServer(self.settings.control.path, ctl, on_command=lambda: self.q.put(("wake",)))
+        ctl.server = server
+        server.start()        # a RetunerError here stops the start: one line, exit status 2
         self.control, self.control_server = ctl, server
 
-    def _on_control_switch(self, tuning) -> None:
-        self.tuning = getattr(self.control, "base", tuning)
-        log.info("tuning: %s (control socket)", tuning.id)
-
     # ------------------------------------------------------------------ main loop
+    def post_signal(self, signum: int) -> None:
+        """What a signal handler does (safe in one): queue the signal for the engine thread."""
+        self.q.put(("signal", signum))
+
     def _install_signals(self) -> dict:
         old = {}
         for s in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
-            old[s] = signal.signal(s, lambda signum, frame: self.q.put(("signal", signum)))
+            old[s] = signal.signal(s, lambda signum, frame: self.post_signal(signum))
         return old
 
     def run(self) -> int:
         old_handlers = self._install_signals()
-        now = time.monotonic()
         try:
-            self._open_ports(now)
-            self._start_control()
-            self.running = True
-            status = self._status_text()
-            self.notifier.ready(status=status)
-            log.info("retuner running: %s", status)
-            self._loop()
+            self.start()
+            while not self.step():
+                pass
             return self.exit_status
         finally:
-            self.running = False
-            self.notifier.stopping()
-            if self.control_server is not None:
-                try:
-                    self.control_server.close()
-                except Exception:  # pragma: no cover
-                    pass
-            self._close_ports()
+            self.shutdown()
             for s, h in old_handlers.items():
                 signal.signal(s, h)
 
-    def _loop(self) -> None:
+    def start(self) -> None:
+        """Open the ports and the control socket, tell the service manager we are ready."""
+        # claim the ports and the socket before touching either: a second daemon on them refuses
+        # here, before its start-up panic could cut the first one's notes
+        self.claim = Claim(self.settings).take()
+        self._start_control()
+        now = self.clock()
+        self._open_ports(now)
+        self.running = True
+        status = self._status_text()
+        self.notifier.ready(status=status)
+        log.info("retuner running: %s", status)
         wd_interval = self.notifier.watchdog_interval
-        now = time.monotonic()
-        next_wd = now + wd_interval if wd_interval else None
+        self._next_wd = now + wd_interval if wd_interval else None
         if wd_interval:
             self.notifier.watchdog()
         status_every = self.settings.status_interval * 60.0
-        next_status = now + status_every if status_every > 0 else None
+        self._next_status = now + status_every if status_every > 0 else None
+
+    def shutdown(self) -> None:
+        self.running = False
+        self.notifier.stopping()
+        if self.control_server is not None:
+            try:
+                self.control_server.close()
+            except Exception:  # pragma: no cover
+                pass
+            self.control_server = None
+        self._close_ports()
+        if self.claim is not None:
+            self.claim.release()
+            self.claim = None
+
+    def step(self, wait: bool = True) -> bool:
+        """One turn of the main loop: wait for events (``wait``: at most until the next thing
+        due), handle all that are queued, run the engine's timers, serve the control socket,
+        ping the watchdog and log the status line when due. True when the daemon must stop."""
         q = self.q
-        while True:
-            now = time.monotonic()
-            wake = [x for x in (self.engine.next_deadline(), next_wd, next_status) if x is not None]
+        if wait:
+            now = self.clock()
+            wake = [x for x in (self.engine.next_deadline(), self._next_wd, self._next_status)
+                    if x is not None]
             timeout = max(0.0, min(wake) - now) if wake else 1.0
             try:
                 item = q.get(timeout=min(timeout, 1.0))
             except queue.Empty:
                 item = None
-            while item is not None:
-                if self._handle(item):
-                    return
-                try:
-                    item = q.get_nowait()
-                except queue.Empty:
-                    item = None
-            now = time.monotonic()
-            dl = self.engine.next_deadline()
-            if dl is not None and dl <= now:
-                try:
-                    self.emit(self.engine.tick(now))
-                except Exception:  # noqa: BLE001
-                    self._errors += 1
-                    log.exception("engine tick failed")
-            if self.control_server is not None:
-                try:
-                    self.control_server.serve_pending()
-                    self.control.observe(now)
-                except Exception:  # noqa: BLE001
-                    self._errors += 1
-                    log.exception("control socket")
-            if next_wd is not None and now >= next_wd:
-                self.notifier.watchdog()
-                next_wd = now + wd_interval
-            if next_status is not None and now >= next_status:
-                self._status_line()
-                status_every = self.settings.status_interval * 60.0   # a reload may change it
-                next_status = now + status_every if status_every > 0 else None
+        else:
+            try:
+                item = q.get_nowait()
+            except queue.Empty:
+                item = None
+        while item is not None:
+            if item[0] != "midi" and self._handle(item):
+                return True
+            try:
+                item = q.get_nowait()
+            except queue.Empty:
+                item = None
+        # control commands (a panic) before the MIDI waiting, then one batch of MIDI; more
+        # waiting: come back at once, after whatever signal or command arrived meanwhile
+        self._serve_control()
+        batch = self.midi.take(self.MIDI_BATCH)
+        for t, msg in batch:
+            self._handle(("midi", t, msg))
+        if len(self.midi):
+            q.put(("midi",))
+        now = self.clock()
+        dl = self.engine.next_deadline()
+        if dl is not None and dl <= now:
+            try:
+                self.emit(self.engine.tick(now))
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("engine tick failed")
+        if self.control_server is not None:
+            try:
+                self.control.observe(now)
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("control socket")
+        dropped = self.midi.total_dropped()
+        if dropped != self._drops_logged and now >= self._next_drop_log:
+            self._log_drops(now, dropped)
+        if self._next_wd is not None and now >= self._next_wd:
+            self.notifier.watchdog()
+            self._next_wd = now + self.notifier.watchdog_interval
+        if self._next_status is not None and now >= self._next_status:
+            self._status_line()
+            status_every = self.settings.status_interval * 60.0   # a reload may change it
+            self._next_status = now + status_every if status_every > 0 else None
+        return False
+
+    def _serve_control(self) -> None:
+        if self.control_server is not None:
+            try:
+                self.control_server.serve_pending()
+            except Exception:  # noqa: BLE001
+                self._errors += 1
+                log.exception("control socket")
+
+    def _log_drops(self, now: float, dropped: int) -> None:
+        """One summary line, at most once a second."""
+        c = self.midi.counts()
+        log.warning("input overload: %d messages dropped since the last report (%d note-ons and their "
+                    "note-offs, %d others, %d releases); in all %d", dropped - self._drops_logged,
+                    c["note_on"], c["other"], c["release"], dropped)
+        self._drops_logged = dropped
+        self._next_drop_log = now + 1.0
 
     def _handle(self, item: tuple) -> bool:
         """Handle one queued event; True when the daemon must stop."""
@@ -588,17 +691,17 @@ class Daemon:
                 self._handle_midi(item[1], item[2])
             elif kind == "signal":
                 signum = item[1]
-                now = time.monotonic()
+                now = self.clock()
                 if signum == signal.SIGHUP:
                     log.info("SIGHUP: reloading")
                     self._reload(now)
                     return False
                 log.info("%s: releasing every note and stopping", signal.Signals(signum).name)
-                self.emit(self.engine.release_all(now))
+                self.panic(now)
                 self.exit_status = 0
                 return True
             elif kind == "ports":
-                self._check_ports(time.monotonic(), item[1], item[2])
+                self._check_ports(self.clock(), item[1], item[2])
             elif kind == "bad":
                 self._bad_input += 1
                 if self._bad_input <= 10:

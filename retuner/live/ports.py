@@ -16,12 +16,14 @@ Names a user gives (``--input``, ``--output``) match a port when they are:
 3. a shell-style pattern (``*``, ``?``, ``[...]``), matched without regard to case;
 4. otherwise a part of the name, without regard to case.
 
-The first port (in the order the backend lists them) that matches wins.
+The first port (in the order the backend lists them) that matches wins. When none does, the
+daemon logs the closest existing names once (:func:`closest`) and keeps waiting for it.
 """
 
 from __future__ import annotations
 
 import contextlib
+import difflib
 import fnmatch
 import logging
 import os
@@ -35,7 +37,8 @@ from typing import Callable, Optional, Sequence
 import mido
 import rtmidi
 
-from retuner.errors import RetunerError
+from retuner.errors import RetunerError, Unavailable
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver
 
 log = logging.getLogger("retuner.live.ports")
 
@@ -61,15 +64,15 @@ def _api(backend: str) -> int:
     word = backend_word(backend)
     api = BACKENDS[word][0]
     if api not in rtmidi.get_compiled_api():
-        raise RetunerError(f"this python-rtmidi has no {word} support", field="backend")
+        raise Unavailable(f"this python-rtmidi has no {word} support", field="backend")
     return api
 
 
-def _rt_error(exc: Exception, what: str, backend: str) -> RetunerError:
+def _rt_error(exc: Exception, what: str, backend: str) -> Unavailable:
     word = backend_word(backend)
     hint = (" (is a JACK server running? set JACK_DEFAULT_SERVER for a named one)"
             if word == "jack" else " (is /dev/snd/seq there? the ALSA sequencer needs it; with a JACK server running, try --backend jack)")
-    return RetunerError(f"{what}: {exc}{hint}", field="backend")
+    return Unavailable(f"{what}: {exc}{hint}", field="backend")
 
 
 @contextlib.contextmanager
@@ -138,6 +141,30 @@ def match_port(spec: str, names: Sequence[str], exclude: Sequence[str] = ()) -> 
     return None
 
 
+def closest(spec: str, names: Sequence[str], exclude: Sequence[str] = (), n: int = 3) -> list[str]:
+    """The ``n`` names most like ``spec`` (a misspelt name, a pattern that matches nothing),
+    best first, without regard to case or ALSA's client:port numbers."""
+    cand = [x for x in names if not any(x.startswith(e) for e in exclude)]
+    want = spec.lower().strip("*?[]")
+
+    def likeness(name: str) -> float:
+        plain = strip_alsa_numbers(name).lower()
+        whole = difflib.SequenceMatcher(None, want, plain).ratio()
+        # a name given as part of a longer one ("Piano" for "Stage Piano:MIDI Out"): its best part
+        parts = max((difflib.SequenceMatcher(None, want, p).ratio() for p in re.split(r"[:\s]+", plain) if p),
+                    default=0.0)
+        return max(whole, parts)
+    return sorted(cand, key=lambda x: -likeness(x))[:n]
+
+
+def closest_hint(spec: str, names: Sequence[str], exclude: Sequence[str] = ()) -> str:
+    """For the "no such port" line: "; closest: 'a', 'b'" or "; there are no ports"."""
+    near = closest(spec, names, exclude)
+    if not near:
+        return "; there are no ports at all yet"
+    return "; closest existing: " + ", ".join(repr(x) for x in near)
+
+
 class PortLister:
     """Lists the ports of one backend; keeps its two probe clients open between calls.
 
@@ -192,7 +219,7 @@ def _index_of(rt, name: str) -> int:
     return names.index(name)
 
 
-class InputPort:
+class InputPort(InputHandle):
     """An open input; ``callback(msg)`` runs on a backend thread for every parsed message.
 
     ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse.
@@ -241,18 +268,7 @@ class InputPort:
         self.closed = False
 
     def _on_bytes(self, event, data=None) -> None:
-        raw, _delta = event
-        try:
-            # python-rtmidi delivers one whole message per event (a system exclusive message
-            # complete from F0 to F7), so each event parses on its own; anything else is refused
-            msg = mido.Message.from_bytes(raw)
-            self._callback(msg)
-        except Exception as exc:  # never let bad bytes kill the backend thread
-            if self._on_error is not None:
-                try:
-                    self._on_error(exc, list(raw))
-                except Exception:
-                    pass
+        deliver(event[0], self._callback, self._on_error)
 
     def _read_loop(self) -> None:
         rt, stop, poll, on_bytes = self._rt, self._stop, self._poll, self._on_bytes
@@ -281,7 +297,7 @@ class InputPort:
             log.debug("closing input: %s", exc)
 
 
-class OutputPort:
+class OutputPort(OutputHandle):
     """An open output; ``send(msg)`` writes at once."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
@@ -302,6 +318,7 @@ class OutputPort:
             raise _rt_error(exc, f"cannot open output {connect_to or port_name!r}", self.backend) from exc
         self.closed = False
         self._last_send = float("-inf")
+        self._client, self._port = client_name, port_name
 
     def send(self, msg: mido.Message) -> None:
         self._rt.send_message(msg.bytes())
@@ -311,14 +328,121 @@ class OutputPort:
         if self.closed:
             return
         self.closed = True
-        if self.backend == "jack":
-            # JACK hands queued events over once per period; closing at once would drop the last
-            # ones (the note-offs of a shutdown). 0.25 s covers long periods and a late process cycle.
-            wait = 0.25 - (time.monotonic() - self._last_send)
-            if wait > 0:
-                time.sleep(wait)
+        if self.backend == "jack" and time.monotonic() - self._last_send < 1.0:
+            self.drain()
         try:
             self._rt.close_port()
             self._rt.delete()
         except Exception as exc:  # pragma: no cover - teardown
             log.debug("closing output: %s", exc)
+
+    def drain(self, timeout: float = 2.0) -> bool:
+        """JACK: wait until what was sent has left in a process cycle (closing at once would lose
+        it: JACK hands queued events over once per period, and a cycle may be late). A loop-back
+        input of our own is connected to our output and a marker (Active Sensing, FE: MIDI 1.0;
+        a synth may take it as a request to silence its notes should nothing follow, which at
+        shutdown is welcome) is sent until it comes back: the ring buffer is first in, first out,
+        so everything before it has gone out to every port connected. Without the loop-back
+        (it cannot be opened), a fixed wait of 0.25 s."""
+        try:
+            with _quiet_library():
+                probe = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, f"{self._client}-drain")
+        except Exception:  # noqa: BLE001 - no loop-back: the old fixed wait
+            time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
+            return False
+        try:
+            names = probe.get_ports()
+            ours = [i for i, n in enumerate(names) if n == f"{self._client}:{self._port}"] or \
+                   [i for i, n in enumerate(names) if n.startswith(self._client) and n.endswith(f":{self._port}")]
+            if not ours:
+                time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
+                return False
+            probe.ignore_types(sysex=True, timing=True, active_sense=False)
+            probe.open_port(ours[0], "drain")
+            end = time.monotonic() + timeout
+            while time.monotonic() < end:
+                self._rt.send_message([0xFE])
+                resend = time.monotonic() + 0.05
+                while time.monotonic() < resend:
+                    ev = probe.get_message()
+                    if ev is None:
+                        time.sleep(0.001)
+                    elif ev[0] == [0xFE]:
+                        return True
+            log.debug("the output did not drain within %.1f s", timeout)
+            return False
+        except Exception as exc:  # noqa: BLE001 - teardown: never fail the exit
+            log.debug("draining the output: %s", exc)
+            return False
+        finally:
+            try:
+                probe.close_port()
+                probe.delete()
+            except Exception:  # pragma: no cover - teardown
+                pass
+
+
+class RtMidiBackend(PortBackend):
+    """The ALSA sequencer or a JACK server, through python-rtmidi.
+
+    Client names: ALSA allows two clients of one name, so both sides are "retuner"
+    ("retuner:in", "retuner:out"); JACK renames a second client of the same name, so
+    there each side has its own ("retuner-in:in", "retuner-out:out")."""
+
+    def __init__(self, backend: str, probe_name: str = "retuner-probe"):
+        self.word = backend_word(backend)
+        self._probe_name = probe_name
+        self._lister: Optional[PortLister] = None
+        self._lock = threading.Lock()
+        self._watcher: Optional[threading.Thread] = None
+        self._stop = threading.Event()
+
+    def client_name(self, base: str, side: str) -> str:
+        if self.word == "alsa" and side in ("in", "out"):
+            return base
+        return f"{base}-{side}"
+
+    def _list(self) -> PortLister:
+        with self._lock:
+            if self._lister is None:
+                self._lister = PortLister(self.word, self._probe_name)
+            return self._lister
+
+    def inputs(self) -> list[str]:
+        return self._list().inputs()
+
+    def outputs(self) -> list[str]:
+        return self._list().outputs()
+
+    def open_input(self, client, port, *, connect_to, callback, on_error=None) -> InputPort:
+        return InputPort(self.word, client, port, connect_to=connect_to, callback=callback,
+                         on_error=on_error)
+
+    def open_output(self, client, port, *, connect_to) -> OutputPort:
+        return OutputPort(self.word, client, port, connect_to=connect_to)
+
+    def watch(self, interval, on_change) -> None:
+        if self._watcher is not None:
+            return
+        lister = self._list()
+        self._stop = stop = threading.Event()
+
+        def run():
+            while not stop.wait(interval):
+                try:
+                    on_change(lister.inputs(), lister.outputs())
+                except Exception as exc:  # pragma: no cover - backend trouble
+                    log.debug("listing ports: %s", exc)
+
+        self._watcher = threading.Thread(target=run, name="retuner-ports", daemon=True)
+        self._watcher.start()
+
+    def close(self) -> None:
+        self._stop.set()
+        if self._watcher is not None:
+            self._watcher.join(2)
+            self._watcher = None
+        with self._lock:
+            if self._lister is not None:
+                self._lister.close()
+                self._lister = None

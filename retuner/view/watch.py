@@ -1,7 +1,7 @@
 """A live view of a running daemon, for a terminal (and a projector).
 
 The view is built from the control socket's subscription (see
-:mod:`retuner.control.control`): the daemon only queues events, so a slow terminal
+:mod:`retuner.control.server`): the daemon only queues events, so a slow terminal
 never touches the engine's timing (the server drops the oldest events of a
 subscriber that falls behind, and counts them).
 
@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Optional
 
-from retuner.control.control import ControlClient, NoDaemon
+from retuner.control.client import ControlClient, NoDaemon
 from retuner.pitch.intervals import USUAL
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
 

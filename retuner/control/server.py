@@ -1,23 +1,8 @@
-"""The control socket: steer and watch a running daemon.
+"""The control socket's server: a Unix socket, its own thread, bounded queues, rate limits.
 
 A :class:`ControlServer` listens on a Unix stream socket (by default
 ``$XDG_RUNTIME_DIR/retuner/control.sock``; the folder is made with mode 0700,
-the socket has mode 0600) and speaks **JSON lines**: each request is one JSON
-object on one line, each reply one JSON object on one line::
-
-    -> {"cmd": "status"}
-    <- {"ok": true, "cmd": "status", "tuning": "werckmeister-3", ...}
-    -> {"cmd": "load", "profile": "vallotti", "id": 7}
-    <- {"ok": true, "cmd": "load", "id": 7, "tuning": "vallotti"}
-    -> {"cmd": "nonsense"}
-    <- {"ok": false, "error": "unknown command 'nonsense' (known: ...)"}
-
-``id`` is optional and echoed. Commands (see :data:`COMMANDS`): ``status``,
-``profiles``, ``load`` (``profile``), ``adaptive`` (``on``: bool, optional
-``settings``: object), ``reference`` (``hz``: the pitch of A4), ``transpose``
-(``semitones`` and/or ``cents``), ``panic``, ``subscribe``. A subscribed client
-then receives event lines (``{"event": "note_on", ...}``, ``note_off``,
-``tuning``, ``counters``, ``panic``) until it disconnects.
+the socket has mode 0600) and speaks the JSON lines of retuner.control.protocol.
 
 Threads. The server runs its own thread (a selector over non-blocking sockets);
 it parses and validates requests and does any slow preparation (reading a
@@ -52,7 +37,7 @@ that never read and twenty live subscribers (before the rate limits: p99 75 ms).
 
 Integration into a daemon (a few lines)::
 
-    ctl = EngineControl(engine_host)                  # see EngineControl
+    ctl = EngineControl(engine_host)                  # retuner.control.commands
     server = ControlServer(path, ctl, on_command=wake_main_loop)
     server.start()
     ...  # in the main loop, on the engine thread:
@@ -64,11 +49,8 @@ Integration into a daemon (a few lines)::
 
 from __future__ import annotations
 
-import dataclasses
 import errno
-import json
 import logging
-import math
 import os
 import selectors
 import socket
@@ -76,91 +58,33 @@ import stat
 import threading
 import time
 from collections import deque
-from dataclasses import dataclass
 from itertools import count
 from pathlib import Path
-from typing import Any, Callable, Optional
+from typing import Callable, Optional
 
+from retuner.control.protocol import Command, default_socket_path, encode_line, error_reply, parse_request
 from retuner.errors import RetunerError
 
 log = logging.getLogger(__name__)
 
-SOCKET_NAME = "control.sock"
 
-#: command name -> allowed argument fields (besides "cmd" and "id")
-COMMANDS: dict[str, tuple[str, ...]] = {
-    "status": (),
-    "profiles": (),
-    "load": ("profile",),
-    "adaptive": ("on", "settings"),
-    "reference": ("hz",),
-    "transpose": ("semitones", "cents"),
-    "panic": (),
-    "subscribe": (),
-}
-
-
-def default_socket_path() -> Path:
-    """``$XDG_RUNTIME_DIR/retuner/control.sock`` (falls back to /tmp/retuner-UID/)."""
-    base = os.environ.get("XDG_RUNTIME_DIR")
-    if base:
-        return Path(base) / "retuner" / SOCKET_NAME
-    return Path(f"/tmp/retuner-{os.getuid()}") / SOCKET_NAME
-
-
-def _error(message: str, req_id: Any = None, cmd: Optional[str] = None) -> dict:
-    out: dict[str, Any] = {"ok": False, "error": message}
-    if cmd is not None:
-        out["cmd"] = cmd
-    if req_id is not None:
-        out["id"] = req_id
-    return out
-
-
-def _encode(obj: dict) -> bytes:
-    return (json.dumps(obj, separators=(",", ":"), allow_nan=False, default=str) + "\n").encode()
-
-
-@dataclass
-class Command:
-    """A validated request, waiting to be applied on the engine thread."""
-
-    name: str
-    args: dict
-    req_id: Any = None
-    data: Any = None          # whatever handler.prepare made ready (e.g. a loaded Tuning)
-    client: int = -1          # set by the server
-
-
-def parse_request(line: bytes | str) -> tuple[Optional[Command], Optional[dict]]:
-    """Parse and check one request line: (command, None) or (None, error reply).
-
-    Checks the JSON, that it is an object, the command name and that only the
-    command's own fields are present. Values are checked by the handler.
-    """
+def check_folder(folder: Path) -> None:
+    """Make ``folder`` (mode 0700) if needed; refuse it unless it is ours: a real folder owned by
+    us and not writable by group or others. A folder of ours named ``retuner*`` is tightened."""
+    new = not folder.exists()
     try:
-        text = line.decode("utf-8") if isinstance(line, (bytes, bytearray)) else line
-        obj = json.loads(text)
-    except (UnicodeDecodeError, ValueError) as exc:
-        return None, _error(f"malformed JSON: {exc}")
-    if not isinstance(obj, dict):
-        return None, _error("a request must be a JSON object such as {\"cmd\": \"status\"}")
-    req_id = obj.get("id")
-    if req_id is not None and (isinstance(req_id, bool) or not isinstance(req_id, (str, int, float))):
-        return None, _error("'id' must be a string or a number")
-    name = obj.get("cmd")
-    if not isinstance(name, str):
-        return None, _error("missing 'cmd' (a string)", req_id)
-    if name not in COMMANDS:
-        return None, _error(f"unknown command {name!r} (known: {', '.join(COMMANDS)})", req_id)
-    allowed = COMMANDS[name]
-    extra = sorted(k for k in obj if k not in ("cmd", "id") and k not in allowed)
-    if extra:
-        return None, _error(f"{name}: unknown field(s) {', '.join(extra)}"
-                            + (f" (allowed: {', '.join(allowed)})" if allowed else " (takes none)"),
-                            req_id, name)
-    args = {k: v for k, v in obj.items() if k in allowed}
-    return Command(name, args, req_id), None
+        folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+        st = os.lstat(folder)
+    except OSError as exc:
+        raise RetunerError(f"cannot make the folder {folder}: {exc.strerror or exc}") from None
+    if stat.S_ISLNK(st.st_mode) or not stat.S_ISDIR(st.st_mode) or st.st_uid != os.getuid():
+        raise RetunerError(f"the folder {folder} is not ours (a link, or owned by another user): "
+                           "refusing to use it")
+    if new or folder.name.startswith("retuner"):
+        os.chmod(folder, 0o700)          # our own folder: private, whatever the umask left
+    elif stat.S_IMODE(st.st_mode) & 0o022:
+        raise RetunerError(f"the folder {folder} is writable by other users: refusing to use it "
+                           "(choose a private folder, e.g. under $XDG_RUNTIME_DIR)")
 
 
 class Handler:
@@ -181,7 +105,7 @@ class Handler:
 
 class _Client:
     __slots__ = ("sock", "fd", "id", "inbuf", "out", "events", "outbuf", "inflight", "subscribed",
-                 "dropped", "closing", "reading", "mask", "tokens", "stamp", "throttled_until")
+                 "dropped", "closing", "reading", "mask", "tokens", "stamp", "throttled_until", "reserved")
 
     def __init__(self, sock: socket.socket, cid: int):
         self.sock = sock
@@ -200,6 +124,7 @@ class _Client:
         self.tokens = float(ControlServer.CLIENT_BURST)   # requests it may send now
         self.stamp = time.monotonic()
         self.throttled_until = 0.0
+        self.reserved = 0.0                   # in the panic slot: its request is due by then
 
 
 class ControlServer:
@@ -207,7 +132,8 @@ class ControlServer:
 
     MAX_LINE = 64 * 1024         # bytes in one request line
     MAX_INFLIGHT = 8             # commands of one client waiting for the engine thread
-    MAX_CLIENTS = 256
+    MAX_CLIENTS = 256            # and one more connection, kept for a panic
+    RESERVED_WAIT = 2.0          # seconds the panic slot waits for its request
     SUBSCRIBER_QUEUE = 512       # events kept per subscriber (drop-oldest)
     CENTRAL_QUEUE = 8192         # events published but not yet fanned out (drop-oldest)
     MAX_REPLY_BACKLOG = 64       # unread replies of one client before we stop reading from it
@@ -236,6 +162,7 @@ class ControlServer:
         self._tokens = float(self.TOTAL_BURST)
         self._stamp = time.monotonic()
         self._throttled: set[int] = set()
+        self._reserved_id = -1                     # the client in the panic slot, if any
         self._wake_r = self._wake_w = -1
         self._inode: Optional[tuple[int, int]] = None
         # subscribers, counted from the moment the engine thread answers "subscribe" (so no event
@@ -249,15 +176,7 @@ class ControlServer:
         """Create the folder (0700) and socket (0600) and start the server thread."""
         path = self.path
         try:
-            if path.parent != Path("/"):
-                new_dir = not path.parent.exists()
-                path.parent.mkdir(mode=0o700, parents=True, exist_ok=True)
-                if new_dir or path.parent.name.startswith("retuner"):
-                    st = os.lstat(path.parent)
-                    if stat.S_ISLNK(st.st_mode) or st.st_uid != os.getuid():
-                        raise RetunerError(f"control socket folder {path.parent} is not ours "
-                                           "(a link, or owned by another user): refusing to use it")
-                    os.chmod(path.parent, 0o700)
+            check_folder(path.parent)
             self._remove_stale(path)
             tmp = path.with_name(f".rt{os.getpid()}-{threading.get_ident() % 100000}")
             if max(len(os.fsencode(str(tmp))), len(os.fsencode(str(path)))) > 107:
@@ -381,16 +300,16 @@ class ControlServer:
                 reply = self.handler.apply(cmd)
                 reply = {"ok": True, "cmd": cmd.name, **(reply or {})}
             except RetunerError as exc:
-                reply = _error(str(exc), None, cmd.name)
+                reply = error_reply(str(exc), None, cmd.name)
             except Exception as exc:  # a daemon never dies on bad input
                 log.exception("control command %s failed", cmd.name)
-                reply = _error(f"internal error: {exc}", None, cmd.name)
+                reply = error_reply(f"internal error: {exc}", None, cmd.name)
             if cmd.req_id is not None:
                 reply["id"] = cmd.req_id
             try:
-                line = _encode(reply)
+                line = encode_line(reply)
             except (TypeError, ValueError) as exc:
-                line = _encode(_error(f"internal error: reply not encodable: {exc}", cmd.req_id, cmd.name))
+                line = encode_line(error_reply(f"internal error: reply not encodable: {exc}", cmd.req_id, cmd.name))
             subscribe = cmd.name == "subscribe" and reply.get("ok", False)
             with self._lock:
                 self._replies.append((next(self._seq), cmd.client, line, subscribe))
@@ -451,6 +370,7 @@ class ControlServer:
                 continue
             if self._throttled:
                 self._resume_throttled()
+            self._expire_reserved()
             for key, mask in ready:
                 try:
                     if key.fileobj is self._listener:
@@ -470,6 +390,14 @@ class ControlServer:
             except Exception:
                 log.exception("control server error")
 
+    def _expire_reserved(self) -> None:
+        c = self._clients.get(self._reserved_id)
+        if c is not None:
+            if not c.closing and time.monotonic() > c.reserved:
+                c.closing = True
+                c.inbuf.clear()
+                self._reply(c, encode_line(error_reply("no request in the panic slot in time")))
+
     def _drain_wake(self) -> None:
         try:
             while os.read(self._wake_r, 4096):
@@ -488,15 +416,21 @@ class ControlServer:
                 if exc.errno in (errno.EMFILE, errno.ENFILE):
                     log.warning("control socket: out of file descriptors")
                 return
+            reserved = False
             if len(self._clients) >= self.MAX_CLIENTS:
-                try:
-                    sock.send(_encode(_error("too many control clients")))
-                except OSError:
-                    pass
-                sock.close()
-                continue
+                if self._reserved_id in self._clients:
+                    try:
+                        sock.send(encode_line(error_reply("too many control clients")))
+                    except OSError:
+                        pass
+                    sock.close()
+                    continue
+                reserved = True       # the slot kept for a panic
             sock.setblocking(False)
             c = _Client(sock, next(self._ids))
+            if reserved:
+                c.reserved = time.monotonic() + self.RESERVED_WAIT
+                self._reserved_id = c.id
             self._clients[c.id] = c
             self.counters["connections"] += 1
             self.counters["clients"] = len(self._clients)
@@ -556,21 +490,28 @@ class ControlServer:
         if len(c.inbuf) > self.MAX_LINE and b"\n" not in c.inbuf:
             c.inbuf.clear()
             c.closing = True
-            self._reply(c, _encode(_error(f"request line longer than {self.MAX_LINE} bytes")))
+            self._reply(c, encode_line(error_reply(f"request line longer than {self.MAX_LINE} bytes")))
             return
         self._update(c)
 
     def _request(self, c: _Client, line: bytes) -> None:
         self.counters["commands"] += 1
         cmd, err = parse_request(line)
+        if c.reserved:
+            # the connection in the reserved slot serves one panic, then makes room again
+            c.closing = True
+            c.inbuf.clear()
+            if cmd is not None and cmd.name != "panic":
+                cmd, err = None, error_reply(f"too many control clients ({self.MAX_CLIENTS}): "
+                                             "only panic is accepted now", cmd.req_id, cmd.name)
         if cmd is not None:
             try:
                 prepared = self.handler.prepare(cmd)
             except RetunerError as exc:
-                prepared = _error(str(exc), cmd.req_id, cmd.name)
+                prepared = error_reply(str(exc), cmd.req_id, cmd.name)
             except Exception as exc:
                 log.exception("control command %s failed", cmd.name)
-                prepared = _error(f"internal error: {exc}", cmd.req_id, cmd.name)
+                prepared = error_reply(f"internal error: {exc}", cmd.req_id, cmd.name)
             if isinstance(prepared, Command):
                 prepared.client = c.id
                 c.inflight += 1
@@ -589,7 +530,7 @@ class ControlServer:
             err = reply
         if not err.get("ok", False):
             self.counters["errors"] += 1
-        self._reply(c, _encode(err))
+        self._reply(c, encode_line(err))
 
     def _reply(self, c: _Client, line: bytes) -> None:
         c.out.append(line)
@@ -654,7 +595,7 @@ class ControlServer:
                     subs = [c for c in self._clients.values() if c.subscribed]
                 if subs:
                     try:
-                        line = _encode({"event": ev[1].pop("event", "event"), **ev[1]})
+                        line = encode_line({"event": ev[1].pop("event", "event"), **ev[1]})
                     except (TypeError, ValueError):
                         line = b""
                     if line:
@@ -715,6 +656,9 @@ class ControlServer:
                 break
             if not c.inbuf[:nl].strip():
                 del c.inbuf[:nl + 1]
+                self.counters["errors"] += 1
+                self._reply(c, encode_line(error_reply(
+                    "empty request line (send one JSON object per line, e.g. {\"cmd\": \"status\"})")))
                 continue
             if not self._take_token(c):
                 break
@@ -751,392 +695,3 @@ class ControlServer:
         out = dict(self.counters)
         out["subscribers"] = self.subscribers
         return out
-
-
-# ---------------------------------------------------------------------------
-# The commands, applied to an engine
-
-@dataclass
-class EngineHost:
-    """What :class:`EngineControl` needs from the daemon that owns the engine.
-
-    ``engine`` is the running engine (see retuner.engine.core); ``emit(messages)`` sends
-    output messages to the output port; ``clock()`` is the engine clock
-    (seconds, monotonic). ``tuning`` is the loaded profile; ``profile_dirs`` are
-    searched by ``load`` and ``profiles``. ``adaptive_config(settings)`` turns a
-    settings dict into the engine's adaptive configuration (None: use
-    ``retuner.adaptive.solver``'s defaults). ``on_switch(tuning)`` is told about a
-    profile switch made from the socket (for logging and config state).
-    """
-
-    engine: Any
-    emit: Callable[[list], None]
-    tuning: Any
-    clock: Callable[[], float] = time.monotonic
-    profile_dirs: tuple = ()
-    adaptive_config: Optional[Callable[[dict], Any]] = None
-    on_switch: Optional[Callable[[Any], None]] = None
-    status_extra: Optional[Callable[[], dict]] = None
-
-
-def rotate_tuning(tuning, semitones: int):
-    """The tuning with its pattern moved up ``semitones`` keys (the root moves with it).
-
-    Key k plays what key k - n played, raised by n equal-tempered semitones, so
-    the intervals between keys are those of the tuning with its root n keys
-    higher. Keys whose source would lie outside 0..127 are mapped through the
-    tuning's period when it has whole-key periods (12-note tunings), else unmapped.
-    """
-    from retuner.pitch.tuning import NUM_KEYS, Tuning
-    n = int(semitones)
-    if n == 0:
-        return tuning
-    cents = tuning.cents
-    size = tuning.size if getattr(tuning, "is_twelve", False) else None
-    out = []
-    for k in range(NUM_KEYS):
-        src = k - n
-        shift = 0.0
-        if size:
-            while src < 0:
-                src += 12
-                shift -= 1200.0
-            while src >= NUM_KEYS:
-                src -= 12
-                shift += 1200.0
-        if 0 <= src < NUM_KEYS and cents[src] is not None:
-            out.append(cents[src] + 100.0 * n + shift)
-        else:
-            out.append(None)
-    return Tuning(id=tuning.id, cents=tuple(out), description=tuning.description,
-                  source=tuning.source, degrees=tuning.degrees, period=tuning.period,
-                  root=tuning.root + n)
-
-
-class EngineControl(Handler):
-    """The control commands, applied to a daemon's engine (see :class:`EngineHost`).
-
-    The tuning in force is ``base`` (the loaded profile) with its root moved by
-    ``transpose`` semitones, the whole keyboard shifted so A4 (key 69) sounds at
-    ``reference`` Hz (None: as the profile says), then shifted by
-    ``transpose_cents``. Switching keeps sounding notes at their pitch (the
-    engine's set_tuning contract); new notes use the new tuning.
-    """
-
-    COUNTER_INTERVAL = 0.25   # seconds between counters events
-
-    def __init__(self, host: EngineHost, server: Optional[ControlServer] = None):
-        self.host = host
-        self.server = server
-        self.base = host.tuning
-        self.reference: Optional[float] = None
-        self.transpose = 0
-        self.transpose_cents = 0.0
-        self.adaptive: Optional[dict] = None
-        self.current = getattr(host.engine, "tuning", None) or host.tuning
-        self._sounding: dict[tuple, dict] = {}
-        self._next_counters = 0.0
-        self._last_tuning_id: Optional[str] = None
-        self._profiles_cache: Optional[tuple[float, list]] = None
-        # the adaptive settings in force or last used: "adaptive on" starts from them
-        self._adaptive_base = getattr(getattr(host.engine, "config", None), "adaptive", None)
-
-    # -------------------------------------------------------- server thread
-    def prepare(self, cmd: Command) -> Command | dict:
-        a = cmd.args
-        if cmd.name == "profiles":
-            now = time.monotonic()
-            if self._profiles_cache is None or now - self._profiles_cache[0] > 1.0:
-                from retuner.profiles.profile import list_profiles   # reads the folders: at most once a second
-                self._profiles_cache = (now, [{"id": p.id, "description": p.description,
-                                               "builtin": bool(p.builtin)}
-                                              for p in list_profiles(self.host.profile_dirs)])
-            return {"ok": True, "cmd": "profiles", "profiles": list(self._profiles_cache[1])}
-        if cmd.name == "load":
-            pid = a.get("profile")
-            if not isinstance(pid, str) or not pid:
-                raise RetunerError("load: 'profile' must be a profile id or path", field="profile")
-            from retuner.profiles.profile import load_profile
-            cmd.data = load_profile(pid, self.host.profile_dirs)   # slow part, off the engine thread
-        elif cmd.name == "adaptive":
-            on = a.get("on")
-            if not isinstance(on, bool):
-                raise RetunerError("adaptive: 'on' must be true or false", field="on")
-            settings = a.get("settings") or {}
-            if not isinstance(settings, dict):
-                raise RetunerError("adaptive: 'settings' must be an object", field="settings")
-            cmd.data = self._adaptive_config(settings) if on else None
-        elif cmd.name == "reference":
-            hz = a.get("hz")
-            if isinstance(hz, bool) or not isinstance(hz, (int, float)) or not math.isfinite(hz) \
-                    or not 200.0 <= hz <= 1000.0:
-                raise RetunerError("reference: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
-        elif cmd.name == "transpose":
-            if "semitones" not in a and "cents" not in a:
-                raise RetunerError("transpose: give 'semitones' and/or 'cents'")
-            st = a.get("semitones", 0)
-            ct = a.get("cents", 0.0)
-            if isinstance(st, bool) or not isinstance(st, int) or not -24 <= st <= 24:
-                raise RetunerError("transpose: 'semitones' must be a whole number from -24 to 24",
-                                   field="semitones")
-            if isinstance(ct, bool) or not isinstance(ct, (int, float)) or not math.isfinite(ct) \
-                    or not -1200.0 <= ct <= 1200.0:
-                raise RetunerError("transpose: 'cents' must be a number from -1200 to 1200", field="cents")
-        return cmd
-
-    def _adaptive_config(self, settings: dict):
-        if self.host.adaptive_config is not None:
-            return self.host.adaptive_config(settings)
-        from retuner.adaptive.solver import AdaptiveConfig
-        base = self._adaptive_base
-        if base is not None and dataclasses.is_dataclass(base):
-            merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
-            merged.update({str(k).replace("-", "_"): v for k, v in settings.items()})
-            unknown = sorted(k for k in settings if str(k).replace("-", "_") not in
-                             {f.name for f in dataclasses.fields(base)})
-            if unknown:
-                raise RetunerError(f"unknown setting {unknown[0]!r}", field=f"adaptive.{unknown[0]}")
-            settings = merged
-        try:
-            return AdaptiveConfig.from_dict(settings, file="control socket")
-        except RetunerError:
-            raise
-        except (TypeError, ValueError) as exc:
-            raise RetunerError(f"adaptive: {exc}", field="settings") from None
-
-    # -------------------------------------------------------- engine thread
-    def _effective(self):
-        t = rotate_tuning(self.base, self.transpose)
-        a4, a4_new = self.base.cents[69], t.cents[69]
-        if self.transpose and a4 is not None and a4_new is not None:
-            t = t.shifted(a4 - a4_new)        # A4 keeps its pitch; the pattern moves around it
-        if self.reference is not None:
-            t = t.with_reference_hz(self.reference)
-        if self.transpose_cents:
-            t = t.shifted(self.transpose_cents)
-        return t
-
-    def _switch(self, now: float) -> None:
-        tuning = self._effective()
-        out = self.host.engine.set_tuning(tuning, now)
-        self.current = tuning
-        if out:
-            self.host.emit(out)
-        self._publish({"event": "tuning", "t": now, **self._tuning_info()})
-        if self.host.on_switch is not None:
-            self.host.on_switch(tuning)
-
-    def _tuning_info(self) -> dict:
-        eng = self.host.engine
-        on = getattr(eng, "adaptive", None)
-        if not isinstance(on, bool):
-            on = getattr(getattr(eng, "config", None), "adaptive", None) is not None
-        return {"tuning": self.current.id, "base": self.base.id, "reference": self.reference,
-                "transpose": self.transpose, "transpose_cents": self.transpose_cents,
-                "adaptive": on}
-
-    def apply(self, cmd: Command) -> dict:
-        now = self.host.clock()
-        a = cmd.args
-        name = cmd.name
-        if name == "status":
-            return self.status()
-        if name == "load":
-            old = self.base
-            self.base = cmd.data
-            try:
-                self._switch(now)
-            except Exception:
-                self.base = old
-                raise
-            return self._tuning_info()
-        if name == "reference":
-            old_ref = self.reference
-            self.reference = float(a["hz"])
-            try:
-                self._switch(now)
-            except Exception:
-                self.reference = old_ref
-                raise
-            log.info("reference: A4 = %.3f Hz (control socket)", self.reference)
-            return self._tuning_info()
-        if name == "transpose":
-            old = (self.transpose, self.transpose_cents)
-            self.transpose = int(a.get("semitones", 0))
-            self.transpose_cents = float(a.get("cents", 0.0))
-            try:
-                self._switch(now)
-            except Exception:
-                self.transpose, self.transpose_cents = old
-                raise
-            log.info("transpose: %+d semitones %+.2f cents (control socket)", self.transpose, self.transpose_cents)
-            return self._tuning_info()
-        if name == "adaptive":
-            out = self.host.engine.set_adaptive(cmd.data, now)
-            self.adaptive = dict(a.get("settings") or {}) if cmd.data is not None else None
-            if cmd.data is not None:
-                self._adaptive_base = cmd.data
-            if out:
-                self.host.emit(out)
-            self._publish({"event": "adaptive", "t": now, "on": self.adaptive is not None,
-                           "settings": self.adaptive})
-            log.info("adaptive %s (control socket)", "on" if self.adaptive is not None else "off")
-            return self._tuning_info()
-        if name == "panic":
-            sounding = len(self.host.engine.sounding())
-            out = self.host.engine.release_all(now)
-            log.warning("panic: every note released (control socket)")
-            if out:
-                self.host.emit(out)
-            self._publish({"event": "panic", "t": now})
-            self.observe(now, force=True)
-            # notes held by a pedal have had their note-off already: count every sounding note
-            return {"released": sounding}
-        if name == "subscribe":
-            self.observe(now)                 # existing subscribers get what changed first
-            snap = self.status()
-            sounding = self.host.engine.sounding()
-            snap["notes"] = self._notes(sounding)
-            # the new subscriber's events continue from exactly this snapshot
-            self._sounding = {(n.get("channel", 0), n["key"]): dict(n) for n in sounding}
-            self._next_counters = 0.0
-            return snap
-        raise RetunerError(f"unknown command {name!r}")
-
-    def _notes(self, sounding=None) -> list[dict]:
-        from retuner.pitch.tuning import cents_to_hz
-        out = []
-        for n in (self.host.engine.sounding() if sounding is None else sounding):
-            c = n.get("cents")
-            out.append({"key": n["key"], "cents": c, "channel": n.get("channel", 0) + 1,
-                        "hz": None if c is None else cents_to_hz(c)})
-        out.sort(key=lambda d: (d["cents"] if d["cents"] is not None else d["key"] * 100.0))
-        return out
-
-    def _check_external_switch(self) -> None:
-        """The daemon switched profile itself (program change, A/B controller): follow it."""
-        t = getattr(self.host.engine, "tuning", None)
-        if t is not None and t is not self.current:
-            self.base = self.current = t
-            self.reference = None
-            self.transpose = 0
-            self.transpose_cents = 0.0
-            self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
-
-    def status(self) -> dict:
-        self._check_external_switch()
-        eng = self.host.engine
-        out = self._tuning_info()
-        out["stats"] = dict(getattr(eng, "stats", {}) or {})
-        out["sounding"] = len(eng.sounding())
-        if self.server is not None:
-            out["control"] = self.server.stats()
-        if self.host.status_extra is not None:
-            out.update(self.host.status_extra())
-        return out
-
-    def _publish(self, event: dict) -> None:
-        if self.server is not None:
-            self.server.publish(event)
-
-    def tuning_changed(self, tuning) -> None:
-        """Tell the control state about a switch the daemon made itself (program change, A/B CC)."""
-        self.base = tuning
-        self.current = self._effective() if (self.transpose or self.reference or self.transpose_cents) \
-            else tuning
-        self._publish({"event": "tuning", "t": self.host.clock(), **self._tuning_info()})
-
-    def observe(self, now: float, force: bool = False) -> None:
-        """Publish what changed since the last call: note on/off, pitch changes, counters.
-
-        Call on the engine thread after feeding or ticking the engine. Costs one
-        ``engine.sounding()`` call when anyone is subscribed, nothing otherwise.
-        """
-        server = self.server
-        if server is None or not server.subscribers:
-            self._sounding.clear()
-            return
-        self._check_external_switch()
-        from retuner.pitch.tuning import cents_to_hz
-        now_notes = {}
-        for n in self.host.engine.sounding():
-            now_notes[(n.get("channel", 0), n["key"])] = n
-        old = self._sounding
-        for k, n in old.items():
-            if k not in now_notes:
-                server.publish({"event": "note_off", "t": now, "key": n["key"], "channel": k[0] + 1})
-        for k, n in now_notes.items():
-            prev = old.get(k)
-            c = n.get("cents")
-            if prev is None:
-                server.publish({"event": "note_on", "t": now, "key": n["key"], "channel": k[0] + 1,
-                                "cents": c, "hz": None if c is None else cents_to_hz(c),
-                                "velocity": n.get("velocity")})
-            elif prev.get("cents") != c:
-                server.publish({"event": "pitch", "t": now, "key": n["key"], "channel": k[0] + 1,
-                                "cents": c, "hz": None if c is None else cents_to_hz(c)})
-        self._sounding = {k: dict(v) for k, v in now_notes.items()}
-        if force or now >= self._next_counters:
-            self._next_counters = now + self.COUNTER_INTERVAL
-            stats = dict(getattr(self.host.engine, "stats", {}) or {})
-            stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
-            server.publish({"event": "counters", "t": now, "tuning": self.current.id, **stats})
-
-
-# ---------------------------------------------------------------------------
-# The client side (used by ``retuner ctl`` and ``retuner watch``)
-
-class NoDaemon(Exception):
-    """No daemon listens on the control socket."""
-
-
-class ControlClient:
-    """A blocking JSON-lines client for the control socket."""
-
-    def __init__(self, path: str | os.PathLike | None = None, timeout: float = 5.0):
-        self.path = Path(path) if path else default_socket_path()
-        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
-        self.sock.settimeout(timeout)
-        try:
-            self.sock.connect(str(self.path))
-        except (FileNotFoundError, ConnectionRefusedError) as exc:
-            self.sock.close()
-            raise NoDaemon(f"no daemon is running (nothing listens on {self.path})") from exc
-        except OSError as exc:
-            self.sock.close()
-            raise NoDaemon(f"cannot reach the daemon on {self.path}: {exc.strerror or exc}") from exc
-        self._buf = bytearray()
-
-    def close(self) -> None:
-        self.sock.close()
-
-    def __enter__(self) -> "ControlClient":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
-
-    def send(self, obj: dict) -> None:
-        self.sock.sendall(_encode(obj))
-
-    def read(self) -> Optional[dict]:
-        """The next line as an object; None at end of stream."""
-        while True:
-            nl = self._buf.find(b"\n")
-            if nl >= 0:
-                line = bytes(self._buf[:nl])
-                del self._buf[:nl + 1]
-                return json.loads(line)
-            data = self.sock.recv(65536)
-            if not data:
-                return None
-            self._buf += data
-
-    def request(self, cmd: str, **args) -> dict:
-        self.send({"cmd": cmd, **args})
-        while True:
-            reply = self.read()
-            if reply is None:
-                raise NoDaemon("the daemon closed the connection")
-            if "event" not in reply:
-                return reply

@@ -1,0 +1,89 @@
+"""The port seam: what the daemon needs from a MIDI system.
+
+The daemon never builds ports itself; it is handed a :class:`PortBackend`:
+
+* retuner.live.ports.RtMidiBackend: the ALSA sequencer or a JACK server, through python-rtmidi;
+* retuner.live.memory.MemoryBackend: ports in memory, for tests that drive the daemon in-process
+  (hotplug, switching, reload, panic) without a MIDI system.
+
+A backend lists the ports of other programs (``inputs()``: ports we can read from, a keyboard;
+``outputs()``: ports we can write to, a synth), opens our own ports (virtual, or connected to
+one of those by its exact name), and reports changes of the lists to a watcher.
+"""
+
+from __future__ import annotations
+
+from typing import Callable, Optional
+
+import mido
+
+Callback = Callable[[mido.Message], None]
+ErrorCallback = Callable[[Exception, list], None]
+
+
+def deliver(raw, callback: Callback, on_error: Optional[ErrorCallback]) -> None:
+    """Parse one whole message (as a MIDI library hands it over) and pass it on; bytes that do
+    not parse go to ``on_error(exc, data)``. Never raises: it runs on a backend's thread."""
+    try:
+        # python-rtmidi delivers one whole message per event (a system exclusive message
+        # complete from F0 to F7), so each event parses on its own; anything else is refused
+        msg = mido.Message.from_bytes(raw)
+        callback(msg)
+    except Exception as exc:  # never let bad bytes kill the backend thread
+        if on_error is not None:
+            try:
+                on_error(exc, list(raw))
+            except Exception:
+                pass
+
+
+class InputHandle:
+    """An open input: calls back for every message until closed."""
+
+    connected_to: Optional[str] = None
+
+    def close(self) -> None:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class OutputHandle:
+    """An open output: ``send(msg)`` writes at once; ``close()`` delivers what was sent first."""
+
+    connected_to: Optional[str] = None
+
+    def send(self, msg: mido.Message) -> None:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def close(self) -> None:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class PortBackend:
+    """A MIDI system the daemon can open ports on. ``word`` names it in logs ("alsa", "jack")."""
+
+    word = "?"
+
+    def client_name(self, base: str, side: str) -> str:
+        """Our client's name for one side ("in", "out", "probe")."""
+        return f"{base}-{side}"
+
+    def inputs(self) -> list[str]:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def outputs(self) -> list[str]:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def open_input(self, client: str, port: str, *, connect_to: Optional[str],
+                   callback: Callback, on_error: Optional[ErrorCallback] = None) -> InputHandle:
+        raise NotImplementedError  # pragma: no cover - interface
+
+    def open_output(self, client: str, port: str, *, connect_to: Optional[str]) -> OutputHandle:
+        raise NotImplementedError  # pragma: no cover - interface
+
+    def watch(self, interval: float, on_change: Callable[[list[str], list[str]], None]) -> None:
+        """Call ``on_change(inputs, outputs)`` with the port lists about every ``interval`` seconds
+        (or whenever they change), from any thread, until :meth:`close`."""
+        raise NotImplementedError  # pragma: no cover - interface
+
+    def close(self) -> None:
+        """Stop watching and let go of anything opened for listing."""
