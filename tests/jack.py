@@ -270,8 +270,13 @@ class Note:
     channel: int                 # 0-based, as on the wire
     velocity: int
     t_on: float
-    cents: float                 # 12-EDO key 0 = 0 c, key k = 100 k (A4 = key 69 = 6900 c)
+    cents: float                 # at its start: 12-EDO key 0 = 0 c, key k = 100 k (A4 = 6900 c)
     t_off: Optional[float] = None
+    settled: Optional[float] = None   # its pitch last heard (after any later bend of its channel)
+
+    def __post_init__(self) -> None:
+        if self.settled is None:
+            self.settled = self.cents
 
 
 @dataclass
@@ -306,6 +311,10 @@ class Decoder:
                         n.t_off = t
         elif msg.type == "pitchwheel":
             self.bend[ch] = msg.pitch + 8192
+            for (c, k), lst in self.sounding.items():
+                if c == ch:
+                    for n in lst:
+                        n.settled = 100 * k + 100 * self.range.get(ch, self.default_range) * msg.pitch / 8192
         elif msg.type == "note_on" and msg.velocity > 0:
             b = self.bend.get(ch, 8192) - 8192
             cents = 100 * msg.note + 100 * self.range.get(ch, self.default_range) * b / 8192

@@ -140,7 +140,7 @@ def chord_cents(client, keys) -> dict[int, float]:
     press(client, keys)
     client.wait_for(lambda r: len(ons(r)) >= n0 + len(keys))
     d = decode(client.messages())
-    got = {n.key: n.cents for n in d.notes[n0:]}
+    got = {n.key: n.settled for n in d.notes[n0:]}   # as it sounds once its chord has settled
     lift(client, keys)
     client.wait_for(lambda r: len(offs(r)) >= m0 + len(keys))
     return got

@@ -195,7 +195,7 @@ def test_report_is_json_and_has_worst_error():
     assert r["notes"] == 2 and r["bends_sent"] == 1 and r["channels_used"] == [1, 2]
     assert abs(r["worst_error_cents"] - abs(-410 / 8192 * 200 + 10.0)) < 1e-6
     for k in ("impurity_cents", "motion_cents_per_note", "drift_max_cents", "drift_final_cents",
-              "drift_rms_cents", "drift_max_settled_cents"):
+              "drift_rms_cents", "drift_max_any_moment_cents", "late_motion_cents_per_note"):
         assert isinstance(r[k], float)
 
 

@@ -227,8 +227,9 @@ class Plan:
     # -- how the engine plays it ----------------------------------------------
     def engine_config(self, config):
         """The settings an engine plays this plan with: adaptive mode with chord window 0 (every
-        note sounds at its own tick and is solved as it starts), no channel sharing."""
-        acfg = dataclasses.replace(config.adaptive, chord_window=0.0)
+        note sounds at its own tick and is solved as it starts) and no attack settling (the plan
+        already knows each chord whole), no channel sharing."""
+        acfg = dataclasses.replace(config.adaptive, chord_window=0.0, attack_time=0.0)
         return config.replace(adaptive=acfg, share_channels=False)
 
     def solver_factory(self, config) -> Callable:

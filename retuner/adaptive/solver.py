@@ -183,9 +183,13 @@ def _class_key(k: Any, *, file: Optional[str], field_name: str) -> int:
 class AdaptiveConfig:
     """Every setting of adaptive mode.
 
-    chord_window: seconds; notes starting within this time of a chord's first
-        note are solved together. Every note of the chord waits up to this long
-        (latency cost). Default 0.02 s.
+    chord_window: seconds; above 0, notes starting within this time of a chord's
+        first note are solved together, and every note of the chord waits up to this
+        long (latency cost; note-offs and pedals wait as long). Default 0: no window,
+        notes sound at once (see ``attack_time``).
+    attack_time: seconds; without a chord window, notes still within this time of
+        their start are solved again with each new note of their chord (the change is
+        masked by their attack); see :mod:`retuner.engine.attack`. Default 0.04 s.
     policy: how sounding notes may move: "fixed-held" (never: the centre
         recovers through new notes only; costs impurity on long chains of held
         notes), "limited" (at most ``max_motion`` cents per event, spread over
@@ -223,7 +227,8 @@ class AdaptiveConfig:
     drift_margin: cents kept between the window and ``max_drift``.
     """
 
-    chord_window: float = 0.02
+    chord_window: float = 0.0
+    attack_time: float = 0.04
     policy: str = "limited+reset"
     max_drift: float = 4.8
     max_motion: float = 6.0
@@ -298,6 +303,7 @@ class AdaptiveConfig:
             setattr(self, name, float(v))
 
         num("chord_window", 0.0, 0.25)
+        num("attack_time", 0.0, 0.2)
         num("max_drift", 0.0, 1200.0)
         num("max_motion", 0.0, 1200.0)
         num("motion_weight", 0.0, 1e6)
@@ -435,6 +441,19 @@ class AdaptiveSolver:
         self._sounding = False
         self._pair_cache = None
         self._triu: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+
+    def mark(self) -> None:
+        """Remember the state before the first note of a chord that may be solved again
+        (attack mode: its notes within their attack are solved again with each newcomer)."""
+        self._mark = (dict(self._last), dict(self._ghosts), self._drift, self._trend)
+
+    def rewind(self) -> None:
+        """Back to the state of the last :meth:`mark`: the chord is solved again as a whole,
+        so its memory, centre and trend count it once, as if it had arrived at one instant."""
+        m = getattr(self, "_mark", None)
+        if m is not None:
+            self._last, self._ghosts = dict(m[0]), dict(m[1])
+            self._drift, self._trend = m[2], m[3]
 
     @property
     def drift(self) -> float:

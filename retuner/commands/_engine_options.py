@@ -15,7 +15,7 @@ from typing import Any
 
 from retuner.engine.outputs import MODES
 
-ADAPTIVE_OPTIONS = ("policy", "chord_window", "max_drift", "max_motion", "limit", "centre")
+ADAPTIVE_OPTIONS = ("policy", "chord_window", "attack_time", "max_drift", "max_motion", "limit", "centre")
 
 
 def channel_list(text: str) -> list[int]:
@@ -91,8 +91,12 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
                    help="tune every chord justly as it is played, re-centring towards 12-EDO (see --centre)")
     a.add_argument("--policy", help="how sounding notes may move: fixed-held, limited or free, "
                                     "optionally +reset (default limited+reset)")
+    a.add_argument("--attack-time", type=number, metavar="SECONDS",
+                   help="notes sound at once; while a note is this young it is retuned as the rest "
+                        "of its chord arrives (default 0.04)")
     a.add_argument("--chord-window", type=number, metavar="SECONDS",
-                   help="notes starting within this time are tuned as one chord (default 0.02)")
+                   help="instead: wait this long for the rest of a chord before sounding it "
+                        "(adds this much latency; default 0 = no window)")
     a.add_argument("--max-drift", type=number, metavar="CENTS",
                    help="largest distance of the centre from where it is pulled to (default 4.8)")
     a.add_argument("--max-motion", type=number, metavar="CENTS", help="largest move of a held note per chord (default 6)")

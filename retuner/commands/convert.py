@@ -39,6 +39,10 @@ def add_arguments(parser) -> None:
     parser.add_argument("--merge-parts", action="store_true",
                         help="one engine and one pool for all parts, as the live daemon treats a "
                              "multi-channel input (parts share channels, programs and controllers)")
+    parser.add_argument("--live", action="store_true",
+                        help="play the file as the daemon hears it live: the same decisions and the "
+                             "same added latency (a --chord-window delays notes); the summary gives "
+                             "the added latency per note-on")
     parser.add_argument("--lookahead", action="store_true",
                         help="with --adaptive: plan the tuning over the whole file (files only)")
     o = parser.add_argument_group("output")
@@ -58,7 +62,9 @@ def build_options(args):
     if args.lookahead and not args.adaptive:
         raise RetunerError("needs --adaptive", field="--lookahead")
     cfg = build_engine_config(engine_overrides(args))
-    return ConvertOptions(tuning, cfg, lookahead=args.lookahead,
+    if args.live and args.lookahead:
+        raise RetunerError("plans over the whole file, which live playing cannot: choose one", field="--lookahead")
+    return ConvertOptions(tuning, cfg, lookahead=args.lookahead, live=args.live,
                           want_report=bool(args.report or args.plot or not args.quiet),
                           merge_parts=args.merge_parts)
 

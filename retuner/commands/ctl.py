@@ -88,8 +88,16 @@ def _fmt_status(r: dict) -> str:
     lines.append(f"transpose   {r.get('transpose', 0)} semitones, {r.get('transpose_cents', 0.0):+.2f} cents")
     lines.append(f"adaptive    {'on' if r.get('adaptive') else 'off'}")
     lines.append(f"sounding    {r.get('sounding', 0)} notes")
-    for k, v in sorted((r.get("stats") or {}).items()):
-        lines.append(f"{k:<11} {v}")
+    st = r.get("stats") or {}
+    if st.get("attack_retunes"):
+        n = st["attack_retunes"]
+        lines.append(f"attack      {n} retunes of notes within their attack, mean "
+                     f"{st.get('attack_retune_cents_total', 0.0) / n:.2f} c, largest "
+                     f"{st.get('attack_retune_cents_max', 0.0):.2f} c")
+    for k, v in sorted(st.items()):
+        if k.startswith("attack_retune"):
+            continue
+        lines.append(f"{k:<11} {round(v, 3) if isinstance(v, float) else v}")
     dropped = r.get("input_dropped")
     if dropped is not None:
         lines.append(f"input       {sum(dropped.values())} messages dropped under overload "

@@ -56,6 +56,7 @@ class ConvertOptions:
     lookahead: bool = False
     want_report: bool = False
     merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
+    live: bool = False                  # as the daemon hears it live: a chord window delays notes
 
 
 @dataclass
@@ -74,6 +75,7 @@ class ConvertResult:
     outputs: list[Output]
     split: bool = False
     lookahead: Optional[dict] = None    # what the lookahead planner chose, and the live figures
+    note_ons: Optional[list] = None     # --live: the input's note-ons as (seconds, key)
 
     @property
     def stats(self) -> dict:
@@ -166,10 +168,21 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
     tuning = opts.tuning
     merged = merged_events(song)
     secs = event_seconds(song, merged)
+    if config.adaptive is not None and config.adaptive.chord_window > 0 and not opts.live:
+        # a file keeps every note at its tick: a chord window would delay them
+        raise RetunerError("a chord window delays every note; a converted file keeps each note at its "
+                           "tick (notes sound at once and settle within --attack-time): add --live to "
+                           "hear the window's delay as the daemon would play it", field="--chord-window")
     groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts)
     if not opts.lookahead:
         outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
-        return ConvertResult(song.path, outputs, len(groups) > 1)
+        res = ConvertResult(song.path, outputs, len(groups) > 1)
+        if opts.live:
+            pas = frozenset(config.passthrough)
+            res.note_ons = [(secs[i], raw[1]) for i, (_, _, kind, raw) in enumerate(merged)
+                            if kind == CHANNEL and raw[0] & 0xF0 == 0x90 and len(raw) > 2 and raw[2]
+                            and (raw[0] & 0x0F) not in pas]
+        return res
     if config.adaptive is None:
         raise RetunerError("--lookahead needs --adaptive", field="lookahead")
     # lazy: the planner needs numpy, and the command line sets numpy's thread count first

@@ -79,6 +79,7 @@ import mido
 
 from retuner.adaptive.solver import AdaptiveSolver
 from retuner.midi import encode as E
+from retuner.engine.attack import AttackSettle
 from retuner.engine.allocator import NEG_INF, Note
 from retuner.engine.chord import ChordWindow
 from retuner.engine.config import DEFAULT_POOL, EngineConfig
@@ -125,7 +126,10 @@ class Engine:
             "notes": 0, "note_ons_out": 0, "steals": 0, "ringing_retunes": 0,
             "bends_sent": 0, "messages_out": 0, "note_on_messages": 0,
             "dropped_unmapped": 0, "chords_solved": 0,
+            # attack mode: retunes of notes within their attack, how many and how large (cents)
+            "attack_retunes": 0, "attack_retune_cents_total": 0.0, "attack_retune_cents_max": 0.0,
         }
+        self._attack: Optional[AttackSettle] = None
         self._warned_keys: set[int] = set()
         self._solver = None
         self._pass_notes = PassthroughNotes()     # kept across layout changes
@@ -173,6 +177,14 @@ class Engine:
         self._solver = self._solver_factory(acfg, self.tuning)
         self._solver_keys: set[int] = set()
         self._window = float(getattr(acfg, "chord_window", 0.0) or 0.0)
+        # no chord window: notes sound at once and settle within their attack
+        attack = 0.0 if self._window > 0 else float(getattr(acfg, "attack_time", 0.0) or 0.0)
+        self._attack = AttackSettle(attack) if attack > 0 else None
+
+    @property
+    def attack_retune_cents(self) -> list[float]:
+        """Attack mode: the sizes (cents) of the latest retunes of notes within their attack."""
+        return list(self._attack.recent) if self._attack is not None else []
 
     @property
     def adaptive(self) -> bool:
@@ -228,6 +240,9 @@ class Engine:
     def next_deadline(self) -> Optional[float]:
         chord = self._chord
         d = chord.deadline
+        a = self._attack
+        if a is not None and a.due is not None and (d is None or a.due < d):
+            d = a.due
         if chord.deferred:
             due = chord.deferred[0][0]
             if d is None or due < d:
@@ -255,6 +270,8 @@ class Engine:
                 self._apply_one_deferred(out)
             elif win is not None and win <= t:
                 self._flush(win, out)
+            elif self._attack is not None and self._attack.due is not None and self._attack.due <= t:
+                self._settle_held(self._attack.due, out)
             else:
                 return
 
@@ -358,6 +375,9 @@ class Engine:
             return
         note.alive = False
         self._table.remove(note, t)
+        if self._attack is not None and self._solver is not None:
+            # the chord lost a note: its notes still in their attack settle without it
+            self._flush(t, out)
 
     def _end_pedalled(self, t: float, dom: int) -> None:
         """The pedals of ``dom`` changed: notes no longer held stop sounding."""
@@ -478,7 +498,8 @@ class Engine:
     def _flush(self, t: float, out: list) -> None:
         """Close the chord window: solve the gathered notes and sound them."""
         pend = self._chord.close()
-        if not pend:
+        attack = self._attack
+        if not pend and attack is None:
             return
         solver = self._solver
         output = self.output
@@ -489,19 +510,38 @@ class Engine:
                 output.sound(t, n, out)
             self.stats["note_on_messages"] += len(out) - n0
             return
+        if solver is None:
+            return
         n0 = len(out)
         held = self._sounding_notes()
+        fresh: list[Note] = []
+        if attack is not None:
+            # notes within their attack are solved again with the new ones
+            fresh = attack.fresh(held, t, self.output.movable)
+            if fresh:
+                fs = set(map(id, fresh))
+                held = [n for n in held if id(n) not in fs]
+            if not pend and not fresh:
+                return
         held_keys = {n.in_key for n in held}
-        ended = [k for k in self._solver_keys if k not in held_keys]
+        again = {n.in_key for n in fresh}
+        ended = [k for k in self._solver_keys if k not in held_keys and k not in again]
         if hasattr(solver, "release"):
             if ended:
                 solver.release(ended)   # the solver applies its silence policy itself
-        elif not held:
+        elif not held and not fresh:
             solver.reset()
-        self._solver_keys = held_keys | {n.in_key for n in pend}
+        self._solver_keys = held_keys | again | {n.in_key for n in pend}
+        if attack is None:
+            held_in = [(n.in_key, n.cents) for n in held]
+        elif fresh:
+            held_in = attack.again(solver, held)
+        else:
+            held_in = attack.begin(solver, held)
+        new_notes = fresh + pend
         try:
-            held_new, new_cents = solver.solve(held=[(n.in_key, n.cents) for n in held],
-                                               new=[n.in_key for n in pend], t=t, part=pend[0].in_ch)
+            held_new, new_cents = solver.solve(held=held_in, new=[n.in_key for n in new_notes],
+                                               t=t, part=new_notes[0].in_ch)
             held_new, new_cents = list(held_new), list(new_cents)
         except Exception:  # the engine must never die on a solver failure
             log.exception("adaptive solver failed: the chord keeps static pitches")
@@ -510,6 +550,26 @@ class Engine:
         if len(held_new) != len(held):
             held_new = [n.cents for n in held]
         held_new = [c if _finite(c) else n.cents for n, c in zip(held, held_new)]
+        if fresh:
+            nf = len(fresh)
+            if len(new_cents) == len(new_notes):
+                fresh_cents = [c if _finite(c) else n.cents for n, c in zip(fresh, new_cents[:nf])]
+                new_cents = new_cents[nf:]
+            else:
+                fresh_cents = [n.cents for n in fresh]
+                new_cents = []
+        if attack is not None:
+            # held notes past their attack move once per chord: when its attack is over, or
+            # now when several of its notes started at this very instant (a block chord in a
+            # file: a later note of the same instant moves them again, unheard)
+            starts = [n.t_on for n in new_notes]
+            attack.plan(held, held_new, starts)
+            held, held_new = [], []
+            if attack.held_plan and len(starts) > 1 and min(starts) >= t:
+                self._settle_held(t, out)
+            if fresh:
+                attack.count(fresh, fresh_cents, self.stats)
+                held, held_new = fresh, fresh_cents
         if len(new_cents) != len(pend):
             # an answer that does not match the notes one to one cannot be matched by
             # position: every new note takes its profile pitch instead
@@ -518,6 +578,12 @@ class Engine:
         self.stats["chords_solved"] += 1
         output.sound_solved(t, held, held_new, pend, new_cents, out)
         self.stats["note_on_messages"] += len(out) - n0
+
+    def _settle_held(self, t: float, out: list) -> None:
+        """Attack mode: the held notes move to where the chord's last solve put them."""
+        plan = self._attack.take_plan()
+        if plan:
+            self.output.sound_solved(t, [n for n, _ in plan], [c for _, c in plan], [], [], out)
 
     # ------------------------------------------------------------------ switching
     def set_tuning(self, tuning: Tuning, t: float) -> list[mido.Message]:

@@ -487,6 +487,9 @@ class Daemon:
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
                  f"{st.get('ringing_retunes', 0)} ringing retunes"]
+        if st.get("attack_retunes"):
+            parts.append(f"{st['attack_retunes']} retunes within the attack "
+                         f"(mean {st.get('attack_retune_cents_total', 0.0) / st['attack_retunes']:.2f} c)")
         try:
             parts.append(f"{len(self.engine.sounding())} sounding")
         except Exception:  # pragma: no cover

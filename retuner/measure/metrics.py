@@ -46,7 +46,7 @@ from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
 # interval class (semitones mod 12) -> just ratio, for the consonances counted in impurity
-CONSONANT_RATIOS = {c: (r.numerator, r.denominator) for c, r in intervals.CONSONANT_RATIOS.items()}
+CONSONANT_RATIOS = {0: (1, 1), 3: (6, 5), 4: (5, 4), 5: (4, 3), 7: (3, 2), 8: (8, 5), 9: (5, 3)}
 CONSONANT_CENTS = {c: 1200.0 * math.log2(p / q) for c, (p, q) in CONSONANT_RATIOS.items()}
 
 # events closer than this (seconds) count as simultaneous (float rounding of event times)
@@ -77,6 +77,17 @@ class NoteTrack:
     @property
     def motion(self) -> float:
         return sum(abs(b[1] - a[1]) for a, b in zip(self.steps, self.steps[1:]))
+
+
+def _step(nt: NoteTrack, t: float, p: float) -> None:
+    """A note's pitch becomes ``p`` at ``t``. Changes at one instant are heard as their
+    last value: a step at the time of the previous one replaces it."""
+    if nt.steps and abs(nt.steps[-1][0] - t) <= TIME_EPS:
+        nt.steps[-1] = (nt.steps[-1][0], p)
+        if len(nt.steps) > 1 and abs(nt.steps[-2][1] - p) <= 1e-9:
+            nt.steps.pop()
+    else:
+        nt.steps.append((t, p))
 
 
 @dataclass
@@ -158,7 +169,7 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
             if pred(ch, key):
                 p = bases[id(nt)] + bend(ch)
                 if abs(p - nt.steps[-1][1]) > 1e-9:
-                    nt.steps.append((t, p))
+                    _step(nt, t, p)
 
     for t, msg in stream:
         if t > t_last:
@@ -307,11 +318,19 @@ def impurity(notes: Sequence[NoteTrack]) -> tuple[float, float]:
     return (tot / wsum if wsum > 0 else 0.0), wsum
 
 
-def motion(notes: Sequence[NoteTrack]) -> float:
-    """Sum of absolute pitch changes of notes while they sound, per note."""
+def motion(notes: Sequence[NoteTrack], after: float = 0.0) -> float:
+    """Sum of absolute pitch changes of notes while they sound, per note. ``after`` > 0:
+    only changes later than that many seconds after the note's start count (a change
+    within the attack is masked by it)."""
     if not notes:
         return 0.0
-    return sum(n.motion for n in notes) / len(notes)
+    if after <= 0:
+        return sum(n.motion for n in notes) / len(notes)
+    tot = 0.0
+    for n in notes:
+        lim = n.start + after
+        tot += sum(abs(b[1] - a[1]) for a, b in zip(n.steps, n.steps[1:]) if b[0] > lim + TIME_EPS)
+    return tot / len(notes)
 
 
 def drift(notes: Sequence[NoteTrack], settle: float = 0.0) -> dict:
@@ -355,14 +374,17 @@ def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tun
     """Every measure of an output stream, as a JSON-ready dict.
 
     ``tuning`` (static profiles): adds ``worst_error_cents`` against it.
-    ``drift_max_settled_cents`` is the drift maximum over moments lasting at
-    least ``settle`` seconds (``drift_max_cents`` counts every moment, as defined).
+    ``drift_max_cents`` is the drift maximum over moments lasting at least ``settle``
+    seconds (50 ms: a chord's last note sounding alone for an instant while the others are
+    released is no shift of the centre); ``drift_max_any_moment_cents`` counts every moment.
+    ``late_motion_cents_per_note`` counts only changes more than ``settle`` after a note's
+    start (a change within the attack is masked by it).
     ``key_map`` is unused unless an output key differs from the input key
     (then ``{output_key: input_key}``), for the worst-error check only.
     """
     dec = decode(stream, bend_scale=bend_scale, bend_range=bend_range, exclude_channels=exclude_channels)
     imp, pair_time = impurity(dec.notes)
-    dr = drift(dec.notes)
+    dr = drift(dec.notes, settle)
     out = {
         "notes": len(dec.notes),
         "channels_used": dec.channels_used,
@@ -370,10 +392,11 @@ def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tun
         "impurity_cents": round(imp, 6),
         "consonant_pair_seconds": round(pair_time, 6),
         "motion_cents_per_note": round(motion(dec.notes), 6),
+        "late_motion_cents_per_note": round(motion(dec.notes, settle), 6),
         "drift_max_cents": round(dr["max"], 6),
         "drift_final_cents": round(dr["final"], 6),
         "drift_rms_cents": round(dr["rms"], 6),
-        "drift_max_settled_cents": round(drift(dec.notes, settle)["max"], 6),
+        "drift_max_any_moment_cents": round(drift(dec.notes)["max"], 6),
     }
     if tuning is not None:
         notes = dec.notes
@@ -422,3 +445,24 @@ class StreamWindow:
     def report(self, **kw) -> dict:
         """:func:`report` of the window (keyword arguments as there)."""
         return report(self.snapshot(), **kw)
+
+
+def added_latency(inputs: Sequence[tuple[float, int]], outputs: Sequence[tuple[float, int]],
+                  within: float = 1.0) -> list[float]:
+    """Per input note-on (seconds, key): how much later its note-on left, taken as the first
+    unclaimed output note-on of the same key at or after it and within ``within`` seconds (a
+    note released while it waited in a chord window never sounds: it is left out); sorted."""
+    outs: dict[int, list[float]] = {}
+    for t, k in sorted(outputs):
+        outs.setdefault(k, []).append(t)
+    taken: dict[int, int] = {}
+    lat = []
+    for t, k in sorted(inputs):
+        ts = outs.get(k, [])
+        i = taken.get(k, 0)
+        while i < len(ts) and ts[i] < t - TIME_EPS:
+            i += 1
+        if i < len(ts) and ts[i] - t <= within:
+            lat.append(max(0.0, ts[i] - t))
+            taken[k] = i + 1
+    return sorted(lat)

@@ -35,6 +35,10 @@ from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
 from retuner.smf.messages import iter_output_stream, output_stream
 
+#: seconds a moment must last to count in the drift maximum; changes within this time of a
+#: note's start are within its attack (see retuner.measure.metrics.report)
+SETTLE = 0.05
+
 MEASURES = ("notes", "channels_used", "steals", "ringing_retunes", "bends_sent",
             "worst_pitch_error_cents", "impurity_cents", "motion_cents_per_note",
             "drift_max_cents", "drift_final_cents", "drift_rms_cents")
@@ -61,16 +65,22 @@ def decode_outputs(res, opts) -> list:
 
 def _measures(dec, tuning, stats: dict) -> dict:
     imp, _ = metrics.impurity(dec.notes)
-    dr = metrics.drift(dec.notes)
+    dr = metrics.drift(dec.notes, SETTLE)
     rep = {
         "notes": len(dec.notes),
         "channels_used": list(dec.channels_used),
         "steals": int(stats.get("steals", 0)),
         "ringing_retunes": int(stats.get("ringing_retunes", 0)),
+        # adaptive mode without a chord window: notes retuned within their attack
+        "attack_retunes": int(stats.get("attack_retunes", 0)),
+        "attack_retune_cents_mean": round(float(stats.get("attack_retune_cents_total", 0.0))
+                                          / max(1, int(stats.get("attack_retunes", 0))), 4),
+        "attack_retune_cents_max": round(float(stats.get("attack_retune_cents_max", 0.0)), 4),
         "bends_sent": int(dec.bends_sent),
         "worst_pitch_error_cents": None,
         "impurity_cents": round(imp, 4),
         "motion_cents_per_note": round(metrics.motion(dec.notes), 4),
+        "late_motion_cents_per_note": round(metrics.motion(dec.notes, SETTLE), 4),
         "drift_max_cents": round(dr["max"], 4),
         "drift_final_cents": round(dr["final"], 4),
         "drift_rms_cents": round(dr["rms"], 4),
@@ -104,14 +114,24 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
            "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
+    if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
+        # played as live: how much later each note-on left than it came (engine clock)
+        outs = [(n.start, n.key) for dec in decs for n in dec.notes]
+        lat = metrics.added_latency(res.note_ons, outs)
+        top["live"] = True
+        top["added_latency_ms"] = {"notes": len(lat),
+                                   "p50": round(1000 * lat[len(lat) // 2], 3) if lat else 0.0,
+                                   "p99": round(1000 * lat[min(len(lat) - 1, int(0.99 * len(lat)))], 3) if lat else 0.0,
+                                   "max": round(1000 * lat[-1], 3) if lat else 0.0}
     if getattr(res, "lookahead", None):
         top["lookahead_check"] = res.lookahead   # the plan against live playing of the same file
     if len(files_rep) == 1:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:
         top["notes"] = sum(f["notes"] for f in files_rep)
-        for k in ("steals", "ringing_retunes", "bends_sent"):
+        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes"):
             top[k] = sum(f[k] for f in files_rep)
+        top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
         for k in ("worst_pitch_error_cents", "drift_max_cents"):
             vals = [f[k] for f in files_rep if f[k] is not None]
             top[k] = max(vals) if vals else None
@@ -136,10 +156,20 @@ def text_summary(rep: dict) -> str:
     else:
         lines.append(f"  notes {rep['notes']}, steals {rep['steals']}, ringing retunes "
                      f"{rep['ringing_retunes']}, bends sent {rep['bends_sent']}")
+    if rep.get("added_latency_ms"):
+        a = rep["added_latency_ms"]
+        lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "
+                     f"max {a['max']:.1f} ms ({a['notes']} notes)")
+    if rep.get("attack_retunes"):
+        lines.append(f"  {rep['attack_retunes']} retunes of notes within their attack"
+                     + (f", mean {rep['attack_retune_cents_mean']:.2f} c" if "attack_retune_cents_mean" in rep else "")
+                     + f", largest {rep['attack_retune_cents_max']:.2f} c")
     if rep.get("worst_pitch_error_cents") is not None:
         lines.append(f"  worst pitch error {rep['worst_pitch_error_cents']:.4f} c")
     if "impurity_cents" in rep:
-        lines.append(f"  impurity {rep['impurity_cents']:.3f} c, motion {rep['motion_cents_per_note']:.3f} c/note, "
+        late = (f" ({rep['late_motion_cents_per_note']:.3f} after the attack)"
+                if rep.get("late_motion_cents_per_note") is not None else "")
+        lines.append(f"  impurity {rep['impurity_cents']:.3f} c, motion {rep['motion_cents_per_note']:.3f} c/note{late}, "
                      f"drift max {rep['drift_max_cents']:.2f} c, final {rep['drift_final_cents']:.2f} c, "
                      f"rms {rep['drift_rms_cents']:.2f} c")
     for f in rep.get("files", []):

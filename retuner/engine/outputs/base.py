@@ -132,6 +132,10 @@ class OutputMode(abc.ABC):
         """Adaptive mode: move the held notes to ``held_cents`` (where possible), then sound
         the new notes at ``new_cents``."""
 
+    def movable(self, note: Note) -> bool:
+        """Whether a sounding note can be retuned alone (adaptive mode moves it)."""
+        return True
+
     @abc.abstractmethod
     def note_off(self, note: Note, msg: mido.Message) -> mido.Message:
         """The player's note-off ``msg`` for ``note``, as the synth must get it."""

@@ -108,6 +108,10 @@ class BendMode(OutputMode):
         out.append(E.note_on(c, note.out_key, note.velocity))
         self.stats["note_ons_out"] += 1
 
+    def movable(self, note: Note) -> bool:
+        # a bend moves its whole channel: only a note alone on it can move alone
+        return len(self.pool.notes[note.out_ch]) == 1
+
     def sound_solved(self, t: float, held: Sequence[Note], held_cents: Sequence[float],
                      new: Sequence[Note], new_cents: Sequence[float], out: list) -> None:
         pool = self.pool

@@ -1,0 +1,90 @@
+"""Adaptive mode without added latency: a note sounds at once, its chord settles within
+its attack.
+
+A pitch change within the first few tens of milliseconds of a note is masked by the note's
+attack (common practice of psychoacoustics; no number here is from a source). So every
+note-on leaves as soon as it arrives, tuned with what sounds already, and while the notes of
+a chord arrive one by one (a hand spreads a chord over tens of milliseconds), the notes still
+within their attack are solved again with each newcomer, as if the chord had arrived at one
+instant. Notes past their attack (the previous chord's held notes) follow the solver's
+re-centring policy as in the chord window, but move once per chord: their moves wait for
+the new chord's attack to end (or happen at once when several notes of a chord start at one
+instant, as block chords in a file do: nothing can be heard between them).
+
+The solver is rewound to its state before the chord's first note each time the chord is
+solved again (``mark``/``rewind``, optional on a solver), so its memory, centre and trend
+count the chord once. Nothing waits: note-offs and pedal changes go out when they come.
+
+``attack_time`` (seconds, default 0.04): how long a note may still be retuned. 40 ms covers
+the spread of a chord played by hand (up to 25 ms in the project's humanised material) with
+a margin, and stays within the tens of milliseconds an attack masks.
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from typing import Optional, Sequence
+
+from retuner.engine.allocator import Note
+
+
+class AttackSettle:
+    """The bookkeeping of attack mode for one engine (pure state; time is an argument)."""
+
+    def __init__(self, attack_time: float) -> None:
+        self.attack = float(attack_time)
+        # id(note) -> (note, pitch before the chord began); the note is kept so that an id
+        # reused by a later note is never mistaken for it
+        self.mark_cents: dict[int, tuple[Note, float]] = {}
+        self.held_plan: list[tuple[Note, float]] = []  # held notes' moves, due at ``due``
+        self.due: Optional[float] = None
+        self.recent: deque[float] = deque(maxlen=1000)   # sizes of the latest retunes (cents)
+
+    def fresh(self, sounding: Sequence[Note], t: float, movable) -> list[Note]:
+        """The sounding notes still within their attack (held by the player and movable
+        alone by the output)."""
+        lim = self.attack
+        return [n for n in sounding if n.down and t - n.t_on < lim and movable(n)]
+
+    def begin(self, solver, held: Sequence[Note]) -> list[tuple[int, float]]:
+        """A chord's first note: remember the solver's state and the held notes' pitches."""
+        mark = getattr(solver, "mark", None)
+        if mark is not None:
+            mark()
+        self.mark_cents = {id(n): (n, n.cents) for n in held}
+        return [(n.in_key, n.cents) for n in held]
+
+    def again(self, solver, held: Sequence[Note]) -> list[tuple[int, float]]:
+        """A chord solved again: back to the state before its first note."""
+        rewind = getattr(solver, "rewind", None)
+        if rewind is not None:
+            rewind()
+        mc = self.mark_cents
+        out = []
+        for n in held:
+            m = mc.get(id(n))
+            out.append((n.in_key, m[1] if m is not None and m[0] is n else n.cents))
+        return out
+
+    def count(self, fresh: Sequence[Note], cents: Sequence[float], stats: dict) -> None:
+        """Count the retunes of notes within their attack (more than 0.01 c) in ``stats``:
+        ``attack_retunes``, ``attack_retune_cents_total`` and ``attack_retune_cents_max``."""
+        for n, c in zip(fresh, cents):
+            d = abs(float(c) - n.cents)
+            if d > 0.01:
+                stats["attack_retunes"] += 1
+                stats["attack_retune_cents_total"] += d
+                if d > stats["attack_retune_cents_max"]:
+                    stats["attack_retune_cents_max"] = d
+                self.recent.append(d)
+
+    def plan(self, held: Sequence[Note], cents: Sequence[float], starts: Sequence[float]) -> None:
+        self.held_plan = [(n, float(c)) for n, c in zip(held, cents) if c != n.cents]
+        self.due = (min(starts) + self.attack) if self.held_plan else None
+
+    def take_plan(self) -> list[tuple[Note, float]]:
+        plan, self.held_plan, self.due = self.held_plan, [], None
+        return [(n, c) for n, c in plan if n.alive and c != n.cents]
+
+    def clear(self) -> None:
+        self.held_plan, self.due, self.mark_cents = [], None, {}
