@@ -7,7 +7,8 @@ piece in quarter-comma meantone, and the measured pitch of every note is within 
   sample is a few cents off nominal, so every note is measured against the same key, channel, program,
   velocity and time rendered without the bends; a bend sounds at 127/128 of its MIDI size, so the daemon
   runs with --bend-scale 127/128 (the engine's synth correction); pitch is truncated to whole cents.
-- Tolerance 1.5 cents: FluidSynth's 1-cent truncation plus the measurement's scatter (the issue's bound).
+- Tolerance 1.5 cents: FluidSynth's 1-cent truncation plus the measurement's scatter (the
+  reading is described in tests/synth.py).
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Bend-pool engine rules, one test per rule (issue 3).
+"""Bend-pool engine rules, one test per rule.
 
 The output is checked with ``SynthModel`` below: a small model of what a
 General MIDI synth does with the messages, written from the MIDI 1.0 Detailed

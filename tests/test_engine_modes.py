@@ -1,4 +1,4 @@
-"""MPE and MIDI Tuning Standard output modes of the engine (issue 5, items 1-2)."""
+"""MPE and MIDI Tuning Standard output modes of the engine."""
 
 from __future__ import annotations
 

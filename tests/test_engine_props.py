@@ -1,6 +1,6 @@
 """Property tests over random performances (hypothesis), checked with the synth model.
 
-Properties (issue 3):
+Properties (what the engine promises):
 * every output message is valid MIDI (its bytes re-parse to the same message);
 * every output note-on is released on its channel once the input releases it
   (or after all-notes-off / all-sound-off), pedals included: when the player
