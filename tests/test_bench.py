@@ -12,6 +12,8 @@ from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig
 from retuner.profiles.profile import load_profile
 
+from synthmodel import SynthModel
+
 
 def is_on(m):
     return m.type == "note_on" and m.velocity > 0
@@ -59,7 +61,6 @@ def test_bench_figures_meet_economy_goals_with_a_twelve_note_profile():
 
 
 def test_bench_keeps_output_that_releases_everything():
-    from test_engine import SynthModel
     res = measure(load_profile("werckmeister-3"), EngineConfig(), generate_performance(2000, seed=2),
                   keep_output=True)
     s = SynthModel()
