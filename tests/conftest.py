@@ -52,3 +52,12 @@ def jack_client(jack_server):
         yield client
     finally:
         client.close()
+
+
+@pytest.fixture
+def runs():
+    """Every ``jackdaemon.Run`` a test appends here is stopped when the test ends."""
+    started = []
+    yield started
+    for r in started:
+        r.stop()

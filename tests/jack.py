@@ -89,9 +89,10 @@ class JackServer:
         r = subprocess.run(["jack_lsp"], env=self.env, capture_output=True, text=True, timeout=10)
         return [line.strip() for line in r.stdout.splitlines() if line.strip()]
 
-    def connect(self, src: str, dst: str, attempts: int = 3) -> None:
+    def connect(self, src: str, dst: str, attempts: int = 6) -> None:
         # jack_connect is a JACK client of its own; on a loaded machine opening it occasionally
-        # fails ("Cannot start Jack client listener"), so a failure is tried again before it counts
+        # fails ("Cannot start Jack client listener", or "Cannot open jack_connect client" while
+        # the server is busy), so a failure is tried again, waiting longer each time, before it counts
         for i in range(attempts):
             r = subprocess.run(["jack_connect", src, dst], env=self.env, capture_output=True,
                                text=True, timeout=10)
@@ -99,7 +100,7 @@ class JackServer:
                 return
             if dst in self.connections(src):
                 return
-            time.sleep(0.2)
+            time.sleep(0.2 * (i + 1))
         raise JackError(f"jack_connect {src} {dst}: {r.stdout}{r.stderr}")
 
     def connections(self, port: str) -> list[str]:

@@ -39,7 +39,7 @@ def test_compare_json_beat_rates_by_hand(tmp_path):
     thirds = [rate for iv, rate in zip(d["intervals"], mt["beat_rates_hz"]) if iv["ratio"] in ("5/4", "5/2")]
     assert thirds, "the piece's most frequent pairs include a major third"
     assert all(rate < 0.01 for rate in thirds)
-    # 12-EDO impurity of a triad-based piece: several cents (issue 6: about 8 c on chorales)
+    # 12-EDO impurity of a triad-based piece: several cents (about 8 c on our chorales)
     assert 4 < edo["impurity_cents"] < 12
     assert d["tunings"][4]["impurity_cents"] < edo["impurity_cents"]
 

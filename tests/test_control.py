@@ -299,7 +299,8 @@ def test_adaptive_on_and_off(rig):
         assert r["ok"] and r["adaptive"] is True
     rig.play(60, 64, 67)
     n = rig.wait_notes([60, 64, 67])
-    # adaptive just intonation: a major triad struck from silence is 4:5:6 (issue 6)
+    # adaptive just intonation: a major triad struck from silence is 4:5:6 (its pure
+    # thirds and fifth, as the solver's 5-limit table has them)
     assert n[64] - n[60] == pytest.approx(third, abs=2 * BEND_STEP)
     rig.play(60, 64, 67, on=False)
     rig.wait_notes([])

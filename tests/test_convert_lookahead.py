@@ -1,9 +1,9 @@
 """Lookahead adaptive tuning against live emulation (`--adaptive` alone) on the project's
 progressions (retuner.bench.progressions), measured with retuner.measure.metrics from the OUTPUT files.
 
-Definitions of the measures: issue 6 (impurity: time-weighted mean distance of consonant
-pairs from just; motion: cents moved by sounding notes per note; drift: largest absolute mean
-deviation from 12-EDO of the sounding notes)."""
+Definitions of the measures, as retuner.measure.metrics states them (impurity: time-weighted
+mean distance of consonant pairs from just; motion: cents moved by sounding notes per note;
+drift: largest absolute mean deviation from 12-EDO of the sounding notes)."""
 
 from __future__ import annotations
 

@@ -29,9 +29,10 @@ import uuid
 import mido
 import pytest
 
-from jack import Daemon, JackError, JackServer, NotifySocket, TestClient, decode
-from temperaments import (EDO12, FIFTH, MEANTONE, PYTH_COMMA, SYNT_COMMA, W3,  # noqa: F401 (MEANTONE:
-                          chain_pitch_classes, half_step)                     # test_daemon_synth)
+from jack import JackError, JackServer, TestClient, decode
+from jackdaemon import Run, note_offs, note_ons
+from temperaments import (EDO12, FIFTH, MEANTONE, PYTH_COMMA, SYNT_COMMA, W3,
+                          chain_pitch_classes, half_step)
 
 LATENCY_FILE = f"/tmp/retuner-jack-latency-{os.getuid()}.json"   # per user: another may own the last one
 
@@ -48,61 +49,10 @@ def test_independent_tables_match_published_values():
 
 
 # ----------------------------------------------------------------------------- the daemon
-class Run:
-    """One daemon with its notify socket, wired to a test client."""
-
-    def __init__(self, jack_server, tmp_path, args, *, env_extra=None, wire_in=True, wire_out=True,
-                 client: TestClient | None = None):
-        self.server = jack_server
-        self.client_name = f"retuner-t{uuid.uuid4().hex[:6]}"
-        self.notify = NotifySocket(str(tmp_path / f"notify-{uuid.uuid4().hex[:6]}.sock"))
-        env = dict(jack_server.env)
-        env["NOTIFY_SOCKET"] = self.notify.path
-        env["XDG_CONFIG_HOME"] = str(tmp_path / "xdg-config")     # no user config, no user profiles
-        env.pop("JOURNAL_STREAM", None)
-        env.update(env_extra or {})
-        self.daemon = Daemon(["--backend", "jack", "--client-name", self.client_name,
-                              "--no-control-socket", "-v", *args],
-                             env, str(tmp_path / f"{self.client_name}.log"))
-        try:
-            self.notify.wait_for("READY=1", timeout=15)
-        except AssertionError:
-            self.daemon.stop()
-            raise AssertionError("daemon never became ready:\n" + self.daemon.log()[-3000:])
-        self.in_port = f"{self.client_name}-in:in"
-        self.out_port = f"{self.client_name}-out:out"
-        if client is not None:
-            if wire_in:
-                jack_server.connect(client.out_full, self.in_port)
-            if wire_out:
-                jack_server.connect(self.out_port, client.in_full)
-
-    def stop(self):
-        rc = self.daemon.stop()
-        self.notify.close()
-        return rc
-
-
-@pytest.fixture
-def runs():
-    started = []
-    yield started
-    for r in started:
-        r.stop()
-
-
 def start(runs, *a, **kw) -> Run:
     r = Run(*a, **kw)
     runs.append(r)
     return r
-
-
-def note_ons(recs):
-    return [r for r in recs if r.msg.type == "note_on" and r.msg.velocity > 0]
-
-
-def note_offs(recs):
-    return [r for r in recs if r.msg.type == "note_off" or (r.msg.type == "note_on" and r.msg.velocity == 0)]
 
 
 def play_chord(client, keys, rng, channel=0, spread=(0.003, 0.025)):

@@ -2,12 +2,13 @@
 piece in quarter-comma meantone, and the measured pitch of every note is within 1.5 cents of the tuning.
 
 - Target: quarter-comma meantone from its definition (every fifth 1/4 syntonic comma narrower than 3/2;
-  chain Eb..G#; A4 = 440 Hz, ISO 16), computed in test_daemon_jack.py, not taken from retuner.
+  chain Eb..G#; A4 = 440 Hz, ISO 16), computed in tests/temperaments.py, not taken from retuner.
 - FluidSynth's known behaviour (see tests/synth.py and /work/shared/README.md, measured here): each key's
   sample is a few cents off nominal, so every note is measured against the same key, channel, program,
   velocity and time rendered without the bends; a bend sounds at 127/128 of its MIDI size, so the daemon
   runs with --bend-scale 127/128 (the engine's synth correction); pitch is truncated to whole cents.
-- Tolerance 1.5 cents: FluidSynth's 1-cent truncation plus the measurement's scatter (the issue's bound).
+- Tolerance 1.5 cents: FluidSynth's 1-cent truncation plus the measurement's scatter (the
+  reading is described in tests/synth.py).
 """
 
 from __future__ import annotations
@@ -21,7 +22,8 @@ import mido
 
 from jack import decode
 from synth import cents, key_hz, measure_pitch, render, require_fluidsynth, write_midi
-from test_daemon_jack import MEANTONE, Run, note_offs, note_ons, runs  # noqa: F401 (fixture)
+from jackdaemon import Run, note_offs, note_ons
+from temperaments import MEANTONE
 
 ERRORS_FILE = f"/tmp/retuner-synth-errors-{os.getuid()}.json"   # per user: another may own the last one
 

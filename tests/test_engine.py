@@ -1,15 +1,9 @@
-"""Bend-pool engine rules, one test per rule (issue 3).
+"""Bend-pool engine rules, one test per rule.
 
-The output is checked with ``SynthModel`` below: a small model of what a
-General MIDI synth does with the messages, written from the MIDI 1.0 Detailed
-Specification (pitch bend 14-bit centred on 8192 and scaled by the RPN 0 pitch
-bend sensitivity; note-off releases the note of that key on that channel;
-sustain (CC64) holds released notes until lifted; sostenuto (CC66) holds the
-notes that were down when it was pressed; all-notes-off (CC123) acts like a
-note-off for every note, all-sound-off (CC120) silences at once;
-reset-all-controllers (CC121) centres the bend and lifts the pedals, as
-recommended by the MMA's RP-015 (from memory)). It decodes each sounding
-note's pitch as key*100 + bend/8192*range cents, independently of the engine.
+The output is checked with ``SynthModel`` (tests/synthmodel.py): a small model of what a
+General MIDI synth does with the messages, written from the MIDI 1.0 Detailed Specification
+(pitch bend, RPN 0, note-off, the pedals, all-notes-off, all-sound-off, and
+reset-all-controllers as recommended by the MMA's RP-015), independently of the engine.
 """
 
 from __future__ import annotations
@@ -25,145 +19,8 @@ from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import Tuning
 
-
-def ON(k, v=100, ch=0):
-    return mido.Message("note_on", channel=ch, note=k, velocity=v)
-
-
-def OFF(k, ch=0, v=0):
-    return mido.Message("note_off", channel=ch, note=k, velocity=v)
-
-
-def CC(c, v, ch=0):
-    return mido.Message("control_change", channel=ch, control=c, value=v)
-
-
-def WHEEL(p, ch=0):
-    return mido.Message("pitchwheel", channel=ch, pitch=p)
-
-
-class Voice:
-    __slots__ = ("key", "down", "sost", "tag")
-
-    def __init__(self, key, tag=None):
-        self.key, self.down, self.sost, self.tag = key, True, False, tag
-
-
-class SynthModel:
-    """What a synth does with a stream of messages (see the module docstring)."""
-
-    def __init__(self, mpe_manager=None):
-        self.bend = [0] * 16                   # signed, as mido's 'pitch'
-        self.range = [200.0] * 16              # cents; MIDI 1.0 default sensitivity: 2 semitones
-        self.rpn = [(127, 127)] * 16
-        self.sustain = [False] * 16
-        self.sostenuto = [False] * 16
-        self.voices: list[list[Voice]] = [[] for _ in range(16)]
-        self.mpe_manager = mpe_manager
-        self.messages = 0
-        self.problems: list[str] = []
-        self.last_on: list[tuple[int, Voice]] = []   # voices started by the last feed
-
-    def feed(self, msgs, tag=None):
-        self.last_on = []
-        for m in msgs:
-            self.one(m, tag)
-
-    def one(self, m, tag=None):
-        self.messages += 1
-        # every message must be valid MIDI: its bytes re-parse to the same message
-        if mido.Message.from_bytes(m.bytes()) != m:
-            self.problems.append(f"invalid {m}")
-        if not hasattr(m, "channel"):
-            return
-        c = m.channel
-        if m.type == "note_on" and m.velocity > 0:
-            for v in self.voices[c]:
-                if v.key == m.note and v.down:
-                    self.problems.append(f"key {m.note} struck twice on channel {c}")
-            v = Voice(m.note, tag)
-            self.voices[c].append(v)
-            self.last_on.append((c, v))
-        elif m.type in ("note_on", "note_off"):
-            down = [v for v in self.voices[c] if v.key == m.note and v.down]
-            if not down:
-                self.problems.append(f"note-off for silent key {m.note} on channel {c}")
-                return
-            self._release(c, down[0])
-        elif m.type == "pitchwheel":
-            self.bend[c] = m.pitch
-        elif m.type == "control_change":
-            cc, val = m.control, m.value
-            if cc == 101:
-                self.rpn[c] = (val, self.rpn[c][1])
-            elif cc == 100:
-                self.rpn[c] = (self.rpn[c][0], val)
-            elif cc == 6 and self.rpn[c] == (0, 0):
-                self.range[c] = val * 100.0 + self.range[c] % 100
-            elif cc == 38 and self.rpn[c] == (0, 0):
-                self.range[c] = (self.range[c] // 100) * 100 + val
-            elif cc == 64:
-                self.sustain[c] = val >= 64
-                self._pedal_changed()
-            elif cc == 66:
-                on = val >= 64
-                if on and not self.sostenuto[c]:
-                    chans = range(16) if c == self.mpe_manager else [c]
-                    for ch in chans:
-                        for v in self.voices[ch]:
-                            if v.down:
-                                v.sost = True
-                self.sostenuto[c] = on
-                self._pedal_changed()
-            elif cc == 120:
-                self.voices[c] = []
-            elif cc in (123, 124, 125, 126, 127):
-                for v in list(self.voices[c]):
-                    if v.down:
-                        self._release(c, v)
-            elif cc == 121:
-                self.bend[c] = 0
-                self.sustain[c] = False
-                self.sostenuto[c] = False
-                self.voices[c] = [v for v in self.voices[c] if v.down]
-                for v in self.voices[c]:
-                    v.sost = False
-                self.rpn[c] = (127, 127)
-
-    def _pedals(self, c):
-        """(sustain, sostenuto) acting on channel c. MPE specification (The MIDI
-        Association, 2018): pedals on the manager channel act on the whole zone."""
-        m = self.mpe_manager
-        if m is not None and c != m:
-            return self.sustain[c] or self.sustain[m], self.sostenuto[c] or self.sostenuto[m]
-        return self.sustain[c], self.sostenuto[c]
-
-    def _release(self, c, v):
-        v.down = False
-        sus, sost = self._pedals(c)
-        if not (sus or (v.sost and sost)):
-            self.voices[c].remove(v)
-
-    def _pedal_changed(self):
-        for c in range(16):
-            sus, sost = self._pedals(c)
-            self.voices[c] = [v for v in self.voices[c] if v.down or sus or (v.sost and sost)]
-            if not sost:
-                for v in self.voices[c]:
-                    v.sost = False
-
-    def pitch(self, c, v) -> float:
-        p = v.key * 100.0 + self.bend[c] / 8192.0 * self.range[c]
-        if self.mpe_manager is not None:
-            m = self.mpe_manager
-            p += self.bend[m] / 8192.0 * self.range[m]
-        return p
-
-    def sounding(self):
-        return [(c, v) for c in range(16) for v in self.voices[c]]
-
-    def count(self):
-        return sum(len(v) for v in self.voices)
+from keyboard import CC, OFF, ON, WHEEL
+from synthmodel import SynthModel
 
 
 def run(engine, events, synth=None, tag_fn=None):

@@ -13,8 +13,9 @@ from retuner.adaptive.solver import AdaptiveConfig
 from retuner.engine.core import Engine, EngineConfig
 from retuner.pitch.tuning import Tuning
 
-from test_engine import OFF, ON, SynthModel
-from test_engine_modes import parse_single_note
+from keyboard import OFF, ON
+from mtsdecode import parse_single_note
+from synthmodel import SynthModel
 
 
 class FakeSolver:

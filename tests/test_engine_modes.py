@@ -1,4 +1,4 @@
-"""MPE and MIDI Tuning Standard output modes of the engine (issue 5, items 1-2)."""
+"""MPE and MIDI Tuning Standard output modes of the engine."""
 
 from __future__ import annotations
 
@@ -10,7 +10,9 @@ from retuner.engine.core import Engine, EngineConfig
 from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import Tuning
 
-from test_engine import CC, OFF, ON, WHEEL, SynthModel
+from keyboard import CC, OFF, ON, WHEEL
+from mtsdecode import parse_single_note
+from synthmodel import SynthModel
 
 
 # ---------------------------------------------------------------------------
@@ -137,29 +139,6 @@ def test_mpe_passthrough_channel_is_not_used_as_member():
 # ---------------------------------------------------------------------------
 # MIDI Tuning Standard
 # ---------------------------------------------------------------------------
-def parse_single_note(m):
-    """Decode a single note tuning change from its bytes, written from the MIDI Tuning
-    Standard (MMA, 1992; bank form from CA-020), single note tuning change:
-      F0 7F <dev> 08 02 <program> <count> [<key> xx yy zz]* F7     (real-time)
-      F0 7F|7E <dev> 08 07 <bank> <program> <count> [<key> xx yy zz]* F7
-    frequency = xx semitones + (yy*128 + zz) / 16384 semitone above key 0."""
-    b = m.bytes()
-    assert b[0] == 0xF0 and b[-1] == 0xF7 and b[3] == 0x08
-    body = b[1:-1]
-    rt, dev, sub2 = body[0], body[1], body[3]
-    if sub2 == 0x02:
-        bank, prog, count, rest = None, body[4], body[5], body[6:]
-    else:
-        assert sub2 == 0x07
-        bank, prog, count, rest = body[4], body[5], body[6], body[7:]
-    assert len(rest) == 4 * count
-    keys = {}
-    for i in range(count):
-        k, xx, yy, zz = rest[4 * i:4 * i + 4]
-        keys[k] = (xx + (yy * 128 + zz) / 16384) * 100.0
-    return {"realtime": rt == 0x7F, "device": dev, "bank": bank, "program": prog, "keys": keys}
-
-
 def mts(tuning=None, **kw):
     e = Engine(tuning or load_profile("werckmeister-3"), EngineConfig(mode="mts", **kw))
     return e, e.start(0.0)

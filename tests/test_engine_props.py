@@ -1,6 +1,6 @@
 """Property tests over random performances (hypothesis), checked with the synth model.
 
-Properties (issue 3):
+Properties (what the engine promises):
 * every output message is valid MIDI (its bytes re-parse to the same message);
 * every output note-on is released on its channel once the input releases it
   (or after all-notes-off / all-sound-off), pedals included: when the player
@@ -19,11 +19,12 @@ import random
 import mido
 from hypothesis import given, settings, strategies as st
 
+from retuner.adaptive.solver import AdaptiveConfig
 from retuner.engine.core import Engine, EngineConfig
 from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import Tuning
 
-from test_engine import SynthModel
+from synthmodel import MtsSynth, SynthModel
 
 PROFILES = {name: load_profile(name) for name in
             ("meantone-quarter", "werckmeister-3", "just-5limit", "edo19", "edo31", "bohlen-pierce")}
@@ -190,45 +191,12 @@ def _given_pitch(engine, c, v, tuning):
 def test_random_streams_adaptive(events, mode, pool_size, window):
     """Adaptive mode with the real solver: valid, nothing stuck, and every sounding note
     decodes to the pitch the solver gave it (within half a bend step)."""
-    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     pool = tuple(c for c in range(16) if c != 9)[:pool_size]
     e = Engine(tu, EngineConfig(mode=mode, pool=pool, mpe_members=pool_size,
                                 adaptive=AdaptiveConfig(chord_window=window)))
     perf, held, t_end = perform(events)
     check_stream(e, tu, perf, held, t_end, target=_given_pitch)
-
-
-class MtsSynth:
-    """A synth's key table under the MIDI Tuning Standard, from single note tuning
-    changes (layout per the MTS, see test_engine_modes.parse_single_note), plus
-    which keys sound on which channel."""
-
-    def __init__(self):
-        self.table = [100.0 * k for k in range(128)]   # 12-EDO until told otherwise
-        self.sounding: dict[tuple[int, int], int] = {}
-        self.problems: list[str] = []
-
-    def feed(self, msgs, check=None):
-        from test_engine_modes import parse_single_note
-        for m in msgs:
-            if mido.Message.from_bytes(m.bytes()) != m:
-                self.problems.append(f"invalid {m}")
-            if m.type == "sysex":
-                for k, c in parse_single_note(m)["keys"].items():
-                    self.table[k] = c
-            elif m.type == "note_on" and m.velocity:
-                self.sounding[(m.channel, m.note)] = self.sounding.get((m.channel, m.note), 0) + 1
-                if check:
-                    check(m, self.table[m.note])
-            elif m.type in ("note_on", "note_off"):
-                n = self.sounding.get((m.channel, m.note), 0)
-                if not n:
-                    self.problems.append(f"note-off for silent {m}")
-                elif n == 1:
-                    del self.sounding[(m.channel, m.note)]
-                else:
-                    self.sounding[(m.channel, m.note)] = n - 1
 
 
 @settings(max_examples=25, deadline=None)
@@ -337,7 +305,6 @@ def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode
     adaptive range of that key's profile pitch (adaptive moves notes by tens of cents
     at most: a comma and the drift limit; a wrong key is 100 c or more away). The
     pitch is decoded from the output bytes, not taken from the engine's own notes."""
-    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     e = Engine(tu, EngineConfig(mode=mode, mpe_members=15,
                                 adaptive=AdaptiveConfig(chord_window=window)))
@@ -362,7 +329,6 @@ def test_adaptive_every_note_is_its_own_key_whatever_the_duplicates(events, mode
 def test_adaptive_doubled_key_in_one_chord_keeps_every_key():
     """C4 doubled (two channels) under E4 and G4 at one instant: the output is C4, C4,
     E4, G4, each near its own pitch."""
-    from retuner.adaptive.solver import AdaptiveConfig
     tu = PROFILES["meantone-quarter"]
     for window in (0.0, 0.02):
         e = Engine(tu, EngineConfig(adaptive=AdaptiveConfig(chord_window=window)))

@@ -30,7 +30,7 @@ from retuner.profiles.profile import list_profiles, load_profile
 from retuner.pitch.tuning import ratio_to_cents
 
 JUST = {0: Fraction(1), 3: Fraction(6, 5), 4: Fraction(5, 4), 5: Fraction(4, 3), 7: Fraction(3, 2),
-        8: Fraction(8, 5), 9: Fraction(5, 3)}   # issue 6 item 4 (impurity definition)
+        8: Fraction(8, 5), 9: Fraction(5, 3)}   # the consonances of the impurity (metrics' definition)
 
 
 def write_piece(path, chords, *, tempo=500000, tempo2=None, drums=False, tpb=480):

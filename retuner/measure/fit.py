@@ -6,7 +6,7 @@ major third, fourth, fifth, minor or major sixth (by key distance); each pair's
 just target is 1/1 (2/1), 6/5, 5/4, 4/3, 3/2, 8/5, 5/3 respectively, raised by
 the pair's whole octaves, and its weight is the time (seconds) the two notes
 sound together. **Impurity** is the weighted mean of |interval - target| in
-cents (the definition the metrics use, see issue "adaptive just intonation").
+cents (the definition :mod:`retuner.measure.metrics` uses, so a fit and a report compare).
 
 A 12-note tuning with pure octaves is given by one offset x[pc] (cents from
 12-EDO) per pitch class. A pair of keys a < b, d = b - a semitones, sounds
@@ -61,7 +61,7 @@ from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import NUM_KEYS, KEY_NAMES, ratio_to_cents, rounded
 from retuner.smf.reader import CHANNEL, event_seconds, merged_events, read_smf
 
-#: interval class (semitones mod 12) -> just ratio (issue 6 item 4 definition)
+#: interval class (semitones mod 12) -> just ratio (the consonances the impurity counts)
 JUST_TARGETS: dict[int, Fraction] = dict(CONSONANT_RATIOS)
 JUST_CENTS: dict[int, float] = {k: ratio_to_cents(v) for k, v in JUST_TARGETS.items()}
 PURE_FIFTH_CENTS = ratio_to_cents(Fraction(3, 2))

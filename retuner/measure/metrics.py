@@ -19,7 +19,7 @@ the engine's internal state):
   changes retune sounding notes at once; non-real-time ones only later notes.
   Any channel bend adds on top.
 
-Definitions (issue 6, so figures compare):
+Definitions (the same everywhere a figure is shown, so figures compare):
 
 * **impurity**: every pair of simultaneously sounding notes whose interval,
   rounded to whole semitones and reduced by octaves, is a unison/octave, minor

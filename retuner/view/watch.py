@@ -39,7 +39,8 @@ from retuner.pitch.intervals import USUAL
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
 
 #: interval class -> (short name, just ratio): the consonances of the impurity
-#: metric (issue 6) and the usual 5-limit choices for the rest (common practice).
+#: metric (so the view and the figures agree) and the usual 5-limit choices for the rest
+#: (common practice).
 INTERVALS: dict[int, tuple[str, Fraction]] = {c: (j.short, j.ratio) for c, j in USUAL.items()}
 CONSONANT = {0, 3, 4, 5, 7, 8, 9}
 
