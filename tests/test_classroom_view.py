@@ -107,7 +107,7 @@ def release(client, keys) -> None:
 
 
 def start_view(live: LiveDaemon) -> tuple[subprocess.Popen, str]:
-    proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--socket", live.sock],
+    proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--control-socket", live.sock],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=live.env, cwd=REPO)
     ready, _, _ = select.select([proc.stdout], [], [], 30)
     assert ready, "retuner watch --web printed no address within 30 s"
@@ -221,7 +221,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
             browser.screenshot(str(tmp_path / f"classroom-view-four-notes-{w}x{h}.png"))
 
         # a panic shows on the page until a note plays again
-        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "panic"],
+        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", live.sock, "panic"],
                            capture_output=True, text=True, timeout=30, env=live.env)
         assert r.returncode == 0, r.stderr
         browser.wait_for('document.getElementById("banner").textContent.includes("PANIC")'
@@ -231,7 +231,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
                          ' && document.getElementById("banner").hidden')
         release(jack_client, [60, 64, 67, 72, 65])
         # adaptive mode switched on from the command line shows on the page
-        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "adaptive", "on"],
+        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", live.sock, "adaptive", "on"],
                            capture_output=True, text=True, timeout=30, env=live.env)
         assert r.returncode == 0, r.stderr
         browser.wait_for('document.getElementById("adaptive-value").textContent === "ON"')
@@ -267,7 +267,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
 
 def test_a_view_open_to_the_network_says_so(tmp_path):
     proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--web-address", "0.0.0.0",
-                             "--socket", str(tmp_path / "none.sock")],
+                             "--control-socket", str(tmp_path / "none.sock")],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=REPO)
     try:
         ready, _, _ = select.select([proc.stdout], [], [], 30)

@@ -43,10 +43,10 @@ def test_convert_never_overwrites_its_input(tmp_path):
 
 
 def test_missing_profiles_dir_is_named(tmp_path):
-    line = one_line(run_cli("profiles", "--profiles-dir", tmp_path / "nope"))
-    assert line == f"retuner: {tmp_path / 'nope'}: --profiles-dir: not a folder"
+    line = one_line(run_cli("profiles", "--profile-dir", tmp_path / "nope"))
+    assert line == f"retuner: {tmp_path / 'nope'}: --profile-dir: not a folder"
 
 
 def test_virtual_and_named_ports_do_not_mix():
     line = one_line(run_cli("run", "--virtual", "--input", "Digital Piano"))
-    assert line.startswith("retuner: --virtual: --virtual makes our own ports")
+    assert line.startswith("retuner: --virtual: makes our own ports")  # named once, not twice

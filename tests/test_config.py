@@ -41,10 +41,10 @@ def test_named_file_must_exist(tmp_path):
     assert "nope.yaml" in str(ei.value)
 
 
-def test_full_config_parses():
+def test_full_config_parses(tmp_path):
     s = parse_config(textwrap.dedent("""\
         profile: werckmeister-3
-        profile_dirs: [/tmp/x]
+        profile_dirs: [TMP]
         backend: mido.backends.rtmidi/UNIX_JACK
         input: "Digital Piano"
         output: "FLUID*"
@@ -55,8 +55,8 @@ def test_full_config_parses():
         status_interval: 5
         port_poll: 0.25
         log_level: debug
-        control: {enabled: false, path: /tmp/sock}
-        """), "cfg.yaml")
+        control: {enabled: false, socket: /tmp/sock}
+        """).replace("TMP", str(tmp_path)), "cfg.yaml")
     assert s.backend == "jack"
     assert s.input == "Digital Piano" and s.output == "FLUID*"
     assert s.profiles == ["edo12", "meantone-quarter", "werckmeister-3"]
@@ -117,7 +117,7 @@ def test_flags_override_the_file(tmp_path):
                    "engine: {pool: [1, 2, 3], bend_range: 12}\nswitch: {channel: 3}\n")
     args = build_parser().parse_args(["run", "--config", str(cfg), "--profile", "edo19", "--backend", "jack",
                                       "--pool", "1-4,6", "--bend-scale", "127/128",
-                                      "--control-channel", "16", "--virtual"])
+                                      "--switch-channel", "16", "--virtual"])
     s = run_cmd._apply_flags(load_config(args.config), args)
     assert (s.profile, s.backend, s.input, s.virtual) == ("edo19", "jack", "Piano", True)
     assert s.engine["pool"] == (1, 2, 3, 4, 6) and s.engine["bend_range"] == 12.0

@@ -243,14 +243,14 @@ def test_load_switches_new_notes_and_keeps_sounding_ones(rig):
 
 def test_reference_sets_a4(rig):
     with ControlClient(rig.path) as c:
-        r = c.request("reference", hz=442.0)
+        r = c.request("concert_pitch", hz=442.0)
         assert r["ok"] and r["reference"] == 442.0
         rig.play(69)
         n = rig.wait_notes([69])
         # cents of 442 Hz above key 0 of 12-EDO at A4 = 440 Hz (ISO 16): 6900 + 1200*log2(442/440)
         assert n[69] == pytest.approx(6900 + 1200 * math.log2(442 / 440), abs=BEND_STEP)
         for bad in ({"hz": "loud"}, {"hz": 5}, {"hz": True}, {}):
-            e = c.request("reference", **bad)
+            e = c.request("concert_pitch", **bad)
             assert e["ok"] is False, bad
         assert c.request("status")["reference"] == 442.0
 
@@ -381,7 +381,7 @@ def test_malformed_and_unknown_requests_change_nothing(rig):
     for k in ("tuning", "reference", "transpose", "transpose_cents", "adaptive", "sounding"):
         assert after[k] == before[k], k
     assert after["stats"] == before["stats"]
-    assert set(COMMANDS) == {"status", "profiles", "load", "adaptive", "reference", "transpose",
+    assert set(COMMANDS) == {"status", "profiles", "load", "adaptive", "concert_pitch", "reference", "transpose",
                              "panic", "subscribe"}
 
 
@@ -584,7 +584,7 @@ def test_watch_plain_prints_a_frame_when_the_view_changes(rig):
     while rig.server.subscribers:                  # wait_notes' own subscriptions have ended
         assert time.monotonic() < end
         time.sleep(0.01)
-    p = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--socket", rig.path, "--plain",
+    p = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--control-socket", rig.path, "--plain",
                           "--frames", "2"], stdout=subprocess.PIPE, text=True)
     try:
         end = time.monotonic() + 10
@@ -608,7 +608,7 @@ def test_ctl_commands_against_the_server(rig):
     import sys
 
     def ctl(*args):
-        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", rig.path, *args],
+        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", rig.path, *args],
                               capture_output=True, text=True, timeout=30)
     r = ctl("transpose", "10c")
     assert r.returncode == 0 and "+10.00 c" in r.stdout, r.stdout + r.stderr
@@ -616,9 +616,9 @@ def test_ctl_commands_against_the_server(rig):
     assert rig.wait_notes([69])[69] - load_profile("werckmeister-3").cents[69] == pytest.approx(10.0, abs=BEND_STEP)
     r = ctl("transpose", "1.5")                     # neither whole semitones nor cents
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
-    r = ctl("reference", "5000")                    # refused by the daemon: exit 2, one line
-    assert r.returncode == 2 and "reference" in r.stderr and len(r.stderr.strip().splitlines()) == 1
-    r = ctl("--json", "reference", "5000")
+    r = ctl("concert-pitch", "5000")                    # refused by the daemon: exit 2, one line
+    assert r.returncode == 2 and "concert_pitch" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    r = ctl("--json", "concert-pitch", "5000")
     assert r.returncode == 2 and json.loads(r.stdout)["ok"] is False
     r = ctl("profiles")
     assert r.returncode == 0 and "werckmeister-3" in r.stdout and "vallotti" in r.stdout

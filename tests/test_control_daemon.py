@@ -91,7 +91,7 @@ class Run:
         self.env = env
 
     def ctl(self, *args, timeout=20):
-        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", self.sock, *args],
+        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", self.sock, *args],
                               capture_output=True, text=True, timeout=timeout, env=self.env)
 
     def stop(self):
@@ -173,14 +173,14 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     r = run.ctl("load", "no-such-tuning")
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "no-such-tuning" in r.stderr
 
-    r = run.ctl("reference", "442")
+    r = run.ctl("concert-pitch", "442")
     assert r.returncode == 0, r.stderr
     n = chord_cents(jack_client, [69])
     # A4 at 442 Hz: 6900 + 1200*log2(442/440) cents above key 0 of 12-EDO at 440 (ISO 16)
     assert n[69] == pytest.approx(6900 + 1200 * math.log2(442 / 440), abs=HALF_STEP + 1e-9)
 
     assert run.ctl("load", "just-5limit").returncode == 0
-    assert run.ctl("reference", "440").returncode == 0
+    assert run.ctl("concert-pitch", "440").returncode == 0
     n = chord_cents(jack_client, [62, 69])
     assert n[69] - n[62] == pytest.approx(ratio_to_cents(Fraction(40, 27)), abs=2 * HALF_STEP)  # D-A wolf on C
     r = run.ctl("transpose", "2")
@@ -378,7 +378,7 @@ def check_watch_text(text: str) -> None:
 
 def test_watch_once_shows_the_held_chord(run_daemon, jack_client):
     run = held_chord_daemon(run_daemon, jack_client)
-    r = subprocess.run([sys.executable, "-m", "retuner", "watch", "--socket", run.sock, "--once"],
+    r = subprocess.run([sys.executable, "-m", "retuner", "watch", "--control-socket", run.sock, "--once"],
                        capture_output=True, text=True, timeout=30, env=run.env)
     assert r.returncode == 0, r.stderr
     check_watch_text(r.stdout)

@@ -9,7 +9,7 @@ from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig, MODES
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
-from retuner.commands._common import add_profiles_dir, print_json
+from retuner.commands._common import add_profile_dir, print_json
 
 NAME = "bench"
 HELP = "play a generated performance through the engine and print latency and message figures"
@@ -40,7 +40,7 @@ def add_arguments(parser):
                              "--lookahead against plain --adaptive, peak memory on 1 000 000 events, "
                              "and a batch with 1..N worker processes")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
-    add_profiles_dir(parser)
+    add_profile_dir(parser)
 
 
 def _files_bench(args) -> int:
@@ -75,7 +75,7 @@ def _files_bench(args) -> int:
 def run(args) -> int:
     if args.files:
         return _files_bench(args)
-    tuning = load_profile(args.profile, args.profiles_dir)
+    tuning = load_profile(args.profile, args.profile_dirs)
     adaptive = None
     if args.adaptive:
         from retuner.adaptive.solver import AdaptiveConfig   # lazy: it loads numpy

@@ -6,7 +6,7 @@ import os
 import sys
 
 from retuner.engine.outputs import MODES
-from retuner.commands._common import add_profiles_dir
+from retuner.commands._common import add_profile_dir
 from retuner.commands._engine_options import add_engine_arguments, build_engine_config, engine_overrides
 from retuner.convert.batch import convert_batch
 from retuner.convert.conversion import ConvertOptions, convert_file
@@ -34,7 +34,7 @@ def add_arguments(parser) -> None:
                         help="output file (or output folder when IN is a folder)")
     parser.add_argument("--profile", default="edo12", metavar="ID",
                         help="tuning (profile id or YAML file; default edo12)")
-    add_profiles_dir(parser)
+    add_profile_dir(parser)
     add_engine_arguments(parser)
     parser.add_argument("--merge-parts", action="store_true",
                         help="one engine and one pool for all parts, as the live daemon treats a "
@@ -58,7 +58,7 @@ def add_arguments(parser) -> None:
 
 def build_options(args):
     """ConvertOptions from the command line."""
-    tuning = load_profile(args.profile, args.profiles_dir)
+    tuning = load_profile(args.profile, args.profile_dirs)
     if args.lookahead and not args.adaptive:
         raise RetunerError("needs --adaptive", field="--lookahead")
     cfg = build_engine_config(engine_overrides(args))

@@ -6,22 +6,23 @@ import json
 import sys
 
 from retuner.control.client import ControlClient, NoDaemon
+from retuner.commands._common import add_control_socket
 
 NAME = "ctl"
-HELP = "steer a running daemon: status, profiles, load, adaptive, reference, transpose, panic, subscribe"
+HELP = "steer a running daemon: status, profiles, load, adaptive, concert-pitch, transpose, panic, subscribe"
 ORDER = 40
 DESCRIPTION = ("Speak to a running daemon over its control socket "
-               "($XDG_RUNTIME_DIR/retuner/control.sock unless --socket). "
+               "($XDG_RUNTIME_DIR/retuner/control.sock unless --control-socket). "
                "Exit status 1 when no daemon is running, 2 when it refuses the command.")
 
 
 def add_arguments(parser) -> None:
     import argparse
-    parser.add_argument("--socket", metavar="PATH", help="control socket path")
+    add_control_socket(parser)
     parser.add_argument("--json", action="store_true", help="print the daemon's JSON replies as they are")
     # the same two options are accepted after the action too (retuner ctl status --json)
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--socket", metavar="PATH", default=argparse.SUPPRESS, help="control socket path")
+    add_control_socket(common, default=argparse.SUPPRESS)
     common.add_argument("--json", action="store_true", default=argparse.SUPPRESS,
                         help="print the daemon's JSON replies as they are")
     sub = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
@@ -30,7 +31,7 @@ def add_arguments(parser) -> None:
     def add_parser(name, **kw):
         return _add(name, parents=[common], **kw)
     sub.add_parser = add_parser
-    sub.add_parser("status", help="tuning, counters, sounding notes")
+    sub.add_parser("status", help="the profile in force, ports, state, counters, sounding notes")
     sub.add_parser("profiles", help="list the profiles the daemon can load")
     p = sub.add_parser("load", help="switch to a profile (sounding notes keep their pitch)")
     p.add_argument("profile", metavar="ID", help="profile id or path")
@@ -40,9 +41,10 @@ def add_arguments(parser) -> None:
                    help="an adaptive setting (repeatable; value is YAML: 5, true, [1, 2]), e.g. "
                         "policy=fixed-held, chord_window=0.03, max_drift=4, max_motion=3, limit=7, "
                         "centre=profile")
-    p = sub.add_parser("reference", help="set the reference pitch of A4 in Hz")
+    p = sub.add_parser("concert-pitch", help="set the frequency of A4 in Hz (the profile's own concert "
+                                             "pitch is overridden until the next profile switch)")
     p.add_argument("hz", type=float, metavar="HZ")
-    p = sub.add_parser("transpose", help="move the tuning's root by N semitones (or shift by cents)")
+    p = sub.add_parser("transpose", help="move the profile's root by N semitones (or shift by cents)")
     p.add_argument("amount", metavar="N", help="semitones (whole number), or cents with a 'c' suffix: 12.5c")
     sub.add_parser("panic", help="release every sounding note now")
     p = sub.add_parser("subscribe", help="print live events, one per line, until interrupted")
@@ -69,8 +71,8 @@ def _request(args):
                     raise RetunerError(f"--set {name}: value is not valid YAML") from None
             req["settings"] = settings
         return req
-    if a == "reference":
-        return {"cmd": "reference", "hz": args.hz}
+    if a == "concert-pitch":
+        return {"cmd": "concert_pitch", "hz": args.hz}
     if a == "transpose":
         text = args.amount.strip()
         try:
@@ -117,7 +119,7 @@ def _fmt(reply: dict) -> str:
         rows = reply.get("profiles") or []
         w = max([len(p["id"]) for p in rows] + [2])
         return "\n".join(f"{p['id']:<{w}}  {p.get('description', '')}" for p in rows)
-    if cmd in ("load", "reference", "transpose", "adaptive"):
+    if cmd in ("load", "concert_pitch", "reference", "transpose", "adaptive"):
         return (f"tuning {reply.get('tuning')}, reference "
                 f"{'profile' if reply.get('reference') is None else str(reply.get('reference')) + ' Hz'}, "
                 f"transpose {reply.get('transpose', 0)} st {reply.get('transpose_cents', 0.0):+.2f} c, "
@@ -130,7 +132,7 @@ def _fmt(reply: dict) -> str:
 def run(args) -> int:
     req = _request(args)
     try:
-        with ControlClient(args.socket, timeout=5.0) as client:
+        with ControlClient(args.control_socket, timeout=5.0) as client:
             client.send(req)
             reply = client.read()
             if reply is None:

@@ -6,7 +6,7 @@ from retuner.profiles.profile import load_profile
 from retuner.view import plot
 from retuner.view.showtable import degree_rows, format_ratio, interval_rows
 from retuner.pitch.tuning import NUM_KEYS, ratio_to_cents, rounded
-from retuner.commands._common import add_profiles_dir, print_json
+from retuner.commands._common import add_profile_dir, print_json
 from retuner.errors import RetunerError
 
 NAME = "show"
@@ -29,7 +29,7 @@ def add_arguments(parser):
                              "their beat rates in --octave (needs matplotlib: pip install 'retuner[plot]')")
     parser.add_argument("--beside", metavar="ID",
                         help="with --plot: draw this second tuning beside the first, for comparison")
-    add_profiles_dir(parser)
+    add_profile_dir(parser)
 
 
 def run(args) -> int:
@@ -37,9 +37,9 @@ def run(args) -> int:
         raise RetunerError("only works with --plot", field="--beside")
     if args.plot:
         plot.require_matplotlib()
-    t = load_profile(args.id, args.profiles_dir)
+    t = load_profile(args.id, args.profile_dirs)
     if args.plot:
-        tunings = [t] + ([load_profile(args.beside, args.profiles_dir)] if args.beside else [])
+        tunings = [t] + ([load_profile(args.beside, args.profile_dirs)] if args.beside else [])
         plot.plot_tunings(tunings, args.plot, args.octave)
         print(f"wrote {args.plot}")
         return 0

@@ -19,6 +19,7 @@ from retuner.adaptive.solver import AdaptiveConfig
 from retuner.control.protocol import Command
 from retuner.control.server import ControlServer, Handler
 from retuner.errors import RetunerError
+from retuner.live.config import adaptive_error, adaptive_fields
 from retuner.pitch.tuning import cents_to_hz
 from retuner.profiles.profile import list_profiles, load_profile
 
@@ -98,11 +99,11 @@ class EngineControl(Handler):
             if not isinstance(settings, dict):
                 raise RetunerError("adaptive: 'settings' must be an object", field="settings")
             cmd.data = self._adaptive_config(settings) if on else None
-        elif cmd.name == "reference":
+        elif cmd.name in ("concert_pitch", "reference"):
             hz = a.get("hz")
             if isinstance(hz, bool) or not isinstance(hz, (int, float)) or not math.isfinite(hz) \
                     or not 200.0 <= hz <= 1000.0:
-                raise RetunerError("reference: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
+                raise RetunerError("concert_pitch: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
         elif cmd.name == "transpose":
             if "semitones" not in a and "cents" not in a:
                 raise RetunerError("transpose: give 'semitones' and/or 'cents'")
@@ -119,19 +120,19 @@ class EngineControl(Handler):
     def _adaptive_config(self, settings: dict):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
+        settings = adaptive_fields({str(k).replace("-", "_"): v for k, v in settings.items()})
         base = self.session.adaptive_base
         if base is not None and dataclasses.is_dataclass(base):
             merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
-            merged.update({str(k).replace("-", "_"): v for k, v in settings.items()})
-            unknown = sorted(k for k in settings if str(k).replace("-", "_") not in
-                             {f.name for f in dataclasses.fields(base)})
+            merged.update(settings)
+            unknown = sorted(k for k in settings if k not in {f.name for f in dataclasses.fields(base)})
             if unknown:
                 raise RetunerError(f"unknown setting {unknown[0]!r}", field=f"adaptive.{unknown[0]}")
             settings = merged
         try:
             return AdaptiveConfig.from_dict(settings, file="control socket")
-        except RetunerError:
-            raise
+        except RetunerError as exc:
+            raise adaptive_error(exc)
         except (TypeError, ValueError) as exc:
             raise RetunerError(f"adaptive: {exc}", field="settings") from None
 
@@ -157,7 +158,7 @@ class EngineControl(Handler):
         if name == "load":
             self._emit(session.load(cmd.data, now, "control socket"))
             return session.info()
-        if name == "reference":
+        if name in ("concert_pitch", "reference"):
             self._emit(session.set_reference(float(a["hz"]), now))
             return session.info()
         if name == "transpose":
