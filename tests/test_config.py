@@ -8,7 +8,7 @@ import textwrap
 
 import pytest
 
-from retuner.live.config import Settings, load_config, parse_config, default_config_path
+from retuner.live.config import Settings, engine_config, load_config, parse_config, default_config_path
 from retuner.errors import RetunerError
 
 
@@ -173,3 +173,28 @@ def test_nested_adaptive_setting_names_its_line(tmp_path):
     assert r.returncode == 2
     (line,) = r.stderr.strip().splitlines()
     assert line.startswith(f"retuner: {cfg}:5: engine.adaptive.policy: "), line
+
+
+def test_old_config_keys_still_load_with_a_warning_naming_the_new_key():
+    s = parse_config("control:\n  path: /tmp/s\nengine:\n  adaptive: {window: 3}\n", "cfg.yaml")
+    assert s.control.path == "/tmp/s"
+    assert s.engine["adaptive"] == {"recentre_band_cents": 3}
+    assert set(s.notes) == {
+        "retuner: warning: cfg.yaml:2: control.path is now called control.socket; "
+        "the old name will go in a later release",
+        "retuner: warning: cfg.yaml:4: engine.adaptive.window is now called engine.adaptive.recentre_band_cents; "
+        "the old name will go in a later release"}
+
+
+def test_the_recentre_band_reaches_the_solver_and_is_named_with_its_unit():
+    s = parse_config("engine:\n  adaptive: {recentre_band_cents: 3, attack_time: 0.01}\n", "cfg.yaml")
+    assert s.notes == [] and engine_config(s).adaptive.window == 3.0
+    with pytest.raises(RetunerError) as ei:
+        parse_config("engine:\n  adaptive:\n    recentre_band_cents: 5000\n", "cfg.yaml")
+    assert str(ei.value).startswith(
+        "cfg.yaml:3: engine.adaptive.recentre_band_cents: must be between 0 and 1200 cents, got 5000")
+
+
+def test_status_interval_is_in_seconds():
+    assert parse_config("status_interval: 90\n", "cfg.yaml").status_interval == 90.0
+    assert Settings().status_interval == 600.0

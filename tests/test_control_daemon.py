@@ -15,6 +15,7 @@ Sources for the checks:
 from __future__ import annotations
 
 import json
+import re
 import math
 import os
 import shutil
@@ -154,6 +155,15 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     r = run.ctl("status")
     assert r.returncode == 0, r.stderr
     assert "werckmeister-3" in r.stdout
+    # an aligned table of plain words: one label column, no raw counter keys, ports and state
+    rows = r.stdout.rstrip("\n").splitlines()
+    width = len(re.match(r"^(.*?)  +\S", rows[0]).group(0)) - 1
+    assert all(len(row) > width and row[width - 2:width] == "  " and row[width] != " " for row in rows), rows
+    labels = {row[:width].strip() for row in rows}
+    assert {"profile", "concert pitch", "state", "input port", "output port", "sounding"} <= labels
+    assert not any("_" in label for label in labels), labels
+    assert re.search(r"^state +running for ", r.stdout, re.M)
+    assert re.search(r"^output port +our own port$", r.stdout, re.M)
     st = json.loads(run.ctl("--json", "status").stdout)
     assert st["ok"] and st["tuning"] == "werckmeister-3" and st["adaptive"] is False
     assert json.loads(run.ctl("status", "--json").stdout)["tuning"] == "werckmeister-3"

@@ -52,7 +52,7 @@ of all notes over the whole piece are chosen together:
   does alone). The plan or mixture with the widest margin over live is kept; if none beats
   live (it happens on arrangements, where live playing tunes each part on its own and so can
   keep every part centred, or where the player's wheel sets the drift), the report's
-  ``lookahead_check`` says ``beats_live: false`` with both sets of figures.
+  ``lookahead_check`` says ``better_than_live: false`` with both sets of figures.
 
 Unlike the live engine, which tunes each part on its own when a file is split
 into parts, the plan sees all parts of an arrangement together. Cost: about 5 s per plan for a
@@ -753,7 +753,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render, stream) -> 
     the interpolation of its plans' measures, up to a bend step): the one with the widest
     interpolated margin, if that beats live, is rendered and measured too. The plan or mixture with the widest
     measured margin is kept; if even that does not beat live, the summary says so
-    (``beats_live: false``, with both sets of figures)."""
+    (``better_than_live: false``, with both sets of figures)."""
     live = measure_outputs(live_outputs, config, stream)
     tried = []          # (plan, measures, outputs, description)
     plans = []          # the plans proper (mixtures are made of these)
@@ -798,7 +798,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render, stream) -> 
     chosen = max(tried, key=lambda t: _margin(t[1], live))
     _plan, m, outs, desc = chosen
     summary = dict(desc)
-    summary.update({"beats_live": _margin(m, live) > 0, "plans_tried": len(tried),
+    summary.update({"better_than_live": _margin(m, live) > 0, "plans_tried": len(tried),
                     "live": {k: round(v, 4) for k, v in live.items()},
                     "lookahead": {k: round(v, 4) for k, v in m.items()}})
     return Chosen(outs, summary)

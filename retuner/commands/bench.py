@@ -50,16 +50,16 @@ def _files_bench(args) -> int:
         return 0
     g = figs["goals"]
     print(f"convert {figs['events']} events ({figs['profile']}): {figs['convert_s']:.3f} s; "
-          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['ratio']:.2f} mido's time "
-          f"(goal <= {g['ratio']:g}); {figs['events_per_s']} events/s")
+          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['time_ratio']:.2f} mido's time "
+          f"(goal <= {g['time_ratio']:g}); {figs['events_per_s']} events/s")
     p = figs["piano"]
     print(f"piano-like file of {p['events']} events, converted with its summary: "
           f"{p['convert_with_summary_s']:.3f} s; mido load+save {p['mido_load_save_s']:.3f} s; "
-          f"x{p['ratio']:.2f} mido's time (goal <= {g['piano_ratio']:g})")
+          f"x{p['time_ratio']:.2f} mido's time (goal <= {g['piano_time_ratio']:g})")
     if "lookahead_s" in p:
         print(f"  convert --adaptive on {p['lookahead_events']} events: {p['adaptive_s']:.3f} s, "
               f"with --lookahead {p['lookahead_s']:.3f} s: "
-              f"x{p['lookahead_ratio']:.2f} (goal <= {g['lookahead_ratio']:g})")
+              f"x{p['lookahead_time_ratio']:.2f} (goal <= {g['lookahead_time_ratio']:g})")
     if "big" in figs:
         b = figs["big"]
         state = "" if b["status"] == 0 else f" FAILED (exit {b['status']}: {b['error']})"

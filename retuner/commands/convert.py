@@ -106,7 +106,8 @@ def run(args) -> int:
     opts = build_options(args)
     if os.path.isdir(args.input):
         if args.report or args.plot:
-            raise RetunerError("--report and --plot are for single files", field="--report")
+            raise RetunerError("is for a single file, not a folder (so is --plot)",
+                               field="--report" if args.report else "--plot")
         return convert_batch(args.input, args.output, opts, jobs=args.jobs, quiet=args.quiet)
     progress = _Progress(sys.stderr) if opts.lookahead and not args.quiet else None
     try:

@@ -52,6 +52,9 @@ def run(args) -> int:
     if not (args.concert_pitch > 0):
         raise RetunerError(f"must be a positive frequency in Hz, got {args.concert_pitch:g}",
                            field="--concert-pitch")
+    for option, value in (("--max-deviation", args.max_deviation), ("--max-wolf", args.max_wolf)):
+        if value is not None and not value >= 0:
+            raise RetunerError(f"must be 0 or more cents, got {value:g}", field=option)
     notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.exclude_channels])
     weights = fit.pair_weights(notes)
     if not weights:

@@ -385,7 +385,7 @@ def adaptive_error(exc: RetunerError) -> RetunerError:
         exc.field = f"{head}.{user}" if head else user
     unit = ADAPTIVE_UNITS.get(user)
     if unit and exc.message.startswith("must be between") and unit not in exc.message:
-        exc.message = re.sub(r"^(must be between \S+ and \S+)", rf"\1 {unit}", exc.message)
+        exc.message = re.sub(r"^(must be between [^\s,]+ and [^\s,]+)", rf"\1 {unit}", exc.message)
     return exc
 
 
