@@ -62,6 +62,13 @@ class _Parser(argparse.ArgumentParser):
                 parser.error(unknown_options_message(parser, extras))
         return ns, extras
 
+    def _get_option_tuples(self, option_string):
+        # an abbreviation matching a name now and an old name (kept for one release) means the
+        # name now: "--whole-semitone" is "--whole-semitone-range", not ambiguous with the old one
+        found = super()._get_option_tuples(option_string)
+        current = [t for t in found if not hasattr(t[0], "new")]
+        return current if current else found
+
     def error(self, message: str):  # noqa: D401 - argparse's hook
         self.exit(2, f"{self.prog}: {message} (see '{self.prog} --help')\n")
 

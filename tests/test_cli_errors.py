@@ -108,3 +108,9 @@ def test_options_checked_before_any_work_name_themselves_once(tmp_path):
     assert line == "retuner: --report: is for a single file, not a folder (so is --plot)"
     line = one_line(run_cli("fit", "a.mid", "-o", tmp_path / "b.yaml", "--max-deviation", "-1"))
     assert line == "retuner: --max-deviation: must be 0 or more cents, got -1"
+
+
+def test_an_abbreviation_means_the_name_now_not_the_old_one():
+    from retuner.cli import build_parser
+    args = build_parser().parse_args(["convert", "a.mid", "-o", "b.mid", "--whole-semitone"])
+    assert args.whole_semitone_range is True

@@ -23,7 +23,7 @@ DESCRIPTION = (
     "(largest mean deviation from 12-EDO) and the beat rates of the piece's most frequent "
     "consonant key pairs. Beat rate of an interval near the just ratio p:q (upper:lower), lower "
     "tone f1, upper tone f2: |q*f2 - p*f1| Hz. With --adaptive, adaptive tuning (live, and with "
-    "lookahead) is added, its reference being the first tuning listed.")
+    "lookahead) is added, played with the first tuning listed as its profile.")
 
 
 def add_arguments(parser) -> None:

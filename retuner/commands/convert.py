@@ -33,7 +33,7 @@ def add_arguments(parser) -> None:
     parser.add_argument("-o", "--output", required=True, metavar="OUT",
                         help="output file (or output folder when IN is a folder)")
     parser.add_argument("--profile", default="edo12", metavar="ID",
-                        help="tuning (profile id or YAML file; default edo12)")
+                        help="the profile to play (id or YAML file; default edo12)")
     add_profile_dir(parser)
     add_engine_arguments(parser)
     parser.add_argument("--merge-parts", action="store_true",

@@ -25,7 +25,7 @@ DESCRIPTION = (
 def add_arguments(parser):
     parser.add_argument("--config", metavar="FILE",
                         help="YAML config (default: $XDG_CONFIG_HOME/retuner/config.yaml if it exists)")
-    parser.add_argument("--profile", metavar="ID", help="tuning to play (profile id or file)")
+    parser.add_argument("--profile", metavar="ID", help="the profile to play (id or file; config: profile)")
     add_profile_dir(parser)
     parser.add_argument("--backend", choices=("alsa", "jack"), help="MIDI system (default alsa)")
     parser.add_argument("--input", metavar="NAME", help="port to read from: exact name, part of it, or a pattern")

@@ -11,7 +11,7 @@ HELP = "live view of a running daemon: sounding notes, intervals, beat rates, dr
 ORDER = 45
 DESCRIPTION = ("Show what the running daemon plays, refreshed 25 times a second: every sounding note "
                "(name, key, cents from 12-EDO, Hz), every interval (size, deviation from just, beat "
-               "rate), drift, the loaded tuning and counters. Press q to quit. Exit status 1 when no "
+               "rate), drift, the profile in force and counters. Press q to quit. Exit status 1 when no "
                "daemon is running. With --web PORT the same is served as a web page for a projector "
                "(the classroom view), which waits for the daemon and follows it when it restarts.")
 
