@@ -198,3 +198,45 @@ def test_the_recentre_band_reaches_the_solver_and_is_named_with_its_unit():
 def test_status_interval_is_in_seconds():
     assert parse_config("status_interval: 90\n", "cfg.yaml").status_interval == 90.0
     assert Settings().status_interval == 600.0
+
+
+def test_run_options_with_their_config_names_reach_the_settings(tmp_path):
+    from retuner.cli import build_parser
+    from retuner.commands import run as run_cmd
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("log_level: warning\nstatus_interval: 30\ncontrol: {socket: /tmp/a.sock}\n")
+    s = run_cmd._apply_flags(load_config(str(cfg)), build_parser().parse_args(["run", "--config", str(cfg)]))
+    assert (s.log_level, s.status_interval, s.control.path) == ("warning", 30.0, "/tmp/a.sock")
+    args = build_parser().parse_args(["run", "--config", str(cfg), "--log-level", "error",
+                                      "--status-interval", "90", "--control-socket", "/tmp/b.sock",
+                                      "--profile-dir", str(tmp_path)])
+    s = run_cmd._apply_flags(load_config(str(cfg)), args)
+    assert (s.log_level, s.status_interval, s.control.path) == ("error", 90.0, "/tmp/b.sock")
+    assert s.profile_dirs == [str(tmp_path)]
+
+
+@pytest.mark.parametrize("command, old, new", [
+    (["run"], ["--profiles-dir", "/tmp"], ["--profile-dir", "/tmp"]),
+    (["run"], ["--control-channel", "5"], ["--switch-channel", "5"]),
+    (["run"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+    (["run"], ["--verbose"], ["-v"]),
+    (["convert", "a", "-o", "b"], ["--whole-semitones"], ["--whole-semitone-range"]),
+    (["convert", "a", "-o", "b"], ["--mts-non-realtime"], ["--no-mts-realtime"]),
+    (["export", "edo12", "-o", "x.syx"], ["--mts-non-realtime"], ["--no-mts-realtime"]),
+    (["fit", "a.mid", "-o", "x.yaml"], ["--reference", "415"], ["--concert-pitch", "415"]),
+    (["fit", "a.mid", "-o", "x.yaml"], ["--passthrough", "9"], ["--exclude-channels", "9"]),
+    (["compare", "a.mid"], ["--passthrough", "9"], ["--exclude-channels", "9"]),
+    (["watch"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+    (["ctl", "status"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+])
+def test_an_old_option_name_does_what_the_new_one_does_with_one_warning(command, old, new, capsys):
+    from retuner.cli import build_parser
+
+    def parsed(argv):
+        return {k: v for k, v in vars(build_parser().parse_args(argv)).items() if k != "_parser"}
+    with_new = parsed(command + new)
+    assert capsys.readouterr().err == ""
+    with_old = parsed(command + old)
+    err = capsys.readouterr().err.strip().splitlines()
+    assert with_old == with_new
+    assert len(err) == 1 and err[0].startswith(f"retuner: warning: {old[0]} is now called {new[0]}")
