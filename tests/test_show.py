@@ -91,7 +91,7 @@ def test_show_gives_each_key_its_offset_from_the_same_key_in_12edo_unfolded():
     want = 6900 - 9 * 1200 / 19 - 6000
     assert f"{want:+.3f}" in row0.split()
     data = json.loads(run_cli("show", "edo19", "--json"))
-    assert data["keys"][60]["cents_from_12edo"] == pytest.approx(want, abs=1e-9)
+    assert data["keys"][60]["offset_cents"] == pytest.approx(want, abs=1e-9)
     assert data["degrees"][0]["cents_from_root"] == 0.0
 
 

@@ -48,10 +48,10 @@ def run(args) -> int:
             "id": t.id,
             "description": t.description,
             "source": t.source,
-            # cents: from key 0's 12-EDO pitch (as the control socket counts); cents_from_12edo:
+            # cents: from key 0's 12-EDO pitch (as the control socket counts); offset_cents:
             # from the key's own 12-EDO pitch; a degree's cents_from_root: above the root
             "keys": [{"key": k, "hz": t.hz(k), "cents": t.cents[k],
-                      "cents_from_12edo": None if t.cents[k] is None else t.cents[k] - 100.0 * k}
+                      "offset_cents": None if t.cents[k] is None else t.cents[k] - 100.0 * k}
                      for k in range(NUM_KEYS)],
             "degrees": [{"degree": r.index, "name": r.name, "cents_from_root": r.cents,
                          "ratio": format_ratio(r.ratio), "ratio_exact": r.exact}
