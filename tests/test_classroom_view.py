@@ -289,11 +289,11 @@ def test_the_page_frame_from_the_view_state():
     from retuner.view.watch import WatchState
     from retuner.view.web import frame
     s = WatchState()
-    s.snapshot({"tuning": "edo12", "base": "edo12", "reference": None, "transpose": 0, "transpose_cents": 0.0,
+    s.snapshot({"profile": "edo12", "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0,
                 "adaptive": True, "stats": {"notes": 2},
                 "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
     f = frame(s)
-    assert f["daemon"] == "live" and f["adaptive"] is True and f["tuning"] == "edo12"
+    assert f["daemon"] == "live" and f["adaptive"] is True and f["profile"] == "edo12"
     assert [(n["name"], round(n["offset_cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
     [iv] = f["intervals"]
     # a pure fifth (701.955 c = 3/2) does not beat

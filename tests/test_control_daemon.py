@@ -165,8 +165,8 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     assert re.search(r"^state +running for ", r.stdout, re.M)
     assert re.search(r"^output port +our own port$", r.stdout, re.M)
     st = json.loads(run.ctl("--json", "status").stdout)
-    assert st["ok"] and st["tuning"] == "werckmeister-3" and st["adaptive"] is False
-    assert json.loads(run.ctl("status", "--json").stdout)["tuning"] == "werckmeister-3"
+    assert st["ok"] and st["profile"] == "werckmeister-3" and st["adaptive"] is False
+    assert json.loads(run.ctl("status", "--json").stdout)["profile"] == "werckmeister-3"
     pr = json.loads(run.ctl("--json", "profiles").stdout)
     assert {"edo12", "vallotti", "werckmeister-3"} <= {p["id"] for p in pr["profiles"]}
 
@@ -236,7 +236,7 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
         assert rep["ok"] is False and rep["error"]
     s.close()
     st2 = json.loads(run.ctl("--json", "status").stdout)
-    assert st2["tuning"] == "edo12" and st2["adaptive"] is False and st2["reference"] == 440.0
+    assert st2["profile"] == "edo12" and st2["adaptive"] is False and st2["concert_pitch_hz"] == 440.0
     n = chord_cents(jack_client, [60, 67])
     assert n[67] - n[60] == pytest.approx(700.0, abs=2 * HALF_STEP)
     assert "Traceback" not in run.daemon.log()
@@ -283,7 +283,7 @@ def client(i):
         with ControlClient(path, timeout=30) as c:
             for j in range(3):
                 r = c.request("status", id=i * 10 + j)
-                if not (r["ok"] and r["id"] == i * 10 + j and r["tuning"] == "werckmeister-3"):
+                if not (r["ok"] and r["id"] == i * 10 + j and r["profile"] == "werckmeister-3"):
                     errors.append(f"{i}: {r}")
             if c.request("nope")["ok"]:
                 errors.append(f"{i}: unknown command accepted")
@@ -374,7 +374,7 @@ def held_chord_daemon(run_daemon, jack_client):
 def check_watch_text(text: str) -> None:
     # hand calculation, 12-EDO at A4 = 440 Hz: C4 = 261.626 Hz, E4 = 329.628 Hz, G4 = 391.995 Hz
     lines = [" ".join(l.split()) for l in text.splitlines()]
-    assert "TUNING edo12" in " ".join(lines)
+    assert "PROFILE edo12" in " ".join(lines)
     assert "C4 60 +0.00 261.63" in lines
     assert "E4 64 +0.00 329.63" in lines
     assert "G4 67 +0.00 392.00" in lines
@@ -447,12 +447,12 @@ def test_reload_keeps_a_live_switch_unless_the_config_changes_its_tuning(run_dae
         r.daemon.signal(signal.SIGHUP)
         r.notify.wait_for("READY=1", count=2)
         st = json.loads(r.ctl("status", "--json").stdout)
-        assert st["tuning"] == "pythagorean"
+        assert st["profile"] == "pythagorean"
         with open(cfg, "w") as fh:
             fh.write("profile: vallotti\n")
         r.daemon.signal(signal.SIGHUP)
         r.notify.wait_for("READY=1", count=3)
         st = json.loads(r.ctl("status", "--json").stdout)
-        assert st["tuning"] == "vallotti"
+        assert st["profile"] == "vallotti"
     finally:
         shutil.rmtree(cfg_dir, ignore_errors=True)

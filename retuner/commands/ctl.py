@@ -121,13 +121,11 @@ def _port(name, is_open) -> str:
 def _fmt_status(r: dict) -> str:
     """The status reply as an aligned table of plain words: what plays, the ports, the state, counters."""
     rows: list[tuple[str, str]] = []
-    profile = str(r.get("tuning"))
-    if r.get("base") not in (None, r.get("tuning")):
-        profile += f" (from {r.get('base')})"
-    rows.append(("profile", profile))
-    rows.append(("concert pitch", "as the profile says" if r.get("reference") is None
-                 else f"A4 = {_number(r['reference'])} Hz"))
-    rows.append(("transpose", f"{r.get('transpose', 0)} semitones, {r.get('transpose_cents', 0.0):+.2f} cents"))
+    rows.append(("profile", str(r.get("profile"))))
+    rows.append(("concert pitch", "as the profile says" if r.get("concert_pitch_hz") is None
+                 else f"A4 = {_number(r['concert_pitch_hz'])} Hz"))
+    rows.append(("transpose", f"{r.get('transpose_semitones', 0)} semitones, "
+                              f"{r.get('transpose_cents', 0.0):+.2f} cents"))
     rows.append(("adaptive", "on" if r.get("adaptive") else "off"))
     if "uptime" in r:
         rows.append(("state", f"running for {_duration(r['uptime'])}"))
@@ -173,9 +171,10 @@ def _fmt(reply: dict) -> str:
         w = max([len(p["id"]) for p in rows] + [2])
         return "\n".join(f"{p['id']:<{w}}  {p.get('description', '')}" for p in rows)
     if cmd in ("load", "concert_pitch", "reference", "transpose", "adaptive"):
-        return (f"profile {reply.get('tuning')}, concert pitch "
-                f"{'as the profile says' if reply.get('reference') is None else str(reply.get('reference')) + ' Hz'}, "
-                f"transpose {reply.get('transpose', 0)} st {reply.get('transpose_cents', 0.0):+.2f} c, "
+        hz = reply.get("concert_pitch_hz")
+        return (f"profile {reply.get('profile')}, concert pitch "
+                f"{'as the profile says' if hz is None else f'A4 = {_number(hz)} Hz'}, "
+                f"transpose {reply.get('transpose_semitones', 0)} st {reply.get('transpose_cents', 0.0):+.2f} c, "
                 f"adaptive {'on' if reply.get('adaptive') else 'off'}")
     if cmd == "panic":
         return f"released {reply.get('released', 0)} notes"

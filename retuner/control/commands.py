@@ -137,9 +137,17 @@ class EngineControl(Handler):
             raise RetunerError(f"adaptive: {exc}", field="settings") from None
 
     # -------------------------------------------------------- engine thread
+    def info(self) -> dict:
+        """What plays, under the socket's field names: the profile in force, the concert pitch that
+        overrides the profile's own (None: the profile's), the transposition and adaptive mode."""
+        i = self.session.info()
+        return {"profile": i["base"], "concert_pitch_hz": i["reference"],
+                "transpose_semitones": i["transpose"], "transpose_cents": i["transpose_cents"],
+                "adaptive": i["adaptive"]}
+
     def _session_changed(self, kind: str, t: float) -> None:
         if kind == "tuning":
-            self._publish({"event": "tuning", "t": t, **self.session.info()})
+            self._publish({"event": "profile", "t": t, **self.info()})
         else:
             self._publish({"event": "adaptive", "t": t, "on": self.session.adaptive_settings is not None,
                            "settings": self.session.adaptive_settings})
@@ -157,16 +165,16 @@ class EngineControl(Handler):
             return self.status()
         if name == "load":
             self._emit(session.load(cmd.data, now, "control socket"))
-            return session.info()
+            return self.info()
         if name in ("concert_pitch", "reference"):
             self._emit(session.set_reference(float(a["hz"]), now))
-            return session.info()
+            return self.info()
         if name == "transpose":
             self._emit(session.set_transpose(int(a.get("semitones", 0)), float(a.get("cents", 0.0)), now))
-            return session.info()
+            return self.info()
         if name == "adaptive":
             self._emit(session.set_adaptive(cmd.data, now, a.get("settings")))
-            return session.info()
+            return self.info()
         if name == "panic":
             if self.host.panic is not None:
                 sounding = self.host.panic(now)
@@ -200,7 +208,7 @@ class EngineControl(Handler):
 
     def status(self) -> dict:
         eng = self.engine
-        out = self.session.info()
+        out = self.info()
         out["stats"] = dict(getattr(eng, "stats", {}) or {})
         out["sounding"] = len(eng.sounding())
         if self.server is not None:
@@ -245,4 +253,4 @@ class EngineControl(Handler):
             self._next_counters = now + self.COUNTER_INTERVAL
             stats = dict(getattr(self.engine, "stats", {}) or {})
             stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
-            server.publish({"event": "counters", "t": now, "tuning": self.session.current.id, **stats})
+            server.publish({"event": "counters", "t": now, "profile": self.session.base.id, **stats})

@@ -4,9 +4,9 @@ Each request is one JSON object on one line, each reply one JSON object on one
 line (UTF-8, ``\n``-terminated)::
 
     -> {"cmd": "status"}
-    <- {"ok": true, "cmd": "status", "tuning": "werckmeister-3", ...}
+    <- {"ok": true, "cmd": "status", "profile": "werckmeister-3", "concert_pitch_hz": null, ...}
     -> {"cmd": "load", "profile": "vallotti", "id": 7}
-    <- {"ok": true, "cmd": "load", "id": 7, "tuning": "vallotti"}
+    <- {"ok": true, "cmd": "load", "id": 7, "profile": "vallotti", ...}
     -> {"cmd": "concert_pitch", "hz": 415}
     -> {"cmd": "nonsense"}
     <- {"ok": false, "error": "unknown command 'nonsense' (known: ...)"}
@@ -14,7 +14,10 @@ line (UTF-8, ``\n``-terminated)::
 ``id`` is optional and echoed. The commands and the fields each takes are
 :data:`COMMANDS` (what they do: retuner.control.commands). A subscribed client
 then receives event lines (``{"event": "note_on", ...}``, ``note_off``,
-``pitch``, ``tuning``, ``adaptive``, ``counters``, ``panic``) until it disconnects.
+``pitch``, ``profile``, ``adaptive``, ``counters``, ``panic``) until it disconnects.
+What plays is named the same everywhere: ``profile`` (the profile in force), ``concert_pitch_hz``
+(A4 over the profile's own concert pitch; null: the profile's), ``transpose_semitones``,
+``transpose_cents``, ``adaptive``.
 """
 
 from __future__ import annotations

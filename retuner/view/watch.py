@@ -94,12 +94,16 @@ def drift(notes: list[dict]) -> Optional[float]:
     return sum(devs) / len(devs) if devs else None
 
 
+# what plays, as the control socket names it
+INFO_FIELDS = ("profile", "concert_pitch_hz", "transpose_semitones", "transpose_cents", "adaptive")
+
+
 @dataclass
 class WatchState:
     """What the view shows, folded from the subscription's events."""
 
     notes: dict[tuple[int, int], dict] = field(default_factory=dict)   # (channel, key) -> note
-    info: dict = field(default_factory=dict)          # tuning, base, reference, transpose, adaptive
+    info: dict = field(default_factory=dict)          # profile, concert pitch, transpose, adaptive
     counters: dict = field(default_factory=dict)
     connected: bool = True
     events: int = 0
@@ -108,8 +112,7 @@ class WatchState:
     def snapshot(self, reply: dict) -> None:
         """Start from the subscribe reply (a status plus the sounding notes)."""
         self.notes = {(n.get("channel", 0), n["key"]): dict(n) for n in reply.get("notes") or []}
-        self.info = {k: reply.get(k) for k in ("tuning", "base", "reference", "transpose",
-                                               "transpose_cents", "adaptive")}
+        self.info = {k: reply.get(k) for k in INFO_FIELDS}
         self.counters = dict(reply.get("stats") or {})
 
     def apply(self, ev: dict) -> None:
@@ -124,17 +127,17 @@ class WatchState:
             n["hz"] = ev.get("hz")
         elif kind == "note_off":
             self.notes.pop(k, None)
-        elif kind == "tuning":
-            for f in ("tuning", "base", "reference", "transpose", "transpose_cents", "adaptive"):
+        elif kind == "profile":
+            for f in INFO_FIELDS:
                 if f in ev:
                     self.info[f] = ev[f]
         elif kind == "adaptive":
             self.info["adaptive"] = ev.get("on")
         elif kind == "counters":
-            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "tuning")}
+            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "profile")}
             self.counters.update(c)
-            if ev.get("tuning"):
-                self.info["tuning"] = ev["tuning"]
+            if ev.get("profile"):
+                self.info["profile"] = ev["profile"]
         elif kind == "panic":
             self.message = "PANIC: all notes released"
 
@@ -172,15 +175,14 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     """
     notes = sorted(state.notes.values(), key=lambda n: (n.get("cents") or 0.0, n["key"]))
     info = state.info
-    ref = info.get("reference")
+    ref = info.get("concert_pitch_hz")
     lines: list[str] = []
     state_word = "LIVE" if state.connected else "** DISCONNECTED: the daemon stopped **"
     if state.message:
         state_word += f"  ** {state.message} **"
-    lines.append(f"{state_word}    TUNING  {info.get('tuning') or '?'}"
-                 + (f"  (from {info.get('base')})" if info.get("base") and info.get("base") != info.get("tuning") else "")
+    lines.append(f"{state_word}    PROFILE  {info.get('profile') or '?'}"
                  + f"    A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
-                 + f"    TRANSPOSE {info.get('transpose') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
+                 + f"    TRANSPOSE {info.get('transpose_semitones') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
                  + f"    ADAPTIVE {'ON' if info.get('adaptive') else 'OFF'}")
     d = drift(notes)
     c = state.counters
