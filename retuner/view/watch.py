@@ -190,7 +190,7 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
                  f"    RINGING RETUNES {c.get('ringing_retunes', 0)}    DROPPED EVENTS {c.get('events_dropped', 0)}")
     lines.append("")
     lines.append(f"SOUNDING {len(notes)}")
-    lines.append(f"{'NOTE':<6}{'KEY':>5}{'CENTS vs 12-EDO':>18}{'HZ':>12}")
+    lines.append(f"{'NOTE':<6}{'KEY':>5}{'FROM 12-EDO c':>18}{'HZ':>12}")
     for n in notes:
         c_ = n.get("cents")
         dev = None if c_ is None else c_ - 100.0 * n["key"]
@@ -200,11 +200,11 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     lines.append("")
     rows = interval_rows(notes)
     lines.append(f"INTERVALS {len(rows)}")
-    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'DEV c':>9}{'BEATS Hz':>10}")
+    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'FROM JUST c':>13}{'BEAT RATE Hz':>14}")
     for r in rows:
         pair = f"{note_name(r.low)}-{note_name(r.high)}"
-        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+9.2f}"
-                     f"{r.beats:>10.2f}" + ("" if r.consonant else "  (dissonant)"))
+        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+13.2f}"
+                     f"{r.beats:>14.2f}" + ("" if r.consonant else "  (dissonant)"))
     if big and notes:
         banner = big_text("  ".join(note_name(n["key"]) for n in notes))
         if max(len(b) for b in banner) <= width and len(lines) + 6 <= height:
