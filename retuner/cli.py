@@ -18,6 +18,7 @@ the same error.
 from __future__ import annotations
 
 import argparse
+import difflib
 import importlib
 import pkgutil
 import sys
@@ -40,10 +41,49 @@ def _command_modules():
 
 
 class _Parser(argparse.ArgumentParser):
-    """Usage mistakes are one line (and exit status 2), like every other mistake."""
+    """Usage mistakes are one line (and exit status 2), like every other mistake. An unknown
+    option is reported by the sub-command it was given to, with the nearest option it has."""
+
+    def parse_known_args(self, args=None, namespace=None):
+        ns, extras = super().parse_known_args(args, namespace)
+        if extras and self._subparsers is None:
+            return ns, extras
+        if extras:
+            # the innermost sub-command given: it names the unknown option and its own help
+            parser = self
+            while parser._subparsers is not None:
+                action = next((a for a in parser._subparsers._group_actions
+                               if isinstance(a, argparse._SubParsersAction)), None)
+                chosen = getattr(ns, action.dest, None) if action is not None else None
+                if chosen not in (action.choices if action is not None else {}):
+                    break
+                parser = action.choices[chosen]
+            if parser is not self:
+                parser.error(unknown_options_message(parser, extras))
+        return ns, extras
+
+    def _get_option_tuples(self, option_string):
+        # an abbreviation matching a name now and an old name (kept for one release) means the
+        # name now: "--whole-semitone" is "--whole-semitone-range", not ambiguous with the old one
+        found = super()._get_option_tuples(option_string)
+        current = [t for t in found if not hasattr(t[0], "new")]
+        return current if current else found
 
     def error(self, message: str):  # noqa: D401 - argparse's hook
         self.exit(2, f"{self.prog}: {message} (see '{self.prog} --help')\n")
+
+
+def unknown_options_message(parser: argparse.ArgumentParser, extras: list[str]) -> str:
+    """'unrecognized arguments: --profles-dir x; did you mean --profile-dir?'"""
+    message = f"unrecognized arguments: {' '.join(extras)}"
+    # every long option, an old name standing for its name now
+    known = {o: getattr(a, "new", o) for o, a in parser._option_string_actions.items() if o.startswith("--")}
+    for word in extras:
+        if word.startswith("-"):
+            near = difflib.get_close_matches(word.split("=", 1)[0], list(known), n=1, cutoff=0.6)
+            if near:
+                return f"{message}; did you mean {known[near[0]]}?"
+    return message
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -170,5 +170,5 @@ def test_bench_reports_live_figures_beside_the_chord_window():
         assert live[piece]["latency_p99_ms"] == 0.0
         assert 10.0 < win[piece]["latency_p99_ms"] <= 20.0 + 1e-6
         assert live[piece]["attack_retunes_per_note"] > 0 and win[piece]["attack_retunes_per_note"] == 0
-    assert live["chorales"]["impurity"] < win["chorales"]["impurity"]
+    assert live["chorales"]["impurity_cents"] < win["chorales"]["impurity_cents"]
     assert "live_latency_p99<=1ms" in res["goals"]

@@ -107,7 +107,7 @@ def release(client, keys) -> None:
 
 
 def start_view(live: LiveDaemon) -> tuple[subprocess.Popen, str]:
-    proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--socket", live.sock],
+    proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--control-socket", live.sock],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=live.env, cwd=REPO)
     ready, _, _ = select.select([proc.stdout], [], [], 30)
     assert ready, "retuner watch --web printed no address within 30 s"
@@ -221,7 +221,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
             browser.screenshot(str(tmp_path / f"classroom-view-four-notes-{w}x{h}.png"))
 
         # a panic shows on the page until a note plays again
-        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "panic"],
+        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", live.sock, "panic"],
                            capture_output=True, text=True, timeout=30, env=live.env)
         assert r.returncode == 0, r.stderr
         browser.wait_for('document.getElementById("banner").textContent.includes("PANIC")'
@@ -231,7 +231,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
                          ' && document.getElementById("banner").hidden')
         release(jack_client, [60, 64, 67, 72, 65])
         # adaptive mode switched on from the command line shows on the page
-        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", live.sock, "adaptive", "on"],
+        r = subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", live.sock, "adaptive", "on"],
                            capture_output=True, text=True, timeout=30, env=live.env)
         assert r.returncode == 0, r.stderr
         browser.wait_for('document.getElementById("adaptive-value").textContent === "ON"')
@@ -267,7 +267,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
 
 def test_a_view_open_to_the_network_says_so(tmp_path):
     proc = subprocess.Popen([sys.executable, "-m", "retuner", "watch", "--web", "0", "--web-address", "0.0.0.0",
-                             "--socket", str(tmp_path / "none.sock")],
+                             "--control-socket", str(tmp_path / "none.sock")],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=REPO)
     try:
         ready, _, _ = select.select([proc.stdout], [], [], 30)
@@ -289,11 +289,11 @@ def test_the_page_frame_from_the_view_state():
     from retuner.view.watch import WatchState
     from retuner.view.web import frame
     s = WatchState()
-    s.snapshot({"tuning": "edo12", "base": "edo12", "reference": None, "transpose": 0, "transpose_cents": 0.0,
+    s.snapshot({"profile": "edo12", "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0,
                 "adaptive": True, "stats": {"notes": 2},
                 "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
     f = frame(s)
-    assert f["daemon"] == "live" and f["adaptive"] is True and f["tuning"] == "edo12"
+    assert f["daemon"] == "live" and f["adaptive"] is True and f["profile"] == "edo12"
     assert [(n["name"], round(n["offset_cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
     [iv] = f["intervals"]
     # a pure fifth (701.955 c = 3/2) does not beat

@@ -8,7 +8,7 @@ import textwrap
 
 import pytest
 
-from retuner.live.config import Settings, load_config, parse_config, default_config_path
+from retuner.live.config import Settings, engine_config, load_config, parse_config, default_config_path
 from retuner.errors import RetunerError
 
 
@@ -41,10 +41,10 @@ def test_named_file_must_exist(tmp_path):
     assert "nope.yaml" in str(ei.value)
 
 
-def test_full_config_parses():
+def test_full_config_parses(tmp_path):
     s = parse_config(textwrap.dedent("""\
         profile: werckmeister-3
-        profile_dirs: [/tmp/x]
+        profile_dirs: [TMP]
         backend: mido.backends.rtmidi/UNIX_JACK
         input: "Digital Piano"
         output: "FLUID*"
@@ -55,8 +55,8 @@ def test_full_config_parses():
         status_interval: 5
         port_poll: 0.25
         log_level: debug
-        control: {enabled: false, path: /tmp/sock}
-        """), "cfg.yaml")
+        control: {enabled: false, socket: /tmp/sock}
+        """).replace("TMP", str(tmp_path)), "cfg.yaml")
     assert s.backend == "jack"
     assert s.input == "Digital Piano" and s.output == "FLUID*"
     assert s.profiles == ["edo12", "meantone-quarter", "werckmeister-3"]
@@ -117,7 +117,7 @@ def test_flags_override_the_file(tmp_path):
                    "engine: {pool: [1, 2, 3], bend_range: 12}\nswitch: {channel: 3}\n")
     args = build_parser().parse_args(["run", "--config", str(cfg), "--profile", "edo19", "--backend", "jack",
                                       "--pool", "1-4,6", "--bend-scale", "127/128",
-                                      "--control-channel", "16", "--virtual"])
+                                      "--switch-channel", "16", "--virtual"])
     s = run_cmd._apply_flags(load_config(args.config), args)
     assert (s.profile, s.backend, s.input, s.virtual) == ("edo19", "jack", "Piano", True)
     assert s.engine["pool"] == (1, 2, 3, 4, 6) and s.engine["bend_range"] == 12.0
@@ -173,3 +173,70 @@ def test_nested_adaptive_setting_names_its_line(tmp_path):
     assert r.returncode == 2
     (line,) = r.stderr.strip().splitlines()
     assert line.startswith(f"retuner: {cfg}:5: engine.adaptive.policy: "), line
+
+
+def test_old_config_keys_still_load_with_a_warning_naming_the_new_key():
+    s = parse_config("control:\n  path: /tmp/s\nengine:\n  adaptive: {window: 3}\n", "cfg.yaml")
+    assert s.control.path == "/tmp/s"
+    assert s.engine["adaptive"] == {"recentre_band_cents": 3}
+    assert set(s.notes) == {
+        "retuner: warning: cfg.yaml:2: control.path is now called control.socket; "
+        "the old name will go in a later release",
+        "retuner: warning: cfg.yaml:4: engine.adaptive.window is now called engine.adaptive.recentre_band_cents; "
+        "the old name will go in a later release"}
+
+
+def test_the_recentre_band_reaches_the_solver_and_is_named_with_its_unit():
+    s = parse_config("engine:\n  adaptive: {recentre_band_cents: 3, attack_time: 0.01}\n", "cfg.yaml")
+    assert s.notes == [] and engine_config(s).adaptive.window == 3.0
+    with pytest.raises(RetunerError) as ei:
+        parse_config("engine:\n  adaptive:\n    recentre_band_cents: 5000\n", "cfg.yaml")
+    assert str(ei.value).startswith(
+        "cfg.yaml:3: engine.adaptive.recentre_band_cents: must be between 0 and 1200 cents, got 5000")
+
+
+def test_status_interval_is_in_seconds():
+    assert parse_config("status_interval: 90\n", "cfg.yaml").status_interval == 90.0
+    assert Settings().status_interval == 600.0
+
+
+def test_run_options_with_their_config_names_reach_the_settings(tmp_path):
+    from retuner.cli import build_parser
+    from retuner.commands import run as run_cmd
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("log_level: warning\nstatus_interval: 30\ncontrol: {socket: /tmp/a.sock}\n")
+    s = run_cmd._apply_flags(load_config(str(cfg)), build_parser().parse_args(["run", "--config", str(cfg)]))
+    assert (s.log_level, s.status_interval, s.control.path) == ("warning", 30.0, "/tmp/a.sock")
+    args = build_parser().parse_args(["run", "--config", str(cfg), "--log-level", "error",
+                                      "--status-interval", "90", "--control-socket", "/tmp/b.sock",
+                                      "--profile-dir", str(tmp_path)])
+    s = run_cmd._apply_flags(load_config(str(cfg)), args)
+    assert (s.log_level, s.status_interval, s.control.path) == ("error", 90.0, "/tmp/b.sock")
+    assert s.profile_dirs == [str(tmp_path)]
+
+
+@pytest.mark.parametrize("command, old, new", [
+    (["run"], ["--profiles-dir", "/tmp"], ["--profile-dir", "/tmp"]),
+    (["run"], ["--control-channel", "5"], ["--switch-channel", "5"]),
+    (["run"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+    (["run"], ["--verbose"], ["-v"]),
+    (["convert", "a", "-o", "b"], ["--whole-semitones"], ["--whole-semitone-range"]),
+    (["convert", "a", "-o", "b"], ["--mts-non-realtime"], ["--no-mts-realtime"]),
+    (["export", "edo12", "-o", "x.syx"], ["--mts-non-realtime"], ["--no-mts-realtime"]),
+    (["fit", "a.mid", "-o", "x.yaml"], ["--reference", "415"], ["--concert-pitch", "415"]),
+    (["fit", "a.mid", "-o", "x.yaml"], ["--passthrough", "9"], ["--exclude-channels", "9"]),
+    (["compare", "a.mid"], ["--passthrough", "9"], ["--exclude-channels", "9"]),
+    (["watch"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+    (["ctl", "status"], ["--socket", "/tmp/s"], ["--control-socket", "/tmp/s"]),
+])
+def test_an_old_option_name_does_what_the_new_one_does_with_one_warning(command, old, new, capsys):
+    from retuner.cli import build_parser
+
+    def parsed(argv):
+        return {k: v for k, v in vars(build_parser().parse_args(argv)).items() if k != "_parser"}
+    with_new = parsed(command + new)
+    assert capsys.readouterr().err == ""
+    with_old = parsed(command + old)
+    err = capsys.readouterr().err.strip().splitlines()
+    assert with_old == with_new
+    assert len(err) == 1 and err[0].startswith(f"retuner: warning: {old[0]} is now called {new[0]}")

@@ -15,6 +15,7 @@ Sources for the checks:
 from __future__ import annotations
 
 import json
+import re
 import math
 import os
 import shutil
@@ -91,7 +92,7 @@ class Run:
         self.env = env
 
     def ctl(self, *args, timeout=20):
-        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--socket", self.sock, *args],
+        return subprocess.run([sys.executable, "-m", "retuner", "ctl", "--control-socket", self.sock, *args],
                               capture_output=True, text=True, timeout=timeout, env=self.env)
 
     def stop(self):
@@ -154,9 +155,18 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     r = run.ctl("status")
     assert r.returncode == 0, r.stderr
     assert "werckmeister-3" in r.stdout
+    # an aligned table of plain words: one label column, no raw counter keys, ports and state
+    rows = r.stdout.rstrip("\n").splitlines()
+    width = len(re.match(r"^(.*?)  +\S", rows[0]).group(0)) - 1
+    assert all(len(row) > width and row[width - 2:width] == "  " and row[width] != " " for row in rows), rows
+    labels = {row[:width].strip() for row in rows}
+    assert {"profile", "concert pitch", "state", "input port", "output port", "sounding"} <= labels
+    assert not any("_" in label for label in labels), labels
+    assert re.search(r"^state +running for ", r.stdout, re.M)
+    assert re.search(r"^output port +our own port$", r.stdout, re.M)
     st = json.loads(run.ctl("--json", "status").stdout)
-    assert st["ok"] and st["tuning"] == "werckmeister-3" and st["adaptive"] is False
-    assert json.loads(run.ctl("status", "--json").stdout)["tuning"] == "werckmeister-3"
+    assert st["ok"] and st["profile"] == "werckmeister-3" and st["adaptive"] is False
+    assert json.loads(run.ctl("status", "--json").stdout)["profile"] == "werckmeister-3"
     pr = json.loads(run.ctl("--json", "profiles").stdout)
     assert {"edo12", "vallotti", "werckmeister-3"} <= {p["id"] for p in pr["profiles"]}
 
@@ -173,14 +183,14 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
     r = run.ctl("load", "no-such-tuning")
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "no-such-tuning" in r.stderr
 
-    r = run.ctl("reference", "442")
+    r = run.ctl("concert-pitch", "442")
     assert r.returncode == 0, r.stderr
     n = chord_cents(jack_client, [69])
     # A4 at 442 Hz: 6900 + 1200*log2(442/440) cents above key 0 of 12-EDO at 440 (ISO 16)
     assert n[69] == pytest.approx(6900 + 1200 * math.log2(442 / 440), abs=HALF_STEP + 1e-9)
 
     assert run.ctl("load", "just-5limit").returncode == 0
-    assert run.ctl("reference", "440").returncode == 0
+    assert run.ctl("concert-pitch", "440").returncode == 0
     n = chord_cents(jack_client, [62, 69])
     assert n[69] - n[62] == pytest.approx(ratio_to_cents(Fraction(40, 27)), abs=2 * HALF_STEP)  # D-A wolf on C
     r = run.ctl("transpose", "2")
@@ -227,7 +237,7 @@ def test_socket_and_every_command_on_the_daemon(run_daemon, jack_client):
         assert rep["ok"] is False and rep["error"]
     s.close()
     st2 = json.loads(run.ctl("--json", "status").stdout)
-    assert st2["tuning"] == "edo12" and st2["adaptive"] is False and st2["reference"] == 440.0
+    assert st2["profile"] == "edo12" and st2["adaptive"] is False and st2["concert_pitch_hz"] == 440.0
     n = chord_cents(jack_client, [60, 67])
     assert n[67] - n[60] == pytest.approx(700.0, abs=2 * HALF_STEP)
     assert "Traceback" not in run.daemon.log()
@@ -274,7 +284,7 @@ def client(i):
         with ControlClient(path, timeout=30) as c:
             for j in range(3):
                 r = c.request("status", id=i * 10 + j)
-                if not (r["ok"] and r["id"] == i * 10 + j and r["tuning"] == "werckmeister-3"):
+                if not (r["ok"] and r["id"] == i * 10 + j and r["profile"] == "werckmeister-3"):
                     errors.append(f"{i}: {r}")
             if c.request("nope")["ok"]:
                 errors.append(f"{i}: unknown command accepted")
@@ -365,7 +375,7 @@ def held_chord_daemon(run_daemon, jack_client):
 def check_watch_text(text: str) -> None:
     # hand calculation, 12-EDO at A4 = 440 Hz: C4 = 261.626 Hz, E4 = 329.628 Hz, G4 = 391.995 Hz
     lines = [" ".join(l.split()) for l in text.splitlines()]
-    assert "TUNING edo12" in " ".join(lines)
+    assert "PROFILE edo12" in " ".join(lines)
     assert "C4 60 +0.00 261.63" in lines
     assert "E4 64 +0.00 329.63" in lines
     assert "G4 67 +0.00 392.00" in lines
@@ -379,7 +389,7 @@ def check_watch_text(text: str) -> None:
 
 def test_watch_once_shows_the_held_chord(run_daemon, jack_client):
     run = held_chord_daemon(run_daemon, jack_client)
-    r = subprocess.run([sys.executable, "-m", "retuner", "watch", "--socket", run.sock, "--once"],
+    r = subprocess.run([sys.executable, "-m", "retuner", "watch", "--control-socket", run.sock, "--once"],
                        capture_output=True, text=True, timeout=30, env=run.env)
     assert r.returncode == 0, r.stderr
     check_watch_text(r.stdout)
@@ -438,12 +448,12 @@ def test_reload_keeps_a_live_switch_unless_the_config_changes_its_tuning(run_dae
         r.daemon.signal(signal.SIGHUP)
         r.notify.wait_for("READY=1", count=2)
         st = json.loads(r.ctl("status", "--json").stdout)
-        assert st["tuning"] == "pythagorean"
+        assert st["profile"] == "pythagorean"
         with open(cfg, "w") as fh:
             fh.write("profile: vallotti\n")
         r.daemon.signal(signal.SIGHUP)
         r.notify.wait_for("READY=1", count=3)
         st = json.loads(r.ctl("status", "--json").stdout)
-        assert st["tuning"] == "vallotti"
+        assert st["profile"] == "vallotti"
     finally:
         shutil.rmtree(cfg_dir, ignore_errors=True)

@@ -189,6 +189,6 @@ def test_a_transpose_from_the_control_socket_survives_a_program_change():
         r.play(mido_program(1, channel=15), note_on(69))
         (n,) = r.decode().stuck()
         assert abs(n.cents - (6900.0 + 10.0)) <= half_step(2)
-        assert r.daemon.control.status()["base"] == "just-5limit"
+        assert r.daemon.control.status()["profile"] == "just-5limit"
     finally:
         r.close()

@@ -28,15 +28,15 @@ def test_run_and_convert_offer_the_same_engine_options():
         sub = next(a for a in build_parser()._actions if a.dest == "command")
         return {o for a in sub.choices[cmd]._actions for o in a.option_strings}
     shared = {"--mode", "--pool", "--passthrough", "--bend-range", "--release-time",
-              "--bend-scale", "--whole-semitones", "--mpe-zone", "--mpe-members", "--mts-device",
-              "--mts-program", "--mts-bank", "--mts-non-realtime", "--adaptive", "--policy",
+              "--bend-scale", "--whole-semitone-range", "--mpe-zone", "--mpe-members", "--mts-device",
+              "--mts-program", "--mts-bank", "--no-mts-realtime", "--adaptive", "--policy",
               "--chord-window", "--max-drift", "--max-motion", "--limit", "--centre"}
     assert shared <= options("run") and shared <= options("convert")
 
 
 def test_mts_options_reach_the_engine():
     args = parse("convert", "in.mid", "-o", "out.mid", "--mode", "mts", "--mts-device", "5",
-                 "--mts-program", "3", "--mts-bank", "2", "--mts-non-realtime")
+                 "--mts-program", "3", "--mts-bank", "2", "--no-mts-realtime")
     cfg = build_engine_config(engine_overrides(args))
     assert (cfg.mts_device, cfg.mts_program, cfg.mts_bank, cfg.mts_realtime) == (5, 3, 2, False)
 

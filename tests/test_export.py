@@ -112,7 +112,7 @@ def test_single_format_round_trip(tmp_path):
 
 def test_single_bank_form(tmp_path):
     out = tmp_path / "b.syx"
-    r = run_cli("export", "edo12", "--format", "mts-single", "--mts-bank", "3", "--mts-non-realtime", "-o", str(out))
+    r = run_cli("export", "edo12", "--format", "mts-single", "--mts-bank", "3", "--no-mts-realtime", "-o", str(out))
     assert r.returncode == 0, r.stderr
     # CA-020: non-real-time single note tuning change with bank select: 7E dev 08 07 bb tt ll
     assert out.read_bytes()[:8] == bytes([0xF0, 0x7E, 0x7F, 0x08, 0x07, 3, 0, 127])

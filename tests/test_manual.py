@@ -92,7 +92,7 @@ def script(tmp_path_factory):
 def test_bash_completes_a_command_name(script):
     assert _complete(script, ["retuner", "conv"]) == ["convert"]
     assert _complete(script, ["retuner", "ctl", "ad"]) == ["adaptive"]
-    assert _complete(script, ["retuner", "ctl", "--socket", "/tmp/s", "pan"]) == ["panic"]
+    assert _complete(script, ["retuner", "ctl", "--control-socket", "/tmp/s", "pan"]) == ["panic"]
 
 
 def test_bash_completes_every_command_and_option_of_the_live_parser(script):

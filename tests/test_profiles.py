@@ -371,7 +371,7 @@ def test_user_profiles_and_override(tmp_path, monkeypatch):
     assert load_profile("other", [extra]).description == "the again one"      # again.yaml < other.yaml
     # a broken user profile is reported and left out; everything else keeps working
     (extra / "broken.yaml").write_text("id: Bad_Id\ndescription: d\nequal: {steps: 12}\n")
-    r = run_cli("profiles", "--profiles-dir", str(extra), env=env)
+    r = run_cli("profiles", "--profile-dir", str(extra), env=env)
     assert r.returncode == 0, r.stderr
     assert "broken.yaml:1: id:" in r.stderr and "left out" in r.stderr
     assert "duplicate id 'other'" in r.stderr

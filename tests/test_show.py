@@ -80,3 +80,32 @@ def test_show_beat_rate_of_edo12_major_third_by_hand():
 def test_show_non_twelve():
     out = run_cli("show", "bohlen-pierce")
     assert "1901.955" in out and "fifth" not in out
+
+
+def test_show_gives_each_key_its_offset_from_the_same_key_in_12edo_unfolded():
+    # 19-EDO (common practice: 19 equal steps of the octave), A4 = key 69 = 440 Hz as the profile
+    # says; key 60 plays the root, 9 steps below A4, so it sounds 6900 - 9 * 1200/19 cents above
+    # key 0's 12-EDO pitch: that is 331.579 c above key 60's own 12-EDO pitch, not +31.6 folded
+    out = run_cli("show", "edo19")
+    row0 = next(l for l in out.splitlines() if l.split()[:2] == ["0", "0"])
+    want = 6900 - 9 * 1200 / 19 - 6000
+    assert f"{want:+.3f}" in row0.split()
+    data = json.loads(run_cli("show", "edo19", "--json"))
+    assert data["keys"][60]["offset_cents"] == pytest.approx(want, abs=1e-9)
+    assert data["degrees"][0]["cents_from_root"] == 0.0
+
+
+def test_show_gives_every_degree_a_ratio_nearest_ones_marked():
+    # 12-EDO's E (400 c) and G# (800 c) have no exact ratio; the just major third 5/4 is
+    # 386.314 c and the just minor sixth 8/5 813.686 c (handbook values), so they show
+    # "~5/4 +13.7c" and "~8/5 -13.7c"
+    out = run_cli("show", "edo12").splitlines()
+    row_e = next(l for l in out if l.split()[:2] == ["4", "E"])
+    row_gs = next(l for l in out if l.split()[:2] == ["8", "G#"])
+    assert "~5/4 +13.7c" in row_e and "~8/5 -13.7c" in row_gs
+    for name in ("edo12", "edo19", "bohlen-pierce", "werckmeister-3"):
+        data = json.loads(run_cli("show", name, "--json"))
+        assert all(d["ratio"] for d in data["degrees"]), name
+    degrees = json.loads(run_cli("show", "edo12", "--json"))["degrees"]
+    assert (degrees[0]["ratio"], degrees[0]["ratio_exact"]) == ("1/1", True)
+    assert (degrees[4]["ratio"], degrees[4]["ratio_exact"]) == ("5/4", False)

@@ -22,8 +22,8 @@ def edo_hz(k: int) -> float:
 
 def state_with(notes: dict[int, float], **info) -> WatchState:
     s = WatchState()
-    s.snapshot({"tuning": info.get("tuning", "edo12"), "base": info.get("tuning", "edo12"),
-                "reference": None, "transpose": 0, "transpose_cents": 0.0, "adaptive": False,
+    s.snapshot({"profile": info.get("profile", "edo12"),
+                "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0, "adaptive": False,
                 "stats": {"notes": 7, "steals": 1, "ringing_retunes": 2},
                 "notes": [{"key": k, "cents": c, "channel": i + 1} for i, (k, c) in enumerate(notes.items())]})
     return s
@@ -43,7 +43,7 @@ def test_held_major_triad_in_12_edo_by_hand():
     assert "C4 60 +0.00 261.63" in lines and "E4 64 +0.00 329.63" in lines and "G4 67 +0.00 392.00" in lines
     assert "SOUNDING 3" in lines and "INTERVALS 3" in lines
     head = " ".join(lines[:2])
-    assert "TUNING edo12" in head and "DRIFT +0.00 c" in head
+    assert "PROFILE edo12" in head and "DRIFT +0.00 c" in head
     assert "NOTES 7" in head and "STEALS 1" in head and "RINGING RETUNES 2" in head
 
 
@@ -89,12 +89,12 @@ def test_events_fold_into_the_view():
     s.apply({"event": "note_off", "key": 69, "channel": 3})
     lines = squash(render(s))
     assert "SOUNDING 1" in lines and "INTERVALS 0" in lines
-    s.apply({"event": "tuning", "tuning": "vallotti", "base": "vallotti", "reference": 442.0,
-             "transpose": 2, "transpose_cents": 0.0, "adaptive": False})
+    s.apply({"event": "profile", "profile": "vallotti", "concert_pitch_hz": 442.0,
+             "transpose_semitones": 2, "transpose_cents": 0.0, "adaptive": False})
     s.apply({"event": "counters", "notes": 99, "steals": 3, "ringing_retunes": 0, "events_dropped": 5})
     s.apply({"event": "adaptive", "on": True})
     head = " ".join(squash(render(s))[:2])
-    assert "TUNING vallotti" in head and "A4 442 Hz" in head and "TRANSPOSE +2 st" in head
+    assert "PROFILE vallotti" in head and "A4 442 Hz" in head and "TRANSPOSE +2 st" in head
     assert "ADAPTIVE ON" in head and "NOTES 99" in head and "DROPPED EVENTS 5" in head
     s.connected = False
     assert "DISCONNECTED" in " ".join(render(s))

@@ -52,7 +52,7 @@ of all notes over the whole piece are chosen together:
   does alone). The plan or mixture with the widest margin over live is kept; if none beats
   live (it happens on arrangements, where live playing tunes each part on its own and so can
   keep every part centred, or where the player's wheel sets the drift), the report's
-  ``lookahead_check`` says ``beats_live: false`` with both sets of figures.
+  ``lookahead_check`` says ``better_than_live: false`` with both sets of figures.
 
 Unlike the live engine, which tunes each part on its own when a file is split
 into parts, the plan sees all parts of an arrangement together. Cost: about 5 s per plan for a
@@ -754,7 +754,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render, stream,
     the interpolation of its plans' measures, up to a bend step): the one with the widest
     interpolated margin, if that beats live, is rendered and measured too. The plan or mixture with the widest
     measured margin is kept; if even that does not beat live, the summary says so
-    (``beats_live: false``, with both sets of figures).
+    (``better_than_live: false``, with both sets of figures).
 
     ``budget`` (seconds of ``clock``, both given by the caller: this module reads no clock):
     after the first plan, no further plan or mixture is started once the time spent, plus what
@@ -830,7 +830,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render, stream,
     chosen = max(tried, key=lambda t: _margin(t[1], live))
     _plan, m, outs, desc = chosen
     summary = dict(desc)
-    summary.update({"beats_live": _margin(m, live) > 0, "plans_tried": len(tried),
+    summary.update({"better_than_live": _margin(m, live) > 0, "plans_tried": len(tried),
                     "stopped_by_time_budget": stopped_by_budget,
                     "live": {k: round(v, 4) for k, v in live.items()},
                     "lookahead": {k: round(v, 4) for k, v in m.items()}})

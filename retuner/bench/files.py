@@ -4,7 +4,7 @@ Figures (seconds unless named otherwise; each the best of ``repeat`` runs in thi
 
 * ``convert_s`` against ``mido_load_save_s``: converting a generated arrangement of about
   100 000 events (:func:`retuner.bench.performance.arrangement_tracks`) against mido loading
-  and saving the same file (goal: ``ratio`` at most 2);
+  and saving the same file (goal: ``time_ratio`` at most 2);
 * ``piano``: a piano-like file of 10 000 channel messages (at most 7 notes sounding, pedal;
   :func:`retuner.bench.performance.piano_tracks`) converted with its summary, as
   ``retuner convert`` does without ``-q`` (goal: at most 3x mido's load + save); and a
@@ -36,7 +36,7 @@ from retuner.engine.core import EngineConfig
 from retuner.measure import report as rp
 from retuner.profiles.profile import load_profile
 
-GOALS = {"ratio": 2.0, "piano_ratio": 3.0, "lookahead_ratio": 20.0, "big_peak_rss_mb": 400.0}
+GOALS = {"time_ratio": 2.0, "piano_time_ratio": 3.0, "lookahead_time_ratio": 20.0, "big_peak_rss_mb": 400.0}
 
 
 def _best(fn: Callable[[], object], repeat: int) -> float:
@@ -87,7 +87,7 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
         t_mido = _best(lambda: _mido_round_trip(src, os.path.join(tmp, "mido.mid")), repeat)
         t_conv = _best(lambda: convert_file(src, os.path.join(tmp, "out.mid"), opts), repeat)
         out = {"events": n, "profile": profile, "mido_load_save_s": round(t_mido, 4),
-               "convert_s": round(t_conv, 4), "ratio": round(t_conv / t_mido, 3),
+               "convert_s": round(t_conv, 4), "time_ratio": round(t_conv / t_mido, 3),
                "events_per_s": round(n / t_conv), "goals": GOALS}
         # a piano-like file, converted with the summary, as the command line does
         psrc = os.path.join(tmp, "piano.mid")
@@ -95,7 +95,7 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
         p_mido = _best(lambda: _mido_round_trip(psrc, os.path.join(tmp, "pmido.mid")), repeat)
         p_conv = _best(lambda: _with_summary(psrc, os.path.join(tmp, "pout.mid"), opts), repeat)
         piano = {"events": pn, "mido_load_save_s": round(p_mido, 4),
-                 "convert_with_summary_s": round(p_conv, 4), "ratio": round(p_conv / p_mido, 3)}
+                 "convert_with_summary_s": round(p_conv, 4), "time_ratio": round(p_conv / p_mido, 3)}
         if lookahead:
             # as a user runs them (child processes: the command line gives the planner's numpy
             # one thread before loading it, which this process cannot do any more)
@@ -106,7 +106,7 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
                             "--lookahead", "-q"])
             piano.update({"lookahead_events": ln, "adaptive_s": plain["seconds"],
                           "lookahead_s": la["seconds"],
-                          "lookahead_ratio": round(la["seconds"] / plain["seconds"], 2)})
+                          "lookahead_time_ratio": round(la["seconds"] / plain["seconds"], 2)})
         out["piano"] = piano
         if big_events:
             bsrc = os.path.join(tmp, "million.mid")

@@ -471,7 +471,7 @@ def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, m
 
 def _figures(stream) -> dict:
     r = report(stream)
-    return {"impurity": r["impurity_cents"], "motion": r["motion_cents_per_note"],
+    return {"impurity_cents": r["impurity_cents"], "motion": r["motion_cents_per_note"],
             "drift_max": r["drift_max_cents"], "drift_max_any_moment": r["drift_max_any_moment_cents"],
             "late_motion": r["late_motion_cents_per_note"],
             "drift_final": r["drift_final_cents"], "drift_rms": r["drift_rms_cents"], "notes": r["notes"]}
@@ -540,7 +540,7 @@ def bench_setups() -> dict:
         "chord-window": ("edo12", AdaptiveConfig(chord_window=0.02)),
         "edo12": ("edo12", None),
         "meantone-quarter": ("meantone-quarter", None),
-        "plain-least-squares": ("edo12", AdaptiveConfig(policy="free+reset", max_drift=1200.0,
+        "free": ("edo12", AdaptiveConfig(policy="free+reset", max_drift=1200.0,
                                                         max_motion=1200.0, motion_weight=2.0,
                                                         centre_weight=1.0)),
         "fixed-held": ("edo12", AdaptiveConfig(policy="fixed-held+reset")),
@@ -619,16 +619,16 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
     hp, hc = out["humanised"]["adaptive"]["pump"], out["humanised"]["adaptive"]["chorales"]
     out["goals"] = {
         "live_latency_p99<=1ms": max(hp["latency_p99_ms"], hc["latency_p99_ms"]) <= 1.0,
-        "live_chorale_impurity<=0.7": hc["impurity"] <= 0.7,
+        "live_chorale_impurity<=0.7": hc["impurity_cents"] <= 0.7,
         "live_chorale_late_motion<=0.15": hc["late_motion"] <= 0.15,
         "live_chorale_drift<=5": hc["drift_max_worst"] <= 5.0,
-        "live_pump_impurity<=1.1": hp["impurity"] <= 1.1,
+        "live_pump_impurity<=1.1": hp["impurity_cents"] <= 1.1,
         "live_pump_late_motion<=1.5": hp["late_motion"] <= 1.5,
         "live_pump_drift<=5": hp["drift_max"] <= 5.0,
-        "pump_impurity<=1.0": p["impurity"] <= 1.0,
+        "pump_impurity<=1.0": p["impurity_cents"] <= 1.0,
         "pump_motion<=1.5": p["motion"] <= 1.5,
         "pump_drift<=5": p["drift_max"] <= 5.0,
-        "chorale_impurity<=0.8": c["impurity"] <= 0.8,
+        "chorale_impurity<=0.8": c["impurity_cents"] <= 0.8,
         "chorale_motion<=0.3": c["motion"] <= 0.3,
         "chorale_drift<=5": c["drift_max_worst"] <= 5.0,
         "solver_p99<=150us": out["solver"]["p99_us"] <= 150.0,
@@ -649,7 +649,7 @@ def format_adaptive_bench(res: dict) -> str:
         for name, f in res[key].items():
             dm = f.get("drift_max_worst", f["drift_max"])
             ds = f.get("drift_max_any_moment_worst", f["drift_max_any_moment"])
-            lines.append(f"  {name:22s} {f['impurity']:7.3f} | {f['motion']:6.3f} | {dm:7.2f} ({ds:6.2f}) | "
+            lines.append(f"  {name:22s} {f['impurity_cents']:7.3f} | {f['motion']:6.3f} | {dm:7.2f} ({ds:6.2f}) | "
                          f"{f['drift_final']:7.2f}")
     lines.append("played by hand (notes and releases spread 0..25 ms): impurity c | motion after the attack "
                  "c/note | drift max c | added latency p50/p99 ms | engine per note-on p99 us | "
@@ -657,7 +657,7 @@ def format_adaptive_bench(res: dict) -> str:
     for name, h in res.get("humanised", {}).items():
         for piece, f in (("pump", h["pump"]), ("chorales", h["chorales"])):
             dm = f.get("drift_max_worst", f["drift_max"])
-            lines.append(f"  {name + ' ' + piece:22s} {f['impurity']:7.3f} | {f['late_motion']:6.3f} | {dm:6.2f} | "
+            lines.append(f"  {name + ' ' + piece:22s} {f['impurity_cents']:7.3f} | {f['late_motion']:6.3f} | {dm:6.2f} | "
                          f"{f['latency_p50_ms']:5.1f}/{f['latency_p99_ms']:5.1f} | {f['compute_p99_us']:7.1f} | "
                          f"{f['attack_retunes_per_note']:.2f} ({f['attack_retune_cents_mean']:.2f})")
     lines.append("goals: " + ", ".join(f"{k} {'yes' if v else 'NO'}" for k, v in res["goals"].items()))

@@ -14,6 +14,7 @@ from fractions import Fraction
 from typing import Any
 
 from retuner.engine.outputs import MODES
+from retuner.commands._common import add_old_name
 
 ADAPTIVE_OPTIONS = ("policy", "chord_window", "attack_time", "max_drift", "max_motion", "limit", "centre")
 
@@ -73,8 +74,9 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--bend-scale", type=number, metavar="FACTOR",
                    help="synth correction: the synth plays a bend at FACTOR of its specified size "
                         "(e.g. 127/128 for FluidSynth)")
-    g.add_argument("--whole-semitones", action="store_true", default=None,
+    g.add_argument("--whole-semitone-range", action="store_true", default=None,
                    help="synth correction: the synth ignores the cents part of the bend range")
+    add_old_name(g, "--whole-semitones", "--whole-semitone-range", "whole_semitone_range", flag=True)
     g.add_argument("--mpe-zone", choices=("lower", "upper"),
                    help="MPE zone: lower (manager channel 1, default) or upper (manager 16)")
     g.add_argument("--mpe-members", type=int, metavar="N",
@@ -84,8 +86,10 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--mts-program", type=_byte, metavar="N", help="MTS tuning program 0..127 (default 0)")
     g.add_argument("--mts-bank", type=_byte, metavar="N",
                    help="MTS tuning bank 0..127: use the bank form of the single note tuning change")
-    g.add_argument("--mts-non-realtime", action="store_true", default=None,
-                   help="MTS: the non-real-time form (changes reach new notes only)")
+    g.add_argument("--mts-realtime", action=argparse.BooleanOptionalAction, default=None,
+                   help="MTS: the real-time form of the single note tuning change (default); "
+                        "--no-mts-realtime: the non-real-time form (changes reach new notes only)")
+    add_old_name(g, "--mts-non-realtime", "--no-mts-realtime", "mts_realtime", flag=False)
     a = parser.add_argument_group("adaptive just intonation")
     a.add_argument("--adaptive", action="store_true", default=None,
                    help="tune every chord justly as it is played, re-centring towards 12-EDO (see --centre)")
@@ -102,14 +106,14 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     a.add_argument("--max-motion", type=number, metavar="CENTS", help="largest move of a held note per chord (default 6)")
     a.add_argument("--limit", choices=("5", "7"), help="5-limit (default) or 7-limit table of just intervals")
     a.add_argument("--centre", choices=("edo12", "profile"),
-                   help="what the centre is pulled to: 12-EDO at the profile's reference pitch (default) "
+                   help="what the centre is pulled to: 12-EDO at the profile's concert pitch (default) "
                         "or the profile itself")
 
 
 # engine setting -> the option that sets it (for error messages)
 OPTION_OF = {"pool": "--pool", "passthrough": "--passthrough", "bend_range": "--bend-range",
-             "mpe_member_range": "--bend-range", "whole_semitone_range": "--whole-semitones",
-             "mts_device": "--mts-device", "mts_realtime": "--mts-non-realtime", "adaptive": "--adaptive"}
+             "mpe_member_range": "--bend-range", "whole_semitone_range": "--whole-semitone-range",
+             "mts_device": "--mts-device", "mts_realtime": "--mts-realtime", "adaptive": "--adaptive"}
 
 
 def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]:
@@ -121,15 +125,13 @@ def engine_overrides(args: Any, adaptive_in_force: Any = None) -> dict[str, Any]
     eng: dict[str, Any] = {}
     simple = {"mode": "mode", "pool": "pool", "passthrough": "passthrough",
               "release_time": "release_time", "bend_scale": "bend_scale",
-              "whole_semitones": "whole_semitone_range", "mpe_zone": "mpe_zone",
+              "whole_semitone_range": "whole_semitone_range", "mpe_zone": "mpe_zone",
               "mpe_members": "mpe_members", "mts_device": "mts_device",
-              "mts_program": "mts_program", "mts_bank": "mts_bank"}
+              "mts_program": "mts_program", "mts_bank": "mts_bank", "mts_realtime": "mts_realtime"}
     for opt, fld in simple.items():
         v = getattr(args, opt, None)
         if v is not None:
             eng[fld] = v
-    if getattr(args, "mts_non_realtime", None):
-        eng["mts_realtime"] = False
     if getattr(args, "bend_range", None) is not None:
         mode = MODES.get(getattr(args, "mode", None))
         eng[mode.bend_range_field if mode else "bend_range"] = args.bend_range

@@ -9,7 +9,7 @@ from retuner.bench.timing import JSON_KEYS, measure
 from retuner.engine.core import EngineConfig, MODES
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
-from retuner.commands._common import add_profiles_dir, print_json
+from retuner.commands._common import add_profile_dir, print_json
 
 NAME = "bench"
 HELP = "play a generated performance through the engine and print latency and message figures"
@@ -40,7 +40,7 @@ def add_arguments(parser):
                              "--lookahead against plain --adaptive, peak memory on 1 000 000 events, "
                              "and a batch with 1..N worker processes")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
-    add_profiles_dir(parser)
+    add_profile_dir(parser)
 
 
 def _files_bench(args) -> int:
@@ -50,16 +50,16 @@ def _files_bench(args) -> int:
         return 0
     g = figs["goals"]
     print(f"convert {figs['events']} events ({figs['profile']}): {figs['convert_s']:.3f} s; "
-          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['ratio']:.2f} mido's time "
-          f"(goal <= {g['ratio']:g}); {figs['events_per_s']} events/s")
+          f"mido load+save {figs['mido_load_save_s']:.3f} s; x{figs['time_ratio']:.2f} mido's time "
+          f"(goal <= {g['time_ratio']:g}); {figs['events_per_s']} events/s")
     p = figs["piano"]
     print(f"piano-like file of {p['events']} events, converted with its summary: "
           f"{p['convert_with_summary_s']:.3f} s; mido load+save {p['mido_load_save_s']:.3f} s; "
-          f"x{p['ratio']:.2f} mido's time (goal <= {g['piano_ratio']:g})")
+          f"x{p['time_ratio']:.2f} mido's time (goal <= {g['piano_time_ratio']:g})")
     if "lookahead_s" in p:
         print(f"  convert --adaptive on {p['lookahead_events']} events: {p['adaptive_s']:.3f} s, "
               f"with --lookahead {p['lookahead_s']:.3f} s: "
-              f"x{p['lookahead_ratio']:.2f} (goal <= {g['lookahead_ratio']:g})")
+              f"x{p['lookahead_time_ratio']:.2f} (goal <= {g['lookahead_time_ratio']:g})")
     if "big" in figs:
         b = figs["big"]
         state = "" if b["status"] == 0 else f" FAILED (exit {b['status']}: {b['error']})"
@@ -75,7 +75,7 @@ def _files_bench(args) -> int:
 def run(args) -> int:
     if args.files:
         return _files_bench(args)
-    tuning = load_profile(args.profile, args.profiles_dir)
+    tuning = load_profile(args.profile, args.profile_dirs)
     adaptive = None
     if args.adaptive:
         from retuner.adaptive.solver import AdaptiveConfig   # lazy: it loads numpy

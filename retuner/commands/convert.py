@@ -6,7 +6,7 @@ import os
 import sys
 
 from retuner.engine.outputs import MODES
-from retuner.commands._common import add_profiles_dir
+from retuner.commands._common import add_profile_dir
 from retuner.commands._engine_options import add_engine_arguments, build_engine_config, engine_overrides
 from retuner.convert.batch import convert_batch
 from retuner.convert.conversion import ConvertOptions, convert_file
@@ -33,8 +33,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("-o", "--output", required=True, metavar="OUT",
                         help="output file (or output folder when IN is a folder)")
     parser.add_argument("--profile", default="edo12", metavar="ID",
-                        help="tuning (profile id or YAML file; default edo12)")
-    add_profiles_dir(parser)
+                        help="the profile to play (id or YAML file; default edo12)")
+    add_profile_dir(parser)
     add_engine_arguments(parser)
     parser.add_argument("--merge-parts", action="store_true",
                         help="one engine and one pool for all parts, as the live daemon treats a "
@@ -58,7 +58,7 @@ def add_arguments(parser) -> None:
 
 def build_options(args):
     """ConvertOptions from the command line."""
-    tuning = load_profile(args.profile, args.profiles_dir)
+    tuning = load_profile(args.profile, args.profile_dirs)
     if args.lookahead and not args.adaptive:
         raise RetunerError("needs --adaptive", field="--lookahead")
     cfg = build_engine_config(engine_overrides(args))
@@ -106,7 +106,8 @@ def run(args) -> int:
     opts = build_options(args)
     if os.path.isdir(args.input):
         if args.report or args.plot:
-            raise RetunerError("--report and --plot are for single files", field="--report")
+            raise RetunerError("is for a single file, not a folder (so is --plot)",
+                               field="--report" if args.report else "--plot")
         return convert_batch(args.input, args.output, opts, jobs=args.jobs, quiet=args.quiet)
     progress = _Progress(sys.stderr) if opts.lookahead and not args.quiet else None
     try:

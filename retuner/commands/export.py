@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import argparse
 import sys
 
 from retuner.midi import mts
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.profiles.profile import load_profile
+from retuner.commands._common import add_old_name, add_profile_dir
 
 NAME = "export"
 HELP = "write a profile as a MIDI Tuning Standard bulk tuning dump or single note changes (.syx)"
@@ -45,12 +47,13 @@ def add_arguments(parser) -> None:
     parser.add_argument("--mts-program", type=_data_byte, default=0, help="tuning program 0..127 (default 0)")
     parser.add_argument("--mts-bank", type=_data_byte, default=None,
                         help="tuning bank 0..127 (mts-single only: use the bank form of the message)")
-    parser.add_argument("--mts-non-realtime", action="store_true",
-                        help="mts-single only: use the non-real-time form (always with a bank byte)")
+    parser.add_argument("--mts-realtime", action=argparse.BooleanOptionalAction, default=True,
+                        help="mts-single only: the real-time form (default); --no-mts-realtime: "
+                             "the non-real-time form (always with a bank byte)")
+    add_old_name(parser, "--mts-non-realtime", "--no-mts-realtime", "mts_realtime", flag=False)
     parser.add_argument("--name", default=None,
                         help="tuning name in the dump, up to 16 ASCII characters (default: the profile id)")
-    parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
-                        help="also look for profiles in DIR")
+    add_profile_dir(parser)
 
 
 def build(tuning, fmt: str, *, device: int, program: int, name: str,
@@ -58,7 +61,7 @@ def build(tuning, fmt: str, *, device: int, program: int, name: str,
     """The bytes of the export and the keys whose pitch had to be clamped."""
     if fmt == "mts-bulk":
         if bank is not None or not realtime:
-            raise RetunerError("--mts-bank and --mts-non-realtime apply to --format mts-single only",
+            raise RetunerError("--mts-bank and --no-mts-realtime apply to --format mts-single only",
                                field="format")
         return mts.bulk_tuning_dump_checked(tuning.cents, name, device=device, program=program)
     changes = []
@@ -89,7 +92,7 @@ def _ranges(keys: list[int]) -> str:
 
 
 def run(args) -> int:
-    tuning = load_profile(args.profile, args.profiles_dir)
+    tuning = load_profile(args.profile, args.profile_dirs)
     name = args.name if args.name is not None else tuning.id
     if any(not (0x20 <= ord(ch) <= 0x7E) for ch in name):
         raise RetunerError("the tuning name must be printable ASCII", field="name")
@@ -97,7 +100,7 @@ def run(args) -> int:
         print(f"retuner: tuning name cut to {mts.NAME_LENGTH} characters: {name[:mts.NAME_LENGTH]!r}",
               file=sys.stderr)
     data, clamped = build(tuning, args.format, device=args.mts_device, program=args.mts_program, name=name,
-                          bank=args.mts_bank, realtime=not args.mts_non_realtime)
+                          bank=args.mts_bank, realtime=args.mts_realtime)
     write_atomic(args.output, data)
     if clamped:
         print(f"retuner: {len(clamped)} key(s) outside the MIDI Tuning Standard range "

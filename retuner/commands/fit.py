@@ -8,6 +8,7 @@ from retuner.errors import RetunerError
 from retuner.pitch.tuning import rounded
 from retuner.profiles.profile import parse_profile
 from retuner.commands._engine_options import channel_list
+from retuner.commands._common import add_old_name, add_profile_dir
 
 
 NAME = "fit"
@@ -23,10 +24,11 @@ def add_arguments(parser) -> None:
     parser.add_argument("input", metavar="IN.mid", help="the piece (MIDI file)")
     parser.add_argument("-o", "--output", metavar="FILE.yaml", required=True, help="profile to write")
     parser.add_argument("--id", dest="profile_id", help="profile id (default: from the output file name)")
-    parser.add_argument("--reference", type=float, default=440.0, metavar="HZ",
-                        help="pitch of A4 in the written profile (default 440)")
+    parser.add_argument("--concert-pitch", type=float, default=440.0, metavar="HZ",
+                        help="the frequency of A4 in the written profile (default 440)")
+    add_old_name(parser, "--reference", "--concert-pitch", "concert_pitch", type=float, metavar="HZ")
     parser.add_argument("--max-deviation", type=float, metavar="CENTS",
-                        help="no pitch class further than this from 12-EDO (A4 at the reference)")
+                        help="no pitch class further than this from 12-EDO (A4 at the concert pitch)")
     parser.add_argument("--max-wolf", type=float, metavar="CENTS",
                         help="no fifth of the 12 further than this from a pure 3/2 (at least 1.955)")
     parser.add_argument("--per-key", action="store_true",
@@ -34,21 +36,26 @@ def add_arguments(parser) -> None:
     parser.add_argument("--norm", choices=["abs", "squares"], default="abs",
                         help="abs (default): minimise the impurity itself, the time-weighted mean |deviation| "
                              "(iteratively reweighted least squares); squares: plain weighted least squares")
-    parser.add_argument("--passthrough", type=channel_list, default=[10], metavar="LIST",
-                        help="channels left out, e.g. percussion (default 10; 'none')")
+    parser.add_argument("--exclude-channels", type=channel_list, default=[10], metavar="LIST",
+                        help="channels left out of the fit, e.g. percussion (default 10; 'none')")
+    add_old_name(parser, "--passthrough", "--exclude-channels", "exclude_channels", type=channel_list,
+                 metavar="LIST")
     parser.add_argument("--profiles", metavar="LIST",
                         help="comma-separated profiles to compare (default: edo12, meantone-quarter, "
                              "werckmeister-3, kirnberger-3, vallotti, young-2)")
-    parser.add_argument("--profiles-dir", action="append", default=[], metavar="DIR",
-                        help="more folders of profiles for --profiles")
+    add_profile_dir(parser, help="more folders of profiles for --profiles (may be given more than once)")
 
 
 def run(args) -> int:
     # lazy: the fit solves with numpy, which no other command needs at start-up
     from retuner.measure import fit
-    if not (args.reference > 0):
-        raise RetunerError("--reference must be a positive frequency in Hz", field="reference")
-    notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.passthrough])
+    if not (args.concert_pitch > 0):
+        raise RetunerError(f"must be a positive frequency in Hz, got {args.concert_pitch:g}",
+                           field="--concert-pitch")
+    for option, value in (("--max-deviation", args.max_deviation), ("--max-wolf", args.max_wolf)):
+        if value is not None and not value >= 0:
+            raise RetunerError(f"must be 0 or more cents, got {value:g}", field=option)
+    notes = fit.read_notes(args.input, passthrough=[c - 1 for c in args.exclude_channels])
     weights = fit.pair_weights(notes)
     if not weights:
         raise RetunerError("the piece has no two notes sounding together in a consonant interval",
@@ -56,11 +63,11 @@ def run(args) -> int:
     result = fit.fit_tuning(weights, max_deviation=args.max_deviation, max_wolf=args.max_wolf,
                             norm=args.norm, per_key=args.per_key)
     pid = args.profile_id or fit.profile_id_for(args.output)
-    text = fit.profile_yaml(result, profile_id=pid, source_name=args.input, reference_hz=args.reference)
+    text = fit.profile_yaml(result, profile_id=pid, source_name=args.input, reference_hz=args.concert_pitch)
     parse_profile(text, args.output)         # what we write must load
     fit.write_atomic(args.output, text)
     ids = [s.strip() for s in args.profiles.split(",") if s.strip()] if args.profiles else list(fit.COMPARE_PROFILES)
-    rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profiles_dir)
+    rows = [(pid + " (fitted)", result.impurity)] + fit.compare(weights, ids, args.profile_dirs)
     seconds = sum(weights.values())
     print(f"{args.input}: {len(notes)} notes; consonant pairs sound {seconds:.1f} s in all "
           f"(pairs counted separately); wrote {args.output}")

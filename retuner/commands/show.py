@@ -6,7 +6,7 @@ from retuner.profiles.profile import load_profile
 from retuner.view import plot
 from retuner.view.showtable import degree_rows, format_ratio, interval_rows
 from retuner.pitch.tuning import NUM_KEYS, ratio_to_cents, rounded
-from retuner.commands._common import add_profiles_dir, print_json
+from retuner.commands._common import add_profile_dir, print_json
 from retuner.errors import RetunerError
 
 NAME = "show"
@@ -29,7 +29,7 @@ def add_arguments(parser):
                              "their beat rates in --octave (needs matplotlib: pip install 'retuner[plot]')")
     parser.add_argument("--beside", metavar="ID",
                         help="with --plot: draw this second tuning beside the first, for comparison")
-    add_profiles_dir(parser)
+    add_profile_dir(parser)
 
 
 def run(args) -> int:
@@ -37,9 +37,9 @@ def run(args) -> int:
         raise RetunerError("only works with --plot", field="--beside")
     if args.plot:
         plot.require_matplotlib()
-    t = load_profile(args.id, args.profiles_dir)
+    t = load_profile(args.id, args.profile_dirs)
     if args.plot:
-        tunings = [t] + ([load_profile(args.beside, args.profiles_dir)] if args.beside else [])
+        tunings = [t] + ([load_profile(args.beside, args.profile_dirs)] if args.beside else [])
         plot.plot_tunings(tunings, args.plot, args.octave)
         print(f"wrote {args.plot}")
         return 0
@@ -48,7 +48,14 @@ def run(args) -> int:
             "id": t.id,
             "description": t.description,
             "source": t.source,
-            "keys": [{"key": k, "hz": t.hz(k), "cents": t.cents[k]} for k in range(NUM_KEYS)],
+            # cents: from key 0's 12-EDO pitch (as the control socket counts); offset_cents:
+            # from the key's own 12-EDO pitch; a degree's cents_from_root: above the root
+            "keys": [{"key": k, "hz": t.hz(k), "cents": t.cents[k],
+                      "offset_cents": None if t.cents[k] is None else t.cents[k] - 100.0 * k}
+                     for k in range(NUM_KEYS)],
+            "degrees": [{"degree": r.index, "name": r.name, "cents_from_root": r.cents,
+                         "ratio": format_ratio(r.ratio), "ratio_exact": r.exact}
+                        for r in degree_rows(t, args.octave)],
         })
         return 0
     print(f"{t.id}: {t.description}")
@@ -59,24 +66,24 @@ def run(args) -> int:
           f"A4 (key 69) = {t.hz(69):.3f} Hz" if t.hz(69) else "")
     print()
     hz_head = f"Hz (oct {args.octave})" if t.is_twelve else f"Hz (key {t.root}+)"
-    print("cents: above the root; vs 12-EDO: the key as it sounds, against its 12-EDO pitch; "
-          "ratio: exact, or ~ the nearest simple one and how far it is")
-    print(f"{'degree':>6}  {'name':<5} {'cents':>9} {'vs 12-EDO':>10}  {'ratio':<14} {hz_head:>12}")
+    print("from root: cents above the root; from 12-EDO: cents of the key as it sounds from the same "
+          "key in 12-EDO; ratio: exact, or ~ the nearest simple one and how far the degree is from it")
+    print(f"{'degree':>6}  {'name':<5} {'from root (c)':>13} {'from 12-EDO (c)':>15}  {'ratio':<16} {hz_head:>12}")
     for r in degree_rows(t, args.octave):
-        if r.ratio is None:
-            ratio = "-"
-        elif r.exact:
+        if r.exact:
             ratio = format_ratio(r.ratio)
         else:
             ratio = f"~{format_ratio(r.ratio)} {rounded(r.cents - ratio_to_cents(r.ratio), 1):+.1f}c"
         hz = f"{r.hz:.3f}" if r.hz is not None else "unmapped"
-        print(f"{r.index:>6}  {r.name:<5} {rounded(r.cents):>9.3f} {rounded(r.from_edo12):>+10.3f}  {ratio:<14} {hz:>12}")
+        print(f"{r.index:>6}  {r.name:<5} {rounded(r.cents):>13.3f} {rounded(r.from_edo12):>+15.3f}  "
+              f"{ratio:<16} {hz:>12}")
     if t.is_twelve:
         print()
         print(f"intervals from each key of octave {args.octave} "
-              f"(deviation from just; beats = |q*f2 - p*f1| for the just ratio p:q)")
-        print(f"{'from':<4} {'interval':<12} {'to':<3} {'cents':>9} {'vs just':>9}  {'just':<4} {'beats/s':>8}")
+              f"(beat rate = |q*f2 - p*f1| for the just ratio p:q)")
+        print(f"{'from':<4} {'interval':<12} {'to':<3} {'cents':>9} {'from just (c)':>13}  {'just':<4} "
+              f"{'beat rate (Hz)':>14}")
         for r in interval_rows(t, args.octave):
-            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {rounded(r.cents):>9.3f} {rounded(r.deviation):>+9.3f}  "
-                  f"{format_ratio(r.just):<4} {r.beat_hz:>8.2f}")
+            print(f"{r.lower:<4} {r.kind:<12} {r.upper:<3} {rounded(r.cents):>9.3f} {rounded(r.deviation):>+13.3f}  "
+                  f"{format_ratio(r.just):<4} {r.beat_hz:>14.2f}")
     return 0

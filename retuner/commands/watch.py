@@ -4,18 +4,20 @@ from __future__ import annotations
 
 import sys
 
+from retuner.commands._common import add_control_socket
+
 NAME = "watch"
 HELP = "live view of a running daemon: sounding notes, intervals, beat rates, drift, counters"
 ORDER = 45
 DESCRIPTION = ("Show what the running daemon plays, refreshed 25 times a second: every sounding note "
                "(name, key, cents from 12-EDO, Hz), every interval (size, deviation from just, beat "
-               "rate), drift, the loaded tuning and counters. Press q to quit. Exit status 1 when no "
+               "rate), drift, the profile in force and counters. Press q to quit. Exit status 1 when no "
                "daemon is running. With --web PORT the same is served as a web page for a projector "
                "(the classroom view), which waits for the daemon and follows it when it restarts.")
 
 
 def add_arguments(parser) -> None:
-    parser.add_argument("--socket", metavar="PATH", help="control socket path")
+    add_control_socket(parser)
     parser.add_argument("--once", action="store_true", help="print the current state once and exit")
     parser.add_argument("--plain", action="store_true",
                         help="no full-screen view: print a plain frame whenever something changes")
@@ -40,7 +42,7 @@ def run(args) -> int:
     if args.web is not None:
         return _serve_web(args)
     try:
-        feed = watch.Feed(args.socket)
+        feed = watch.Feed(args.control_socket)
     except NoDaemon as exc:
         print(f"retuner: {exc}", file=sys.stderr)
         return 1
@@ -71,7 +73,7 @@ def _serve_web(args) -> int:
     from retuner.view import watch, web
     if not 0 <= args.web <= 65535:
         raise RetunerError(f"must be a port number from 0 to 65535, got {args.web}", field="--web")
-    feed = watch.Feed(args.socket, reconnect=True).start()
+    feed = watch.Feed(args.control_socket, reconnect=True).start()
     try:
         server = web.ClassroomServer(feed, args.web_address, args.web)
     except OSError as exc:

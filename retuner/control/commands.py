@@ -19,6 +19,7 @@ from retuner.adaptive.solver import AdaptiveConfig
 from retuner.control.protocol import Command
 from retuner.control.server import ControlServer, Handler
 from retuner.errors import RetunerError
+from retuner.live.config import adaptive_error, adaptive_fields
 from retuner.pitch.tuning import cents_to_hz
 from retuner.profiles.profile import list_profiles, load_profile
 
@@ -98,11 +99,11 @@ class EngineControl(Handler):
             if not isinstance(settings, dict):
                 raise RetunerError("adaptive: 'settings' must be an object", field="settings")
             cmd.data = self._adaptive_config(settings) if on else None
-        elif cmd.name == "reference":
+        elif cmd.name in ("concert_pitch", "reference"):
             hz = a.get("hz")
             if isinstance(hz, bool) or not isinstance(hz, (int, float)) or not math.isfinite(hz) \
                     or not 200.0 <= hz <= 1000.0:
-                raise RetunerError("reference: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
+                raise RetunerError("concert_pitch: 'hz' must be a number from 200 to 1000 (A4)", field="hz")
         elif cmd.name == "transpose":
             if "semitones" not in a and "cents" not in a:
                 raise RetunerError("transpose: give 'semitones' and/or 'cents'")
@@ -119,26 +120,34 @@ class EngineControl(Handler):
     def _adaptive_config(self, settings: dict):
         if self.host.adaptive_config is not None:
             return self.host.adaptive_config(settings)
+        settings = adaptive_fields({str(k).replace("-", "_"): v for k, v in settings.items()})
         base = self.session.adaptive_base
         if base is not None and dataclasses.is_dataclass(base):
             merged = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
-            merged.update({str(k).replace("-", "_"): v for k, v in settings.items()})
-            unknown = sorted(k for k in settings if str(k).replace("-", "_") not in
-                             {f.name for f in dataclasses.fields(base)})
+            merged.update(settings)
+            unknown = sorted(k for k in settings if k not in {f.name for f in dataclasses.fields(base)})
             if unknown:
                 raise RetunerError(f"unknown setting {unknown[0]!r}", field=f"adaptive.{unknown[0]}")
             settings = merged
         try:
             return AdaptiveConfig.from_dict(settings, file="control socket")
-        except RetunerError:
-            raise
+        except RetunerError as exc:
+            raise adaptive_error(exc)
         except (TypeError, ValueError) as exc:
             raise RetunerError(f"adaptive: {exc}", field="settings") from None
 
     # -------------------------------------------------------- engine thread
+    def info(self) -> dict:
+        """What plays, under the socket's field names: the profile in force, the concert pitch that
+        overrides the profile's own (None: the profile's), the transposition and adaptive mode."""
+        i = self.session.info()
+        return {"profile": i["base"], "concert_pitch_hz": i["reference"],
+                "transpose_semitones": i["transpose"], "transpose_cents": i["transpose_cents"],
+                "adaptive": i["adaptive"]}
+
     def _session_changed(self, kind: str, t: float) -> None:
         if kind == "tuning":
-            self._publish({"event": "tuning", "t": t, **self.session.info()})
+            self._publish({"event": "profile", "t": t, **self.info()})
         else:
             self._publish({"event": "adaptive", "t": t, "on": self.session.adaptive_settings is not None,
                            "settings": self.session.adaptive_settings})
@@ -156,16 +165,16 @@ class EngineControl(Handler):
             return self.status()
         if name == "load":
             self._emit(session.load(cmd.data, now, "control socket"))
-            return session.info()
-        if name == "reference":
+            return self.info()
+        if name in ("concert_pitch", "reference"):
             self._emit(session.set_reference(float(a["hz"]), now))
-            return session.info()
+            return self.info()
         if name == "transpose":
             self._emit(session.set_transpose(int(a.get("semitones", 0)), float(a.get("cents", 0.0)), now))
-            return session.info()
+            return self.info()
         if name == "adaptive":
             self._emit(session.set_adaptive(cmd.data, now, a.get("settings")))
-            return session.info()
+            return self.info()
         if name == "panic":
             if self.host.panic is not None:
                 sounding = self.host.panic(now)
@@ -199,7 +208,7 @@ class EngineControl(Handler):
 
     def status(self) -> dict:
         eng = self.engine
-        out = self.session.info()
+        out = self.info()
         out["stats"] = dict(getattr(eng, "stats", {}) or {})
         out["sounding"] = len(eng.sounding())
         if self.server is not None:
@@ -244,4 +253,4 @@ class EngineControl(Handler):
             self._next_counters = now + self.COUNTER_INTERVAL
             stats = dict(getattr(self.engine, "stats", {}) or {})
             stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
-            server.publish({"event": "counters", "t": now, "tuning": self.session.current.id, **stats})
+            server.publish({"event": "counters", "t": now, "profile": self.session.base.id, **stats})

@@ -4,16 +4,20 @@ Each request is one JSON object on one line, each reply one JSON object on one
 line (UTF-8, ``\n``-terminated)::
 
     -> {"cmd": "status"}
-    <- {"ok": true, "cmd": "status", "tuning": "werckmeister-3", ...}
+    <- {"ok": true, "cmd": "status", "profile": "werckmeister-3", "concert_pitch_hz": null, ...}
     -> {"cmd": "load", "profile": "vallotti", "id": 7}
-    <- {"ok": true, "cmd": "load", "id": 7, "tuning": "vallotti"}
+    <- {"ok": true, "cmd": "load", "id": 7, "profile": "vallotti", ...}
+    -> {"cmd": "concert_pitch", "hz": 415}
     -> {"cmd": "nonsense"}
     <- {"ok": false, "error": "unknown command 'nonsense' (known: ...)"}
 
 ``id`` is optional and echoed. The commands and the fields each takes are
 :data:`COMMANDS` (what they do: retuner.control.commands). A subscribed client
 then receives event lines (``{"event": "note_on", ...}``, ``note_off``,
-``pitch``, ``tuning``, ``adaptive``, ``counters``, ``panic``) until it disconnects.
+``pitch``, ``profile``, ``adaptive``, ``counters``, ``panic``) until it disconnects.
+What plays is named the same everywhere: ``profile`` (the profile in force), ``concert_pitch_hz``
+(A4 over the profile's own concert pitch; null: the profile's), ``transpose_semitones``,
+``transpose_cents``, ``adaptive``.
 """
 
 from __future__ import annotations
@@ -32,11 +36,16 @@ COMMANDS: dict[str, tuple[str, ...]] = {
     "profiles": (),
     "load": ("profile",),
     "adaptive": ("on", "settings"),
-    "reference": ("hz",),
+    "concert_pitch": ("hz",),          # A4 in Hz, over the profile's own concert pitch
+    "reference": ("hz",),              # the old name of concert_pitch, for one release
     "transpose": ("semitones", "cents"),
     "panic": (),
     "subscribe": (),
 }
+
+
+#: old command name -> its name now (still accepted for one release)
+OLD_COMMANDS = {"reference": "concert_pitch"}
 
 
 def default_socket_path() -> Path:
@@ -93,7 +102,8 @@ def parse_request(line: bytes | str) -> tuple[Optional[Command], Optional[dict]]
     if not isinstance(name, str):
         return None, error_reply("missing 'cmd' (a string)", req_id)
     if name not in COMMANDS:
-        return None, error_reply(f"unknown command {name!r} (known: {', '.join(COMMANDS)})", req_id)
+        known = ", ".join(c for c in COMMANDS if c not in OLD_COMMANDS)
+        return None, error_reply(f"unknown command {name!r} (known: {known})", req_id)
     allowed = COMMANDS[name]
     extra = sorted(k for k in obj if k not in ("cmd", "id") and k not in allowed)
     if extra:

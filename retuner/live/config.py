@@ -17,10 +17,10 @@ defaults). Every field is optional::
       ...
     profiles: [edo12, meantone-quarter, werckmeister-3]   # program change N (1-based) selects the N-th
     switch:
-      channel: 16                  # control channel (1..16) for program change and the A/B toggle; null = off
+      channel: 16                  # switching channel (1..16) for program change and the A/B toggle; null = off
       ab_cc: 80                    # this CC (value >= 64) toggles between the two profiles of 'ab'; null = off
       ab: [meantone-quarter, edo12]
-    status_interval: 10            # minutes between status lines; 0 = none
+    status_interval: 600           # seconds between status lines; 0 = none
     port_poll: 0.5                 # seconds between looks for lost/returned ports
     setup_refresh: 1               # our own output port: send the setup (bend range...) again
                                    # before a note-on after this many quiet seconds with nothing
@@ -31,7 +31,7 @@ defaults). Every field is optional::
                                    # Off (CC64/CC66 = 0, CC123) are always sent
     control:                       # the control socket (JSON lines; see retuner.control.protocol)
       enabled: true
-      path: null                   # default $XDG_RUNTIME_DIR/retuner/control.sock
+      socket: null                 # its path; default $XDG_RUNTIME_DIR/retuner/control.sock
 
 Channels are 1..16 here, as a user sees them. Errors are one line naming the
 file, the line and the field (exit status 2 from the command line).
@@ -43,6 +43,7 @@ import copy
 import dataclasses
 import enum
 import os
+import re
 import time
 import types
 import typing
@@ -70,7 +71,7 @@ class Switching:
 @dataclass
 class ControlSettings:
     enabled: bool = True
-    path: Optional[str] = None
+    path: Optional[str] = None               # the config key "socket"
 
 
 @dataclass
@@ -88,13 +89,14 @@ class Settings:
     engine: dict[str, Any] = field(default_factory=dict)   # user-facing values (channels 1-based)
     profiles: list[str] = field(default_factory=list)
     switch: Switching = field(default_factory=Switching)
-    status_interval: float = 10.0            # minutes
+    status_interval: float = 600.0           # seconds
     port_poll: float = 0.5                   # seconds
     setup_refresh: float = 1.0               # seconds; 0 = never (see the module doc)
     log_level: str = "info"
     panic_all_sound_off: bool = False        # see the module doc
     control: ControlSettings = field(default_factory=ControlSettings)
     lines: dict[str, int] = field(default_factory=dict, compare=False, repr=False)  # field -> line in source
+    notes: list[str] = field(default_factory=list, compare=False, repr=False)  # warnings (old names)
 
     def copy(self) -> "Settings":
         return copy.deepcopy(self)
@@ -102,8 +104,9 @@ class Settings:
 
 # --------------------------------------------------------------------------- checking
 class _Where:
-    def __init__(self, filename: str):
+    def __init__(self, filename: str, notes: Optional[list] = None):
         self.filename = filename
+        self.notes = notes          # where warnings about old names go (None: nowhere)
 
     def err(self, msg: str, fld: str, mapping: Any = None, key: Any = None) -> RetunerError:
         line = None
@@ -181,10 +184,11 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
     from retuner.profiles.profile import load_yaml
     from retuner.live import ports
 
-    w = _Where(filename)
     data = load_yaml(text, filename)
     s = (base or Settings()).copy()
     s.source = filename
+    s.notes = []
+    w = _Where(filename, s.notes)
     if data is None:
         return s
     if not isinstance(data, dict):
@@ -196,6 +200,9 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         s.profile = _str(d["profile"], w, "profile", d, "profile")
     if "profile_dirs" in d:
         s.profile_dirs = [os.path.expanduser(p) for p in _str_list(d["profile_dirs"], w, "profile_dirs", d, "profile_dirs")]
+        for p in s.profile_dirs:
+            if not os.path.isdir(p):
+                raise w.err(f"not a folder: {p}", "profile_dirs", d, "profile_dirs")
     if "backend" in d:
         b = _str(d["backend"], w, "backend", d, "backend")
         try:
@@ -237,7 +244,7 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
                     raise w.err(f"expected two profiles, got {len(ab)}", "switch.ab", sw, "ab")
                 s.switch.ab = (ab[0], ab[1])
     if "status_interval" in d:
-        s.status_interval = _num(d["status_interval"], w, "status_interval", d, "status_interval", 0, 24 * 60)
+        s.status_interval = _num(d["status_interval"], w, "status_interval", d, "status_interval", 0, 24 * 3600)
     if "port_poll" in d:
         s.port_poll = _num(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
     if "setup_refresh" in d:
@@ -251,12 +258,15 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
         s.log_level = lv
     if "control" in d:
         c = _mapping(d["control"], w, "control", d, "control")
-        _unknown(c, {"enabled", "path"}, w, "control.")
+        _unknown(c, {"enabled", "socket", "path"}, w, "control.")
         s.control = dataclasses.replace(s.control)
         if "enabled" in c:
             s.control.enabled = _bool(c["enabled"], w, "control.enabled", c, "enabled")
-        if "path" in c:
-            s.control.path = _str(c["path"], w, "control.path", c, "path", allow_none=True)
+        for key in ("path", "socket"):        # "path": the old name, for one release
+            if key in c:
+                if key == "path":
+                    s.notes.append(_old_key_note(filename, c, "control.path", "control.socket", "path"))
+                s.control.path = _str(c[key], w, f"control.{key}", c, key, allow_none=True)
     if s.engine:
         try:
             engine_config(s)          # the engine's own checks (e.g. a channel in pool and passthrough)
@@ -339,9 +349,50 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
     if not isinstance(v, dict):
         raise w.err(f"expected true, false or a mapping of adaptive settings, got {_type_name(v)}", fld, m, k)
     from retuner.adaptive.solver import AdaptiveConfig
-    names = {f.name for f in dataclasses.fields(AdaptiveConfig)}
-    _unknown(v, names, w, fld + ".")
-    return dict(v)
+    names = {ADAPTIVE_KEY_OF.get(f.name, f.name) for f in dataclasses.fields(AdaptiveConfig)}
+    out = {}
+    for key, value in v.items():
+        if key in ADAPTIVE_KEY_OF and key not in ADAPTIVE_FIELD_OF:      # an old name
+            if w.notes is not None:
+                w.notes.append(_old_key_note(w.filename, v, f"{fld}.{key}", f"{fld}.{ADAPTIVE_KEY_OF[key]}", key))
+            key = ADAPTIVE_KEY_OF[key]
+        out[key] = value
+    _unknown(out, names, w, fld + ".")
+    return out
+
+
+# adaptive settings whose user-facing name differs from the solver's field (the band, in cents,
+# within which the centre is not re-centred; not to be confused with chord_window, in seconds)
+ADAPTIVE_KEY_OF = {"window": "recentre_band_cents", "window_per_held": "recentre_band_per_held_cents"}
+ADAPTIVE_FIELD_OF = {v: k for k, v in ADAPTIVE_KEY_OF.items()}
+
+# units of the numeric adaptive settings, named in a range error
+ADAPTIVE_UNITS = {"chord_window": "seconds", "attack_time": "seconds", "max_drift": "cents",
+                  "max_motion": "cents", "recentre_band_cents": "cents",
+                  "recentre_band_per_held_cents": "cents", "aim_limit": "cents", "drift_margin": "cents"}
+
+
+def adaptive_fields(settings: dict) -> dict:
+    """User-facing adaptive settings -> the solver's field names (AdaptiveConfig)."""
+    return {ADAPTIVE_FIELD_OF.get(k, k): v for k, v in settings.items()}
+
+
+def adaptive_error(exc: RetunerError) -> RetunerError:
+    """A solver's error on an adaptive setting, named and measured as the user wrote it."""
+    head, _, name = (exc.field or "").rpartition(".")
+    user = ADAPTIVE_KEY_OF.get(name, name)
+    if name:
+        exc.field = f"{head}.{user}" if head else user
+    unit = ADAPTIVE_UNITS.get(user)
+    if unit and exc.message.startswith("must be between") and unit not in exc.message:
+        exc.message = re.sub(r"^(must be between [^\s,]+ and [^\s,]+)", rf"\1 {unit}", exc.message)
+    return exc
+
+
+def _old_key_note(filename: str, mapping: Any, old: str, new: str, key: Any) -> str:
+    line = getattr(mapping, "lines", {}).get(key)
+    where = f"{filename}:{line}" if line is not None else filename
+    return f"retuner: warning: {where}: {old} is now called {new}; the old name will go in a later release"
 
 
 def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel: bool) -> Any:
@@ -428,10 +479,10 @@ def engine_config(settings: Settings):
         if k == "adaptive" and v is not None:
             from retuner.adaptive.solver import AdaptiveConfig
             try:
-                v = AdaptiveConfig.from_dict(v, file=settings.source)
+                v = AdaptiveConfig.from_dict(adaptive_fields(v), file=settings.source)
             except RetunerError as exc:
                 exc.field = "engine." + (exc.field or "adaptive")
-                raise
+                raise adaptive_error(exc)
             except (TypeError, ValueError) as exc:
                 raise RetunerError(f"bad adaptive settings: {exc}", file=settings.source,
                                    field="engine.adaptive") from None

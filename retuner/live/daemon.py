@@ -592,7 +592,7 @@ class Daemon:
         self._next_wd = now + wd_interval if wd_interval else None
         if wd_interval:
             self.notifier.watchdog()
-        status_every = self.settings.status_interval * 60.0
+        status_every = self.settings.status_interval
         self._next_status = now + status_every if status_every > 0 else None
 
     def shutdown(self) -> None:
@@ -665,7 +665,7 @@ class Daemon:
             self._next_wd = now + self.notifier.watchdog_interval
         if self._next_status is not None and now >= self._next_status:
             self._status_line()
-            status_every = self.settings.status_interval * 60.0   # a reload may change it
+            status_every = self.settings.status_interval   # a reload may change it
             self._next_status = now + status_every if status_every > 0 else None
         return False
 

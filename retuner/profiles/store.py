@@ -2,7 +2,7 @@
 
 Built-in profiles live in the project's ``profiles/`` folder. Users' own profiles are read from
 ``$XDG_CONFIG_HOME/retuner/profiles/`` (default ``~/.config/retuner/profiles/``) and from folders
-given with ``--profiles-dir``; a user profile with a built-in id overrides the built-in one, with
+given with ``--profile-dir``; a user profile with a built-in id overrides the built-in one, with
 a notice.
 """
 
@@ -82,11 +82,11 @@ def _scan(dirs: Iterable[Path]) -> dict[str, tuple[Path, bool]]:
 
 
 def _search_dirs(dirs: Sequence[Path | str]) -> list[Path]:
-    """The user's folder (which may be missing) and the folders given with --profiles-dir
+    """The user's folder (which may be missing) and the folders given with --profile-dir
     (which must exist: a mistyped folder is an error, not an empty list)."""
     for d in dirs:
         if not Path(d).is_dir():
-            raise RetunerError("not a folder", file=str(d), field="--profiles-dir")
+            raise RetunerError("not a folder", file=str(d), field="--profile-dir")
     return user_profile_dirs() + [Path(d) for d in dirs]
 
 

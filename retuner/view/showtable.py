@@ -7,7 +7,7 @@ from fractions import Fraction
 from typing import Optional
 
 from retuner.pitch.intervals import USUAL
-from retuner.pitch.tuning import KEY_NAMES, Tuning, beat_rate, nearest_simple_ratio, ratio_to_cents
+from retuner.pitch.tuning import KEY_NAMES, Tuning, beat_rate, cents_to_ratio, nearest_simple_ratio, ratio_to_cents
 
 # The intervals a teacher compares, with the just ratio each is heard against (upper:lower = p:q).
 CHECKED_INTERVALS = tuple((USUAL[s].name, s, USUAL[s].ratio) for s in (4, 3, 7))   # major third, minor third, fifth
@@ -18,8 +18,8 @@ class DegreeRow:
     index: int
     name: str
     cents: float           # above the root
-    from_edo12: float      # the degree's key as it sounds, against the nearest 12-EDO pitch (12-note: its own key's)
-    ratio: Optional[Fraction]   # exact ratio, or the nearest simple 5-limit ratio within 12 cents
+    from_edo12: float      # the degree's key as it sounds, against that key's own 12-EDO pitch (no folding)
+    ratio: Optional[Fraction]   # exact ratio, or the nearest simple ratio (``exact`` False)
     hz: Optional[float]
     exact: bool = False          # True when ``ratio`` is the degree's exact value
 
@@ -44,16 +44,26 @@ def degree_rows(t: Tuning, octave: int = 4) -> list[DegreeRow]:
         key = _key_of(t, i, root_period)
         hz = t.hz(key) if key is not None else None
         if key is not None:
-            # as the key sounds (reference pitch applied), against the 12-EDO pitch nearest to it:
-            # for 12-note tunings that is the key's own 12-EDO pitch
-            absolute = t.cents[key]
-            dev = absolute - 100.0 * (key if t.is_twelve else round(absolute / 100.0))
+            # as the key sounds (concert pitch applied), against the same key in 12-EDO: an
+            # edo19 key can sound several semitones from it, and is shown so
+            dev = t.cents[key] - 100.0 * key
         else:
             dev = c - 100.0 * (i if t.is_twelve else round(c / 100.0))
         exact = deg.interval.as_fraction
-        rows.append(DegreeRow(i, deg.name, c, dev, exact if exact is not None else
-                              nearest_simple_ratio(c, tolerance=12.0, prime_limit=5), hz, exact is not None))
+        rows.append(DegreeRow(i, deg.name, c, dev, exact if exact is not None else nearest_ratio(c),
+                              hz, exact is not None))
     return rows
+
+
+def nearest_ratio(cents: float) -> Fraction:
+    """The simple ratio nearest to ``cents``: a 5-limit one within 15 cents when there is one,
+    else a 7-limit one (within 15, then 50 cents), else the nearest ratio with a denominator up
+    to 128, so that every degree has one."""
+    for limit, tolerance in ((5, 15.0), (7, 15.0), (7, 50.0)):
+        r = nearest_simple_ratio(cents, tolerance=tolerance, prime_limit=limit)
+        if r is not None:
+            return r
+    return Fraction(cents_to_ratio(cents)).limit_denominator(128)
 
 
 def _key_of(t: Tuning, degree: int, period: int) -> Optional[int]:

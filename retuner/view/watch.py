@@ -95,12 +95,16 @@ def drift(notes: list[dict]) -> Optional[float]:
     return sum(devs) / len(devs) if devs else None
 
 
+# what plays, as the control socket names it
+INFO_FIELDS = ("profile", "concert_pitch_hz", "transpose_semitones", "transpose_cents", "adaptive")
+
+
 @dataclass
 class WatchState:
     """What the view shows, folded from the subscription's events."""
 
     notes: dict[tuple[int, int], dict] = field(default_factory=dict)   # (channel, key) -> note
-    info: dict = field(default_factory=dict)          # tuning, base, reference, transpose, adaptive
+    info: dict = field(default_factory=dict)          # profile, concert pitch, transpose, adaptive
     counters: dict = field(default_factory=dict)
     connected: bool = True
     events: int = 0
@@ -109,8 +113,7 @@ class WatchState:
     def snapshot(self, reply: dict) -> None:
         """Start from the subscribe reply (a status plus the sounding notes)."""
         self.notes = {(n.get("channel", 0), n["key"]): dict(n) for n in reply.get("notes") or []}
-        self.info = {k: reply.get(k) for k in ("tuning", "base", "reference", "transpose",
-                                               "transpose_cents", "adaptive")}
+        self.info = {k: reply.get(k) for k in INFO_FIELDS}
         self.counters = dict(reply.get("stats") or {})
 
     def apply(self, ev: dict) -> None:
@@ -125,17 +128,17 @@ class WatchState:
             n["hz"] = ev.get("hz")
         elif kind == "note_off":
             self.notes.pop(k, None)
-        elif kind == "tuning":
-            for f in ("tuning", "base", "reference", "transpose", "transpose_cents", "adaptive"):
+        elif kind == "profile":
+            for f in INFO_FIELDS:
                 if f in ev:
                     self.info[f] = ev[f]
         elif kind == "adaptive":
             self.info["adaptive"] = ev.get("on")
         elif kind == "counters":
-            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "tuning")}
+            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "profile")}
             self.counters.update(c)
-            if ev.get("tuning"):
-                self.info["tuning"] = ev["tuning"]
+            if ev.get("profile"):
+                self.info["profile"] = ev["profile"]
         elif kind == "panic":
             self.message = "PANIC: all notes released"
 
@@ -173,15 +176,14 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     """
     notes = sorted(state.notes.values(), key=lambda n: (n.get("cents") or 0.0, n["key"]))
     info = state.info
-    ref = info.get("reference")
+    ref = info.get("concert_pitch_hz")
     lines: list[str] = []
     state_word = "LIVE" if state.connected else "** DISCONNECTED: the daemon stopped **"
     if state.message:
         state_word += f"  ** {state.message} **"
-    lines.append(f"{state_word}    TUNING  {info.get('tuning') or '?'}"
-                 + (f"  (from {info.get('base')})" if info.get("base") and info.get("base") != info.get("tuning") else "")
+    lines.append(f"{state_word}    PROFILE  {info.get('profile') or '?'}"
                  + f"    A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
-                 + f"    TRANSPOSE {info.get('transpose') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
+                 + f"    TRANSPOSE {info.get('transpose_semitones') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
                  + f"    ADAPTIVE {'ON' if info.get('adaptive') else 'OFF'}")
     d = drift(notes)
     c = state.counters
@@ -189,7 +191,7 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
                  f"    RINGING RETUNES {c.get('ringing_retunes', 0)}    DROPPED EVENTS {c.get('events_dropped', 0)}")
     lines.append("")
     lines.append(f"SOUNDING {len(notes)}")
-    lines.append(f"{'NOTE':<6}{'KEY':>5}{'CENTS vs 12-EDO':>18}{'HZ':>12}")
+    lines.append(f"{'NOTE':<6}{'KEY':>5}{'FROM 12-EDO c':>18}{'HZ':>12}")
     for n in notes:
         c_ = n.get("cents")
         dev = None if c_ is None else c_ - 100.0 * n["key"]
@@ -199,11 +201,11 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     lines.append("")
     rows = interval_rows(notes)
     lines.append(f"INTERVALS {len(rows)}")
-    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'DEV c':>9}{'BEATS Hz':>10}")
+    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'FROM JUST c':>13}{'BEAT RATE Hz':>14}")
     for r in rows:
         pair = f"{note_name(r.low)}-{note_name(r.high)}"
-        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+9.2f}"
-                     f"{r.beats:>10.2f}" + ("" if r.consonant else "  (dissonant)"))
+        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+13.2f}"
+                     f"{r.beats:>14.2f}" + ("" if r.consonant else "  (dissonant)"))
     if big and notes:
         banner = big_text("  ".join(note_name(n["key"]) for n in notes))
         if max(len(b) for b in banner) <= width and len(lines) + 6 <= height:

@@ -33,11 +33,11 @@ function drawHeader(f) {
   const daemon = f.daemon;
   if (body.dataset.daemon !== daemon) body.dataset.daemon = daemon;
   setText($("status"), {live: "LIVE", stopped: "DAEMON STOPPED", waiting: "WAITING FOR THE DAEMON"}[daemon]);
-  setText($("tuning-name"), (f.tuning || "?") + (f.base && f.base !== f.tuning ? " (from " + f.base + ")" : ""));
+  setText($("tuning-name"), f.profile || "?");
   setText($("adaptive-value"), f.adaptive ? "ON" : "OFF");
   setText($("drift-value"), f.drift_cents === null ? "--" : signed(f.drift_cents, 1) + " c");
-  let ref = f.reference ? "A4 = " + f.reference + " Hz" : "A4 as profile";
-  if (f.transpose || f.transpose_cents) ref += "   transpose " + signed(f.transpose, 0) + " st " + signed(f.transpose_cents, 1) + " c";
+  let ref = f.concert_pitch_hz ? "A4 = " + f.concert_pitch_hz + " Hz" : "A4 as profile";
+  if (f.transpose_semitones || f.transpose_cents) ref += "   transpose " + signed(f.transpose_semitones, 0) + " st " + signed(f.transpose_cents, 1) + " c";
   setText($("reference-value"), ref);
   let banner = "";
   if (daemon === "stopped") banner = "The daemon has stopped. This page follows it again as soon as it starts.";
