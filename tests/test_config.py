@@ -240,3 +240,22 @@ def test_an_old_option_name_does_what_the_new_one_does_with_one_warning(command,
     err = capsys.readouterr().err.strip().splitlines()
     assert with_old == with_new
     assert len(err) == 1 and err[0].startswith(f"retuner: warning: {old[0]} is now called {new[0]}")
+
+
+def test_bend_range_reaches_the_mpe_members_from_the_file_and_the_option(tmp_path):
+    """In MPE mode the notes sound on member channels: the one bend range setting is theirs,
+    whether the file or --bend-range gives it (MPE specification: members default to 48
+    semitones, which an explicit setting overrides)."""
+    from retuner.commands._engine_options import engine_overrides
+    from retuner.cli import build_parser
+    from retuner.live import config as C
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text("engine:\n  mode: mpe\n  bend_range: 24\n")
+    assert C.engine_config(C.load_config(str(cfg))).mpe_member_range == 24
+    cfg.write_text("engine:\n  mode: mpe\n")
+    assert C.engine_config(C.load_config(str(cfg))).mpe_member_range == 48   # the MPE default stays
+    # --bend-range on top of a file that chose MPE (the option does not know the file's mode)
+    args = build_parser().parse_args(["run", "--config", str(cfg), "--bend-range", "24"])
+    s = C.load_config(str(cfg))
+    s.engine.update(engine_overrides(args))
+    assert C.engine_config(s).mpe_member_range == 24

@@ -51,6 +51,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Optional
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 
 LOG_LEVELS = ("debug", "info", "warning", "error")
@@ -487,6 +488,13 @@ def engine_config(settings: Settings):
                 raise RetunerError(f"bad adaptive settings: {exc}", file=settings.source,
                                    field="engine.adaptive") from None
         kw[k] = v
+    # one bend range for the channels notes sound on: in a mode that keeps it in another field
+    # (MPE: the members' range), a bend_range given in the file or by --bend-range sets that field
+    # unless the file names that field itself
+    mode = MODES.get(kw.get("mode", "pool"))
+    if mode is not None and mode.bend_range_field != "bend_range" and "bend_range" in kw \
+            and mode.bend_range_field not in kw:
+        kw[mode.bend_range_field] = kw["bend_range"]
     try:
         return cls(**kw).validate()
     except RetunerError as exc:
