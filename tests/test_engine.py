@@ -608,7 +608,8 @@ def test_reset_all_controllers_resends_tuning_bends():
 
 def test_system_messages_pass_through():
     e, s = started()
-    for m in (mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x01]), mido.Message("clock"),
+    # (a GM System Off: not a reset, so nothing follows it; resets are in test_resets.py)
+    for m in (mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x02]), mido.Message("clock"),
               mido.Message("start"), mido.Message("songpos", pos=5)):
         assert e.feed(0.0, m) == [m]
 

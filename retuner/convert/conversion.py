@@ -14,7 +14,10 @@ tick T is written at tick T; output the engine produces at a timer (``engine.tic
 is written at the tick of that time. Meta events (tempo, time signature, markers, lyrics,
 track names, ...) and system exclusive stay in their tracks at their ticks, byte for byte;
 type 1 files keep their track layout (the conductor track included), each retuned event
-landing in the track its input came from. Files are written atomically: a temporary file in
+landing in the track its input came from. A system reset in the file (GM, GM2, GS or XG
+system on: :mod:`retuner.midi.resets`) is written as it is, and every engine's set-up (bend
+ranges, MPE configuration, MTS tuning) follows right after it in the same track, at its tick:
+the reset would otherwise undo the set-up written at the start. Files are written atomically: a temporary file in
 the target folder, then ``os.replace`` -- there is never a half-written output.
 
 Parts
@@ -35,13 +38,14 @@ from dataclasses import dataclass, field
 from typing import Any, Optional, Sequence
 
 from retuner.engine.outputs import MODES
+from retuner.midi.resets import system_reset_raw
 from retuner.convert.arrange import plan_groups, split_name
 from retuner.engine.core import Engine, EngineConfig
 from retuner.engine.drive import Drive
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
-from retuner.smf.reader import CHANNEL, Song, event_seconds, merged_events, read_smf
+from retuner.smf.reader import CHANNEL, SYSEX, Song, event_seconds, merged_events, read_smf
 from retuner.smf.writer import TrackBytes, serialize
 
 
@@ -132,6 +136,10 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         last_tick = tick
         if kind != CHANNEL:
             outs[ti].append((tick, raw))
+            if kind == SYSEX and system_reset_raw(raw) is not None:
+                # the file resets the synth: each engine's set-up follows right after it
+                for e in engines:
+                    outs[ti].extend((tick, to_raw(m)) for m in e.synth_reset(t))
             continue
         ch = raw[0] & 0x0F
         if ch in passthrough:

@@ -18,6 +18,10 @@ the engine's internal state):
   RPN 4), or, if it never selected one, the last program written. Real-time
   changes retune sounding notes at once; non-real-time ones only later notes.
   Any channel bend adds on top.
+* **system resets** (GM, GM2, GS, XG system on and System Reset, see
+  :mod:`retuner.midi.resets`): every note stops and every channel is back at
+  bend range 2, wheel centred, RPN null, no tuning program selected; reset all
+  controllers (CC121) centres the channel's wheel and keeps its range.
 
 Definitions (issue 6, so figures compare):
 
@@ -42,6 +46,7 @@ from typing import Iterable, Optional, Sequence
 import mido
 
 from retuner.midi.mts import is_mts, parse_sysex
+from retuner.midi.resets import system_reset
 from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
@@ -175,6 +180,16 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
         if t > t_last:
             t_last = t
         typ = msg.type
+        if (typ == "sysex" or typ == "reset") and system_reset(msg) is not None:
+            # GM/GM2/GS/XG system on, System Reset: every note stops, every channel is
+            # back at bend range 2 (General MIDI), wheel centred, RPN null, no tuning selected
+            for nt in sounding.values():
+                nt.end = t
+                done.append(nt)
+            sounding.clear()
+            chans[:] = [_Channel() for _ in range(16)]
+            last_prog[0] = None
+            continue
         if typ == "sysex":
             parsed = _parse_mts(msg)
             if parsed is None:
@@ -246,6 +261,10 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
                     c.pending_bank = v
             elif cc == CC_DATA_LSB and c.rpn == RPN_BEND_RANGE:
                 c.range = math.floor(c.range) + v / 100.0
+                restep(t, lambda cc2, key: cc2 == ch)
+            elif cc == 121:  # reset all controllers (RP-015): wheel centred, RPN null, range kept
+                c.bend = 0
+                c.rpn = None
                 restep(t, lambda cc2, key: cc2 == ch)
             elif cc == 123 or cc == 120:  # all notes off / all sound off
                 for k in [k for k in sounding if k[0] == ch]:
