@@ -130,6 +130,9 @@ class Engine:
             "notes": 0, "note_ons_out": 0, "steals": 0, "ringing_retunes": 0,
             "bends_sent": 0, "messages_out": 0, "note_on_messages": 0,
             "dropped_unmapped": 0, "chords_solved": 0,
+            # the player's wheel: bends cut short at the end of the output range (the range
+            # is widened first where it can be), and widenings of the output range
+            "wheel_clamps": 0, "range_widenings": 0,
             # attack mode: retunes of notes within their attack, how many and how large (cents)
             "attack_retunes": 0, "attack_retune_cents_total": 0.0, "attack_retune_cents_max": 0.0,
         }
@@ -454,7 +457,9 @@ class Engine:
             for n in self._sounding_notes():
                 if n.dom == dom:
                     n.sost = False
-            inputs.wheel[dom] = 0
+            domain = self._domain
+            for c in [c for c in inputs.wheel if domain[c] == dom]:
+                del inputs.wheel[c]
             output.controllers_reset(t, out)
         else:
             out += output.zone(dom, msg)
@@ -494,8 +499,13 @@ class Engine:
 
     def _wheel_in(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
         dom = self._domain[ch]
-        self.inputs.wheel[dom] = msg.pitch
-        self.output.wheel(t, dom, msg, out)
+        self.inputs.wheel[ch] = msg.pitch
+        self.inputs.last_wheel = ch
+        output = self.output
+        before = output.range_cents
+        output.wheel(t, dom, msg, out)
+        if output.range_cents != before:
+            self._plan_tuning()        # the output range was widened for the wheel
 
     # ------------------------------------------------------------------ adaptive
     def _flush(self, t: float, out: list) -> None:
@@ -720,6 +730,7 @@ class Engine:
         inputs.wheel.clear()
         inputs.rpn.clear()
         inputs.wheel_range = self.config.wheel_range * 100.0
+        inputs.wheel_ranges.clear()
         self.output.wheel_changed()
         return self.start(t)
 

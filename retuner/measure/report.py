@@ -8,7 +8,10 @@ counters that only the engine knows (steals, ringing retunes) come from its
 * ``notes``: notes decoded from the output; ``channels_used``: 1-based output
   channels that played notes (percussion excluded);
 * ``steals``, ``ringing_retunes``: engine counters; ``bends_sent``: pitch bend
-  messages in the output;
+  messages in the output; ``range_widenings``: how often the output bend range
+  was widened so that the player's wheel plus the tuning fits; ``wheel_clamps``:
+  bends still cut short at the end of the range (both said in the summary when
+  not 0);
 * ``worst_pitch_error_cents``: static profiles only: the largest distance of
   any note's decoded pitch from the profile pitch of its key;
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
@@ -77,6 +80,9 @@ def _measures(dec, tuning, stats: dict) -> dict:
                                           / max(1, int(stats.get("attack_retunes", 0))), 4),
         "attack_retune_cents_max": round(float(stats.get("attack_retune_cents_max", 0.0)), 4),
         "bends_sent": int(dec.bends_sent),
+        # the player's wheel: output range widened to fit it, bends still cut short
+        "range_widenings": int(stats.get("range_widenings", 0)),
+        "wheel_clamps": int(stats.get("wheel_clamps", 0)),
         "worst_pitch_error_cents": None,
         "impurity_cents": round(imp, 4),
         "motion_cents_per_note": round(metrics.motion(dec.notes), 4),
@@ -129,7 +135,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:
         top["notes"] = sum(f["notes"] for f in files_rep)
-        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes"):
+        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "range_widenings", "wheel_clamps"):
             top[k] = sum(f[k] for f in files_rep)
         top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
         for k in ("worst_pitch_error_cents", "drift_max_cents"):
@@ -160,6 +166,12 @@ def text_summary(rep: dict) -> str:
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "
                      f"max {a['max']:.1f} ms ({a['notes']} notes)")
+    if rep.get("range_widenings"):
+        lines.append(f"  the output bend range was widened {rep['range_widenings']} time(s) so that the "
+                     f"player's wheel plus the tuning fits")
+    if rep.get("wheel_clamps"):
+        lines.append(f"  {rep['wheel_clamps']} bend(s) cut short: the player's wheel plus the tuning went "
+                     f"beyond the widest output bend range")
     if rep.get("attack_retunes"):
         lines.append(f"  {rep['attack_retunes']} retunes of notes within their attack"
                      + (f", mean {rep['attack_retune_cents_mean']:.2f} c" if "attack_retune_cents_mean" in rep else "")
