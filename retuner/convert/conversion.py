@@ -71,6 +71,7 @@ class Output:
     data: bytes = b""
     stats: dict = field(default_factory=dict)
     report: Optional[dict] = None
+    wheel: Optional[list] = None        # the player's wheel per output channel, for the measures
 
 
 @dataclass

@@ -13,7 +13,13 @@ counters that only the engine knows (steals, ringing retunes) come from its
   bends still cut short at the end of the range (both said in the summary when
   not 0);
 * ``worst_pitch_error_cents``: static profiles only: the largest distance of
-  any note's decoded pitch from the profile pitch of its key;
+  any note's decoded pitch from the profile pitch of its key plus the player's wheel;
+
+The player's wheel is expression, not error: it is decoded from the INPUT file (each
+part's wheel at its own bend range) and taken off the pitch of the notes on the channels
+that carry that part alone (:func:`expression`), so worst error, motion, drift and the
+plot count what the tuning does. In MPE mode the wheel travels on the manager channel,
+which the decoder does not add to the members' notes, so there is nothing to take off.
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
   ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
@@ -55,15 +61,48 @@ def require_matplotlib():
                            "(pip install 'retuner[plot]')", field="--plot")
 
 
+def expression(res, opts, o) -> Optional[list]:
+    """The player's wheel as it reaches output file ``o``'s channels, decoded from the INPUT
+    file (see :func:`retuner.measure.metrics.input_wheel`): each part's wheel goes to the
+    channels that carry that part alone (in MTS mode, its own channel). None when the mode
+    sends the wheel on a channel of its own (MPE: the manager), where no note's bend has it,
+    or when the input cannot be read again."""
+    config = opts.config
+    mode = MODES[config.mode]
+    if not mode.wheel_on_note_channels or not res.input:
+        return None
+    if mode.keeps_input_channels:
+        channels_of = {p: [p] for p in o.parts}
+    else:
+        count: dict[int, int] = {}
+        for chans in o.channels.values():
+            for c in chans:
+                count[c] = count.get(c, 0) + 1
+        # a channel shared by several parts (merged parts) carries no one wheel: left as heard
+        channels_of = {p: [c for c in chans if count[c] == 1] for p, chans in o.channels.items()}
+    try:
+        with open(res.input, "rb") as f:
+            data = f.read()
+        return metrics.input_wheel(iter_output_stream(data, res.input), config.wheel_range, channels_of)
+    except (OSError, RetunerError):
+        return None
+
+
 def _decode(o, config):
     stream = iter_output_stream(o.data, o.path)
     return metrics.decode(stream, bend_scale=config.bend_scale,
-                          exclude_channels=tuple(config.passthrough))
+                          exclude_channels=tuple(config.passthrough), expression=o.wheel)
 
 
 def decode_outputs(res, opts) -> list:
-    """Every output file of a conversion, decoded as a synth hears it."""
-    return [_decode(o, opts.config) for o in res.outputs]
+    """Every output file of a conversion, decoded as a synth hears it, the player's wheel
+    taken off (the measures and the plot show what the tuning does)."""
+    out = []
+    for o in res.outputs:
+        if o.wheel is None:
+            o.wheel = expression(res, opts, o)
+        out.append(_decode(o, opts.config))
+    return out
 
 
 def _measures(dec, tuning, stats: dict) -> dict:
@@ -111,7 +150,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     config = opts.config
     static = config.adaptive is None
     files_rep = []
-    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    decs = decoded if decoded is not None else decode_outputs(res, opts)
     for o, dec in zip(res.outputs, decs):
         r = {"file": o.path, "parts": [p + 1 for p in o.parts],
              "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
@@ -216,7 +255,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     from matplotlib.lines import Line2D
 
     config = opts.config
-    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    decs = decoded if decoded is not None else decode_outputs(res, opts)
     fig = Figure(figsize=(11, 5.5), dpi=100)
     ax = fig.add_subplot(1, 1, 1)
     cmap = matplotlib.colormaps["tab10"]

@@ -48,6 +48,7 @@ class MPEMode(BendMode):
     summary = "MPE zone"
     settings_class = MPESettings
     pedals_apart = True
+    wheel_on_note_channels = False
     zone_per_part = True
     bend_range_field = "mpe_member_range"
 
