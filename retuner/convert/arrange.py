@@ -120,10 +120,13 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
 
 
 def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, config,
-                merge: bool = False) -> list[tuple[list[int], dict]]:
+                merge: bool = False, together: bool = False) -> list[tuple[list[int], dict]]:
     """Share the output channels among the parts (see the module docstring).
 
-    Returns groups, one per output file: (parts, {part: engine config}).
+    Returns groups, one per output file: (parts, {part: engine config}). ``together``
+    (adaptive mode, pool): the parts of a group keep their own channels but share one
+    engine config (``parts`` lists each part's channels), so one engine and one solver tune
+    them as one harmony.
     """
     pas = frozenset(config.passthrough)
     all_parts = song_parts(merged, pas)
@@ -140,6 +143,12 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
     groups = _plan_note_groups(merged, parts, tuning, config, pas)
+    mode = MODES[config.mode]
+    if together and not mode.zone_per_part:
+        for i, (g, cfgs) in enumerate(groups):
+            shares = tuple((p, tuple(cfgs[p].pool)) for p in g)
+            one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
+            groups[i] = (g, {p: one for p in g})
     first_parts, first_cfgs = groups[0]
     for q in quiet:
         first_cfgs[q] = first_cfgs[first_parts[0]]

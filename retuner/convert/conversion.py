@@ -23,9 +23,10 @@ the target folder, then ``os.replace`` -- there is never a half-written output.
 Parts
 -----
 How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode without
-``--lookahead`` runs one engine per part, as a daemon per part would: each part is tuned
-against itself (for a file with one part -- a keyboard performance -- that is exactly the
-live daemon). ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
+``--lookahead`` runs one engine for the parts of an output file: one solver tunes them together
+as one harmony, and each part still sounds only on its own channels (its program and
+controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
+as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together but share
 their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
 parts together (see :mod:`retuner.adaptive.lookahead`).
@@ -60,6 +61,7 @@ class ConvertOptions:
     lookahead: bool = False
     want_report: bool = False
     merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
+    parts_apart: bool = False           # adaptive: each part tuned on its own (default: together)
     live: bool = False                  # as the daemon hears it live: a chord window delays notes
 
 
@@ -182,7 +184,10 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
         raise RetunerError("a chord window delays every note; a converted file keeps each note at its "
                            "tick (notes sound at once and settle within --attack-time): add --live to "
                            "hear the window's delay as the daemon would play it", field="--chord-window")
-    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts)
+    # adaptive mode tunes a file's pitched parts together as one harmony, each on its own
+    # channels (its program and controllers); the lookahead plan does so its own way
+    together = config.adaptive is not None and not opts.parts_apart and not opts.lookahead
+    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts, together=together)
     if not opts.lookahead:
         outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
         res = ConvertResult(song.path, outputs, len(groups) > 1)

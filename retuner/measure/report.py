@@ -159,6 +159,11 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
            "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
+    parts = sorted({p for o in res.outputs for p in o.parts})
+    if not static and len(parts) > 1:
+        # adaptive mode: one solver for the parts of a file, or each part alone
+        top["parts_tuned"] = ("with the lookahead plan" if opts.lookahead else
+                              "apart" if getattr(opts, "parts_apart", False) else "together")
     if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
         # played as live: how much later each note-on left than it came (engine clock)
         outs = [(n.start, n.key) for dec in decs for n in dec.notes]
@@ -201,6 +206,10 @@ def text_summary(rep: dict) -> str:
     else:
         lines.append(f"  notes {rep['notes']}, steals {rep['steals']}, ringing retunes "
                      f"{rep['ringing_retunes']}, bends sent {rep['bends_sent']}")
+    if rep.get("parts_tuned") == "together":
+        lines.append("  parts tuned together as one harmony, each on its own channels")
+    elif rep.get("parts_tuned") == "apart":
+        lines.append("  parts tuned apart, each against itself")
     if rep.get("added_latency_ms"):
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "

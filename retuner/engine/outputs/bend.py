@@ -90,6 +90,10 @@ class BendMode(OutputMode):
             out.append(E.pitchwheel(c, v))
             self.stats["bends_sent"] += 1
 
+    def channels_of(self, in_ch: int) -> Optional[Sequence[int]]:
+        """The output channels input channel ``in_ch``'s notes may use (None: the whole pool)."""
+        return None
+
     def clamped(self) -> None:
         """A bend (tuning plus the player's wheel) was cut short at the end of the range."""
         self.stats["wheel_clamps"] = self.stats.get("wheel_clamps", 0) + 1
@@ -135,7 +139,7 @@ class BendMode(OutputMode):
         when ``share``, by default the mode's setting)."""
         pool = self.pool
         c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share,
-                              note.in_ch)
+                              note.in_ch, self.channels_of(note.in_ch))
         if kind is STEAL:
             self.steal(c, t, out)
         elif kind is RINGING:

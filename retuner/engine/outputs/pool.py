@@ -48,11 +48,13 @@ log = logging.getLogger(__name__)
 
 @dataclass(frozen=True)
 class PoolSettings(BendSettings):
+    parts: tuple = ()       # ((input channel, (output channels...)), ...): parts tuned together
+
     @classmethod
     def from_config(cls, cfg: Any) -> "PoolSettings":
         return cls(channels=tuple(cfg.pool), bend_range=cfg.bend_range, release_time=cfg.release_time,
                    bend_scale=cfg.bend_scale, whole_semitone_range=cfg.whole_semitone_range,
-                   share_channels=cfg.share_channels)
+                   share_channels=cfg.share_channels, parts=tuple(cfg.parts))
 
 
 class PoolMode(BendMode):
@@ -72,6 +74,21 @@ class PoolMode(BendMode):
     def part_channels(cls, config: Any) -> list[int]:
         return list(config.pool)
 
+    def __init__(self, config: Any, inputs: Any, stats: dict):
+        super().__init__(config, inputs, stats)
+        self.part_pool: dict[int, tuple] = {p: tuple(chs) for p, chs in self.settings.parts}
+        # a channel that plays no note of its own (set-up only) goes with the first part
+        self.first_part = self.settings.parts[0][1] if self.settings.parts else None
+
+    def domain(self, ch: int) -> int:
+        # parts tuned together: each part is a pedal and controller domain of its own
+        return ch if ch in self.part_pool else 0
+
+    def channels_of(self, in_ch: int):
+        if not self.part_pool:
+            return None
+        return self.part_pool.get(in_ch, self.first_part)
+
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         out: list[mido.Message] = []
         for c in self.pool.channels:
@@ -80,7 +97,10 @@ class PoolMode(BendMode):
         return out
 
     def zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
-        return E.on_channels(msg, self.pool.channels)
+        return E.on_channels(msg, self.channels_of(msg.channel) or self.pool.channels)
+
+    def channel_mode(self, dom: int, msg: mido.Message) -> list[mido.Message]:
+        return E.on_channels(msg, self.channels_of(msg.channel) or self.pool.channels)
 
     def all_channels(self) -> list[int]:
         return list(self.pool.channels)
