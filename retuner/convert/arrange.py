@@ -142,7 +142,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
         config = wide
     if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
-    groups = _plan_note_groups(merged, parts, tuning, config, pas)
+    groups = _plan_note_groups(merged, parts, tuning, config, pas, together)
     mode = MODES[config.mode]
     if together and not mode.zone_per_part:
         for i, (g, cfgs) in enumerate(groups):
@@ -156,7 +156,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     return groups
 
 
-def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int], dict]]:
+def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> list[tuple[list[int], dict]]:
     if MODES[config.mode].zone_per_part:
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
@@ -174,6 +174,10 @@ def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
     need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)
+    if together:
+        # one engine for the group: no channel is kept back, each part wishes for them all
+        # (spare channels rest longer between notes: fewer ringing retunes)
+        wish = {p: avail for p in parts}
     # groups: first fit, largest minimum first
     groups: list[list[int]] = []
     for p in sorted(parts, key=lambda q: (-need_min[q], q)):
