@@ -2,7 +2,9 @@
 
 Each source channel is a *part*. Parts get disjoint shares of the output channels, so each
 part keeps its own program, controllers and wheel: one engine per part, each with its own
-sub-pool. Sharing: every part first gets as many channels as its largest number of notes
+sub-pool; or, in adaptive mode (``together``), one engine for the parts of a file, each part
+still on its own share (``EngineConfig.parts``), so one solver tunes them as one harmony, and
+every channel of the file is shared out (none kept back). Sharing: every part first gets as many channels as its largest number of notes
 sounding at once (its *minimum*: with fewer it would steal notes; in a static tuning notes
 with one bend share a channel, so it counts notes with different bends); channels left over
 go, one at a time, to the part whose wish is least met (its *wish*: one channel per bend
