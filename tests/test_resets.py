@@ -251,13 +251,15 @@ MELODY = [60, 68, 63, 66, 70, 64]
 NOTE_S, GAP_S, READ_FROM, READ_S = 1.8, 0.2, 0.1, 1.5
 
 
-@pytest.mark.parametrize("config", [EngineConfig(bend_range=12.0), EngineConfig(mode="mpe")],
-                         ids=["bend-range-12", "mpe"])
+@pytest.mark.parametrize("config", [EngineConfig(bend_range=12.0), EngineConfig(mode="mpe"),
+                                    EngineConfig(mode="mts")], ids=["bend-range-12", "mpe", "mts"])
 def test_fluidsynth_plays_a_reset_file_in_tune(tmp_path, config):
     """FluidSynth (a real GM synth) renders a file with a GM System On at tick 0, converted:
     each note against the same key rendered from the untuned file (same program, velocity
     and read window) must differ by its meantone deviation within 1.5 c (FluidSynth plays
-    bends at 127/128 of their size and truncates to whole cents: /work/shared/README.md)."""
+    bends at 127/128 of their size and truncates to whole cents, and honours MIDI Tuning
+    Standard single note changes on channels that selected the tuning program with RPN 3:
+    /work/shared/README.md)."""
     ev = [(0.0, mido.Message("sysex", data=RESETS_FROM_DOCUMENTS["GM System On"])),
           (0.01, mido.Message("program_change", channel=0, program=0))]
     notes = [(0.5 + i * (NOTE_S + GAP_S), 0.5 + i * (NOTE_S + GAP_S) + NOTE_S, 0, k, 96)
