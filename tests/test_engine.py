@@ -375,15 +375,20 @@ def test_wheel_added_to_tuning_bend():
         assert abs(s.pitch(c, v) - tu.cents[v.key]) <= half_step()
 
 
-def test_wheel_range_scaling_and_clamp():
+def test_wheel_range_scaling_and_widening():
     tu = load_profile("meantone-quarter")
     e, s = started(tu, wheel_range=12.0)
     s.feed(e.feed(0.0, ON(64)))            # E: about -13.7 cents
-    s.feed(e.feed(0.1, WHEEL(8191)))       # +12 semitones asked: beyond +-2, clamped
+    s.feed(e.feed(0.1, WHEEL(8191)))       # +12 semitones asked: beyond +-2, the range widens
     (c, v), = s.sounding()
-    assert s.bend[c] == 8191               # 16383 unsigned: the top
+    assert s.range[c] >= 1200.0 + 13.7     # announced with RPN 0 (the synth model reads it)
+    assert abs(s.pitch(c, v) - (tu.cents[64] + 8191 / 8192 * 1200)) <= 2 * half_step(s.range[c])
+    assert e.stats["wheel_clamps"] == 0 and e.stats["range_widenings"] == 1
     s.feed(e.feed(0.2, WHEEL(683)))        # 683/8192*1200 = 100.05 cents
-    assert abs(s.pitch(c, v) - (tu.cents[64] + 683 / 8192 * 1200)) <= 2 * half_step()
+    assert abs(s.pitch(c, v) - (tu.cents[64] + 683 / 8192 * 1200)) <= 2 * half_step(s.range[c])
+    s.feed(e.feed(0.3, ON(60)))            # a later note is placed at the wider range
+    for c, v in s.sounding():
+        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 683 / 8192 * 1200)) <= 2 * half_step(s.range[c])
 
 
 def test_wheel_not_sent_to_idle_channels_and_not_twice():
@@ -400,7 +405,7 @@ def test_input_rpn0_sets_wheel_range_and_is_not_forwarded():
     for m in (CC(101, 0), CC(100, 0), CC(6, 12), CC(38, 0)):
         out += e.feed(0.0, m)
     assert not any(m.control in (6, 38) for m in out)
-    assert e.inputs.wheel_range == 1200.0
+    assert e.inputs.range_of(0) == 1200.0
 
 
 def test_pressure_cc_program_to_every_pool_channel():
@@ -465,7 +470,8 @@ def test_reset_all_controllers_resends_tuning_bends():
 
 def test_system_messages_pass_through():
     e, s = started()
-    for m in (mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x01]), mido.Message("clock"),
+    # (a GM System Off: not a reset, so nothing follows it; resets are in test_resets.py)
+    for m in (mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x02]), mido.Message("clock"),
               mido.Message("start"), mido.Message("songpos", pos=5)):
         assert e.feed(0.0, m) == [m]
 

@@ -92,6 +92,8 @@ def check_stream(engine, tuning, perf, held, t_end, synth=None, target=None):
             s.feed(engine.tick(t))
         assert not s.problems, s.problems
         if not any(engine.inputs.wheel.values()):
+            # one step of the range in force (a wheel beyond it widens the range)
+            step = engine.bend_range_cents / 16384.0
             for c, v in s.sounding():
                 # decoded from the output alone: key*100 + bend/8192*range
                 p = s.pitch(c, v)

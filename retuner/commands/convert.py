@@ -39,6 +39,9 @@ def add_arguments(parser) -> None:
     parser.add_argument("--merge-parts", action="store_true",
                         help="one engine and one pool for all parts, as the live daemon treats a "
                              "multi-channel input (parts share channels, programs and controllers)")
+    parser.add_argument("--parts-apart", action="store_true",
+                        help="with --adaptive: tune each part on its own (default: the parts are "
+                             "tuned together as one harmony, each on its own channels)")
     parser.add_argument("--live", action="store_true",
                         help="play the file as the daemon hears it live: the same decisions and the "
                              "same added latency (a --chord-window delays notes); the summary gives "
@@ -66,7 +69,7 @@ def build_options(args):
         raise RetunerError("plans over the whole file, which live playing cannot: choose one", field="--lookahead")
     return ConvertOptions(tuning, cfg, lookahead=args.lookahead, live=args.live,
                           want_report=bool(args.report or args.plot or not args.quiet),
-                          merge_parts=args.merge_parts)
+                          merge_parts=args.merge_parts, parts_apart=args.parts_apart)
 
 
 def _one_blas_thread() -> None:

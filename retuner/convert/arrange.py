@@ -2,7 +2,9 @@
 
 Each source channel is a *part*. Parts get disjoint shares of the output channels, so each
 part keeps its own program, controllers and wheel: one engine per part, each with its own
-sub-pool. Sharing: every part first gets as many channels as its largest number of notes
+sub-pool; or, in adaptive mode (``together``), one engine for the parts of a file, each part
+still on its own share (``EngineConfig.parts``), so one solver tunes them as one harmony, and
+every channel of the file is shared out (none kept back). Sharing: every part first gets as many channels as its largest number of notes
 sounding at once (its *minimum*: with fewer it would steal notes; in a static tuning notes
 with one bend share a channel, so it counts notes with different bends); channels left over
 go, one at a time, to the part whose wish is least met (its *wish*: one channel per bend
@@ -120,10 +122,13 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
 
 
 def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, config,
-                merge: bool = False) -> list[tuple[list[int], dict]]:
+                merge: bool = False, together: bool = False) -> list[tuple[list[int], dict]]:
     """Share the output channels among the parts (see the module docstring).
 
-    Returns groups, one per output file: (parts, {part: engine config}).
+    Returns groups, one per output file: (parts, {part: engine config}). ``together``
+    (adaptive mode, pool): the parts of a group keep their own channels but share one
+    engine config (``parts`` lists each part's channels), so one engine and one solver tune
+    them as one harmony.
     """
     pas = frozenset(config.passthrough)
     all_parts = song_parts(merged, pas)
@@ -139,7 +144,13 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
         config = wide
     if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
-    groups = _plan_note_groups(merged, parts, tuning, config, pas)
+    groups = _plan_note_groups(merged, parts, tuning, config, pas, together)
+    mode = MODES[config.mode]
+    if together and not mode.zone_per_part:
+        for i, (g, cfgs) in enumerate(groups):
+            shares = tuple((p, tuple(cfgs[p].pool)) for p in g)
+            one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
+            groups[i] = (g, {p: one for p in g})
     first_parts, first_cfgs = groups[0]
     for q in quiet:
         first_cfgs[q] = first_cfgs[first_parts[0]]
@@ -147,7 +158,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     return groups
 
 
-def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int], dict]]:
+def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> list[tuple[list[int], dict]]:
     if MODES[config.mode].zone_per_part:
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
@@ -165,6 +176,10 @@ def _plan_note_groups(merged, parts, tuning, config, pas) -> list[tuple[list[int
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
     need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)
+    if together:
+        # one engine for the group: no channel is kept back, each part wishes for them all
+        # (spare channels rest longer between notes: fewer ringing retunes)
+        wish = {p: avail for p in parts}
     # groups: first fit, largest minimum first
     groups: list[list[int]] = []
     for p in sorted(parts, key=lambda q: (-need_min[q], q)):

@@ -14,15 +14,19 @@ tick T is written at tick T; output the engine produces at a timer (``engine.tic
 is written at the tick of that time. Meta events (tempo, time signature, markers, lyrics,
 track names, ...) and system exclusive stay in their tracks at their ticks, byte for byte;
 type 1 files keep their track layout (the conductor track included), each retuned event
-landing in the track its input came from. Files are written atomically: a temporary file in
+landing in the track its input came from. A system reset in the file (GM, GM2, GS or XG
+system on: :mod:`retuner.midi.resets`) is written as it is, and every engine's set-up (bend
+ranges, MPE configuration, MTS tuning) follows right after it in the same track, at its tick:
+the reset would otherwise undo the set-up written at the start. Files are written atomically: a temporary file in
 the target folder, then ``os.replace`` -- there is never a half-written output.
 
 Parts
 -----
 How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode without
-``--lookahead`` runs one engine per part, as a daemon per part would: each part is tuned
-against itself (for a file with one part -- a keyboard performance -- that is exactly the
-live daemon). ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
+``--lookahead`` runs one engine for the parts of an output file: one solver tunes them together
+as one harmony, and each part still sounds only on its own channels (its program and
+controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
+as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together but share
 their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
 parts together (see :mod:`retuner.adaptive.lookahead`).
@@ -36,13 +40,14 @@ from dataclasses import dataclass, field
 from typing import Any, Optional, Sequence
 
 from retuner.engine.outputs import MODES
+from retuner.midi.resets import system_reset_raw
 from retuner.convert.arrange import plan_groups, split_name
 from retuner.engine.core import Engine, EngineConfig
 from retuner.engine.drive import Drive
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
-from retuner.smf.reader import CHANNEL, Song, event_seconds, merged_events, read_smf
+from retuner.smf.reader import CHANNEL, SYSEX, Song, event_seconds, merged_events, read_smf
 from retuner.smf.writer import TrackBytes, serialize
 
 
@@ -61,6 +66,7 @@ class ConvertOptions:
     lookahead: bool = False
     want_report: bool = False
     merge_parts: bool = False           # one engine and one pool for every part (as the daemon)
+    parts_apart: bool = False           # adaptive: each part tuned on its own (default: together)
     live: bool = False                  # as the daemon hears it live: a chord window delays notes
 
 
@@ -72,6 +78,7 @@ class Output:
     data: bytes = b""
     stats: dict = field(default_factory=dict)
     report: Optional[dict] = None
+    wheel: Optional[list] = None        # the player's wheel per output channel, for the measures
 
 
 @dataclass
@@ -137,6 +144,10 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         last_tick = tick
         if kind != CHANNEL:
             outs[ti].append((tick, raw))
+            if kind == SYSEX and system_reset_raw(raw) is not None:
+                # the file resets the synth: each engine's set-up follows right after it
+                for e in engines:
+                    outs[ti].extend((tick, to_raw(m)) for m in e.synth_reset(t))
             continue
         ch = raw[0] & 0x0F
         if ch in passthrough:
@@ -178,7 +189,10 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
         raise RetunerError("a chord window delays every note; a converted file keeps each note at its "
                            "tick (notes sound at once and settle within --attack-time): add --live to "
                            "hear the window's delay as the daemon would play it", field="--chord-window")
-    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts)
+    # adaptive mode tunes a file's pitched parts together as one harmony, each on its own
+    # channels (its program and controllers); the lookahead plan does so its own way
+    together = config.adaptive is not None and not opts.parts_apart and not opts.lookahead
+    groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts, together=together)
     if not opts.lookahead:
         outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
         res = ConvertResult(song.path, outputs, len(groups) > 1)

@@ -14,7 +14,9 @@ Channel choice for a note that needs tuning bend ``b`` on output key ``k``
 (:meth:`Pool.choose`), first rule that applies:
 
 1. **share** (only when sharing is allowed: static tunings in the bend pool):
-   a busy channel already at bend ``b`` that has no key-down note on key ``k``
+   a busy channel already at bend ``b`` whose notes come from the same input
+   channel (the player's wheel of one input channel bends only its own notes)
+   and that has no key-down note on key ``k``
    (a note-off must stop exactly one note, so one key is never held twice on one
    channel); the first such channel in pool order;
 2. **same bend**: a free (ringing or idle) channel already at bend ``b``: no
@@ -140,8 +142,11 @@ class Pool(NoteTable):
         return not self.notes[c] and t - self.last_off[c] < self.release_time
 
     # -- choice --------------------------------------------------------------
-    def choose(self, bend: int, out_key: int, t: float, share: bool) -> tuple[int, str]:
-        """The channel for a new note (see the module docstring for the rules)."""
+    def choose(self, bend: int, out_key: int, t: float, share: bool, in_ch: Optional[int] = None,
+               channels: Optional[Iterable[int]] = None) -> tuple[int, str]:
+        """The channel for a new note from input channel ``in_ch`` (None: shares with
+        notes of any input channel; see the module docstring for the rules), among
+        ``channels`` (default: the whole pool)."""
         notes = self.notes
         cbend = self.bend
         last_off = self.last_off
@@ -152,10 +157,11 @@ class Pool(NoteTable):
         ring: Optional[int] = None
         ring_off = math.inf
         release = self.release_time
-        for c in self.channels:
+        chans = self.channels if channels is None else channels
+        for c in chans:
             ns = notes[c]
             if ns:
-                if share and cbend[c] == bend:
+                if share and cbend[c] == bend and (in_ch is None or ns[0].in_ch == in_ch):
                     for n in ns:
                         if n.down and n.out_key == out_key:
                             break
@@ -178,15 +184,15 @@ class Pool(NoteTable):
             return idle, IDLE
         if ring is not None:
             return ring, RINGING
-        return self.victim(), STEAL
+        return self.victim(chans), STEAL
 
-    def victim(self) -> int:
-        """The channel to steal: longest-released first, then oldest held."""
+    def victim(self, channels: Optional[Iterable[int]] = None) -> int:
+        """The channel to steal (among ``channels``): longest-released first, then oldest held."""
         best_rel: Optional[int] = None
         best_rel_t = math.inf
         best_held: Optional[int] = None
         best_held_t = math.inf
-        for c in self.channels:
+        for c in (self.channels if channels is None else channels):
             ns = self.notes[c]
             if not ns:
                 continue

@@ -32,6 +32,10 @@ class EngineConfig:
     bend_scale: float = 1.0                  # synth correction: played / specified bend size
     whole_semitone_range: bool = False       # synth ignores CC38: whole semitones only
     share_channels: bool = True              # static tunings: notes with the same bend share
+    # parts of a file tuned together: ((input channel, (output channels, ...)), ...); each part
+    # sounds only on its own pool channels (its program and controllers) and is a pedal domain
+    # of its own; empty: the pool is one instrument
+    parts: tuple = ()
     # MPE
     mpe_zone: str = "lower"                  # lower (manager channel 1) | upper (manager 16)
     mpe_members: Optional[int] = None        # member channels in the zone; None: up to the first passthrough channel
@@ -51,6 +55,9 @@ class EngineConfig:
             v = getattr(self, name)
             if isinstance(v, (list, set, frozenset, range)):
                 setattr(self, name, tuple(sorted(v)) if isinstance(v, (set, frozenset)) else tuple(v))
+        if isinstance(self.parts, dict):
+            self.parts = tuple(sorted(self.parts.items()))
+        self.parts = tuple((int(p), tuple(chs)) for p, chs in self.parts)
 
     def validate(self) -> "EngineConfig":
         def bad(msg: str, fld: str) -> RetunerError:
@@ -91,6 +98,11 @@ class EngineConfig:
                 raise bad("must be 0..127", name)
         if self.mts_bank is not None and (not isinstance(self.mts_bank, int) or not 0 <= self.mts_bank <= 127):
             raise bad("must be 0..127 or empty", "mts_bank")
+        seen: set = set()
+        for p, chs in self.parts:
+            if not 0 <= p <= 15 or not chs or not set(chs) <= set(self.pool) or seen & set(chs):
+                raise bad(f"part {p + 1}: its channels must be pool channels no other part has", "parts")
+            seen |= set(chs)
         mode.check(self)
         return self
 

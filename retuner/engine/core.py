@@ -35,8 +35,11 @@ adaptive solver, and asks the mode object for everything else.
   but their notes are counted: panic and a lost input end them with note-offs,
   and after a layout change that takes their channel into retuning the
   player's note-offs for them still go to the synth as they came.
-  After a system reset (0xFF) the sounding notes are forgotten and the setup
-  (bend range, MPE configuration, MTS tuning) is sent again.
+  After a system reset (System Reset 0xFF, GM or GM2 System On, GS Reset, XG
+  System On: :mod:`retuner.midi.resets`) the sounding notes are forgotten, the
+  player's wheel, pedals, input bend range and RPN selection are back at their
+  defaults (as the synth's are), and the setup (bend range, MPE configuration,
+  MTS tuning selection and key table) is sent again right after the reset.
 * Unmapped keys are dropped (logged once per key).
 * All-notes-off (CC123, and CC124-127), all-sound-off (CC120) and
   reset-all-controllers (CC121, after which the tuning bends are sent again)
@@ -79,6 +82,7 @@ import mido
 
 from retuner.adaptive.solver import AdaptiveSolver
 from retuner.midi import encode as E
+from retuner.midi.resets import system_reset
 from retuner.engine.attack import AttackSettle
 from retuner.engine.allocator import NEG_INF, Note
 from retuner.engine.chord import ChordWindow
@@ -126,6 +130,9 @@ class Engine:
             "notes": 0, "note_ons_out": 0, "steals": 0, "ringing_retunes": 0,
             "bends_sent": 0, "messages_out": 0, "note_on_messages": 0,
             "dropped_unmapped": 0, "chords_solved": 0,
+            # the player's wheel: bends cut short at the end of the output range (the range
+            # is widened first where it can be), and widenings of the output range
+            "wheel_clamps": 0, "range_widenings": 0,
             # attack mode: retunes of notes within their attack, how many and how large (cents)
             "attack_retunes": 0, "attack_retune_cents_total": 0.0, "attack_retune_cents_max": 0.0,
         }
@@ -213,10 +220,9 @@ class Engine:
             out.append(msg)
             if ch is not None:
                 self._pass_notes.track(msg)
-            elif typ == "reset":
-                # a system reset clears the synth: what sounded is gone, set it up again
-                self.output_lost(t)
-                setup = self.start(t)
+            elif system_reset(msg) is not None:
+                # the synth is reset: what sounded is gone; set it up again right after
+                setup = self.synth_reset(t)
                 self.stats["messages_out"] -= len(setup)   # counted below with the rest
                 out += setup
         elif typ == "note_on":
@@ -451,7 +457,9 @@ class Engine:
             for n in self._sounding_notes():
                 if n.dom == dom:
                     n.sost = False
-            inputs.wheel[dom] = 0
+            domain = self._domain
+            for c in [c for c in inputs.wheel if domain[c] == dom]:
+                del inputs.wheel[c]
             output.controllers_reset(t, out)
         else:
             out += output.zone(dom, msg)
@@ -491,8 +499,13 @@ class Engine:
 
     def _wheel_in(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
         dom = self._domain[ch]
-        self.inputs.wheel[dom] = msg.pitch
-        self.output.wheel(t, dom, msg, out)
+        self.inputs.wheel[ch] = msg.pitch
+        self.inputs.last_wheel = ch
+        output = self.output
+        before = output.range_cents
+        output.wheel(t, dom, msg, out)
+        if output.range_cents != before:
+            self._plan_tuning()        # the output range was widened for the wheel
 
     # ------------------------------------------------------------------ adaptive
     def _flush(self, t: float, out: list) -> None:
@@ -695,13 +708,31 @@ class Engine:
         for dom in list(inputs.sustain):
             if inputs.sustain[dom]:
                 self._control(t, dom, E.control_change(dom, E.CC_SUSTAIN, 0), out)
-        for dom in list(inputs.wheel):
-            if inputs.wheel[dom]:
-                self._wheel_in(t, dom, E.msg("pitchwheel", channel=dom, pitch=0), out)
+        for ch in list(inputs.wheel):
+            if inputs.wheel[ch]:
+                self._wheel_in(t, ch, E.msg("pitchwheel", channel=ch, pitch=0), out)
         inputs.rpn.clear()
         out += self._pass_notes.release()
         self.stats["messages_out"] += len(out)
         return out
+
+    def synth_reset(self, t: float) -> list[mido.Message]:
+        """The synth was just reset (GM, GM2, GS or XG system on, or System Reset: see
+        :mod:`retuner.midi.resets`): it forgot its notes and every set-up, and is back at
+        bend range 2, wheel centred, pedals up. The state kept for the player is reset as
+        the synth's was (wheel centred, pedals up, the input's bend range back to its
+        default, RPN selection null) and the set-up messages to send right after the
+        reset are returned."""
+        self.output_lost(t)
+        inputs = self.inputs
+        inputs.sustain.clear()
+        inputs.sostenuto.clear()
+        inputs.wheel.clear()
+        inputs.rpn.clear()
+        inputs.wheel_range = self.config.wheel_range * 100.0
+        inputs.wheel_ranges.clear()
+        self.output.wheel_changed()
+        return self.start(t)
 
     def output_lost(self, t: float) -> None:
         """The output went away with its sounding notes: forget them. Call

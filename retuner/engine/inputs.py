@@ -16,12 +16,16 @@
   presses of one key on one channel (merged keyboards, a file's overlapping
   doubled notes) with a new press between two of their note-offs, the newer
   press ends early, at the same moment as the stale one.
-* **Pedals** (sustain, sostenuto) and the **wheel**, per pedal domain (the
-  output mode says which input channels form a domain).
+* **Pedals** (sustain, sostenuto), per pedal domain (the output mode says which
+  input channels form a domain).
+* The **wheel** per input channel (a wheel bends only its own channel's notes
+  where the output mode can keep them apart), and the channel that moved its
+  wheel last.
 * The input's **RPN selection** per channel: an input RPN 0 (pitch bend
-  sensitivity) sets the assumed wheel range instead of reaching the synth;
-  data entry for the other RPNs the engine manages (tuning program and bank,
-  MPE configuration) is dropped.
+  sensitivity) sets that channel's wheel range (the cents its full wheel spans;
+  ``wheel_range`` from the config until the input sets one) instead of reaching
+  the synth; data entry for the other RPNs the engine manages (tuning program
+  and bank, MPE configuration) is dropped.
 """
 
 from __future__ import annotations
@@ -45,8 +49,10 @@ class InputState:
         self.presses: dict[tuple[int, int], deque] = {}
         self.sustain: dict[int, bool] = {}       # domain -> down
         self.sostenuto: dict[int, bool] = {}     # domain -> down
-        self.wheel: dict[int, int] = {}          # domain -> signed bend -8192..8191
-        self.wheel_range = wheel_range_semitones * 100.0   # cents the player's full wheel spans
+        self.wheel: dict[int, int] = {}          # input channel -> signed bend -8192..8191
+        self.last_wheel = 0                      # the input channel whose wheel moved last
+        self.wheel_range = wheel_range_semitones * 100.0   # cents a full wheel spans (default)
+        self.wheel_ranges: dict[int, float] = {}  # input channel -> cents, as its RPN 0 set it
         self.rpn: dict[int, Any] = {}            # input channel -> (msb, lsb) or "nrpn"
 
     # ------------------------------------------------------------------ presses
@@ -84,6 +90,15 @@ class InputState:
         self.presses.clear()
         return q
 
+    # ------------------------------------------------------------------ wheel
+    def range_of(self, ch: int) -> float:
+        """The cents input channel ``ch``'s full wheel spans."""
+        return self.wheel_ranges.get(ch, self.wheel_range)
+
+    def wheel_cents(self, ch: int) -> float:
+        """Where input channel ``ch``'s wheel bends its notes, in cents."""
+        return self.wheel.get(ch, 0) / 8192.0 * self.range_of(ch)
+
     # ------------------------------------------------------------------ RPN
     def rpn_data(self, ch: int, cc: int, value: int) -> bool:
         """Track the input's RPN selection; take data entry for the RPNs the engine
@@ -102,12 +117,14 @@ class InputState:
             sel = self.rpn.get(ch)
             if sel in MANAGED_RPNS:
                 if sel == E.RPN_PITCH_BEND_SENSITIVITY:
-                    semis, cents = divmod(int(round(self.wheel_range)), 100)
+                    semis, cents = divmod(int(round(self.range_of(ch))), 100)
                     if cc == E.CC_DATA_ENTRY_MSB:
                         semis = value
                     elif cc == E.CC_DATA_ENTRY_LSB:
                         cents = min(value, 99)
-                    self.wheel_range = semis * 100.0 + cents
+                    else:
+                        return True                  # increment / decrement: not followed
+                    self.wheel_ranges[ch] = semis * 100.0 + cents
                 return True
         return False
 

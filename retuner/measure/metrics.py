@@ -18,6 +18,10 @@ the engine's internal state):
   RPN 4), or, if it never selected one, the last program written. Real-time
   changes retune sounding notes at once; non-real-time ones only later notes.
   Any channel bend adds on top.
+* **system resets** (GM, GM2, GS, XG system on and System Reset, see
+  :mod:`retuner.midi.resets`): every note stops and every channel is back at
+  bend range 2, wheel centred, RPN null, no tuning program selected; reset all
+  controllers (CC121) centres the channel's wheel and keeps its range.
 
 Definitions (the same everywhere a figure is shown, so figures compare):
 
@@ -42,6 +46,7 @@ from typing import Iterable, Optional, Sequence
 import mido
 
 from retuner.midi.mts import is_mts, parse_sysex
+from retuner.midi.resets import system_reset
 from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
@@ -127,12 +132,19 @@ class _Channel:
 
 def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 1.0,
            bend_range: Optional[float] = None, exclude_channels: Sequence[int] = (),
-           end_time: Optional[float] = None) -> Decoded:
+           end_time: Optional[float] = None,
+           expression: Optional[Sequence[tuple[float, int, float]]] = None) -> Decoded:
     """Decode an output stream into sounding notes with their pitch over time.
 
     ``bend_range`` (semitones) is the range assumed before the stream sets one
     with RPN 0 (default 2); ``exclude_channels`` are 0-based (e.g. 9 for drums).
     Notes still sounding at the end end at ``end_time`` (default: last event).
+    ``expression``: the player's wheel as it reaches each output channel,
+    ``(seconds, channel, cents)`` in time order (see :func:`input_wheel`); it is
+    taken off the pitch heard, in whole bend steps of the channel's range (as the
+    output carries it: ``round(cents / step)`` steps), so the notes carry the tuning's part only (a pitch
+    error is then measured against tuning plus wheel, and motion and drift count
+    what the tuning does).
     """
     chans = [_Channel() for _ in range(16)]
     if bend_range is not None:
@@ -147,6 +159,9 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
     t_last = 0.0
     excl = set(exclude_channels)
     bases: dict[int, float] = {}  # id(NoteTrack) -> tuning-table pitch of the sounding note
+    expr = [0.0] * 16             # the player's wheel on each channel, cents (taken off)
+    xs = list(expression or ())
+    xi = 0
 
     def table_for(ch: int) -> Optional[list[float]]:
         c = chans[ch]
@@ -162,7 +177,11 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
 
     def bend(ch: int) -> float:
         c = chans[ch]
-        return c.bend / 8192.0 * c.range * 100.0 * bend_scale
+        step = c.range * 100.0 * bend_scale / 8192.0
+        w = expr[ch]
+        # the wheel's share as the output carries it: whole bend steps of the channel's range
+        share = round(w / step) * step if w and step else 0.0
+        return c.bend * step - share
 
     def restep(t: float, pred) -> None:
         for (ch, key), nt in sounding.items():
@@ -174,7 +193,23 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
     for t, msg in stream:
         if t > t_last:
             t_last = t
+        while xi < len(xs) and xs[xi][0] <= t + TIME_EPS:
+            tx, xch, cents = xs[xi]
+            xi += 1
+            if expr[xch] != cents:
+                expr[xch] = cents
+                restep(tx, lambda cc2, key, xch=xch: cc2 == xch)
         typ = msg.type
+        if (typ == "sysex" or typ == "reset") and system_reset(msg) is not None:
+            # GM/GM2/GS/XG system on, System Reset: every note stops, every channel is
+            # back at bend range 2 (General MIDI), wheel centred, RPN null, no tuning selected
+            for nt in sounding.values():
+                nt.end = t
+                done.append(nt)
+            sounding.clear()
+            chans[:] = [_Channel() for _ in range(16)]
+            last_prog[0] = None
+            continue
         if typ == "sysex":
             parsed = _parse_mts(msg)
             if parsed is None:
@@ -247,6 +282,10 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
             elif cc == CC_DATA_LSB and c.rpn == RPN_BEND_RANGE:
                 c.range = math.floor(c.range) + v / 100.0
                 restep(t, lambda cc2, key: cc2 == ch)
+            elif cc == 121:  # reset all controllers (RP-015): wheel centred, RPN null, range kept
+                c.bend = 0
+                c.rpn = None
+                restep(t, lambda cc2, key: cc2 == ch)
             elif cc == 123 or cc == 120:  # all notes off / all sound off
                 for k in [k for k in sounding if k[0] == ch]:
                     nt = sounding.pop(k)
@@ -259,6 +298,68 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
         done.append(nt)
     done.sort(key=lambda n: (n.start, n.key, n.channel))
     return Decoded(done, bends, sorted(used), t_end)
+
+
+def input_wheel(stream: Iterable[tuple[float, mido.Message]], wheel_range: float,
+                channels_of: dict) -> list[tuple[float, int, float]]:
+    """The player's wheel, from the INPUT stream, as it reaches the output channels.
+
+    Each input channel's wheel in cents is ``bend/8192 * range``, ``range`` being that
+    channel's own pitch bend sensitivity (its RPN 0, MIDI 1.0; ``wheel_range`` semitones
+    until it sets one, and again after a system reset); reset all controllers (CC121)
+    centres it. ``channels_of`` maps an input channel to the output channels that carry its
+    notes (and its wheel); returns ``(seconds, output channel, cents)`` in time order, for
+    :func:`decode`'s ``expression``.
+    """
+    rng: dict[int, float] = {}
+    rpn: dict[int, Optional[tuple[int, int]]] = {}
+    wheel: dict[int, int] = {}
+    out: list[tuple[float, int, float]] = []
+
+    def emit(t: float, ch: int) -> None:
+        cents = wheel.get(ch, 0) / 8192.0 * rng.get(ch, wheel_range * 100.0)
+        for oc in channels_of.get(ch, ()):
+            out.append((t, oc, cents))
+
+    for t, msg in stream:
+        if system_reset(msg) is not None:
+            moved = [ch for ch, w in wheel.items() if w]
+            rng.clear()
+            rpn.clear()
+            wheel.clear()
+            for ch in moved:
+                emit(t, ch)
+            continue
+        ch = getattr(msg, "channel", None)
+        if ch is None:
+            continue
+        typ = msg.type
+        if typ == "pitchwheel":
+            wheel[ch] = msg.pitch
+            emit(t, ch)
+        elif typ == "control_change":
+            cc, v = msg.control, msg.value
+            sel = rpn.get(ch)
+            if cc == CC_RPN_MSB:
+                rpn[ch] = (v, sel[1] if sel else 127)
+            elif cc == CC_RPN_LSB:
+                rpn[ch] = (sel[0] if sel else 127, v)
+            elif cc in (CC_NRPN_MSB, CC_NRPN_LSB):
+                rpn[ch] = None
+            elif cc in (CC_DATA_MSB, CC_DATA_LSB) and sel == RPN_BEND_RANGE:
+                semis, cents = divmod(int(round(rng.get(ch, wheel_range * 100.0))), 100)
+                if cc == CC_DATA_MSB:
+                    semis = v
+                else:
+                    cents = min(v, 99)
+                rng[ch] = semis * 100.0 + cents
+                emit(t, ch)
+            elif cc == 121:
+                wheel[ch] = 0
+                rpn[ch] = None
+                emit(t, ch)
+    out.sort(key=lambda e: e[0])
+    return out
 
 
 # -- the measures ----------------------------------------------------------------

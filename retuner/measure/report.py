@@ -8,9 +8,18 @@ counters that only the engine knows (steals, ringing retunes) come from its
 * ``notes``: notes decoded from the output; ``channels_used``: 1-based output
   channels that played notes (percussion excluded);
 * ``steals``, ``ringing_retunes``: engine counters; ``bends_sent``: pitch bend
-  messages in the output;
+  messages in the output; ``range_widenings``: how often the output bend range
+  was widened so that the player's wheel plus the tuning fits; ``wheel_clamps``:
+  bends still cut short at the end of the range (both said in the summary when
+  not 0);
 * ``worst_pitch_error_cents``: static profiles only: the largest distance of
-  any note's decoded pitch from the profile pitch of its key;
+  any note's decoded pitch from the profile pitch of its key plus the player's wheel;
+
+The player's wheel is expression, not error: it is decoded from the INPUT file (each
+part's wheel at its own bend range) and taken off the pitch of the notes on the channels
+that carry that part alone (:func:`expression`), so worst error, motion, drift and the
+plot count what the tuning does. In MPE mode the wheel travels on the manager channel,
+which the decoder does not add to the members' notes, so there is nothing to take off.
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
   ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
@@ -52,15 +61,48 @@ def require_matplotlib():
                            "(pip install 'retuner[plot]')", field="--plot")
 
 
+def expression(res, opts, o) -> Optional[list]:
+    """The player's wheel as it reaches output file ``o``'s channels, decoded from the INPUT
+    file (see :func:`retuner.measure.metrics.input_wheel`): each part's wheel goes to the
+    channels that carry that part alone (in MTS mode, its own channel). None when the mode
+    sends the wheel on a channel of its own (MPE: the manager), where no note's bend has it,
+    or when the input cannot be read again."""
+    config = opts.config
+    mode = MODES[config.mode]
+    if not mode.wheel_on_note_channels or not res.input:
+        return None
+    if mode.keeps_input_channels:
+        channels_of = {p: [p] for p in o.parts}
+    else:
+        count: dict[int, int] = {}
+        for chans in o.channels.values():
+            for c in chans:
+                count[c] = count.get(c, 0) + 1
+        # a channel shared by several parts (merged parts) carries no one wheel: left as heard
+        channels_of = {p: [c for c in chans if count[c] == 1] for p, chans in o.channels.items()}
+    try:
+        with open(res.input, "rb") as f:
+            data = f.read()
+        return metrics.input_wheel(iter_output_stream(data, res.input), config.wheel_range, channels_of)
+    except (OSError, RetunerError):
+        return None
+
+
 def _decode(o, config):
     stream = iter_output_stream(o.data, o.path)
     return metrics.decode(stream, bend_scale=config.bend_scale,
-                          exclude_channels=tuple(config.passthrough))
+                          exclude_channels=tuple(config.passthrough), expression=o.wheel)
 
 
 def decode_outputs(res, opts) -> list:
-    """Every output file of a conversion, decoded as a synth hears it."""
-    return [_decode(o, opts.config) for o in res.outputs]
+    """Every output file of a conversion, decoded as a synth hears it, the player's wheel
+    taken off (the measures and the plot show what the tuning does)."""
+    out = []
+    for o in res.outputs:
+        if o.wheel is None:
+            o.wheel = expression(res, opts, o)
+        out.append(_decode(o, opts.config))
+    return out
 
 
 def _measures(dec, tuning, stats: dict) -> dict:
@@ -77,6 +119,9 @@ def _measures(dec, tuning, stats: dict) -> dict:
                                           / max(1, int(stats.get("attack_retunes", 0))), 4),
         "attack_retune_cents_max": round(float(stats.get("attack_retune_cents_max", 0.0)), 4),
         "bends_sent": int(dec.bends_sent),
+        # the player's wheel: output range widened to fit it, bends still cut short
+        "range_widenings": int(stats.get("range_widenings", 0)),
+        "wheel_clamps": int(stats.get("wheel_clamps", 0)),
         "worst_pitch_error_cents": None,
         "impurity_cents": round(imp, 4),
         "motion_cents_per_note": round(metrics.motion(dec.notes), 4),
@@ -105,7 +150,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     config = opts.config
     static = config.adaptive is None
     files_rep = []
-    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    decs = decoded if decoded is not None else decode_outputs(res, opts)
     for o, dec in zip(res.outputs, decs):
         r = {"file": o.path, "parts": [p + 1 for p in o.parts],
              "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
@@ -114,6 +159,11 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
            "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
+    parts = sorted({p for o in res.outputs for p in o.parts})
+    if not static and len(parts) > 1:
+        # adaptive mode: one solver for the parts of a file, or each part alone
+        top["parts_tuned"] = ("with the lookahead plan" if opts.lookahead else
+                              "apart" if getattr(opts, "parts_apart", False) else "together")
     if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
         # played as live: how much later each note-on left than it came (engine clock)
         outs = [(n.start, n.key) for dec in decs for n in dec.notes]
@@ -129,7 +179,7 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:
         top["notes"] = sum(f["notes"] for f in files_rep)
-        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes"):
+        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "range_widenings", "wheel_clamps"):
             top[k] = sum(f[k] for f in files_rep)
         top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
         for k in ("worst_pitch_error_cents", "drift_max_cents"):
@@ -156,10 +206,20 @@ def text_summary(rep: dict) -> str:
     else:
         lines.append(f"  notes {rep['notes']}, steals {rep['steals']}, ringing retunes "
                      f"{rep['ringing_retunes']}, bends sent {rep['bends_sent']}")
+    if rep.get("parts_tuned") == "together":
+        lines.append("  parts tuned together as one harmony, each on its own channels")
+    elif rep.get("parts_tuned") == "apart":
+        lines.append("  parts tuned apart, each against itself")
     if rep.get("added_latency_ms"):
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "
                      f"max {a['max']:.1f} ms ({a['notes']} notes)")
+    if rep.get("range_widenings"):
+        lines.append(f"  the output bend range was widened {rep['range_widenings']} time(s) so that the "
+                     f"player's wheel plus the tuning fits")
+    if rep.get("wheel_clamps"):
+        lines.append(f"  {rep['wheel_clamps']} bend(s) cut short: the player's wheel plus the tuning went "
+                     f"beyond the widest output bend range")
     if rep.get("attack_retunes"):
         lines.append(f"  {rep['attack_retunes']} retunes of notes within their attack"
                      + (f", mean {rep['attack_retune_cents_mean']:.2f} c" if "attack_retune_cents_mean" in rep else "")
@@ -204,7 +264,7 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
     from matplotlib.lines import Line2D
 
     config = opts.config
-    decs = decoded if decoded is not None else [_decode(o, config) for o in res.outputs]
+    decs = decoded if decoded is not None else decode_outputs(res, opts)
     fig = Figure(figsize=(11, 5.5), dpi=100)
     ax = fig.add_subplot(1, 1, 1)
     cmap = matplotlib.colormaps["tab10"]

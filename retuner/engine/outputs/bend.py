@@ -21,6 +21,7 @@ Channel choice, sharing, ringing and the steal policy are the allocator's
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 from typing import Any, ClassVar, Optional, Sequence
 
@@ -29,6 +30,8 @@ import mido
 from retuner.midi import encode as E
 from retuner.engine.allocator import RINGING, STEAL, Note, Pool
 from retuner.engine.outputs.base import OutputMode, effective_range
+
+log = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -59,7 +62,11 @@ class BendMode(OutputMode):
         self.share = s.share_channels
         self.table = self.pool = Pool(s.channels, s.release_time)
         self.sent: dict[int, Optional[int]] = {c: None for c in range(16)}
-        self.wheel_units = 0      # the player's wheel in output bend steps (added to every channel)
+        # the player's wheel in output bend steps, per input channel: added to the bend of the
+        # output channels whose notes came from that input channel (``owner``)
+        self.wheel_units: dict[int, int] = {}
+        self.owner: dict[int, int] = {c: -1 for c in self.pool.channels}   # output -> input channel
+        self._clamp_told = False
 
     # ------------------------------------------------------------------ pitches
     def place(self, cents: float, key: int) -> tuple[int, int]:
@@ -74,15 +81,50 @@ class BendMode(OutputMode):
         return 100.0 * note.out_key + E.bend_cents(note.bend, self.range_cents * self.scale)
 
     def send_bend(self, c: int, out: list, force: bool = False) -> None:
-        v = self.pool.bend[c] + self.wheel_units
-        if v < 0:
-            v = 0
-        elif v > 16383:
-            v = 16383
+        v = self.pool.bend[c] + self.wheel_units.get(self.owner.get(c, -1), 0)
+        if v < 0 or v > 16383:
+            self.clamped()
+            v = 0 if v < 0 else 16383
         if force or self.sent[c] != v:
             self.sent[c] = v
             out.append(E.pitchwheel(c, v))
             self.stats["bends_sent"] += 1
+
+    def channels_of(self, in_ch: int) -> Optional[Sequence[int]]:
+        """The output channels input channel ``in_ch``'s notes may use (None: the whole pool)."""
+        return None
+
+    def clamped(self) -> None:
+        """A bend (tuning plus the player's wheel) was cut short at the end of the range."""
+        self.stats["wheel_clamps"] = self.stats.get("wheel_clamps", 0) + 1
+        if not self._clamp_told:
+            self._clamp_told = True
+            log.warning("the player's wheel plus the tuning goes beyond the output bend range "
+                        "(%.0f c): the bend is cut short (counted as wheel_clamps)", self.range_cents)
+
+    def set_range(self, new_range: float, t: float, out: list) -> None:
+        """Use ``new_range`` (cents) on the pool: announce it with RPN 0, and bend every
+        busy or ringing channel again so its notes keep their pitch."""
+        old = self.range_cents
+        self.range_cents = new_range
+        self.wheel_changed()
+        for c in self.range_channels():
+            out += E.bend_range_rpn(c, new_range, self.settings.whole_semitone_range)
+        pool = self.pool
+        for c in pool.channels:
+            ns = pool.notes[c]
+            if ns:
+                n = ns[0]
+                b = E.bend_value(n.cents - 100.0 * n.out_key, new_range, self.scale)
+                for m in ns:
+                    m.bend = b
+                pool.bend[c] = b
+            else:
+                pool.bend[c] = E.bend_value(E.bend_cents(pool.bend[c], old * self.scale), new_range, self.scale)
+            if ns or pool.is_ringing(c, t):
+                self.send_bend(c, out, force=True)
+            else:
+                self.sent[c] = None
 
     def centre_pool(self, out: list) -> None:
         """Set-up: every pool channel's bend at centre, sent."""
@@ -96,12 +138,14 @@ class BendMode(OutputMode):
         """Strike ``note`` on a channel of the pool (shared with notes of the same bend
         when ``share``, by default the mode's setting)."""
         pool = self.pool
-        c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share)
+        c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share,
+                              note.in_ch, self.channels_of(note.in_ch))
         if kind is STEAL:
             self.steal(c, t, out)
         elif kind is RINGING:
             self.stats["ringing_retunes"] += 1
         pool.bend[c] = note.bend
+        self.owner[c] = note.in_ch
         self.send_bend(c, out)
         note.out_ch = c
         pool.add(c, note, t)

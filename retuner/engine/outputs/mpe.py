@@ -8,12 +8,15 @@ members (48 semitones by default) and on the manager (2). Each note gets a
 member channel of its own (pool rules, never shared) with its tuning bend;
 polyphonic pressure becomes channel pressure on that member; sustain,
 sostenuto, the player's wheel, channel pressure, program change and other
-controllers go to the manager channel. A steal of a pedalled note silences its
+controllers go to the manager channel (the wheel is the zone's: the last one
+moved on any input channel, at that channel's own bend range; when it goes
+beyond the manager's range, the manager's range is widened and announced again). A steal of a pedalled note silences its
 member alone with all-sound-off (the pedals live on the manager).
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -45,6 +48,7 @@ class MPEMode(BendMode):
     summary = "MPE zone"
     settings_class = MPESettings
     pedals_apart = True
+    wheel_on_note_channels = False
     zone_per_part = True
     bend_range_field = "mpe_member_range"
 
@@ -69,10 +73,11 @@ class MPEMode(BendMode):
         super().__init__(config, inputs, stats)
         self.manager = self.settings.manager
         self.members = list(self.settings.members)
+        self.widened_manager = 0.0      # cents: the manager's range widened for the player's wheel
 
     def manager_range(self) -> float:
         s = self.settings
-        return effective_range(s.manager_range, s.whole_semitone_range)
+        return max(effective_range(s.manager_range, s.whole_semitone_range), self.widened_manager)
 
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         s = self.settings
@@ -99,8 +104,21 @@ class MPEMode(BendMode):
 
     # ------------------------------------------------------------------ the player's wheel
     def send_manager_wheel(self, out: list) -> None:
-        w = self.inputs.wheel.get(0, 0)
-        v = E.BEND_CENTRE + round(w * self.inputs.wheel_range / (self.manager_range() * self.scale))
+        inputs = self.inputs
+        ch = inputs.last_wheel
+        w = inputs.wheel.get(ch, 0)
+        wheel = w * inputs.range_of(ch)         # cents * 8192
+        if abs(wheel) > 8191 * self.manager_range() * self.scale:
+            # the player's wheel goes beyond the manager's range: widen it (RPN 0 again)
+            semis = min(127, int(math.ceil(abs(wheel) / 8192.0 / self.scale / 100.0 - 1e-9)))
+            if semis * 100.0 > self.manager_range():
+                self.widened_manager = semis * 100.0
+                self.stats["range_widenings"] = self.stats.get("range_widenings", 0) + 1
+                out += E.bend_range_rpn(self.manager, self.manager_range(), self.settings.whole_semitone_range)
+                self.sent[self.manager] = None
+        v = E.BEND_CENTRE + round(wheel / (self.manager_range() * self.scale))
+        if not E.BEND_MIN <= v <= E.BEND_MAX:
+            self.clamped()
         v = min(E.BEND_MAX, max(E.BEND_MIN, v))
         m = self.manager
         if self.sent[m] != v:

@@ -4,26 +4,36 @@ with MPE).
 
 * The bend range is announced on every pool channel with RPN 0 (then RPN null)
   at start and whenever it changes.
-* The pool is one instrument: the wheel and the pedals are those last sent on
-  any retuned input channel (one domain), and channel mode messages
-  (all-notes-off, all-sound-off, reset-all-controllers) from any retuned input
-  channel act on the whole pool.
+* The pool is one instrument for the pedals: they are those last sent on any
+  retuned input channel (one domain), and channel mode messages (all-notes-off,
+  all-sound-off, reset-all-controllers) from any retuned input channel act on
+  the whole pool. The **wheel** is per input channel: it bends only the output
+  channels whose notes came from that input channel (channels are shared only
+  among notes of one input channel).
 * Sustain (CC64) and sostenuto (CC66), channel pressure, program change and all
   other controllers go to every pool channel; omni/mono/poly mode messages
   (CC124-127) are not passed on (they would change how the pool channels play)
   but their all-notes-off effect is, as CC123.
-* The **player's wheel** is added to every channel's tuning bend: an input bend
-  ``w`` (signed, -8192..8191) means ``w / 8192 * wheel_range`` cents, i.e.
-  ``round(w * wheel_range / (bend_range * bend_scale))`` output steps, and the
-  sum is **clamped** to 0..16383 (a note already bent far by its tuning can then
-  not follow the wheel all the way). Wheel changes are sent to busy and
-  ringing channels; an idle channel gets the right value when next used.
+* The **player's wheel** is added to the tuning bend of its notes' channels: an
+  input bend ``w`` (signed, -8192..8191) means ``w / 8192 * wheel_range``
+  cents, ``wheel_range`` being that input channel's own bend range (its RPN 0,
+  else the ``wheel_range`` setting), i.e.
+  ``round(w * wheel_range / (bend_range * bend_scale))`` output steps. When the
+  sum would leave 0..16383, the output range is **widened** (whole semitones, at
+  most 127) so that the full wheel plus the largest tuning offset fits: RPN 0 is
+  announced again on every pool channel and every sounding note keeps its pitch
+  (``bend_range`` is then a minimum; counted in ``range_widenings``). Only a
+  range already at 127 semitones clamps the sum, counted in ``wheel_clamps`` and
+  said once in the log. Wheel changes are sent to busy and ringing channels; an
+  idle channel gets the right value when next used.
 * Static tunings: notes with the same bend share a channel (``share_channels``),
   one key never held twice on one channel.
 """
 
 from __future__ import annotations
 
+import logging
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -33,14 +43,18 @@ from retuner.midi import encode as E
 from retuner.engine.outputs.base import config_error
 from retuner.engine.outputs.bend import BendMode, BendSettings
 
+log = logging.getLogger(__name__)
+
 
 @dataclass(frozen=True)
 class PoolSettings(BendSettings):
+    parts: tuple = ()       # ((input channel, (output channels...)), ...): parts tuned together
+
     @classmethod
     def from_config(cls, cfg: Any) -> "PoolSettings":
         return cls(channels=tuple(cfg.pool), bend_range=cfg.bend_range, release_time=cfg.release_time,
                    bend_scale=cfg.bend_scale, whole_semitone_range=cfg.whole_semitone_range,
-                   share_channels=cfg.share_channels)
+                   share_channels=cfg.share_channels, parts=tuple(cfg.parts))
 
 
 class PoolMode(BendMode):
@@ -60,6 +74,21 @@ class PoolMode(BendMode):
     def part_channels(cls, config: Any) -> list[int]:
         return list(config.pool)
 
+    def __init__(self, config: Any, inputs: Any, stats: dict):
+        super().__init__(config, inputs, stats)
+        self.part_pool: dict[int, tuple] = {p: tuple(chs) for p, chs in self.settings.parts}
+        # a channel that plays no note of its own (set-up only) goes with the first part
+        self.first_part = self.settings.parts[0][1] if self.settings.parts else None
+
+    def domain(self, ch: int) -> int:
+        # parts tuned together: each part is a pedal and controller domain of its own
+        return ch if ch in self.part_pool else 0
+
+    def channels_of(self, in_ch: int):
+        if not self.part_pool:
+            return None
+        return self.part_pool.get(in_ch, self.first_part)
+
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         out: list[mido.Message] = []
         for c in self.pool.channels:
@@ -68,7 +97,10 @@ class PoolMode(BendMode):
         return out
 
     def zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
-        return E.on_channels(msg, self.pool.channels)
+        return E.on_channels(msg, self.channels_of(msg.channel) or self.pool.channels)
+
+    def channel_mode(self, dom: int, msg: mido.Message) -> list[mido.Message]:
+        return E.on_channels(msg, self.channels_of(msg.channel) or self.pool.channels)
 
     def all_channels(self) -> list[int]:
         return list(self.pool.channels)
@@ -79,32 +111,44 @@ class PoolMode(BendMode):
         return [E.msg("polytouch", channel=note.out_ch, note=note.out_key, value=msg.value)]
 
     # ------------------------------------------------------------------ the player's wheel
+    def units_of(self, ch: int) -> int:
+        """Input channel ``ch``'s wheel in output bend steps."""
+        return round(self.inputs.wheel.get(ch, 0) * self.inputs.range_of(ch) / (self.range_cents * self.scale))
+
     def wheel_changed(self) -> None:
-        w = self.inputs.wheel.get(0, 0)
-        self.wheel_units = round(w * self.inputs.wheel_range / (self.range_cents * self.scale))
+        self.wheel_units = {ch: self.units_of(ch) for ch in self.inputs.wheel}
 
     def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
-        old = self.wheel_units
-        self.wheel_changed()
-        units = self.wheel_units
-        if units == old:
+        ch = msg.channel
+        units = self.units_of(ch)
+        if units == self.wheel_units.get(ch, 0):
             return
+        self.wheel_units[ch] = units
         pool = self.pool
-        notes, last_off, bend, sent = pool.notes, pool.last_off, pool.bend, self.sent
+        notes, last_off, bend, owner = pool.notes, pool.last_off, pool.bend, self.owner
         rel = pool.release_time
-        n = 0
-        for c in pool.channels:
-            if notes[c] or t - last_off[c] < rel:
-                v = bend[c] + units
-                if v < 0:
-                    v = 0
-                elif v > 16383:
-                    v = 16383
-                if sent[c] != v:
-                    sent[c] = v
-                    out.append(E.pitchwheel(c, v))
-                    n += 1
-        self.stats["bends_sent"] += n
+        mine = [c for c in pool.channels if owner[c] == ch and (notes[c] or t - last_off[c] < rel)]
+        if any(not 0 <= bend[c] + units <= 16383 for c in mine) and self.widen(t, ch, mine, out):
+            return
+        for c in mine:
+            self.send_bend(c, out)
+
+    def widen(self, t: float, ch: int, chans: list, out: list) -> bool:
+        """The wheel of ``ch`` would take the bend of ``chans`` beyond the output range:
+        widen the range (whole semitones, at most 127) so that the player's full wheel plus
+        the largest tuning offset on the pool fits. False when it cannot grow."""
+        rng = self.range_cents
+        sc = self.scale
+        offset = max(abs(E.bend_cents(self.pool.bend[c], rng)) for c in self.pool.channels)
+        need = (offset + self.inputs.range_of(ch)) / sc
+        semis = min(127, int(math.ceil(need / 100.0 - 1e-9)))
+        if semis * 100.0 <= rng:
+            return False
+        self.stats["range_widenings"] = self.stats.get("range_widenings", 0) + 1
+        log.info("the output bend range is widened to %d semitones: the player's wheel "
+                 "(%.0f c) plus the tuning (%.0f c) did not fit", semis, self.inputs.range_of(ch), offset)
+        self.set_range(semis * 100.0, t, out)
+        return True
 
     def controllers_reset(self, t: float, out: list) -> None:
         self.wheel_changed()
