@@ -35,7 +35,6 @@ parts together (see :mod:`retuner.adaptive.lookahead`).
 from __future__ import annotations
 
 import os
-import time
 from dataclasses import dataclass, field
 from typing import Any, Optional, Sequence
 
@@ -49,10 +48,6 @@ from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
 from retuner.smf.reader import CHANNEL, SYSEX, Song, event_seconds, merged_events, read_smf
 from retuner.smf.writer import TrackBytes, serialize
-
-
-#: the lookahead's planning may take this many times the live rendering of the same file
-LOOKAHEAD_BUDGET = 15.0
 
 
 @dataclass
@@ -208,9 +203,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
     from retuner.adaptive import lookahead
     say = progress or (lambda text: None)
     say("lookahead: playing the file live")
-    t0 = time.perf_counter()
     live = _render(song, merged, secs, groups, tuning, config, out_path, None)
-    t_live = time.perf_counter() - t0
     tries = [0]
 
     def render_plan(plan):
@@ -219,10 +212,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
         return _render(song, merged, secs, groups, tuning, config, out_path, plan)
 
     say("lookahead: planning")
-    # the planning may cost at most LOOKAHEAD_BUDGET times the live rendering (with its reading,
-    # writing and summary, the whole command stays within about 20 times the plain conversion)
-    chosen = lookahead.choose(song, merged, secs, tuning, config, live, render_plan, output_stream,
-                              budget=LOOKAHEAD_BUDGET * max(t_live, 0.05), clock=time.perf_counter)
+    chosen = lookahead.choose(song, merged, secs, tuning, config, live, render_plan, output_stream)
     res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
     res.lookahead = chosen.summary
     return res
