@@ -34,8 +34,8 @@ class EngineConfig:
     share_channels: bool = True              # static tunings: notes with the same bend share
     # parts of a file tuned together: ((input channel, (output channels, ...)), ...); each part
     # sounds only on its own pool channels (its program and controllers) and is a pedal domain
-    # of its own; empty: the pool is one instrument
-    parts: tuple = ()
+    # of its own; empty: the pool is one instrument. Set by file conversion, not a user setting
+    parts: tuple = dataclasses.field(default=(), metadata={"user_setting": False})
     # MPE
     mpe_zone: str = "lower"                  # lower (manager channel 1) | upper (manager 16)
     mpe_members: Optional[int] = None        # member channels in the zone; None: up to the first passthrough channel

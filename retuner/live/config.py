@@ -331,7 +331,8 @@ def engine_fields() -> dict[str, Any]:
     """name -> type hint of every EngineConfig field."""
     cls = _engine_config_class()
     hints = typing.get_type_hints(cls)
-    return {f.name: hints.get(f.name, Any) for f in dataclasses.fields(cls)}
+    return {f.name: hints.get(f.name, Any) for f in dataclasses.fields(cls)
+            if f.metadata.get("user_setting", True)}
 
 
 CHANNEL_FIELDS = {"pool", "passthrough"}
