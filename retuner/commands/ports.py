@@ -15,12 +15,14 @@ DESCRIPTION = (
 
 
 def add_arguments(parser):
-    parser.add_argument("--backend", default="alsa", choices=sorted(_ports.BACKENDS),
-                        help="MIDI system: alsa (default, the ALSA sequencer) or jack")
+    parser.add_argument("--backend", default=_ports.AUTO, choices=_ports.CHOICES,
+                        help="MIDI system: auto (default: the ALSA sequencer, else a running JACK server), "
+                             "alsa or jack")
     parser.add_argument("--json", action="store_true", help="print {\"inputs\": [...], \"outputs\": [...]}")
 
 
 def run(args) -> int:
+    args.backend = _ports.choose_backend(args.backend)
     inputs, outputs = _ports.list_ports(args.backend)
     if args.json:
         print_json({"backend": args.backend, "inputs": inputs, "outputs": outputs})

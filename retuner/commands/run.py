@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from retuner.live import config as _config
+from retuner.live import ports as _ports
 from retuner.live.daemon import Daemon, setup_logging
 from retuner.errors import RetunerError
 from retuner.commands._common import add_profiles_dir
@@ -23,7 +24,9 @@ def add_arguments(parser):
                         help="YAML config (default: $XDG_CONFIG_HOME/retuner/config.yaml if it exists)")
     parser.add_argument("--profile", metavar="ID", help="tuning to play (profile id or file)")
     add_profiles_dir(parser)
-    parser.add_argument("--backend", choices=("alsa", "jack"), help="MIDI system (default alsa)")
+    parser.add_argument("--backend", choices=_ports.CHOICES,
+                        help="MIDI system: auto (default: the ALSA sequencer, else a running JACK server), "
+                             "alsa or jack")
     parser.add_argument("--input", metavar="NAME", help="port to read from: exact name, part of it, or a pattern")
     parser.add_argument("--output", metavar="NAME", help="port to write to: exact name, part of it, or a pattern")
     parser.add_argument("--virtual", action="store_true", default=None,
