@@ -50,8 +50,8 @@ def test_ports_picks_the_running_jack_server_when_there_is_no_alsa_sequencer(jac
     listed = json.loads(r.stdout)
     assert listed["backend"] == EXPECTED
     if EXPECTED == "jack":
-        assert jack_client.out_full in listed["inputs"]
-        assert jack_client.in_full in listed["outputs"]
+        assert jack_client.out_full in listed["sources"]
+        assert jack_client.in_full in listed["destinations"]
 
 
 def test_run_picks_the_running_jack_server(jack_server, tmp_path):

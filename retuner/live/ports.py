@@ -251,6 +251,11 @@ class PortLister:
                     pass
 
 
+def is_own(name: str, base: str = "retuner") -> bool:
+    """Whether a listed port is one of a retuner daemon's own (client ``BASE-in``/``BASE-out``)."""
+    return name.startswith((f"{base}-", f"{base}:"))
+
+
 def list_ports(backend: str) -> tuple[list[str], list[str]]:
     """(inputs, outputs) as the backend names them."""
     lister = PortLister(backend)
@@ -442,9 +447,9 @@ class OutputPort(OutputHandle):
 class RtMidiBackend(PortBackend):
     """The ALSA sequencer or a JACK server, through python-rtmidi.
 
-    Client names: ALSA allows two clients of one name, so both sides are "retuner"
-    ("retuner:in", "retuner:out"); JACK renames a second client of the same name, so
-    there each side has its own ("retuner-in:in", "retuner-out:out")."""
+    Client names: python-rtmidi opens one client per port (a MidiIn or a MidiOut each), and JACK
+    renames a second client of a name already taken ("retuner-01"), so each side has a client
+    of its own, named alike on both systems: "retuner-in:in" and "retuner-out:out"."""
 
     def __init__(self, backend: str, probe_name: str = "retuner-probe"):
         self.word = choose_backend(backend)
@@ -453,11 +458,6 @@ class RtMidiBackend(PortBackend):
         self._lock = threading.Lock()
         self._watcher: Optional[threading.Thread] = None
         self._stop = threading.Event()
-
-    def client_name(self, base: str, side: str) -> str:
-        if self.word == "alsa" and side in ("in", "out"):
-            return base
-        return f"{base}-{side}"
 
     def _list(self) -> PortLister:
         with self._lock:
