@@ -23,7 +23,7 @@ def test_builtin_defaults_without_a_file(tmp_path, monkeypatch):
     assert default_config_path() == tmp_path / "retuner" / "config.yaml"
     s = load_config(None)
     assert s == Settings()
-    assert s.profile == "edo12" and s.backend == "alsa" and s.source is None
+    assert s.profile == "edo12" and s.backend == "auto" and s.source is None
 
 
 def test_default_file_is_read(tmp_path, monkeypatch):

@@ -91,9 +91,10 @@ def test_ports_command_lists_both_directions(jack_server, jack_client):
                        env=jack_server.env, capture_output=True, text=True, timeout=20)
     assert r.returncode == 0, r.stderr
     text = r.stdout
-    inputs, outputs = text.split("outputs", 1) if "outputs" in text else (text, "")
-    assert jack_client.out_full in inputs
-    assert jack_client.in_full in outputs
+    sources, rest = text.split("\ndestinations", 1)
+    destinations = rest.split("\nretuner's own", 1)[0]
+    assert jack_client.out_full in sources and jack_client.in_full not in sources
+    assert jack_client.in_full in destinations and jack_client.out_full not in destinations
 
 
 def test_no_midi_system_is_exit_1_not_2(tmp_path):

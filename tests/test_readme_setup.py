@@ -20,6 +20,8 @@ from pathlib import Path
 import pytest
 
 from retuner.cli import build_parser
+from retuner.live import ports
+from retuner.live.config import Settings
 
 REPO = Path(__file__).resolve().parent.parent
 README = (REPO / "README.md").read_text()
@@ -157,4 +159,6 @@ def test_jack_block_starts_the_server_the_tests_use_and_the_command_parses():
     retuner = shlex.split(block[2])
     assert retuner[0] == f"{VENV}/bin/retuner"
     args = build_parser().parse_args(retuner[1:])              # parses with the live options
-    assert args.command == "run" and args.backend == "jack" and args.virtual
+    assert args.command == "run" and args.virtual
+    # no --backend: the default (auto) takes the JACK server when there is no ALSA sequencer
+    assert args.backend is None and "jack" in ports.CHOICES and ports.AUTO == Settings().backend

@@ -6,6 +6,7 @@ import os
 import sys
 
 from retuner.live import config as _config
+from retuner.live import ports as _ports
 from retuner.live.daemon import Daemon, setup_logging
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
@@ -19,7 +20,7 @@ DESCRIPTION = (
     "Run the live daemon. Settings come from the config file (--config FILE, else "
     "$XDG_CONFIG_HOME/retuner/config.yaml when it exists, else built-in defaults); the options "
     "below override it. A side (input or output) without a port name gets a port of our own "
-    "(ALSA: retuner:in and retuner:out; JACK: retuner-in:in and retuner-out:out). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
+    "(retuner-in:in and retuner-out:out, on either MIDI system). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
     "release every note and stop. Channels are 1..16.")
 
 def add_arguments(parser):
@@ -27,7 +28,9 @@ def add_arguments(parser):
                         help="YAML config (default: $XDG_CONFIG_HOME/retuner/config.yaml if it exists)")
     parser.add_argument("--profile", metavar="ID", help="the profile to play (id or file; config: profile)")
     add_profile_dir(parser)
-    parser.add_argument("--backend", choices=("alsa", "jack"), help="MIDI system (default alsa)")
+    parser.add_argument("--backend", choices=_ports.CHOICES,
+                        help="MIDI system: auto (default: the ALSA sequencer, else a running JACK server), "
+                             "alsa or jack")
     parser.add_argument("--input", metavar="NAME", help="port to read from: exact name, part of it, or a pattern")
     parser.add_argument("--output", metavar="NAME", help="port to write to: exact name, part of it, or a pattern")
     parser.add_argument("--virtual", action="store_true", default=None,

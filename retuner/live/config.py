@@ -6,11 +6,10 @@ defaults). Every field is optional::
 
     profile: werckmeister-3        # the tuning to start with (id or path to a profile file)
     profile_dirs: [~/tunings]      # more folders to look for profiles in
-    backend: alsa                  # alsa (ALSA sequencer) or jack
+    backend: auto                  # auto (ALSA sequencer, else a running JACK server), alsa or jack
     input: "Digital Piano"         # port to read from: exact name, part of it, or a shell pattern
     output: "FLUID*"               # port to write to; a side without a name gets a port of our own
-    virtual: false                 # true: always create our own ports (ALSA: "retuner:in", "retuner:out";
-                                   # JACK: "retuner-in:in", "retuner-out:out")
+    virtual: false                 # true: always create our own ports ("retuner-in:in", "retuner-out:out")
     client_name: retuner           # base of our client names
     engine:                        # engine settings (see 'retuner run --help' and the engine's docs)
       mode: pool
@@ -82,7 +81,7 @@ class Settings:
     source: Optional[str] = None             # the config file read, if any
     profile: str = "edo12"
     profile_dirs: list[str] = field(default_factory=list)
-    backend: str = "alsa"
+    backend: str = "auto"
     input: Optional[str] = None
     output: Optional[str] = None
     virtual: bool = False

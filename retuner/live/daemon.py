@@ -154,10 +154,6 @@ class Daemon:
                  input_capacity: int = 2048):
         self.settings = settings
         self.clock = clock
-        # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
-        # rtmidi one is made again when the port settings change
-        self._own_backend = backend is None
-        self.backend: PortBackend = backend or self._new_backend(settings)
         self.reload_settings = reload_settings
         self.notifier = notifier or Notifier()
         # signals, port changes, control wake-ups (and a "midi" token): served first, never
@@ -169,6 +165,11 @@ class Daemon:
         self.profiles = Profiles(settings)
         self.engine = self._new_engine(settings, self.profiles.main)
         self.session = Session(self.engine, self.profiles.main)     # the tuning in force
+        # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
+        # rtmidi one is made again when the port settings change. Made after the profiles: a
+        # mistake in them is reported before a MIDI system that is not there
+        self._own_backend = backend is None
+        self.backend: PortBackend = backend or self._new_backend(settings)
         self.inp: Optional[InputHandle] = None
         self.outp: Optional[OutputHandle] = None
         self._watching = False
@@ -536,7 +537,7 @@ class Daemon:
                 "input": getattr(self.inp, "connected_to", None) if self.inp else None,
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,
-                "backend": self.settings.backend, "config": self.settings.source,
+                "backend": self.backend.word, "config": self.settings.source,
                 "bad_input": self._bad_input, "errors": self._errors,
                 "input_dropped": self.midi.counts(), "input_waiting": len(self.midi)}
 

@@ -1,7 +1,6 @@
 """MIDI ports: choosing the backend, listing, matching names, opening.
 
-retuner talks to the ALSA sequencer (the default) or to a JACK server through
-python-rtmidi, the library behind mido's ``mido.backends.rtmidi`` backend; the
+retuner talks to the ALSA sequencer or to a JACK server through python-rtmidi, the library behind mido's ``mido.backends.rtmidi`` backend; the
 bytes that arrive are parsed into :class:`mido.Message` objects and messages
 go out as ``msg.bytes()``. python-rtmidi is used directly (not through
 ``mido.open_input``) because only it lets us name our client and port when we
@@ -16,6 +15,11 @@ Names a user gives (``--input``, ``--output``) match a port when they are:
 3. a shell-style pattern (``*``, ``?``, ``[...]``), matched without regard to case;
 4. otherwise a part of the name, without regard to case.
 
+Backend ``auto`` (the default, :func:`choose_backend`) takes the ALSA sequencer when
+``/dev/snd/seq`` can be opened, else a JACK server that is already running (looked for without
+starting one), else stops with one line (exit status 1) giving the commands that start a JACK
+server with its dummy driver, for set-ups with no sound hardware.
+
 The first port (in the order the backend lists them) that matches wins. When none does, the
 daemon logs the closest existing names once (:func:`closest`) and keeps waiting for it.
 """
@@ -28,6 +32,7 @@ import fnmatch
 import logging
 import os
 import re
+import shutil
 import sys
 import threading
 import time
@@ -48,20 +53,70 @@ BACKENDS = {
     "jack": (rtmidi.API_UNIX_JACK, "mido.backends.rtmidi/UNIX_JACK"),
 }
 _MIDO_NAMES = {v[1]: k for k, v in BACKENDS.items()}
+AUTO = "auto"
+CHOICES = (AUTO, "alsa", "jack")          # what --backend and the config's ``backend`` accept
+SEQ_DEVICE = "/dev/snd/seq"               # the ALSA sequencer's device
 
 _ALSA_NUMBERS = re.compile(r"\s+\d+:\d+$")
 
 
 def backend_word(name: str) -> str:
-    """Normalise ``alsa``/``jack`` or a mido backend name to ``alsa``/``jack``."""
+    """Normalise ``auto``/``alsa``/``jack`` or a mido backend name to ``auto``/``alsa``/``jack``."""
     word = _MIDO_NAMES.get(name, name).lower()
-    if word not in BACKENDS:
-        raise RetunerError(f"unknown backend {name!r} (use alsa or jack)", field="backend")
+    if word not in CHOICES:
+        raise RetunerError(f"unknown backend {name!r} (use auto, alsa or jack)", field="backend")
     return word
 
 
-def _api(backend: str) -> int:
+def _opens(api: int) -> bool:
+    """Whether a client of this python-rtmidi API can be opened now (and it is closed again)."""
+    if api not in rtmidi.get_compiled_api():
+        return False
+    try:
+        with _quiet_library():
+            rt = rtmidi.MidiOut(api, "retuner-probe")
+    except Exception:  # noqa: BLE001 - any failure means "not there"
+        return False
+    rt.delete()
+    return True
+
+
+def jack_start_commands(environ=None) -> str:
+    """The commands that start a JACK server with its dummy driver (no sound hardware needed),
+    under the server name the environment asks for, if any."""
+    env = os.environ if environ is None else environ
+    name = env.get("JACK_DEFAULT_SERVER")
+    server = f"jackd --no-realtime{f' -n {name}' if name else ''} -d dummy -r 48000 -p 128 &"
+    return server if shutil.which("jackd") else f"apt-get install jackd2 && {server}"
+
+
+def choose_backend(backend: str) -> str:
+    """``alsa`` or ``jack``: the one asked for, or for ``auto`` the ALSA sequencer when its device
+    opens, else a JACK server already running. No JACK server is started to find out
+    (``JACK_NO_START_SERVER`` is set while looking). Neither there: :class:`Unavailable`, one line
+    with the commands that start a JACK server with the dummy driver."""
     word = backend_word(backend)
+    if word != AUTO:
+        return word
+    if os.access(SEQ_DEVICE, os.R_OK | os.W_OK) and _opens(rtmidi.API_LINUX_ALSA):
+        return "alsa"
+    saved = os.environ.get("JACK_NO_START_SERVER")
+    os.environ["JACK_NO_START_SERVER"] = "1"
+    try:
+        if _opens(rtmidi.API_UNIX_JACK):
+            return "jack"
+    finally:
+        if saved is None:
+            del os.environ["JACK_NO_START_SERVER"]
+        else:
+            os.environ["JACK_NO_START_SERVER"] = saved
+    raise Unavailable(f"no MIDI system: no ALSA sequencer ({SEQ_DEVICE}) and no JACK server running; "
+                      f"with no sound hardware, start a JACK server with its dummy driver: "
+                      f"{jack_start_commands()}", field="backend")
+
+
+def _api(backend: str) -> int:
+    word = choose_backend(backend)
     api = BACKENDS[word][0]
     if api not in rtmidi.get_compiled_api():
         raise Unavailable(f"this python-rtmidi has no {word} support", field="backend")
@@ -70,8 +125,10 @@ def _api(backend: str) -> int:
 
 def _rt_error(exc: Exception, what: str, backend: str) -> Unavailable:
     word = backend_word(backend)
-    hint = (" (is a JACK server running? set JACK_DEFAULT_SERVER for a named one)"
-            if word == "jack" else " (is /dev/snd/seq there? the ALSA sequencer needs it; with a JACK server running, try --backend jack)")
+    hint = (f" (is a JACK server running? set JACK_DEFAULT_SERVER for a named one; with no sound "
+            f"hardware: {jack_start_commands()})"
+            if word == "jack" else f" (is {SEQ_DEVICE} there? the ALSA sequencer needs it; --backend auto "
+            f"takes a JACK server when there is none)")
     return Unavailable(f"{what}: {exc}{hint}", field="backend")
 
 
@@ -172,7 +229,7 @@ class PortLister:
     ``outputs()`` the ports it can write to. Thread-safe."""
 
     def __init__(self, backend: str, client_name: str = "retuner-probe"):
-        self.backend = backend_word(backend)
+        self.backend = choose_backend(backend)
         self._lock = threading.Lock()
         self._in = _new_in(self.backend, client_name)
         self._out = _new_out(self.backend, client_name)
@@ -192,6 +249,11 @@ class PortLister:
                     rt.delete()
                 except Exception:  # pragma: no cover - teardown
                     pass
+
+
+def is_own(name: str, base: str = "retuner") -> bool:
+    """Whether a listed port is one of a retuner daemon's own (client ``BASE-in``/``BASE-out``)."""
+    return name.startswith((f"{base}-", f"{base}:"))
 
 
 def list_ports(backend: str) -> tuple[list[str], list[str]]:
@@ -236,7 +298,7 @@ class InputPort(InputHandle):
                  callback: Callable[[mido.Message], None],
                  on_error: Optional[Callable[[Exception, list], None]] = None,
                  poll: Optional[float] = None):
-        self.backend = backend_word(backend)
+        self.backend = choose_backend(backend)
         self.connected_to = connect_to
         self._callback = callback
         self._on_error = on_error
@@ -302,7 +364,7 @@ class OutputPort(OutputHandle):
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
                  connect_to: Optional[str] = None):
-        self.backend = backend_word(backend)
+        self.backend = choose_backend(backend)
         self.connected_to = connect_to
         self._rt = _new_out(self.backend, client_name)
         try:
@@ -385,22 +447,17 @@ class OutputPort(OutputHandle):
 class RtMidiBackend(PortBackend):
     """The ALSA sequencer or a JACK server, through python-rtmidi.
 
-    Client names: ALSA allows two clients of one name, so both sides are "retuner"
-    ("retuner:in", "retuner:out"); JACK renames a second client of the same name, so
-    there each side has its own ("retuner-in:in", "retuner-out:out")."""
+    Client names: python-rtmidi opens one client per port (a MidiIn or a MidiOut each), and JACK
+    renames a second client of a name already taken ("retuner-01"), so each side has a client
+    of its own, named alike on both systems: "retuner-in:in" and "retuner-out:out"."""
 
     def __init__(self, backend: str, probe_name: str = "retuner-probe"):
-        self.word = backend_word(backend)
+        self.word = choose_backend(backend)
         self._probe_name = probe_name
         self._lister: Optional[PortLister] = None
         self._lock = threading.Lock()
         self._watcher: Optional[threading.Thread] = None
         self._stop = threading.Event()
-
-    def client_name(self, base: str, side: str) -> str:
-        if self.word == "alsa" and side in ("in", "out"):
-            return base
-        return f"{base}-{side}"
 
     def _list(self) -> PortLister:
         with self._lock:
