@@ -232,7 +232,9 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
                 e = _make_engine(tuning, cfg, plan)
                 by_cfg[id(cfg)] = e
             engines[p] = e
-        channels = {p: MODES[cfgs[p].mode].part_channels(cfgs[p]) for p in parts}
+        # parts tuned together each sound on their own share of the pool (config.parts)
+        channels = {p: list(dict(cfgs[p].parts).get(p, ())) or MODES[cfgs[p].mode].part_channels(cfgs[p])
+                    for p in parts}
         group = _Group(parts, engines, channels)
         tracks = _drive(song, merged, secs, group, pas, as_lists=plan is not None)
         if plan is not None:
