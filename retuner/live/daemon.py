@@ -522,8 +522,9 @@ class Daemon:
                 fig = self._figures = report(stream, **kw)
                 if fig.get("notes"):
                     log.info("status: last %d notes: impurity %.2f c, motion %.2f c/note, drift max %.2f c, "
-                             "final %.2f c", fig["notes"], fig["impurity_cents"], fig["motion_cents_per_note"],
-                             fig["drift_max_cents"], fig["drift_final_cents"])
+                             "final %.2f c; motion after the attack %.2f c/note", fig["notes"],
+                             fig["impurity_cents"], fig["motion_cents_per_note"], fig["drift_max_cents"],
+                             fig["drift_final_cents"], fig["late_motion_cents_per_note"])
             except Exception:  # noqa: BLE001 - figures are a nicety; never disturb the daemon
                 log.debug("measuring the recent output failed", exc_info=True)
             finally:
