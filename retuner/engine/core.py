@@ -523,8 +523,6 @@ class Engine:
                 output.sound(t, n, out)
             self.stats["note_on_messages"] += len(out) - n0
             return
-        if solver is None:
-            return
         n0 = len(out)
         held = self._sounding_notes()
         fresh: list[Note] = []
