@@ -34,9 +34,9 @@ from typing import Iterable, Optional, Sequence
 import mido
 
 from retuner.engine.core import Engine, EngineConfig
-from retuner.engine.drive import play
+from retuner.engine.drive import Drive, play
 from retuner.measure.metrics import NoteTrack, report
-from retuner.measure.metrics import added_latency as metrics_added_latency
+from retuner.measure.metrics import added_latency as metrics_added_latency, percentile
 from retuner.profiles.profile import load_profile
 from retuner.pitch.tuning import Tuning
 
@@ -494,39 +494,30 @@ def added_latency(events: Sequence[Event], stream: Sequence[Event]) -> list[floa
     return metrics_added_latency(ons(events), ons(stream))
 
 
-def _pct(xs: Sequence[float], q: float) -> float:
-    return xs[min(len(xs) - 1, max(0, int(-(-q * len(xs) // 100)) - 1))] if xs else 0.0
-
-
 def live_figures(events: Sequence[Event], tuning, acfg, mode: str = "pool") -> dict:
     """Figures of one performance played live: the measures, the added latency of every
     note-on (engine clock, ms), the engine's compute per note-on (wall clock, us) and the
     retunes within the attack."""
     eng = Engine(tuning, EngineConfig(mode=mode, adaptive=acfg))
-    drive_out: list = [(0.0, m) for m in eng.start(0.0)]
+    drive = Drive(eng)
+    drive_out: list = [(0.0, m) for m in drive.start(0.0)]
     compute: list[float] = []
-    pending = list(events)
-    for t, m in pending:
-        d = eng.next_deadline()
-        while d is not None and d <= t:
-            drive_out += [(d, x) for x in eng.tick(d)]
-            d = eng.next_deadline()
+    for t, m in events:
+        for when, res in drive.due(t):
+            drive_out += [(when, x) for x in res]
         t0 = time.perf_counter_ns()
-        res = eng.feed(t, m)
+        res = eng.feed(t, m)          # timed on its own: the engine's work for this event
         if m.type == "note_on" and m.velocity:
             compute.append((time.perf_counter_ns() - t0) / 1000.0)
         drive_out += [(t, x) for x in res]
-    d = eng.next_deadline()
-    while d is not None:
-        drive_out += [(d, x) for x in eng.tick(d)]
-        d2 = eng.next_deadline()
-        d = d2 if d2 is not None and d2 > d else None
+    for when, res in drive.finish():
+        drive_out += [(when, x) for x in res]
     f = _figures(drive_out)
     lat = added_latency(events, drive_out)
     compute.sort()
     st = eng.stats
-    f.update({"latency_p50_ms": round(1000 * _pct(lat, 50), 3), "latency_p99_ms": round(1000 * _pct(lat, 99), 3),
-              "compute_p99_us": round(_pct(compute, 99), 1),
+    f.update({"latency_p50_ms": round(1000 * percentile(lat, 50), 3), "latency_p99_ms": round(1000 * percentile(lat, 99), 3),
+              "compute_p99_us": round(percentile(compute, 99), 1),
               "attack_retunes_per_note": round(st["attack_retunes"] / max(1, st["notes"]), 3),
               "attack_retune_cents_mean": round(st["attack_retune_cents_total"] / max(1, st["attack_retunes"]), 3)})
     return f
@@ -578,7 +569,7 @@ def solver_timing(events: int = 5000, voices: int = 8, seed: int = 1, clock: str
     lat.sort()
 
     def pct(q):
-        return round(lat[min(len(lat) - 1, max(0, int(-(-q * len(lat) // 100)) - 1))] / 1000.0, 1)
+        return round(percentile(lat, q) / 1000.0, 1)
 
     return {"voices": voices, "events": events, "clock": clock, "p50_us": pct(50), "p99_us": pct(99),
             "max_us": round(lat[-1] / 1000.0, 1)}

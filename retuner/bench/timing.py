@@ -23,7 +23,6 @@ The performances (the generated one, the project's progressions) come from
 from __future__ import annotations
 
 import gc
-import math
 import time
 from typing import Sequence
 
@@ -31,19 +30,12 @@ import mido
 
 from retuner.engine.core import Engine, EngineConfig
 from retuner.engine.drive import Drive
+from retuner.measure.metrics import percentile
 from retuner.pitch.tuning import Tuning
 
 Event = tuple[float, mido.Message]
 
 JSON_KEYS = ("p50_us", "p99_us", "max_us", "messages_per_note_on", "ringing_retunes", "steals")
-
-
-def _percentile(sorted_values: Sequence[float], q: float) -> float:
-    """Nearest-rank percentile of already sorted values."""
-    if not sorted_values:
-        return 0.0
-    i = max(0, min(len(sorted_values) - 1, int(math.ceil(q / 100.0 * len(sorted_values))) - 1))
-    return sorted_values[i]
 
 
 CLOCKS = {"wall": time.perf_counter_ns, "cpu": time.thread_time_ns}
@@ -119,8 +111,8 @@ def measure(tuning: Tuning, config: EngineConfig, events: Sequence[Event], *,
     st = engine.stats
     accepted = max(1, st["notes"])
     res = {
-        "p50_us": round(_percentile(lat, 50) / 1000.0, 2),
-        "p99_us": round(_percentile(lat, 99) / 1000.0, 2),
+        "p50_us": round(percentile(lat, 50) / 1000.0, 2),
+        "p99_us": round(percentile(lat, 99) / 1000.0, 2),
         "max_us": round(lat[-1] / 1000.0 if lat else 0.0, 2),
         "messages_per_note_on": round(st["note_on_messages"] / accepted, 4),
         "ringing_retunes": st["ringing_retunes"],

@@ -548,6 +548,14 @@ class StreamWindow:
         return report(self.snapshot(), **kw)
 
 
+def percentile(sorted_values: Sequence[float], q: float) -> float:
+    """Nearest-rank percentile ``q`` (0..100) of already sorted values; 0 for none."""
+    if not sorted_values:
+        return 0.0
+    i = max(0, min(len(sorted_values) - 1, int(math.ceil(q / 100.0 * len(sorted_values))) - 1))
+    return sorted_values[i]
+
+
 def added_latency(inputs: Sequence[tuple[float, int]], outputs: Sequence[tuple[float, int]],
                   within: float = 1.0) -> list[float]:
     """Per input note-on (seconds, key): how much later its note-on left, taken as the first

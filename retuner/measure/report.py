@@ -170,8 +170,8 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         lat = metrics.added_latency(res.note_ons, outs)
         top["live"] = True
         top["added_latency_ms"] = {"notes": len(lat),
-                                   "p50": round(1000 * lat[len(lat) // 2], 3) if lat else 0.0,
-                                   "p99": round(1000 * lat[min(len(lat) - 1, int(0.99 * len(lat)))], 3) if lat else 0.0,
+                                   "p50": round(1000 * metrics.percentile(lat, 50), 3),
+                                   "p99": round(1000 * metrics.percentile(lat, 99), 3),
                                    "max": round(1000 * lat[-1], 3) if lat else 0.0}
     if getattr(res, "lookahead", None):
         top["lookahead_check"] = res.lookahead   # the plan against live playing of the same file
