@@ -586,9 +586,12 @@ class Engine:
             # position: every new note takes its profile pitch instead
             new_cents = [self._plan[n.in_key][2] for n in pend]
         new_cents = [c if _finite(c) else self._plan[n.in_key][2] for n, c in zip(pend, new_cents)]
-        self.stats["chords_solved"] += 1
         output.sound_solved(t, held, held_new, pend, new_cents, out)
-        self.stats["note_on_messages"] += len(out) - n0
+        if pend:
+            # (a chord settling after one of its notes ended is no new chord, and its bends
+            # are no note-on's messages)
+            self.stats["chords_solved"] += 1
+            self.stats["note_on_messages"] += len(out) - n0
 
     def _settle_held(self, t: float, out: list) -> None:
         """Attack mode: the held notes move to where the chord's last solve put them."""
