@@ -50,12 +50,14 @@ of all notes over the whole piece are chosen together:
   its plans' measures (e.g. on the comma pump one plan re-centres by moving held notes,
   another by tempering, and a 70/30 mixture beats live on all three measures where neither
   does alone). The plan or mixture with the widest margin over live is kept; if none beats
-  live (it happens on arrangements, where live playing tunes each part on its own and so can
-  keep every part centred, or where the player's wheel sets the drift), the report's
+  live (it happens where the player's wheel sets the drift), the report's
   ``lookahead_check`` says ``better_than_live: false`` with both sets of figures.
 
-Unlike the live engine, which tunes each part on its own when a file is split
-into parts, the plan sees all parts of an arrangement together. Cost: about 5 s per plan for a
+**Parts.** The plan tunes the parts of an arrangement (one voice or instrument per input
+channel) together as one harmony: every pair of notes sounding together is priced, whichever
+parts they belong to, as the live engine does for the parts of a file. Planned ``apart``
+(``--parts-apart``), only the pairs within one part are priced and the drift is each part's
+own: each part is tuned against itself. Cost: about 5 s per plan for a
 100 000-event file (the generated arrangement of ``files.convert_speed_bench``) on one core of
 the development machine, at most ``MAX_PLANS`` plans plus mixtures; that file (which no plan
 beats live on: the player's wheel sets its drift) converts in about 40 s with ``--lookahead``,
@@ -72,7 +74,6 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.measure import metrics
 
@@ -191,11 +192,20 @@ class Plan:
         for n in notes:
             self._by_part_key.setdefault((n.part, n.key), []).append(n)
         self._ons = {k: [n.on for n in v] for k, v in self._by_part_key.items()}
+        self._parts_of_key: dict[int, list[int]] = {}
+        for (p, k) in sorted(self._by_part_key):
+            self._parts_of_key.setdefault(k, []).append(p)
         self._seg_of = {t: i for i, t in enumerate(onsets)}
 
     # -- queries --------------------------------------------------------------
     def pitch(self, part: int, key: int, t: float, seg: int) -> Optional[float]:
         """Planned pitch (cents above key 0 of 12-EDO) of the note of ``part``/``key`` sounding at ``t``."""
+        n = self._sounding(part, key, t)
+        if n is None or not n.s0 <= seg <= n.s1:
+            return None
+        return 100.0 * key + float(self.values[n.var0 + seg - n.s0])
+
+    def _sounding(self, part: int, key: int, t: float) -> Optional[_Note]:
         lst = self._by_part_key.get((part, key))
         if not lst:
             return None
@@ -203,19 +213,26 @@ class Plan:
         while i >= 0:
             n = lst[i]
             if n.on <= t and (n.end > t or n.on == t):
-                if n.s0 <= seg <= n.s1:
-                    return 100.0 * key + float(self.values[n.var0 + seg - n.s0])
-                return None
+                return n
             i -= 1
         return None
 
-    def pitch_any(self, key: int, t: float, seg: int) -> Optional[float]:
-        for (part, k) in self._by_part_key:
-            if k == key:
-                p = self.pitch(part, key, t, seg)
-                if p is not None:
-                    return p
-        return None
+    def pitch_held(self, part: int, key: int, cents: float, t: float, seg: int) -> Optional[float]:
+        """Planned pitch at ``t`` of a held note of ``key`` now at ``cents``, whose part is not
+        known: of the notes of that key sounding at ``t`` in any part, the one whose planned
+        pitch in the segment before ``seg`` or in ``seg`` (several notes may start at one
+        moment, each moving the held notes) is nearest ``cents`` (``part`` first among equals)."""
+        best = None
+        for p in self._parts_of_key.get(key, ()):
+            n = self._sounding(p, key, t)
+            if n is None or not n.s0 <= seg <= n.s1:
+                continue
+            now = 100.0 * key + float(self.values[n.var0 + seg - n.s0])
+            before = 100.0 * key + float(self.values[n.var0 + max(seg - 1, n.s0) - n.s0])
+            rank = (min(abs(before - cents), abs(now - cents)), p != part)
+            if best is None or rank < best[0]:
+                best = (rank, now)
+        return None if best is None else best[1]
 
     def segment(self, t: float) -> int:
         """The segment sounding at ``t``."""
@@ -234,10 +251,9 @@ class Plan:
 
     def solver_factory(self, config) -> Callable:
         """What to hand the engine as its solver (``Engine(..., solver=...)``): it answers from
-        the plan. When one engine serves every part (notes stay on their input channels), a held
-        note of another part is looked up in any part."""
-        any_part = MODES[config.mode].keeps_input_channels
-        return lambda _acfg, _tuning: _PlannedSolver(self, any_part)
+        the plan. One engine may serve several parts (parts tuned together, merged, or notes
+        kept on their input channels): a held note is looked up in any part."""
+        return lambda _acfg, _tuning: _PlannedSolver(self)
 
     def after_drive(self, song, tracks, group) -> None:
         """Move each note's bend back to when its channel fell silent (in place)."""
@@ -252,9 +268,8 @@ class Plan:
 class _PlannedSolver:
     """Answers the engine's ``solve(held, new, t=..., part=...)`` from the plan."""
 
-    def __init__(self, plan: Plan, any_part: bool):
+    def __init__(self, plan: Plan):
         self.plan = plan
-        self.any_part = any_part
 
     def reset(self) -> None:
         pass
@@ -267,9 +282,9 @@ class _PlannedSolver:
         seg = plan.segment(t)
         out_h = []
         for k, c in held:
-            p = plan.pitch(part, k, t, seg)
-            if p is None and self.any_part:  # one engine serves every part: any part's note
-                p = plan.pitch_any(k, t, seg)
+            # ``part`` is the new notes' part; a held note may be another part's (one engine
+            # for several parts): of the notes of its key sounding now, the one it is
+            p = plan.pitch_held(part, k, c, t, seg)
             out_h.append(c if p is None else p)
         out_n = []
         for k in new:
@@ -368,7 +383,9 @@ def _interval_tables(acfg):
 
 
 def plan_song(song, merged, secs, tuning, config, motion_value: float = MOTION_VALUE,
-              drift_value: float = DRIFT_VALUE) -> Plan:
+              drift_value: float = DRIFT_VALUE, apart: bool = False) -> Plan:
+    """Plan every note's pitch (see the module docstring). ``apart``: each part (input
+    channel) on its own -- only pairs within a part priced, each part's own drift."""
     acfg = config.adaptive
     if acfg is None:
         raise RetunerError("--lookahead works with --adaptive", field="lookahead")
@@ -402,14 +419,15 @@ def plan_song(song, merged, secs, tuning, config, motion_value: float = MOTION_V
         e = min(S, s + WINDOW)
         keep = S if e == S else s + COMMIT
         _solve_window(s, e, keep, seg_notes, onsets, seg_end, values, cands, wcls, ref, acfg,
-                      motion_value, drift_value, state)
+                      motion_value, drift_value, state, apart)
         s = keep
     return Plan(notes, onsets, values, config.release_time)
 
 
 def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls, ref, acfg,
-                  motion_value, drift_value, state) -> None:
-    """Solve segments [s0, s1); write the variables of segments [s0, keep).
+                  motion_value, drift_value, state, apart=False) -> None:
+    """Solve segments [s0, s1); write the variables of segments [s0, keep). ``apart``: pairs
+    of notes of different parts cost nothing, and each part's notes make drift rows of their own.
 
     ``state["drift"]``: the largest drift of the segments already written (the floor of this
     window's drift bound: the maximum over the piece counts once), updated here."""
@@ -433,6 +451,8 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
             na = ns[a]
             for b in range(a + 1, len(ns)):
                 nb = ns[b]
+                if apart and na.part != nb.part:
+                    continue
                 ov = min(na.end, nb.end, te) - ts
                 if ov <= 0:
                     continue
@@ -469,7 +489,11 @@ def _solve_window(s0, s1, keep, seg_notes, onsets, seg_end, values, cands, wcls,
         cuts = sorted({ts, te} | {n.end for n in ns if ts < n.end < te} | {n.off for n in ns if ts < n.off < te})
         seen = set()
         for a in cuts[:-1]:
-            for sub in (tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a)):
+            subs = (tuple(n for n in ns if n.end > a), tuple(n for n in ns if n.off > a))
+            if apart:
+                subs = tuple(tuple(n for n in sub if n.part == p) for sub in subs
+                             for p in sorted({n.part for n in sub}))
+            for sub in subs:
                 if not sub or sub in seen:
                     continue
                 seen.add(sub)
@@ -737,10 +761,11 @@ def _best_mixture(tried: list, live: dict, steps: int = 20):
     return best
 
 
-def choose(song, merged, secs, tuning, config, live_outputs, render, stream) -> Chosen:
+def choose(song, merged, secs, tuning, config, live_outputs, render, stream, apart: bool = False) -> Chosen:
     """Plan the piece and check the plan against live playing (``live_outputs``: the same file
     through the live engine), measured from the output files (``render(plan)`` makes them,
-    ``stream(data, path)`` reads one back as (seconds, message) pairs).
+    ``stream(data, path)`` reads one back as (seconds, message) pairs). ``apart``: the parts
+    are planned each on its own (``--parts-apart``; see :func:`plan_song`).
 
     The plan's objective (see :func:`plan_song`) has two prices: of motion against impurity
     (``motion_value``) and of drift (``drift_value``). The first plan uses the defaults. Its
@@ -769,7 +794,7 @@ def choose(song, merged, secs, tuning, config, live_outputs, render, stream) -> 
 
     prev = None
     for _ in range(MAX_PLANS):
-        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_value=dv)
+        plan = plan_song(song, merged, secs, tuning, config, motion_value=mv, drift_value=dv, apart=apart)
         outs = render(plan)
         m = measure_outputs(outs, config, stream)
         entry = (plan, m, outs, {"motion_value": round(mv, 4), "drift_value": round(dv, 4)})

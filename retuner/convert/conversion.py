@@ -22,10 +22,10 @@ the target folder, then ``os.replace`` -- there is never a half-written output.
 
 Parts
 -----
-How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode without
-``--lookahead`` runs one engine for the parts of an output file: one solver tunes them together
-as one harmony, and each part still sounds only on its own channels (its program and
-controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
+How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode (``--live``
+and ``--lookahead`` too) runs one engine for the parts of an output file: one solver (or the plan,
+which pairs the notes of every part) tunes them together as one harmony, and each part still sounds
+only on its own channels (its program and controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
 as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together but share
 their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
@@ -184,9 +184,9 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
         raise RetunerError("a chord window delays every note; a converted file keeps each note at its "
                            "tick (notes sound at once and settle within --attack-time): add --live to "
                            "hear the window's delay as the daemon would play it", field="--chord-window")
-    # adaptive mode tunes a file's pitched parts together as one harmony, each on its own
-    # channels (its program and controllers); the lookahead plan does so its own way
-    together = config.adaptive is not None and not opts.parts_apart and not opts.lookahead
+    # adaptive mode (live, as the daemon, or planned over the file) tunes a file's pitched parts
+    # together as one harmony, each on its own channels (its program and controllers)
+    together = config.adaptive is not None and not opts.parts_apart
     groups = plan_groups(song, merged, secs, tuning, config, merge=opts.merge_parts, together=together)
     if not opts.lookahead:
         outputs = _render(song, merged, secs, groups, tuning, config, out_path, None)
@@ -212,7 +212,8 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
         return _render(song, merged, secs, groups, tuning, config, out_path, plan)
 
     say("lookahead: planning")
-    chosen = lookahead.choose(song, merged, secs, tuning, config, live, render_plan, output_stream)
+    chosen = lookahead.choose(song, merged, secs, tuning, config, live, render_plan, output_stream,
+                              apart=opts.parts_apart)
     res = ConvertResult(song.path, chosen.outputs, len(groups) > 1)
     res.lookahead = chosen.summary
     return res

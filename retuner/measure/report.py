@@ -161,9 +161,9 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
            "split": bool(res.split), "outputs": [o.path for o in res.outputs]}
     parts = sorted({p for o in res.outputs for p in o.parts})
     if not static and len(parts) > 1:
-        # adaptive mode: one solver for the parts of a file, or each part alone
-        top["parts_tuned"] = ("with the lookahead plan" if opts.lookahead else
-                              "apart" if getattr(opts, "parts_apart", False) else "together")
+        # adaptive mode (live, as the daemon, or planned): the parts of a file as one harmony,
+        # or each part alone
+        top["parts_tuned"] = "apart" if getattr(opts, "parts_apart", False) else "together"
     if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
         # played as live: how much later each note-on left than it came (engine clock)
         outs = [(n.start, n.key) for dec in decs for n in dec.notes]
