@@ -74,6 +74,7 @@ from typing import Callable, Optional
 
 import numpy as np
 
+from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.measure import metrics
 
