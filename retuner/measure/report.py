@@ -7,7 +7,10 @@ counters that only the engine knows (steals, ringing retunes) come from its
 
 * ``notes``: notes decoded from the output; ``channels_used``: 1-based output
   channels that played notes (percussion excluded);
-* ``steals``, ``ringing_retunes``: engine counters; ``bends_sent``: pitch bend
+* ``steals``, ``ringing_retunes``: engine counters (``steals``: the notes cut short because
+  their channel was taken for a new note); ``steals_explained`` (only when ``steals`` is not
+  0): one line saying how many notes were cut short, why, and what would avoid it with the
+  settings used; ``bends_sent``: pitch bend
   messages in the output; ``range_widenings``: how often the output bend range
   was widened so that the player's wheel plus the tuning fits; ``wheel_clamps``:
   bends still cut short at the end of the range (both said in the summary when
@@ -37,6 +40,7 @@ from typing import Optional
 
 from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
+from retuner.engine.outputs.base import explain_steals
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
 from retuner.measure import metrics
@@ -155,6 +159,8 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         r = {"file": o.path, "parts": [p + 1 for p in o.parts],
              "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
         r.update(_measures(dec, opts.tuning if static else None, o.stats))
+        if o.steals_why and r["steals"]:
+            r["steals_explained"] = explain_steals(r["steals"], o.steals_why)
         files_rep.append(r)
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
@@ -182,6 +188,11 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "range_widenings", "wheel_clamps"):
             top[k] = sum(f[k] for f in files_rep)
         top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
+        said = [(f["steals"], o.steals_why) for f, o in zip(files_rep, res.outputs) if f.get("steals_explained")]
+        if said:
+            # one line for the whole conversion: every file's steals, the reason of the file
+            # that stole most
+            top["steals_explained"] = explain_steals(top["steals"], max(said)[1])
         for k in ("worst_pitch_error_cents", "drift_max_cents"):
             vals = [f[k] for f in files_rep if f[k] is not None]
             top[k] = max(vals) if vals else None
@@ -214,6 +225,8 @@ def text_summary(rep: dict) -> str:
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "
                      f"max {a['max']:.1f} ms ({a['notes']} notes)")
+    if rep.get("steals_explained"):
+        lines.append(f"  {rep['steals_explained']}")
     if rep.get("range_widenings"):
         lines.append(f"  the output bend range was widened {rep['range_widenings']} time(s) so that the "
                      f"player's wheel plus the tuning fits")

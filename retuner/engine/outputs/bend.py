@@ -235,6 +235,33 @@ class BendMode(OutputMode):
     def output_lost(self) -> None:
         self.sent = {c: None for c in range(16)}
 
+    # ------------------------------------------------------------------ steals explained
+    #: what a steal takes, in the words of the line that explains steals
+    steal_unit: ClassVar[str] = "pool's {} channels"
+
+    def more_channels(self, config: Any, shares_port: bool) -> list[str]:
+        """Remedies that give the mode more channels (none when it has them all)."""
+        if len(self.pool.channels) >= 15 or shares_port:
+            return []
+        return ["more pool channels (--pool)"]
+
+    def sharing(self, config: Any) -> list[str]:
+        """A remedy that lets notes share channels (static tunings only: in adaptive mode
+        every note has a bend of its own)."""
+        if self.share or config.adaptive is not None:
+            return []
+        return ["sharing channels among notes of one bend (engine.share_channels: true)"]
+
+    def why_steals(self, config: Any, shares_port: bool = False) -> str:
+        k = len(self.pool.channels)
+        cure = self.more_channels(config, shares_port) + self.sharing(config)
+        # the release time is no remedy: a ringing channel is always taken before a sounding
+        # note is cut (the allocator's rules)
+        cure.append("fewer notes sounding at once (the sustain pedal keeps released notes sounding)")
+        cure[-1] = "or " + cure[-1] if len(cure) > 1 else cure[-1]
+        return (f"more notes sounded at once than the {self.steal_unit.format(k)}, so sounding notes "
+                f"lost theirs; to avoid it: " + "; ".join(cure))
+
     # ------------------------------------------------------------------ settings
     def reconfigure(self, config: Any, old: Any, t: float, out: list) -> None:
         """A changed bend range is announced again and the sounding notes keep their pitch."""

@@ -135,6 +135,28 @@ class MPEMode(BendMode):
             self.sent[c] = E.BEND_CENTRE
         self.resend_bends(t, out)
 
+    # ------------------------------------------------------------------ steals explained
+    steal_unit = "MPE zone's {} member channels"
+
+    def more_channels(self, config: Any, shares_port: bool) -> list[str]:
+        if shares_port:
+            # the converter gives each of two parts in one file a zone of 7 members
+            return ["--merge-parts (the file's parts share one zone of up to 15 member channels "
+                    "instead of a zone of 7 each)"]
+        if len(self.pool.channels) >= 15:
+            return []
+        wide = config.replace(mpe_members=15)
+        if len([c for c in wide.mpe_member_channels() if c not in config.passthrough]) > len(self.pool.channels):
+            return ["more member channels (--mpe-members 15)"]
+        return ["more member channels (--mpe-members 15 --passthrough none, if no channel needs "
+                "passing through)"]
+
+    def sharing(self, config: Any) -> list[str]:
+        # MPE gives every note a member of its own; the pool shares among notes of one bend
+        if config.adaptive is not None:
+            return []
+        return ["pool mode (--mode pool), where notes of one bend share a channel"]
+
     # ------------------------------------------------------------------ settings
     def range_channels(self) -> list[int]:
         return list(self.members)
