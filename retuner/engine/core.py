@@ -501,7 +501,6 @@ class Engine:
     def _wheel_in(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
         dom = self._domain[ch]
         self.inputs.wheel[ch] = msg.pitch
-        self.inputs.last_wheel = ch
         output = self.output
         before = output.range_cents
         output.wheel(t, dom, msg, out)

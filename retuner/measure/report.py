@@ -20,9 +20,9 @@ counters that only the engine knows (steals, ringing retunes) come from its
 
 The player's wheel is expression, not error: it is decoded from the INPUT file (each
 part's wheel at its own bend range) and taken off the pitch of the notes on the channels
-that carry that part alone (:func:`expression`), so worst error, motion, drift and the
-plot count what the tuning does. In MPE mode the wheel travels on the manager channel,
-which the decoder does not add to the members' notes, so there is nothing to take off.
+that carry that part alone (:func:`expression`; in MPE mode each note's member carries
+its part's wheel, the manager stays centred), so worst error, motion, drift and the
+plot count what the tuning does.
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
   ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
@@ -68,12 +68,11 @@ def require_matplotlib():
 def expression(res, opts, o) -> Optional[list]:
     """The player's wheel as it reaches output file ``o``'s channels, decoded from the INPUT
     file (see :func:`retuner.measure.metrics.input_wheel`): each part's wheel goes to the
-    channels that carry that part alone (in MTS mode, its own channel). None when the mode
-    sends the wheel on a channel of its own (MPE: the manager), where no note's bend has it,
-    or when the input cannot be read again."""
+    channels that carry that part alone (in MTS mode, its own channel; in MPE mode, its zone's
+    members). None when the input cannot be read again."""
     config = opts.config
     mode = MODES[config.mode]
-    if not mode.wheel_on_note_channels or not res.input:
+    if not res.input:
         return None
     if mode.keeps_input_channels:
         channels_of = {p: [p] for p in o.parts}

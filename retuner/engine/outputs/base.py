@@ -71,9 +71,6 @@ class OutputMode(abc.ABC):
     zone_per_part: ClassVar[bool] = False
     #: the EngineConfig field that ``--bend-range`` sets in this mode
     bend_range_field: ClassVar[str] = "bend_range"
-    #: the player's wheel reaches the synth in the bend of the notes' own channels (False: on
-    #: a channel of its own, as MPE's manager channel); the measures take it off there
-    wheel_on_note_channels: ClassVar[bool] = True
     #: a changed bend range (and the other light settings) is applied to sounding notes;
     #: False: any change of settings releases everything and starts again
     reconfigures_lightly: ClassVar[bool] = True
