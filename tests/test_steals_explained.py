@@ -18,7 +18,6 @@ import subprocess
 import sys
 
 import mido
-import pytest
 
 from daemonrig import Rig, cc, note_off, note_on
 from retuner.commands.ctl import _fmt_status
