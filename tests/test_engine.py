@@ -556,7 +556,7 @@ def test_bend_scale_applies_to_the_players_wheel_too(mode):
         played = last[note_ch] / 8192 * rng * 127 / 128
     else:  # MPE: the note's member bend plus the manager's (zone-wide) bend, each at its range
         note_ch = next(m.channel for m in out if m.type == "note_on")
-        played = last.get(note_ch, 0) / 8192 * rng * 127 / 128 + last[0] / 8192 * 200.0 * 127 / 128
+        played = last.get(note_ch, 0) / 8192 * rng * 127 / 128 + last.get(0, 0) / 8192 * 200.0 * 127 / 128
     want = tu.cents[61] + 100.0 - 6100
     assert abs(played - want) <= 2 * (rng / 16384 + 200.0 / 16384)
 

@@ -96,12 +96,15 @@ def test_mpe_never_shares_a_member():
 
 def test_mpe_zone_messages_on_manager():
     e, s = mpe()
-    for m in (CC(64, 127), CC(66, 127), CC(1, 40), CC(7, 100), WHEEL(1234),
+    for m in (CC(64, 127), CC(66, 127), CC(1, 40), CC(7, 100),
               mido.Message("program_change", channel=0, program=5),
               mido.Message("aftertouch", channel=0, value=20)):
         out = e.feed(0.0, m)
         assert [x.channel for x in out] == [0], m
-        assert out[0].bytes()[1:] == m.bytes()[1:]    # wheel range 2 = manager range 2: same value
+        assert out[0].bytes()[1:] == m.bytes()[1:]
+    # the wheel is its part's, in the members' bends: with nothing sounding nothing is sent,
+    # and the manager's bend is never moved
+    assert e.feed(0.1, WHEEL(1234)) == []
 
 
 def test_mpe_poly_pressure_becomes_member_channel_pressure():
@@ -111,12 +114,16 @@ def test_mpe_poly_pressure_becomes_member_channel_pressure():
     assert out == [E.msg("aftertouch", channel=ch, value=77)]
 
 
-def test_mpe_wheel_adds_to_every_note_through_manager():
+def test_mpe_wheel_bends_every_note_of_its_channel_on_its_member():
     tu = load_profile("edo31")
     e, s = mpe(tu)
-    s.feed(e.feed(0.0, ON(60)) + e.feed(0.0, ON(64)) + e.feed(0.1, WHEEL(4096)))
+    out = e.feed(0.0, ON(60)) + e.feed(0.0, ON(64)) + e.feed(0.1, WHEEL(4096))
+    s.feed(out)
+    assert not [m for m in out if m.type == "pitchwheel" and m.channel == 0]   # manager centred
     for c, v in s.sounding():
-        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 100.0)) <= 4800 / 16384 + 200 / 16384
+        # half the wheel at range 2 = +100 c (MIDI 1.0 bend); at the members' 48 semitones, half a
+        # bend step for the tuning's share and half for the wheel's (each in whole steps)
+        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 100.0)) <= 2 * 4800 / 16384 + 1e-9
 
 
 def test_mpe_steal_when_members_exhausted():
@@ -224,12 +231,14 @@ def test_mts_release_all():
     assert chans == {c for c in range(16) if c != 9}
 
 
-def test_mpe_reconfigure_wheel_range_rescales_manager_bend():
-    e, s = mpe()
-    s.feed(e.feed(0.0, WHEEL(2048)))          # a quarter of the wheel: 50 cents at 2 semitones
+def test_mpe_reconfigure_wheel_range_rescales_the_wheel_in_member_bends():
+    e, s = mpe(Tuning.equal12())
+    s.feed(e.feed(0.0, ON(60)) + e.feed(0.0, WHEEL(2048)))   # a quarter of the wheel: 50 c at 2 semitones
     out = e.reconfigure(e.config.replace(wheel_range=4.0), 0.1)
     s.feed(out)
-    assert s.bend[0] / 8192 * s.range[0] == pytest.approx(100.0, abs=200 / 16384)  # now 100 cents
+    (c, v), = s.sounding()
+    assert s.pitch(c, v) == pytest.approx(6000.0 + 100.0, abs=4800 / 16384)   # now 100 c (12-EDO: no tuning share)
+    assert s.bend[0] == 0
 
 
 def test_mts_key_struck_twice_is_ended_first():

@@ -159,12 +159,12 @@ def test_engine_mpe_start(zone, members, manager, member_channels):
 
 
 def test_engine_mpe_zone_wide_messages_on_manager():
-    # MPE spec: sustain, the zone's pitch bend and program change belong on the manager channel.
+    # MPE spec: sustain and program change belong on the manager channel (the player's wheel
+    # is its part's: it goes to the members of that part's notes, see test_wheel_per_part.py)
     eng = Engine(Tuning.equal12(), EngineConfig(mode="mpe"))
     eng.start(0.0)
     for i, msg in enumerate([mido.Message("control_change", channel=3, control=64, value=127),
-                             mido.Message("program_change", channel=3, program=5),
-                             mido.Message("pitchwheel", channel=3, pitch=1000)]):
+                             mido.Message("program_change", channel=3, program=5)]):
         out = eng.feed(0.1 + i * 0.01, msg)
         assert out and all(m.channel == 0 for m in out), (msg, out)
         assert any(m.type == msg.type for m in out)

@@ -145,6 +145,8 @@ def _fmt_status(r: dict) -> str:
     if n:
         rows.append(("attack retunes", f"{n}, mean {total / n:.2f} c, largest {largest:.2f} c "
                                        "(notes retuned within their attack)"))
+    if r.get("steals_explained"):
+        rows.append(("notes cut short", r["steals_explained"]))
     if "bad_input" in r:
         rows.append(("bad input", f"{r['bad_input']} messages ignored"))
     if "errors" in r:

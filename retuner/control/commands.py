@@ -210,6 +210,9 @@ class EngineControl(Handler):
         eng = self.engine
         out = self.info()
         out["stats"] = dict(getattr(eng, "stats", {}) or {})
+        cut = eng.steals_explained()
+        if cut:
+            out["steals_explained"] = cut
         out["sounding"] = len(eng.sounding())
         if self.server is not None:
             out["control"] = self.server.stats()

@@ -74,6 +74,7 @@ class Output:
     stats: dict = field(default_factory=dict)
     report: Optional[dict] = None
     wheel: Optional[list] = None        # the player's wheel per output channel, for the measures
+    steals_why: str = ""                # why steals cut notes short and what avoids it ("" if none did)
 
 
 @dataclass
@@ -242,12 +243,24 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
             plan.after_drive(song, tracks, group)
         data = serialize(song.format, song.header_division, tracks)
         stats: dict = {}
-        for e in {id(e): e for e in engines.values()}.values():
+        distinct = list({id(e): e for e in engines.values()}.values())
+        for e in distinct:
             for k, v in e.stats.items():
                 stats[k] = stats.get(k, 0) + v
         path = split_name(out_path, gi + 1) if split else str(out_path)
-        outputs.append(Output(path, parts, channels, data, stats))
+        outputs.append(Output(path, parts, channels, data, stats,
+                              steals_why=_steals_why(distinct)))
     return outputs
+
+
+def _steals_why(engines: list) -> str:
+    """Why steals cut notes short in one output file, and what would avoid it: the reason of
+    the engine that stole most (several engines: the file's parts share the port); "" when
+    no note was cut."""
+    worst = max(engines, key=lambda e: e.stats.get("steals", 0))
+    if not worst.stats.get("steals"):
+        return ""
+    return worst.output.why_steals(worst.config, len(engines) > 1)
 
 
 def convert_file(in_path: str | os.PathLike, out_path: str | os.PathLike, opts: ConvertOptions,

@@ -89,6 +89,7 @@ from retuner.engine.chord import ChordWindow
 from retuner.engine.config import DEFAULT_POOL, EngineConfig
 from retuner.engine.inputs import InputState, PassthroughNotes
 from retuner.engine.outputs import MODES, OutputMode
+from retuner.engine.outputs.base import explain_steals
 from retuner.errors import RetunerError
 from retuner.pitch.tuning import Tuning
 
@@ -500,7 +501,6 @@ class Engine:
     def _wheel_in(self, t: float, ch: int, msg: mido.Message, out: list) -> None:
         dom = self._domain[ch]
         self.inputs.wheel[ch] = msg.pitch
-        self.inputs.last_wheel = ch
         output = self.output
         before = output.range_cents
         output.wheel(t, dom, msg, out)
@@ -751,6 +751,12 @@ class Engine:
         self.output.output_lost()
 
     # ------------------------------------------------------------------ queries
+    def steals_explained(self, shares_port: bool = False) -> str:
+        """One line: how many notes steals cut short, why, and what would avoid it with the
+        settings in force; empty when no note was cut."""
+        n = int(self.stats.get("steals", 0))
+        return explain_steals(n, self.output.why_steals(self.config, shares_port)) if n else ""
+
     def sounding(self) -> list[dict]:
         """The notes sounding now: input key and channel, output channel and key,
         velocity, and pitch in cents above key 0 of 12-EDO (the tuning's part,

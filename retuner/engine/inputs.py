@@ -19,8 +19,7 @@
 * **Pedals** (sustain, sostenuto), per pedal domain (the output mode says which
   input channels form a domain).
 * The **wheel** per input channel (a wheel bends only its own channel's notes
-  where the output mode can keep them apart), and the channel that moved its
-  wheel last.
+  where the output mode can keep them apart).
 * The input's **RPN selection** per channel: an input RPN 0 (pitch bend
   sensitivity) sets that channel's wheel range (the cents its full wheel spans;
   ``wheel_range`` from the config until the input sets one) instead of reaching
@@ -50,7 +49,6 @@ class InputState:
         self.sustain: dict[int, bool] = {}       # domain -> down
         self.sostenuto: dict[int, bool] = {}     # domain -> down
         self.wheel: dict[int, int] = {}          # input channel -> signed bend -8192..8191
-        self.last_wheel = 0                      # the input channel whose wheel moved last
         self.wheel_range = wheel_range_semitones * 100.0   # cents a full wheel spans (default)
         self.wheel_ranges: dict[int, float] = {}  # input channel -> cents, as its RPN 0 set it
         self.rpn: dict[int, Any] = {}            # input channel -> (msb, lsb) or "nrpn"

@@ -509,6 +509,9 @@ class Daemon:
         the recent output (as 'retuner convert --report' measures a file). Decoding takes a
         while, so it runs in a thread of its own: the engine thread never waits for it."""
         log.info("status: %s", self._status_text())
+        cut = self.engine.steals_explained()
+        if cut:
+            log.info("status: %s", cut)
         if self._figures_busy or not len(self.recent):
             return
         stream = self.recent.snapshot()

@@ -7,7 +7,10 @@ counters that only the engine knows (steals, ringing retunes) come from its
 
 * ``notes``: notes decoded from the output; ``channels_used``: 1-based output
   channels that played notes (percussion excluded);
-* ``steals``, ``ringing_retunes``: engine counters; ``bends_sent``: pitch bend
+* ``steals``, ``ringing_retunes``: engine counters (``steals``: the notes cut short because
+  their channel was taken for a new note); ``steals_explained`` (only when ``steals`` is not
+  0): one line saying how many notes were cut short, why, and what would avoid it with the
+  settings used; ``bends_sent``: pitch bend
   messages in the output; ``range_widenings``: how often the output bend range
   was widened so that the player's wheel plus the tuning fits; ``wheel_clamps``:
   bends still cut short at the end of the range (both said in the summary when
@@ -17,9 +20,9 @@ counters that only the engine knows (steals, ringing retunes) come from its
 
 The player's wheel is expression, not error: it is decoded from the INPUT file (each
 part's wheel at its own bend range) and taken off the pitch of the notes on the channels
-that carry that part alone (:func:`expression`), so worst error, motion, drift and the
-plot count what the tuning does. In MPE mode the wheel travels on the manager channel,
-which the decoder does not add to the members' notes, so there is nothing to take off.
+that carry that part alone (:func:`expression`; in MPE mode each note's member carries
+its part's wheel, the manager stays centred), so worst error, motion, drift and the
+plot count what the tuning does.
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
   ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
@@ -37,6 +40,7 @@ from typing import Optional
 
 from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
+from retuner.engine.outputs.base import explain_steals
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
 from retuner.measure import metrics
@@ -64,12 +68,11 @@ def require_matplotlib():
 def expression(res, opts, o) -> Optional[list]:
     """The player's wheel as it reaches output file ``o``'s channels, decoded from the INPUT
     file (see :func:`retuner.measure.metrics.input_wheel`): each part's wheel goes to the
-    channels that carry that part alone (in MTS mode, its own channel). None when the mode
-    sends the wheel on a channel of its own (MPE: the manager), where no note's bend has it,
-    or when the input cannot be read again."""
+    channels that carry that part alone (in MTS mode, its own channel; in MPE mode, its zone's
+    members). None when the input cannot be read again."""
     config = opts.config
     mode = MODES[config.mode]
-    if not mode.wheel_on_note_channels or not res.input:
+    if not res.input:
         return None
     if mode.keeps_input_channels:
         channels_of = {p: [p] for p in o.parts}
@@ -155,6 +158,8 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         r = {"file": o.path, "parts": [p + 1 for p in o.parts],
              "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
         r.update(_measures(dec, opts.tuning if static else None, o.stats))
+        if o.steals_why and r["steals"]:
+            r["steals_explained"] = explain_steals(r["steals"], o.steals_why)
         files_rep.append(r)
     top = {"input": res.input, "profile": opts.tuning.id, "mode": config.mode,
            "adaptive": not static, "lookahead": bool(opts.lookahead),
@@ -182,6 +187,11 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "range_widenings", "wheel_clamps"):
             top[k] = sum(f[k] for f in files_rep)
         top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
+        said = [(f["steals"], o.steals_why) for f, o in zip(files_rep, res.outputs) if f.get("steals_explained")]
+        if said:
+            # one line for the whole conversion: every file's steals, the reason of the file
+            # that stole most
+            top["steals_explained"] = explain_steals(top["steals"], max(said)[1])
         for k in ("worst_pitch_error_cents", "drift_max_cents"):
             vals = [f[k] for f in files_rep if f[k] is not None]
             top[k] = max(vals) if vals else None
@@ -214,6 +224,8 @@ def text_summary(rep: dict) -> str:
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "
                      f"max {a['max']:.1f} ms ({a['notes']} notes)")
+    if rep.get("steals_explained"):
+        lines.append(f"  {rep['steals_explained']}")
     if rep.get("range_widenings"):
         lines.append(f"  the output bend range was widened {rep['range_widenings']} time(s) so that the "
                      f"player's wheel plus the tuning fits")

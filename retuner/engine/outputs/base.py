@@ -71,9 +71,6 @@ class OutputMode(abc.ABC):
     zone_per_part: ClassVar[bool] = False
     #: the EngineConfig field that ``--bend-range`` sets in this mode
     bend_range_field: ClassVar[str] = "bend_range"
-    #: the player's wheel reaches the synth in the bend of the notes' own channels (False: on
-    #: a channel of its own, as MPE's manager channel); the measures take it off there
-    wheel_on_note_channels: ClassVar[bool] = True
     #: a changed bend range (and the other light settings) is applied to sounding notes;
     #: False: any change of settings releases everything and starts again
     reconfigures_lightly: ClassVar[bool] = True
@@ -173,6 +170,21 @@ class OutputMode(abc.ABC):
     def output_lost(self) -> None:
         """The output went away: forget what was sent."""
 
+    def why_steals(self, config: Any, shares_port: bool = False) -> str:
+        """Why notes were cut short by steals with ``config`` (the settings in force) and what
+        would avoid it, for the one line that explains a steal count above 0 (see
+        :func:`explain_steals`). ``shares_port``: the file converter gave this engine's
+        channels a share of a port that other parts use too."""
+        return "more notes sounded at once than the output could hold; to avoid it: fewer notes at once"
+
     @abc.abstractmethod
     def sounding_cents(self, note: Note) -> float:
         """The pitch ``note`` sounds at, cents above key 0 of 12-EDO (the player's wheel not included)."""
+
+
+def explain_steals(count: int, why: str) -> str:
+    """The one line that counts the notes cut short by steals and says why (``why``: an output
+    mode's :meth:`OutputMode.why_steals`); empty when ``count`` is 0."""
+    if not count:
+        return ""
+    return f"{count} note{'s' if count != 1 else ''} cut short by steals: {why}"

@@ -8,6 +8,10 @@ Channel choice, sharing, ringing and the steal policy are the allocator's
   within the bend range; otherwise from the **nearest key** to its target
   (``round(cents / 100)``, kept within 0..127), bent by the remainder. Only a
   target below key 0 or above key 127 by more than the range is clamped.
+* The **player's wheel** of an input channel is added, in whole output bend steps,
+  to the tuning bend of the channels whose notes came from that channel (and
+  widens the range when the sum would not fit): in the pool mode and in MPE
+  alike (see :mod:`retuner.engine.outputs.pool` for the rules).
 * A bend is sent only when a channel's bend value changes.
 * Note-offs go to the channel and key the note was sent on; polyphonic pressure
   to the note's channel.
@@ -22,6 +26,7 @@ Channel choice, sharing, ringing and the steal policy are the allocator's
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass
 from typing import Any, ClassVar, Optional, Sequence
 
@@ -81,6 +86,9 @@ class BendMode(OutputMode):
         return 100.0 * note.out_key + E.bend_cents(note.bend, self.range_cents * self.scale)
 
     def send_bend(self, c: int, out: list, force: bool = False) -> None:
+        # the tuning bend plus the wheel in whole output steps (not the two summed and rounded
+        # once): the wheel's share is then exactly what the measures take off, and a wheel
+        # gesture never shows as motion of the tuning
         v = self.pool.bend[c] + self.wheel_units.get(self.owner.get(c, -1), 0)
         if v < 0 or v > 16383:
             self.clamped()
@@ -89,6 +97,52 @@ class BendMode(OutputMode):
             self.sent[c] = v
             out.append(E.pitchwheel(c, v))
             self.stats["bends_sent"] += 1
+
+    # ------------------------------------------------------------------ the player's wheel
+    def units_of(self, ch: int) -> int:
+        """Input channel ``ch``'s wheel in output bend steps."""
+        return round(self.inputs.wheel.get(ch, 0) * self.inputs.range_of(ch) / (self.range_cents * self.scale))
+
+    def wheel_changed(self) -> None:
+        self.wheel_units = {ch: self.units_of(ch) for ch in self.inputs.wheel}
+
+    def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
+        ch = msg.channel
+        units = self.units_of(ch)
+        if units == self.wheel_units.get(ch, 0):
+            return
+        self.wheel_units[ch] = units
+        pool = self.pool
+        notes, last_off, bend, owner = pool.notes, pool.last_off, pool.bend, self.owner
+        rel = pool.release_time
+        mine = [c for c in pool.channels if owner[c] == ch and (notes[c] or t - last_off[c] < rel)]
+        if any(not 0 <= bend[c] + units <= 16383 for c in mine) and self.widen(t, ch, mine, out):
+            return
+        for c in mine:
+            self.send_bend(c, out)
+
+    def widen(self, t: float, ch: int, chans: list, out: list) -> bool:
+        """The wheel of ``ch`` would take the bend of ``chans`` beyond the output range:
+        widen the range (whole semitones, at most 127) so that the player's full wheel plus
+        the largest tuning offset on the pool fits. False when it cannot grow."""
+        rng = self.range_cents
+        sc = self.scale
+        offset = max(abs(E.bend_cents(self.pool.bend[c], rng)) for c in self.pool.channels)
+        need = (offset + self.inputs.range_of(ch)) / sc
+        semis = min(127, int(math.ceil(need / 100.0 - 1e-9)))
+        if semis * 100.0 <= rng:
+            return False
+        self.stats["range_widenings"] = self.stats.get("range_widenings", 0) + 1
+        log.info("the output bend range is widened to %d semitones: the player's wheel "
+                 "(%.0f c) plus the tuning (%.0f c) did not fit", semis, self.inputs.range_of(ch), offset)
+        self.set_range(semis * 100.0, t, out)
+        return True
+
+    def controllers_reset(self, t: float, out: list) -> None:
+        self.wheel_changed()
+        for c in self.pool.channels:
+            self.sent[c] = E.BEND_CENTRE
+        self.resend_bends(t, out)
 
     def channels_of(self, in_ch: int) -> Optional[Sequence[int]]:
         """The output channels input channel ``in_ch``'s notes may use (None: the whole pool)."""
@@ -234,6 +288,33 @@ class BendMode(OutputMode):
 
     def output_lost(self) -> None:
         self.sent = {c: None for c in range(16)}
+
+    # ------------------------------------------------------------------ steals explained
+    #: what a steal takes, in the words of the line that explains steals
+    steal_unit: ClassVar[str] = "pool's {} channels"
+
+    def more_channels(self, config: Any, shares_port: bool) -> list[str]:
+        """Remedies that give the mode more channels (none when it has them all)."""
+        if len(self.pool.channels) >= 15 or shares_port:
+            return []
+        return ["more pool channels (--pool)"]
+
+    def sharing(self, config: Any) -> list[str]:
+        """A remedy that lets notes share channels (static tunings only: in adaptive mode
+        every note has a bend of its own)."""
+        if self.share or config.adaptive is not None:
+            return []
+        return ["sharing channels among notes of one bend (engine.share_channels: true)"]
+
+    def why_steals(self, config: Any, shares_port: bool = False) -> str:
+        k = len(self.pool.channels)
+        cure = self.more_channels(config, shares_port) + self.sharing(config)
+        # the release time is no remedy: a ringing channel is always taken before a sounding
+        # note is cut (the allocator's rules)
+        cure.append("fewer notes sounding at once (the sustain pedal keeps released notes sounding)")
+        cure[-1] = "or " + cure[-1] if len(cure) > 1 else cure[-1]
+        return (f"more notes sounded at once than the {self.steal_unit.format(k)}, so sounding notes "
+                f"lost theirs; to avoid it: " + "; ".join(cure))
 
     # ------------------------------------------------------------------ settings
     def reconfigure(self, config: Any, old: Any, t: float, out: list) -> None:

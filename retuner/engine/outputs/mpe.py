@@ -7,16 +7,22 @@ Message (RPN 6 on the manager, data entry MSB = member count), RPN 0 on the
 members (48 semitones by default) and on the manager (2). Each note gets a
 member channel of its own (pool rules, never shared) with its tuning bend;
 polyphonic pressure becomes channel pressure on that member; sustain,
-sostenuto, the player's wheel, channel pressure, program change and other
-controllers go to the manager channel (the wheel is the zone's: the last one
-moved on any input channel, at that channel's own bend range; when it goes
-beyond the manager's range, the manager's range is widened and announced again). A steal of a pedalled note silences its
-member alone with all-sound-off (the pedals live on the manager).
+sostenuto, channel pressure, program change and other controllers go to the
+manager channel. A steal of a pedalled note silences its member alone with
+all-sound-off (the pedals live on the manager).
+
+The player's wheel belongs to its part: a wheel on input channel c bends only
+the notes that came from c, each in its own member's bend (tuning offset plus
+that channel's wheel at its own bend range, in whole bend steps), as the
+pool mode does (:mod:`retuner.engine.outputs.bend`). The manager channel's bend
+stays centred, whatever the number of input channels: one rule, nothing to
+switch when a second part starts, and the members' range (48 semitones by
+default) holds the tuning plus a wheel of up to 47 semitones at a step of
+0.59 c; beyond that the members' range is widened like the pool's.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -48,7 +54,6 @@ class MPEMode(BendMode):
     summary = "MPE zone"
     settings_class = MPESettings
     pedals_apart = True
-    wheel_on_note_channels = False
     zone_per_part = True
     bend_range_field = "mpe_member_range"
 
@@ -73,11 +78,10 @@ class MPEMode(BendMode):
         super().__init__(config, inputs, stats)
         self.manager = self.settings.manager
         self.members = list(self.settings.members)
-        self.widened_manager = 0.0      # cents: the manager's range widened for the player's wheel
 
     def manager_range(self) -> float:
         s = self.settings
-        return max(effective_range(s.manager_range, s.whole_semitone_range), self.widened_manager)
+        return effective_range(s.manager_range, s.whole_semitone_range)
 
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         s = self.settings
@@ -87,9 +91,15 @@ class MPEMode(BendMode):
             out += E.bend_range_rpn(c, self.range_cents, s.whole_semitone_range)
         out += E.bend_range_rpn(self.manager, self.manager_range(), s.whole_semitone_range)
         self.centre_pool(out)
-        self.sent[self.manager] = None
-        self.send_manager_wheel(out)
+        self.centre_manager(out)
         return out
+
+    def centre_manager(self, out: list) -> None:
+        """The manager's bend at centre: the wheel is in the members' bends."""
+        if self.sent[self.manager] != E.BEND_CENTRE:
+            self.sent[self.manager] = E.BEND_CENTRE
+            out.append(E.pitchwheel(self.manager, E.BEND_CENTRE))
+            self.stats["bends_sent"] += 1
 
     def zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
         return [E.with_channel(msg, self.manager)]
@@ -103,37 +113,31 @@ class MPEMode(BendMode):
         return [E.msg("aftertouch", channel=note.out_ch, value=msg.value)]
 
     # ------------------------------------------------------------------ the player's wheel
-    def send_manager_wheel(self, out: list) -> None:
-        inputs = self.inputs
-        ch = inputs.last_wheel
-        w = inputs.wheel.get(ch, 0)
-        wheel = w * inputs.range_of(ch)         # cents * 8192
-        if abs(wheel) > 8191 * self.manager_range() * self.scale:
-            # the player's wheel goes beyond the manager's range: widen it (RPN 0 again)
-            semis = min(127, int(math.ceil(abs(wheel) / 8192.0 / self.scale / 100.0 - 1e-9)))
-            if semis * 100.0 > self.manager_range():
-                self.widened_manager = semis * 100.0
-                self.stats["range_widenings"] = self.stats.get("range_widenings", 0) + 1
-                out += E.bend_range_rpn(self.manager, self.manager_range(), self.settings.whole_semitone_range)
-                self.sent[self.manager] = None
-        v = E.BEND_CENTRE + round(wheel / (self.manager_range() * self.scale))
-        if not E.BEND_MIN <= v <= E.BEND_MAX:
-            self.clamped()
-        v = min(E.BEND_MAX, max(E.BEND_MIN, v))
-        m = self.manager
-        if self.sent[m] != v:
-            self.sent[m] = v
-            out.append(E.pitchwheel(m, v))
-            self.stats["bends_sent"] += 1
-
-    def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
-        self.send_manager_wheel(out)
-
     def controllers_reset(self, t: float, out: list) -> None:
         self.sent[self.manager] = E.BEND_CENTRE
-        for c in self.members:
-            self.sent[c] = E.BEND_CENTRE
-        self.resend_bends(t, out)
+        super().controllers_reset(t, out)
+
+    # ------------------------------------------------------------------ steals explained
+    steal_unit = "MPE zone's {} member channels"
+
+    def more_channels(self, config: Any, shares_port: bool) -> list[str]:
+        if shares_port:
+            # the converter gives each of two parts in one file a zone of 7 members
+            return ["--merge-parts (the file's parts share one zone of up to 15 member channels "
+                    "instead of a zone of 7 each)"]
+        if len(self.pool.channels) >= 15:
+            return []
+        wide = config.replace(mpe_members=15)
+        if len([c for c in wide.mpe_member_channels() if c not in config.passthrough]) > len(self.pool.channels):
+            return ["more member channels (--mpe-members 15)"]
+        return ["more member channels (--mpe-members 15 --passthrough none, if no channel needs "
+                "passing through)"]
+
+    def sharing(self, config: Any) -> list[str]:
+        # MPE gives every note a member of its own; the pool shares among notes of one bend
+        if config.adaptive is not None:
+            return []
+        return ["pool mode (--mode pool), where notes of one bend share a channel"]
 
     # ------------------------------------------------------------------ settings
     def range_channels(self) -> list[int]:
@@ -142,4 +146,3 @@ class MPEMode(BendMode):
     def reconfigure_extra(self, config: Any, old: Any, range_changed: bool, out: list) -> None:
         if config.mpe_manager_range != old.mpe_manager_range or range_changed:
             out += E.bend_range_rpn(self.manager, self.manager_range(), config.whole_semitone_range)
-        self.send_manager_wheel(out)     # only if its value changed

@@ -32,8 +32,6 @@ with MPE).
 
 from __future__ import annotations
 
-import logging
-import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -42,8 +40,6 @@ import mido
 from retuner.midi import encode as E
 from retuner.engine.outputs.base import config_error
 from retuner.engine.outputs.bend import BendMode, BendSettings
-
-log = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -109,49 +105,3 @@ class PoolMode(BendMode):
         if note is None:
             return []
         return [E.msg("polytouch", channel=note.out_ch, note=note.out_key, value=msg.value)]
-
-    # ------------------------------------------------------------------ the player's wheel
-    def units_of(self, ch: int) -> int:
-        """Input channel ``ch``'s wheel in output bend steps."""
-        return round(self.inputs.wheel.get(ch, 0) * self.inputs.range_of(ch) / (self.range_cents * self.scale))
-
-    def wheel_changed(self) -> None:
-        self.wheel_units = {ch: self.units_of(ch) for ch in self.inputs.wheel}
-
-    def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
-        ch = msg.channel
-        units = self.units_of(ch)
-        if units == self.wheel_units.get(ch, 0):
-            return
-        self.wheel_units[ch] = units
-        pool = self.pool
-        notes, last_off, bend, owner = pool.notes, pool.last_off, pool.bend, self.owner
-        rel = pool.release_time
-        mine = [c for c in pool.channels if owner[c] == ch and (notes[c] or t - last_off[c] < rel)]
-        if any(not 0 <= bend[c] + units <= 16383 for c in mine) and self.widen(t, ch, mine, out):
-            return
-        for c in mine:
-            self.send_bend(c, out)
-
-    def widen(self, t: float, ch: int, chans: list, out: list) -> bool:
-        """The wheel of ``ch`` would take the bend of ``chans`` beyond the output range:
-        widen the range (whole semitones, at most 127) so that the player's full wheel plus
-        the largest tuning offset on the pool fits. False when it cannot grow."""
-        rng = self.range_cents
-        sc = self.scale
-        offset = max(abs(E.bend_cents(self.pool.bend[c], rng)) for c in self.pool.channels)
-        need = (offset + self.inputs.range_of(ch)) / sc
-        semis = min(127, int(math.ceil(need / 100.0 - 1e-9)))
-        if semis * 100.0 <= rng:
-            return False
-        self.stats["range_widenings"] = self.stats.get("range_widenings", 0) + 1
-        log.info("the output bend range is widened to %d semitones: the player's wheel "
-                 "(%.0f c) plus the tuning (%.0f c) did not fit", semis, self.inputs.range_of(ch), offset)
-        self.set_range(semis * 100.0, t, out)
-        return True
-
-    def controllers_reset(self, t: float, out: list) -> None:
-        self.wheel_changed()
-        for c in self.pool.channels:
-            self.sent[c] = E.BEND_CENTRE
-        self.resend_bends(t, out)

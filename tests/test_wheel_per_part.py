@@ -1,0 +1,153 @@
+"""In MPE mode the player's wheel belongs to its part: a wheel on input channel c bends only the
+notes that came from c, in their own member channels' bends; the manager channel stays centred.
+
+Decoded as an MPE synth plays it (tests/synthmodel.py, written from the MIDI 1.0 Detailed
+Specification and the MPE specification, The MIDI Association, 2018: a member's note sounds at
+key*100 + member bend + manager bend, each bend/8192 * that channel's RPN 0 range; members
+default to 48 semitones, the manager to 2). The player's wheel is read the same way: an input
+bend w at the input channel's range r (its own RPN 0, 2 semitones until set) means
+w/8192 * r cents.
+
+Tolerance: the member bend is the tuning's bend plus the wheel in whole bend steps, each
+rounded to the nearest step: half a step (4800/16384 = 0.29 c at 48 semitones) for each.
+
+Targets: quarter-comma meantone from its definition (every fifth 1/4 syntonic comma narrow,
+chain Eb..G#, A4 = 440 Hz; J. Murray Barbour, Tuning and Temperament, 1951), computed in
+tests/temperaments.py, not read from retuner's profile.
+"""
+
+from __future__ import annotations
+
+import mido
+import pytest
+
+from retuner.adaptive.solver import AdaptiveConfig
+from retuner.convert.conversion import ConvertOptions, convert_file
+from retuner.engine.core import Engine, EngineConfig
+from retuner.profiles.profile import load_profile
+from synth import note_events, write_midi
+from synthmodel import SynthModel
+from temperaments import MEANTONE
+
+HALF_STEP_48 = 4800.0 / 16384      # MIDI 1.0: half a bend step at 48 semitones
+TOL = 2 * HALF_STEP_48              # the tuning's share and the wheel's, each rounded
+
+
+def ON(k, ch):
+    return mido.Message("note_on", channel=ch, note=k, velocity=90)
+
+
+def WHEEL(p, ch):
+    return mido.Message("pitchwheel", channel=ch, pitch=p)
+
+
+def RPN0(semis, ch):
+    return [mido.Message("control_change", channel=ch, control=c, value=v)
+            for c, v in ((101, 0), (100, 0), (6, semis), (38, 0))]
+
+
+def wheel_cents(pitch, range_semitones=2.0):
+    """MIDI 1.0: a 14-bit bend centred on 8192 spans +-range (signed value / 8192 * range)."""
+    return pitch / 8192.0 * range_semitones * 100.0
+
+
+def play(e, s, t, msgs, tag):
+    for m in msgs:
+        s.feed(e.feed(t, m), tag)
+
+
+def pitches(s):
+    """{(input channel, key): cents} of what the synth sounds, from the voices' tags."""
+    return {(v.tag, v.key): s.pitch(c, v) for c, v in s.sounding()}
+
+
+@pytest.mark.parametrize("adaptive", [None, AdaptiveConfig()], ids=["static", "adaptive"])
+def test_a_wheel_bends_only_its_own_parts_notes(adaptive):
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe", adaptive=adaptive))
+    s = SynthModel(mpe_manager=e.config.mpe_manager())
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, [ON(48, 0), ON(55, 0)], tag=0)            # part 1: C3 G3
+    play(e, s, 0.01, [ON(64, 1), ON(72, 1)], tag=1)           # part 2: E4 C5
+    s.feed(e.tick(0.3))
+    before = pitches(s)
+    if adaptive is None:
+        for (ch, k), c in before.items():
+            assert c == pytest.approx(MEANTONE[k], abs=HALF_STEP_48)
+    wheels = {0: 0, 1: 0}
+    for i, (ch, w) in enumerate([(1, 4096), (1, 8191), (0, -3000), (1, -8192), (0, 2000)]):
+        play(e, s, 0.5 + 0.1 * i, [WHEEL(w, ch)], tag=None)
+        wheels[ch] = w
+        now = pitches(s)
+        assert set(now) == set(before)
+        for (part, k), c in now.items():
+            want = before[(part, k)] + wheel_cents(wheels[part])
+            assert c == pytest.approx(want, abs=TOL), (part, k, wheels)
+        assert s.bend[e.config.mpe_manager()] == 0          # the manager stays centred
+    assert not s.problems
+    # a note struck while its part's wheel is moved gets that wheel too, the other part's not
+    play(e, s, 1.2, [ON(67, 0)], tag=0)
+    play(e, s, 1.21, [ON(76, 1)], tag=1)
+    s.feed(e.tick(1.5))
+    now = pitches(s)
+    if adaptive is None:
+        assert now[(0, 67)] == pytest.approx(MEANTONE[67] + wheel_cents(2000), abs=TOL)
+        assert now[(1, 76)] == pytest.approx(MEANTONE[76] + wheel_cents(-8192), abs=TOL)
+    else:   # adaptive: the tuning is the solver's (within 30 c of 12-EDO, from memory: just
+        # intervals lie within about 20 c of 12-EDO); the wheels (+49 c, -200 c) tell them apart
+        assert now[(0, 67)] - 6700 - wheel_cents(2000) == pytest.approx(0, abs=30)
+        assert now[(1, 76)] - 7600 - wheel_cents(-8192) == pytest.approx(0, abs=30)
+
+
+def test_a_wheel_beyond_the_members_range_widens_it():
+    # input channel 2 sets its wheel to span 60 semitones (RPN 0) and bends all the way up:
+    # more than the members' 48; the members' range is widened (RPN 0 again), nothing clamped
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe"))
+    s = SynthModel(mpe_manager=e.config.mpe_manager())
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, RPN0(60, 1) + [ON(60, 0), ON(64, 1)], tag=None)
+    play(e, s, 0.1, [WHEEL(8191, 1)], tag=None)
+    by_key = {v.key: s.pitch(c, v) for c, v in s.sounding()}
+    step = max(s.range[c] for c, _ in s.sounding()) / 16384
+    assert by_key[60] == pytest.approx(MEANTONE[60], abs=2 * step)
+    assert by_key[64] == pytest.approx(MEANTONE[64] + wheel_cents(8191, 60), abs=2 * step)
+    assert e.stats["range_widenings"] == 1 and e.stats["wheel_clamps"] == 0
+    assert s.bend[0] == 0
+
+
+def test_convert_two_parts_each_wheel_in_its_own_zone(tmp_path):
+    # a file of two parts: each gets a zone of its own (lower: manager 1, upper: manager 16);
+    # the second part's wheel swells while both hold a chord
+    ev = note_events([(0.1, 3.0, 0, k, 80) for k in (48, 55, 64)] + [(0.1, 3.0, 1, k, 80) for k in (67, 72)])
+    wheel = [(1.0 + 0.05 * i, int(8191 * i / 20)) for i in range(21)]
+    ev += [(t, WHEEL(w, 1)) for t, w in wheel]
+    src = write_midi(tmp_path / "two.mid", ev)
+    opts = ConvertOptions(tuning=load_profile("meantone-quarter"), config=EngineConfig(mode="mpe"))
+    res = convert_file(src, tmp_path / "out.mid", opts)
+    assert len(res.outputs) == 1
+    zones = {0: SynthModel(mpe_manager=0), 15: SynthModel(mpe_manager=15)}
+    part_of_zone = {0: 0, 15: 1}                # the first part in the lower zone
+    # the output's messages grouped by time (the file's events at one tick arrive together)
+    groups: list[tuple[float, list]] = []
+    t = 0.0
+    for msg in mido.MidiFile(res.outputs[0].path):
+        t += msg.time
+        if msg.is_meta or not hasattr(msg, "channel"):
+            continue
+        if not groups or abs(groups[-1][0] - t) > 1e-9:
+            groups.append((t, []))
+        groups[-1][1].append(msg.copy(time=0))
+    checked = 0
+    wheel_now = 0
+    for t, msgs in groups:
+        for msg in msgs:
+            zones[0 if msg.channel <= 7 else 15].one(msg)
+        while wheel and wheel[0][0] <= t + 1e-3:
+            wheel_now = wheel.pop(0)[1]
+        for z, s in zones.items():
+            for c, v in s.sounding():
+                w = wheel_now if part_of_zone[z] == 1 else 0
+                assert s.pitch(c, v) == pytest.approx(MEANTONE[v.key] + wheel_cents(w), abs=TOL), (t, z, v.key)
+                checked += 1
+            assert s.bend[z] == 0
+    assert checked > 100
+    assert not zones[0].problems and not zones[15].problems
