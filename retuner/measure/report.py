@@ -37,7 +37,7 @@ from typing import Optional
 
 from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
-from retuner.pitch.intervals import CONSONANT_RATIOS
+from retuner.pitch.intervals import CONSONANT_RATIOS, interval_name
 from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
@@ -314,8 +314,6 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
 #: consonances whose beat rates are shown (interval class -> just ratio upper:lower), the
 #: impurity set of retuner.measure.metrics (common practice of 5-limit just intonation)
 BEAT_RATIOS = {c: (r.numerator, r.denominator) for c, r in CONSONANT_RATIOS.items()}   # octaves: 2**n:1 below
-CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: "fifth",
-               8: "minor sixth", 9: "major sixth"}
 
 
 def pair_times(notes) -> dict:
@@ -370,7 +368,7 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
     intervals = []
     for (k1, k2), (secs, _, (p, q)) in chosen:
         intervals.append({"low": k1, "high": k2, "name": f"{note_name(k1)}-{note_name(k2)}",
-                          "interval": CLASS_NAMES[(k2 - k1) % 12] + (" +8ve" if k2 - k1 > 12 else ""),
+                          "interval": interval_name(k2 - k1),
                           "ratio": f"{p}/{q}", "seconds": round(secs, 3)})
     for name, tun, notes in decoded:
         imp, _ = metrics.impurity(notes)
