@@ -290,7 +290,7 @@ def test_the_page_frame_from_the_view_state():
     from retuner.view.web import frame
     s = WatchState()
     s.snapshot({"profile": "edo12", "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0,
-                "adaptive": True, "stats": {"notes": 2},
+                "adaptive": True, "counters": {"notes": 2},
                 "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
     f = frame(s)
     assert f["daemon"] == "live" and f["adaptive"] is True and f["profile"] == "edo12"

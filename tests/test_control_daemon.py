@@ -321,7 +321,7 @@ def test_hundred_clients_a_non_reader_and_a_flooder_do_not_disturb_the_daemon(ru
             jack_client.wait_for(lambda r: len(ons(r)) >= n0 + len(keys), timeout=15)
         except AssertionError as exc:
             st = json.loads(run.ctl("--json", "status").stdout)
-            raise AssertionError(f"{exc}\ndaemon counters: {st['stats']}") from None
+            raise AssertionError(f"{exc}\ndaemon counters: {st['counters']}") from None
         errors = json.loads(clients.stdout.readline())
         assert errors == []
         d = decode(jack_client.messages())

@@ -24,7 +24,7 @@ def state_with(notes: dict[int, float], **info) -> WatchState:
     s = WatchState()
     s.snapshot({"profile": info.get("profile", "edo12"),
                 "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0, "adaptive": False,
-                "stats": {"notes": 7, "steals": 1, "ringing_retunes": 2},
+                "counters": {"notes": 7, "steals": 1, "ringing_retunes": 2},
                 "notes": [{"key": k, "cents": c, "channel": i + 1} for i, (k, c) in enumerate(notes.items())]})
     return s
 

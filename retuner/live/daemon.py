@@ -534,7 +534,7 @@ class Daemon:
 
     def status(self) -> dict:
         """For the control socket's status command."""
-        return {"uptime": self.clock() - self.started_at,
+        return {"uptime_s": self.clock() - self.started_at,
                 "input": getattr(self.inp, "connected_to", None) if self.inp else None,
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,

@@ -101,7 +101,7 @@ class WatchState:
         """Start from the subscribe reply (a status plus the sounding notes)."""
         self.notes = {(n.get("channel", 0), n["key"]): dict(n) for n in reply.get("notes") or []}
         self.info = {k: reply.get(k) for k in INFO_FIELDS}
-        self.counters = dict(reply.get("stats") or {})
+        self.counters = dict(reply.get("counters") or {})
 
     def apply(self, ev: dict) -> None:
         self.events += 1
