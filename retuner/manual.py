@@ -1,4 +1,4 @@
-"""The manual: a man page and bash completion, both written from the live argument parser.
+"""The manual: a man page and bash and zsh completion, all written from the live argument parser.
 
 Nothing here is kept by hand: :func:`walk` reads the commands, options, choices and help texts that
 ``retuner.cli.build_parser`` defines, and :func:`man_page` and :func:`bash_completion` write them out, so
@@ -6,7 +6,9 @@ the two can never lag behind the options. argparse has no public way to list a p
 walk reads ``parser._actions`` (stable across Python 3 releases) in this one place.
 
 Formats: the man page uses the man(7) macros (``.TH``, ``.SH``, ``.SS``, ``.TP``) as groff renders them;
-the completion is a bash function for ``complete -F`` (bash manual, "Programmable Completion").
+the bash completion is a function for ``complete -F`` (bash manual, "Programmable Completion"); the zsh
+completion is a function for zsh's completion system (``#compdef``, ``_arguments``, ``_describe``; zsh
+manual, "Completion System").
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ class Option:
     takes_value: bool
     choices: list[str] | None
     help: str
+    repeat: bool = False             # may be given more than once (an append or count action)
+    many: bool = False               # a positional taking several words (nargs * or +)
 
 
 @dataclass
@@ -74,7 +78,9 @@ def walk(parser: argparse.ArgumentParser, path: tuple[str, ...] = (), help: str 
             continue
         choices = None if action.choices is None else [str(c) for c in action.choices]
         opt = Option(flags=list(action.option_strings), metavar=_metavar(action),
-                     takes_value=action.nargs != 0, choices=choices, help=_help_text(action, parser.prog))
+                     takes_value=action.nargs != 0, choices=choices, help=_help_text(action, parser.prog),
+                     repeat=isinstance(action, (argparse._AppendAction, argparse._CountAction)),
+                     many=action.nargs in ("*", "+", argparse.REMAINDER))
         (cmd.options if action.option_strings else cmd.positionals).append(opt)
     return cmd
 
@@ -232,4 +238,108 @@ def bash_completion(parser: argparse.ArgumentParser) -> str:
     return "\n".join(lines) + "\n"
 
 
-SHELLS = {"bash": bash_completion}
+# --- zsh completion ----------------------------------------------------------------------------------
+
+def _zq(text: str) -> str:
+    """``text`` inside single quotes in zsh."""
+    return text.replace("'", "'\\''")
+
+
+def _z_help(text: str) -> str:
+    """An option's help for the brackets of an ``_arguments`` spec: one line, its first sentence
+    (cut at 72 characters), with the characters that end the brackets escaped."""
+    text = " ".join(text.split()).split(". ", 1)[0]
+    if len(text) > 72:
+        text = text[:69].rsplit(" ", 1)[0] + "..."
+    return _zq(text.replace("\\", "\\\\").replace("[", "\\[").replace("]", "\\]"))
+
+
+def _z_value(opt: Option) -> str:
+    """``:MESSAGE:ACTION`` for the value of an option or a positional: its choices, else a file."""
+    message = _zq(opt.metavar.replace(":", "\\:")) or "value"
+    if opt.choices:
+        words = " ".join(_zq(c.replace(" ", "\\ ").replace("(", "\\(").replace(")", "\\)")) for c in opt.choices)
+        return f":{message}:({words})"
+    return f":{message}:_files"
+
+
+def _z_option(opt: Option) -> list[str]:
+    """The ``_arguments`` specs of one option: each flag, with the others excluded once it is given
+    (unless it may be repeated), and its value."""
+    out = []
+    exclude = "" if opt.repeat or len(opt.flags) < 2 else "(" + " ".join(opt.flags) + ")"
+    for flag in opt.flags:
+        value = ""
+        if opt.takes_value:
+            # --name=VALUE or --name VALUE; -o VALUE or -oVALUE: as argparse reads them
+            flag_spec = flag + ("=" if flag.startswith("--") else "+")
+            value = _z_value(opt)
+        else:
+            flag_spec = flag
+        star = "*" if opt.repeat else ""
+        out.append(f"'{exclude}{star}{flag_spec}[{_z_help(opt.help)}]{value}'")
+    return out
+
+
+def _z_fn(name: str, path: tuple[str, ...]) -> str:
+    return "_" + "__".join((name,) + path).replace("-", "_")
+
+
+def zsh_completion(parser: argparse.ArgumentParser) -> str:
+    """A zsh script for the completion system: one function per command (``_arguments`` with its
+    options and positionals; sub-commands offered with their help by ``_describe`` and handed on
+    to their own function). Install it as ``_NAME`` in a folder of ``$fpath``, or source it after
+    ``compinit``."""
+    top = walk(parser)
+    name = parser.prog
+    lines = [f"#compdef {name}",
+             f"# zsh completion for {name}, written by '{name} completion zsh' from its argument parser",
+             ""]
+    for cmd in top.all():
+        fn = _z_fn(name, cmd.path)
+        specs = [spec for opt in cmd.options for spec in _z_option(opt)]
+        for i, pos in enumerate(cmd.positionals, 1):
+            specs.append(f"'{'*' if pos.many else i}{_z_value(pos)}'")
+        if cmd.children:
+            specs += ["': :->command'", "'*:: :->argument'"]
+        lines.append(f"{fn}() {{")
+        if cmd.children:
+            lines.append("    local curcontext=$curcontext state line ret=1")
+            lines.append("    typeset -A opt_args")
+        lines.append("    _arguments -S" + (" -C" if cmd.children else "") + " \\")
+        lines += [f"        {spec} \\" for spec in specs]
+        lines[-1] = lines[-1][: -len(" \\")] + (" && ret=0" if cmd.children else "")
+        if cmd.children:
+            described = " ".join(
+                "'" + _zq(child.replace(":", "\\:") + ":" + " ".join(sub.help.split())) + "'"
+                for child, sub in cmd.children.items())
+            lines += [
+                "    case $state in",
+                "        command)",
+                f"            local -a commands=({described})",
+                f"            _describe -t commands '{_zq(' '.join((name,) + cmd.path))} command' commands && ret=0",
+                "            ;;",
+                "        argument)",
+                "            curcontext=${curcontext%:*:*}:" + "-".join((name,) + cmd.path) + "-$words[1]:",
+                "            case $words[1] in",
+                *[f"                {child}) {_z_fn(name, cmd.path + (child,))} && ret=0 ;;"
+                  for child in cmd.children],
+                "            esac",
+                "            ;;",
+                "    esac",
+                "    return ret",
+            ]
+        lines.append("}")
+        lines.append("")
+    lines += [
+        "# loaded from $fpath by compinit (autoload): complete now; sourced: register with compdef",
+        'if [[ $zsh_eval_context[-1] == loadautofunc ]]; then',
+        f'    {_z_fn(name, ())} "$@"',
+        "else",
+        f"    compdef {_z_fn(name, ())} {name}",
+        "fi",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+SHELLS = {"bash": bash_completion, "zsh": zsh_completion}

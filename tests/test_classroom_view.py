@@ -190,7 +190,7 @@ def test_classroom_view_in_headless_chromium(jack_server, jack_client, tmp_path)
         assert page["controls"] == 0                        # nothing on the page can steer the daemon
         [row] = page["rows"]
         pulse, pair, name, ratio, dev, beats = row["cells"]
-        assert (pair, name, ratio) == ("C4-E4", "M3", "5/4")
+        assert (pair, name, ratio) == ("C4-E4", "major third", "5/4")      # the interval in words, as show says it
         assert float(dev.split()[0]) == round(400 - 1200 * math.log2(5 / 4), 2) == 13.69
         assert beats.endswith(" Hz")
         assert abs(float(beats.split()[0]) - abs(4 * E4 - 5 * C4)) < 0.006
@@ -290,14 +290,14 @@ def test_the_page_frame_from_the_view_state():
     from retuner.view.web import frame
     s = WatchState()
     s.snapshot({"profile": "edo12", "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0,
-                "adaptive": True, "stats": {"notes": 2},
+                "adaptive": True, "counters": {"notes": 2},
                 "notes": [{"key": 60, "cents": 6000.0, "channel": 1}, {"key": 67, "cents": 6701.955, "channel": 2}]})
     f = frame(s)
     assert f["daemon"] == "live" and f["adaptive"] is True and f["profile"] == "edo12"
     assert [(n["name"], round(n["offset_cents"], 3)) for n in f["notes"]] == [("C4", 0.0), ("G4", 1.955)]
     [iv] = f["intervals"]
     # a pure fifth (701.955 c = 3/2) does not beat
-    assert (iv["pair"], iv["name"], iv["ratio"]) == ("C4-G4", "P5", "3/2")
+    assert (iv["pair"], iv["interval"], iv["ratio"]) == ("C4-G4", "fifth", "3/2")
     assert abs(iv["deviation_cents"]) < 1e-3 and abs(iv["beat_rate_hz"]) < 1e-3
     assert abs(f["drift_cents"] - 1.955 / 2) < 1e-9
     # the daemon gone: it released every note, nothing is shown as sounding

@@ -22,10 +22,11 @@ def test_compare_json_beat_rates_by_hand(tmp_path):
                        capture_output=True, text=True, timeout=120)
     assert r.returncode == 0, r.stderr
     d = json.loads(r.stdout)
-    names = [t["tuning"] for t in d["tunings"]]
-    assert names == ["edo12", "meantone-quarter", "werckmeister-3", "adaptive", "adaptive+lookahead"]
+    rows = [(t["profile"], t["adaptive"], t["lookahead"]) for t in d["results"]]
+    assert rows == [("edo12", False, False), ("meantone-quarter", False, False), ("werckmeister-3", False, False),
+                    ("edo12", True, False), ("edo12", True, True)]      # adaptive plays the first profile
     assert len(d["intervals"]) == 10
-    edo = d["tunings"][0]
+    edo = d["results"][0]
     assert edo["motion_cents_per_note"] == 0 and edo["drift_max_cents"] == 0
     # 12-EDO beat rates by hand, frequencies from pretty_midi
     for iv, rate in zip(d["intervals"], edo["beat_rates_hz"]):
@@ -35,13 +36,13 @@ def test_compare_json_beat_rates_by_hand(tmp_path):
         assert math.gcd(p, q) == 1
         assert abs(rate - abs(q * f2 - p * f1)) < 0.01
     # quarter-comma meantone has pure major thirds: a 5/4 pair does not beat (within a bend step)
-    mt = d["tunings"][1]
+    mt = d["results"][1]
     thirds = [rate for iv, rate in zip(d["intervals"], mt["beat_rates_hz"]) if iv["ratio"] in ("5/4", "5/2")]
     assert thirds, "the piece's most frequent pairs include a major third"
     assert all(rate < 0.01 for rate in thirds)
     # 12-EDO impurity of a triad-based piece: several cents (about 8 c on our chorales)
     assert 4 < edo["impurity_cents"] < 12
-    assert d["tunings"][4]["impurity_cents"] < edo["impurity_cents"]
+    assert d["results"][4]["impurity_cents"] < edo["impurity_cents"]
 
 
 def test_compare_text_and_bad_profile(tmp_path):
@@ -51,6 +52,7 @@ def test_compare_text_and_bad_profile(tmp_path):
                        capture_output=True, text=True, timeout=60)
     assert r.returncode == 0, r.stderr
     assert "vallotti" in r.stdout and "impurity" in r.stdout
+    assert r.stdout.splitlines()[1].split()[0] == "profile"      # the vocabulary's word for one tuning
     r = subprocess.run([sys.executable, "-m", "retuner", "compare", src, "--profiles", "edo12,no-such-tuning"],
                        capture_output=True, text=True, timeout=60)
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 import textwrap
@@ -198,6 +199,67 @@ def test_the_recentre_band_reaches_the_solver_and_is_named_with_its_unit():
 def test_status_interval_is_in_seconds():
     assert parse_config("status_interval: 90\n", "cfg.yaml").status_interval == 90.0
     assert Settings().status_interval == 600.0
+
+
+@pytest.mark.parametrize("text, field, seconds", [
+    # one rule for every duration: a bare number is seconds, or a number with its unit
+    # (SI: ms, s, h; min, the minute, is accepted for use with the SI, BIPM SI Brochure table 8)
+    ("status_interval: 10 min\n", "status_interval", 600.0),
+    ("status_interval: 600 s\n", "status_interval", 600.0),
+    ("status_interval: 1 h\n", "status_interval", 3600.0),
+    ("port_poll: 250 ms\n", "port_poll", 0.25),
+    ("setup_refresh: 2.5 s\n", "setup_refresh", 2.5),
+    ("setup_refresh: 3\n", "setup_refresh", 3.0),
+])
+def test_durations_take_a_unit(text, field, seconds):
+    s = parse_config(text, "cfg.yaml")
+    assert getattr(s, field) == seconds and s.notes == []
+
+
+def test_engine_and_adaptive_durations_take_a_unit():
+    s = parse_config("engine:\n  release_time: 1500 ms\n  adaptive: {chord_window: 30 ms, attack_time: 0.05 s}\n",
+                     "cfg.yaml")
+    cfg = engine_config(s)
+    assert cfg.release_time == 1.5
+    assert cfg.adaptive.chord_window == pytest.approx(0.03) and cfg.adaptive.attack_time == pytest.approx(0.05)
+    with pytest.raises(RetunerError) as ei:
+        parse_config("engine:\n  adaptive:\n    chord_window: 30 parsecs\n", "cfg.yaml")
+    assert (ei.value.line, ei.value.field) == (3, "engine.adaptive.chord_window")
+
+
+def test_a_bad_duration_is_one_line_naming_the_field():
+    for text in ("status_interval: 10 minutes\n", "status_interval: ten\n", "status_interval: 25 h\n"):
+        with pytest.raises(RetunerError) as ei:
+            parse_config("log_level: info\n" + text, "cfg.yaml")
+        assert (ei.value.file, ei.value.line, ei.value.field) == ("cfg.yaml", 2, "status_interval")
+        assert "seconds" in str(ei.value) and "\n" not in str(ei.value)
+
+
+def test_a_bare_status_interval_under_a_minute_is_read_as_seconds_with_one_warning():
+    # a file from when status_interval counted minutes: 10 meant ten minutes
+    s = parse_config("log_level: info\nstatus_interval: 10\n", "cfg.yaml")
+    assert s.status_interval == 10.0
+    [note] = s.notes
+    assert note.startswith("retuner: warning: cfg.yaml:2: status_interval: 10 is 10 seconds")
+    assert "'10 min'" in note and "'10 s'" in note
+    # said with a unit, 0 (none) or a minute and more: no warning
+    for text in ("status_interval: 10 s\n", "status_interval: 10 min\n", "status_interval: 0\n",
+                 "status_interval: 60\n", "status_interval: 600\n"):
+        assert parse_config(text, "cfg.yaml").notes == [], text
+
+
+def test_retuner_run_prints_the_status_interval_warning_once(tmp_path):
+    cfg = tmp_path / "cfg.yaml"
+    cfg.write_text("status_interval: 5\n")
+    env = {**os.environ, "XDG_RUNTIME_DIR": str(tmp_path), "JACK_DEFAULT_SERVER": f"none-{os.getpid()}",
+           "JACK_NO_START_SERVER": "1"}
+    # no JACK server by that name: the daemon stops at once (exit 1), after the config's warnings
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--config", str(cfg), "--backend", "jack",
+                        "--virtual", "--no-control-socket"], capture_output=True, text=True, timeout=60, env=env)
+    assert r.returncode == 1, r.stderr
+    warnings = [l for l in r.stderr.splitlines() if "warning" in l and "status_interval" in l]
+    assert warnings == [f"retuner: warning: {cfg}:1: status_interval: 5 is 5 seconds (it counted minutes before); "
+                        "write '5 min' for minutes, or '5 s' to keep seconds without this warning"]
 
 
 def test_run_options_with_their_config_names_reach_the_settings(tmp_path):

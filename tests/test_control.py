@@ -211,7 +211,7 @@ def test_status_and_profiles(rig):
         assert st["ok"] and st["id"] == 7 and st["cmd"] == "status"
         assert st["profile"] == "werckmeister-3" and st["adaptive"] is False
         assert st["concert_pitch_hz"] is None and st["transpose_semitones"] == 0
-        assert "notes" in st["stats"] and st["sounding"] == 0
+        assert "notes" in st["counters"] and st["sounding"] == 0
         pr = c.request("profiles")
     assert pr["ok"]
     assert [p["id"] for p in pr["profiles"]] == [p.id for p in list_profiles()]
@@ -382,7 +382,7 @@ def test_malformed_and_unknown_requests_change_nothing(rig):
     assert after["ok"] and after["id"] == "x"
     for k in ("profile", "concert_pitch_hz", "transpose_semitones", "transpose_cents", "adaptive", "sounding"):
         assert after[k] == before[k], k
-    assert after["stats"] == before["stats"]
+    assert after["counters"] == before["counters"]
     assert set(COMMANDS) == {"status", "profiles", "load", "adaptive", "concert_pitch", "reference", "transpose",
                              "panic", "subscribe"}
 

@@ -291,8 +291,8 @@ def test_program_change_and_ab_switch(jack_server, jack_client, tmp_path, runs):
     recs = jack_client.wait_for(lambda r: len(note_offs(r)) >= 4)
     assert decode(recs).stuck() == []
     log = run.daemon.log()
-    assert "tuning: meantone-quarter (program change 2)" in log
-    assert "tuning: edo12 (A/B switch CC80)" in log
+    assert "profile: meantone-quarter (program change 2)" in log
+    assert "profile: edo12 (A/B switch CC80)" in log
 
 
 def test_bad_input_never_kills_the_daemon(jack_server, jack_client, tmp_path, runs):
@@ -357,10 +357,10 @@ def test_status_line_every_interval(jack_server, tmp_path, runs):
     # seconds between status lines
     run = start(runs, jack_server, tmp_path, ["--virtual", "--status-interval", "0.3"])
     end = time.monotonic() + 10
-    while run.daemon.log().count("status: tuning edo12 (pool)") < 2 and time.monotonic() < end:
+    while run.daemon.log().count("status: profile edo12 (pool)") < 2 and time.monotonic() < end:
         time.sleep(0.05)
-    assert run.daemon.log().count("status: tuning edo12 (pool)") >= 2
-    line = [l for l in run.daemon.log().splitlines() if "status: tuning" in l][0]
+    assert run.daemon.log().count("status: profile edo12 (pool)") >= 2
+    line = [l for l in run.daemon.log().splitlines() if "status: profile" in l][0]
     assert "notes" in line and "steals" in line and "ringing retunes" in line
 
 

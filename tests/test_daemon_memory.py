@@ -100,7 +100,7 @@ def test_program_change_and_ab_switch():
         d = r.decode()
         assert abs(d.notes[2].cents - EDO12[70]) <= half_step(2)
         assert abs(d.notes[3].cents - MEANTONE[75]) <= half_step(2)
-        assert r.log.count("tuning: meantone-quarter (program change 2)") == 1
+        assert r.log.count("profile: meantone-quarter (program change 2)") == 1
     finally:
         r.close()
 

@@ -78,7 +78,7 @@ def test_a_full_queue_drops_note_ons_and_keeps_every_release():
         dropped = r.daemon.status()["input_dropped"]
         assert dropped["note_on"] > 0 and dropped["release"] == 0
         assert "dropped" in r.daemon._status_text()
-        shown = ctl_cmd._fmt_status({**r.daemon.status(), "stats": {}})      # what 'retuner ctl status' prints
+        shown = ctl_cmd._fmt_status({**r.daemon.status(), "counters": {}})      # what 'retuner ctl status' prints
         assert f"{dropped['note_on']} note-ons" in shown and "0 releases" in shown
         assert r.log.count("input overload") == 1
     finally:

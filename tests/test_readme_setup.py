@@ -133,8 +133,9 @@ def test_without_root_and_without_sudo_the_command_stops_at_once(tmp_path):
 
 
 def test_man_page_and_completion_block_runs_as_written(tmp_path):
-    start = README.index("The man page and bash completion are written from the options themselves")
-    block = re.search(r"```sh\n(.*?)\n```", README[start:], re.S).group(1)
+    start = README.index("The man page and the bash and zsh completion are written from the options themselves")
+    first, second = re.findall(r"```sh\n(.*?)\n```", README[start:], re.S)[:2]
+    block = first + "\n" + second
     work = tmp_path / "clone"
     (work / VENV / "bin").mkdir(parents=True)
     os.symlink(Path(sys.executable).with_name("retuner"), work / VENV / "bin" / "retuner")
@@ -146,6 +147,7 @@ def test_man_page_and_completion_block_runs_as_written(tmp_path):
     assert page.startswith(".TH RETUNER 1 ")
     completion = (tmp_path / ".local/share/bash-completion/completions/retuner").read_text()
     assert "complete -o filenames -F _retuner retuner" in completion
+    assert (tmp_path / ".zfunc/_retuner").read_text().startswith("#compdef retuner\n")     # zsh, from $fpath
 
 
 def test_jack_block_starts_the_server_the_tests_use_and_the_command_parses():

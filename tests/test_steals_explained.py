@@ -195,7 +195,7 @@ def test_the_daemon_explains_steals_in_its_status_line_and_ctl_status():
         r.play(cc(64, 127), note_off(64), note_on(71))      # a pedalled note cut too
         r.wait(0.05)
         st = r.daemon.control.status()
-        assert st["stats"]["steals"] == 2
+        assert st["counters"]["steals"] == 2
         line = st["steals_explained"]
         assert line.startswith("2 notes cut short by steals") and "--mpe-members 15" in line
         row = [l for l in _fmt_status(st).splitlines() if l.startswith("notes cut short")]

@@ -24,7 +24,7 @@ def state_with(notes: dict[int, float], **info) -> WatchState:
     s = WatchState()
     s.snapshot({"profile": info.get("profile", "edo12"),
                 "concert_pitch_hz": None, "transpose_semitones": 0, "transpose_cents": 0.0, "adaptive": False,
-                "stats": {"notes": 7, "steals": 1, "ringing_retunes": 2},
+                "counters": {"notes": 7, "steals": 1, "ringing_retunes": 2},
                 "notes": [{"key": k, "cents": c, "channel": i + 1} for i, (k, c) in enumerate(notes.items())]})
     return s
 
@@ -37,9 +37,9 @@ def test_held_major_triad_in_12_edo_by_hand():
     s = state_with({60: 6000.0, 64: 6400.0, 67: 6700.0})
     lines = squash(render(s))
     # the hand calculation: C4-E4 near 5:4 -> |4*329.628 - 5*261.626| = |1318.512 - 1308.130| = 10.38 Hz
-    assert "C4-E4 M3 400.00 5/4 +13.69 10.38" in lines
-    assert "C4-G4 P5 700.00 3/2 -1.96 0.89" in lines          # |2*391.995 - 3*261.626| = 0.89
-    assert "E4-G4 m3 300.00 6/5 -15.64 17.79" in lines        # |5*391.995 - 6*329.628| = 17.79
+    assert "C4-E4 major third 400.00 5/4 +13.69 10.38" in lines
+    assert "C4-G4 fifth 700.00 3/2 -1.96 0.89" in lines          # |2*391.995 - 3*261.626| = 0.89
+    assert "E4-G4 minor third 300.00 6/5 -15.64 17.79" in lines        # |5*391.995 - 6*329.628| = 17.79
     assert "C4 60 +0.00 261.63" in lines and "E4 64 +0.00 329.63" in lines and "G4 67 +0.00 392.00" in lines
     assert "SOUNDING 3" in lines and "INTERVALS 3" in lines
     head = " ".join(lines[:2])
@@ -54,7 +54,7 @@ def test_pure_triad_does_not_beat_and_compound_intervals_use_their_ratio():
     rows = {(r.low, r.high): r for r in interval_rows(list(s.notes.values()))}
     # C3-E4 is a major tenth, 5/2: pure, no beats
     r = rows[(48, 64)]
-    assert (r.ratio.numerator, r.ratio.denominator) == (5, 2) and r.name == "M10"
+    assert (r.ratio.numerator, r.ratio.denominator) == (5, 2) and r.name == "major tenth"
     assert r.deviation == pytest.approx(0.0, abs=1e-9) and r.beats == pytest.approx(0.0, abs=1e-9)
     # E4-G4 of a pure 4:5:6 is 6:5, pure
     assert rows[(64, 67)].beats == pytest.approx(0.0, abs=1e-9)
@@ -82,10 +82,10 @@ def test_events_fold_into_the_view():
     s.apply({"event": "note_on", "key": 76, "channel": 4, "cents": 6900.0 + pure, "hz": None})
     lines = squash(render(s))
     assert "A4 69 +0.00 440.00" in lines
-    assert "A4-E5 P5 701.96 3/2 +0.00 0.00" in lines
+    assert "A4-E5 fifth 701.96 3/2 +0.00 0.00" in lines
     s.apply({"event": "pitch", "key": 76, "channel": 4, "cents": 7600.0})
     # 12-EDO E5 = 659.255 Hz: |2*659.255 - 3*440| = 1.49 Hz
-    assert "A4-E5 P5 700.00 3/2 -1.96 1.49" in squash(render(s))
+    assert "A4-E5 fifth 700.00 3/2 -1.96 1.49" in squash(render(s))
     s.apply({"event": "note_off", "key": 69, "channel": 3})
     lines = squash(render(s))
     assert "SOUNDING 1" in lines and "INTERVALS 0" in lines
@@ -120,11 +120,33 @@ def test_block_letters_for_the_room_only_when_they_fit():
     assert render(s, width=120, height=len(small) + 3, big=True) == render(s, width=120, height=len(small) + 3)
 
 
-def test_compound_interval_names():
-    # an octave above a simple interval adds 7 to its number (common practice): P8, M10, P12
-    from retuner.view.watch import compound_name
-    assert [compound_name(n, 1) for n in ("P1", "M3", "m3", "P5", "M6")] == ["P8", "M10", "m10", "P12", "M13"]
-    assert compound_name("P5", 0) == "P5" and compound_name("P5", 2) == "P5+2oct"
+def test_interval_names_are_words():
+    # an octave above a simple interval adds 7 to its number (common practice: any harmony
+    # handbook's table of compound intervals): octave, major tenth, minor tenth, twelfth, major
+    # thirteenth; two octaves are a double octave (a fifteenth)
+    from retuner.pitch.intervals import interval_name
+    assert [interval_name(s) for s in (0, 4, 3, 7, 12, 16, 15, 19, 21, 24)] == [
+        "unison", "major third", "minor third", "fifth", "octave", "major tenth", "minor tenth", "twelfth",
+        "major thirteenth", "double octave"]
+    assert interval_name(28) == "major third + 2 octaves" and interval_name(28, compact=True) == "major third +2 oct"
+    assert interval_name(18) == "tritone + 1 octave"
+
+
+def test_intervals_in_words_fit_80_columns():
+    # a bass note two octaves below a seventh chord: the widest names of an ordinary chord
+    s = state_with({36: 3600.0, 60: 6000.0, 64: 6400.0, 67: 6700.0, 70: 7000.0})
+    wide = squash(render(s, width=200, height=40))
+    assert "C2-E4 major third + 2 octaves 2800.00 5/1 +13.69 2.60" in wide     # |1*329.628 - 5*65.406| = 2.60
+    assert "C4-Bb4 minor seventh 1000.00 9/5 -17.60 23.81 dissonant" in wide   # |5*466.164 - 9*261.626| = 23.81
+    lines = render(s, width=80, height=40)
+    assert all(len(l) <= 80 for l in lines)
+    # on 80 columns the names stay words (two octaves and more in the compact form) and every
+    # column, "dissonant" included, is still there, nothing cut
+    assert "C2-Bb4 minor seventh +2 oct 3400.00 36/5 -17.60 23.81 dissonant" in squash(lines)
+    assert "C4-E4 major third 400.00 5/4 +13.69 10.38" in squash(lines)
+    assert not any(a in " ".join(lines).split() for a in ("M3", "P5", "m3", "m7"))
+    head = lines[0]
+    assert "PROFILE edo12" in head and "ADAPTIVE OFF" in " ".join(head.split())
 
 
 def test_connection_and_panic_survive_an_80x24_terminal():

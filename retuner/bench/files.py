@@ -67,7 +67,7 @@ def child_run(argv: Sequence[str]) -> dict:
     _, status, usage = os.wait4(proc.pid, 0)
     proc.returncode = os.waitstatus_to_exitcode(status)
     wall = time.perf_counter() - t0
-    return {"status": proc.returncode, "seconds": round(wall, 3),
+    return {"status": proc.returncode, "time_s": round(wall, 3),
             "peak_rss_mb": round(usage.ru_maxrss / 1024.0, 1),       # Linux: kilobytes
             "error": err.decode(errors="replace").strip()[-300:]}
 
@@ -104,9 +104,9 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
             plain = child_run(["convert", lsrc, "-o", os.path.join(tmp, "pa.mid"), "--adaptive", "-q"])
             la = child_run(["convert", lsrc, "-o", os.path.join(tmp, "pla.mid"), "--adaptive",
                             "--lookahead", "-q"])
-            piano.update({"lookahead_events": ln, "adaptive_s": plain["seconds"],
-                          "lookahead_s": la["seconds"],
-                          "lookahead_time_ratio": round(la["seconds"] / plain["seconds"], 2)})
+            piano.update({"lookahead_events": ln, "adaptive_s": plain["time_s"],
+                          "lookahead_s": la["time_s"],
+                          "lookahead_time_ratio": round(la["time_s"] / plain["time_s"], 2)})
         out["piano"] = piano
         if big_events:
             bsrc = os.path.join(tmp, "million.mid")
@@ -130,7 +130,7 @@ def convert_speed_bench(events: int = 100_000, *, profile: str = "meantone-quart
             convert_batch(bdir, odir, opts, jobs=j, quiet=True, stream=io.StringIO())
             times[j] = time.perf_counter() - t0
         out["batch"] = {"files": batch_files, "events_per_file": batch_events,
-                        "seconds_by_jobs": {str(j): round(t, 3) for j, t in times.items()},
+                        "time_s_by_jobs": {str(j): round(t, 3) for j, t in times.items()},
                         "speedup": {str(j): round(times[jobs[0]] / t, 2) for j, t in times.items()},
                         "cpus": cpus}
         return out

@@ -471,10 +471,9 @@ def run_through_engine(events: Sequence[Event], tuning=None, *, adaptive=None, m
 
 def _figures(stream) -> dict:
     r = report(stream)
-    return {"impurity_cents": r["impurity_cents"], "motion": r["motion_cents_per_note"],
-            "drift_max": r["drift_max_cents"], "drift_max_any_moment": r["drift_max_any_moment_cents"],
-            "late_motion": r["late_motion_cents_per_note"],
-            "drift_final": r["drift_final_cents"], "drift_rms": r["drift_rms_cents"], "notes": r["notes"]}
+    return {k: r[k] for k in ("impurity_cents", "motion_cents_per_note", "drift_max_cents",
+                              "drift_max_any_moment_cents", "late_motion_cents_per_note", "drift_final_cents",
+                              "drift_rms_cents", "notes")}
 
 
 def humanise(events: Sequence[Event], spread: float = 0.025, seed: int = 1) -> list[Event]:
@@ -589,8 +588,8 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
         per = [_figures(run_through_engine(chorale_events(p), tuning, adaptive=acfg, mode=mode))
                for p in CHORALES]
         avg = {k: round(sum(f[k] for f in per) / len(per), 6) for k in per[0] if k != "notes"}
-        avg["drift_max_worst"] = max(f["drift_max"] for f in per)
-        avg["drift_max_any_moment_worst"] = max(f["drift_max_any_moment"] for f in per)
+        avg["drift_max_worst_cents"] = max(f["drift_max_cents"] for f in per)
+        avg["drift_max_any_moment_worst_cents"] = max(f["drift_max_any_moment_cents"] for f in per)
         avg["pieces"] = len(per)
         out["chorales"][name] = avg
     # played by hand: chord notes and releases spread over 0..25 ms
@@ -602,7 +601,7 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
         per = [live_figures(humanise(chorale_events(p), seed=i + 2), edo12, acfg, mode)
                for i, p in enumerate(CHORALES)]
         avg = {k: round(sum(f[k] for f in per) / len(per), 6) for k in per[0] if k != "notes"}
-        avg["drift_max_worst"] = max(f["drift_max"] for f in per)
+        avg["drift_max_worst_cents"] = max(f["drift_max_cents"] for f in per)
         avg["latency_p99_ms"] = max(f["latency_p99_ms"] for f in per)
         out["humanised"][name] = {"pump": hp, "chorales": avg}
     p = out["pump"]["adaptive"]
@@ -611,17 +610,17 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
     out["goals"] = {
         "live_latency_p99<=1ms": max(hp["latency_p99_ms"], hc["latency_p99_ms"]) <= 1.0,
         "live_chorale_impurity<=0.7": hc["impurity_cents"] <= 0.7,
-        "live_chorale_late_motion<=0.15": hc["late_motion"] <= 0.15,
-        "live_chorale_drift<=5": hc["drift_max_worst"] <= 5.0,
+        "live_chorale_late_motion<=0.15": hc["late_motion_cents_per_note"] <= 0.15,
+        "live_chorale_drift<=5": hc["drift_max_worst_cents"] <= 5.0,
         "live_pump_impurity<=1.1": hp["impurity_cents"] <= 1.1,
-        "live_pump_late_motion<=1.5": hp["late_motion"] <= 1.5,
-        "live_pump_drift<=5": hp["drift_max"] <= 5.0,
+        "live_pump_late_motion<=1.5": hp["late_motion_cents_per_note"] <= 1.5,
+        "live_pump_drift<=5": hp["drift_max_cents"] <= 5.0,
         "pump_impurity<=1.0": p["impurity_cents"] <= 1.0,
-        "pump_motion<=1.5": p["motion"] <= 1.5,
-        "pump_drift<=5": p["drift_max"] <= 5.0,
+        "pump_motion<=1.5": p["motion_cents_per_note"] <= 1.5,
+        "pump_drift<=5": p["drift_max_cents"] <= 5.0,
         "chorale_impurity<=0.8": c["impurity_cents"] <= 0.8,
-        "chorale_motion<=0.3": c["motion"] <= 0.3,
-        "chorale_drift<=5": c["drift_max_worst"] <= 5.0,
+        "chorale_motion<=0.3": c["motion_cents_per_note"] <= 0.3,
+        "chorale_drift<=5": c["drift_max_worst_cents"] <= 5.0,
         "solver_p99<=150us": out["solver"]["p99_us"] <= 150.0,
     }
     return out
@@ -638,17 +637,17 @@ def format_adaptive_bench(res: dict) -> str:
         lines.append(f"{title}, block chords: impurity c | motion c/note | drift max c (>= 50 ms; "
                      f"any moment) | drift final c")
         for name, f in res[key].items():
-            dm = f.get("drift_max_worst", f["drift_max"])
-            ds = f.get("drift_max_any_moment_worst", f["drift_max_any_moment"])
-            lines.append(f"  {name:22s} {f['impurity_cents']:7.3f} | {f['motion']:6.3f} | {dm:7.2f} ({ds:6.2f}) | "
-                         f"{f['drift_final']:7.2f}")
+            dm = f.get("drift_max_worst_cents", f["drift_max_cents"])
+            ds = f.get("drift_max_any_moment_worst_cents", f["drift_max_any_moment_cents"])
+            lines.append(f"  {name:22s} {f['impurity_cents']:7.3f} | {f['motion_cents_per_note']:6.3f} | {dm:7.2f} ({ds:6.2f}) | "
+                         f"{f['drift_final_cents']:7.2f}")
     lines.append("played by hand (notes and releases spread 0..25 ms): impurity c | motion after the attack "
                  "c/note | drift max c | added latency p50/p99 ms | engine per note-on p99 us | "
                  "retunes in the attack per note (mean c)")
     for name, h in res.get("humanised", {}).items():
         for piece, f in (("pump", h["pump"]), ("chorales", h["chorales"])):
-            dm = f.get("drift_max_worst", f["drift_max"])
-            lines.append(f"  {name + ' ' + piece:22s} {f['impurity_cents']:7.3f} | {f['late_motion']:6.3f} | {dm:6.2f} | "
+            dm = f.get("drift_max_worst_cents", f["drift_max_cents"])
+            lines.append(f"  {name + ' ' + piece:22s} {f['impurity_cents']:7.3f} | {f['late_motion_cents_per_note']:6.3f} | {dm:6.2f} | "
                          f"{f['latency_p50_ms']:5.1f}/{f['latency_p99_ms']:5.1f} | {f['compute_p99_us']:7.1f} | "
                          f"{f['attack_retunes_per_note']:.2f} ({f['attack_retune_cents_mean']:.2f})")
     lines.append("goals: " + ", ".join(f"{k} {'yes' if v else 'NO'}" for k, v in res["goals"].items()))

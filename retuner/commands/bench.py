@@ -64,10 +64,10 @@ def _files_bench(args) -> int:
         b = figs["big"]
         state = "" if b["status"] == 0 else f" FAILED (exit {b['status']}: {b['error']})"
         print(f"retuner convert with its summary on {b['events']} events ({b['file_mb']} MB): "
-              f"{b['seconds']:.1f} s, peak RSS {b['peak_rss_mb']:.0f} MB "
+              f"{b['time_s']:.1f} s, peak RSS {b['peak_rss_mb']:.0f} MB "
               f"(goal <= {g['big_peak_rss_mb']:g} MB){state}")
     b = figs["batch"]
-    runs = ", ".join(f"{j} worker(s) {t:.2f} s (x{b['speedup'][j]:.2f})" for j, t in b["seconds_by_jobs"].items())
+    runs = ", ".join(f"{j} worker(s) {t:.2f} s (x{b['speedup'][j]:.2f})" for j, t in b["time_s_by_jobs"].items())
     print(f"batch of {b['files']} files x {b['events_per_file']} events on {b['cpus']} CPUs: {runs}")
     return 0
 

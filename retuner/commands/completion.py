@@ -10,7 +10,9 @@ ORDER = 91
 DESCRIPTION = ("Print a completion script for the shell, made from the same argument parser as every "
                "--help: commands, options and their choices. For bash: "
                "'retuner completion bash > ~/.local/share/bash-completion/completions/retuner' "
-               "(read by the bash-completion package), or 'source <(retuner completion bash)' in ~/.bashrc.")
+               "(read by the bash-completion package), or 'source <(retuner completion bash)' in ~/.bashrc. "
+               "For zsh: 'retuner completion zsh > ~/.zfunc/_retuner' with 'fpath=(~/.zfunc $fpath)' before "
+               "compinit in ~/.zshrc, or 'source <(retuner completion zsh)' after compinit.")
 
 
 def add_arguments(parser) -> None:

@@ -127,8 +127,8 @@ def _fmt_status(r: dict) -> str:
     rows.append(("transpose", f"{r.get('transpose_semitones', 0)} semitones, "
                               f"{r.get('transpose_cents', 0.0):+.2f} cents"))
     rows.append(("adaptive", "on" if r.get("adaptive") else "off"))
-    if "uptime" in r:
-        rows.append(("state", f"running for {_duration(r['uptime'])}"))
+    if "uptime_s" in r:
+        rows.append(("state", f"running for {_duration(r['uptime_s'])}"))
     if "input_open" in r or "input" in r:
         rows.append(("input port", _port(r.get("input"), r.get("input_open", True))))
         rows.append(("output port", _port(r.get("output"), r.get("output_open", True))))
@@ -137,7 +137,7 @@ def _fmt_status(r: dict) -> str:
     if "config" in r:
         rows.append(("config file", r.get("config") or "none (built-in settings)"))
     rows.append(("sounding", f"{r.get('sounding', 0)} notes"))
-    st = dict(r.get("stats") or {})
+    st = dict(r.get("counters") or {})
     n = st.pop("attack_retunes", 0)
     total, largest = st.pop("attack_retune_cents_total", 0.0), st.pop("attack_retune_cents_max", 0.0)
     for k, v in st.items():

@@ -84,7 +84,7 @@ def run(args) -> int:
     if result.active:
         print("binding limits: " + ", ".join(result.active))
     w = max(len(r[0]) for r in rows)
-    print(f"{'tuning':<{w}}  impurity (cents)")
+    print(f"{'profile':<{w}}  impurity (cents)")
     for name, imp in rows:
         print(f"{name:<{w}}  {imp:8.3f}")
     sys.stdout.flush()

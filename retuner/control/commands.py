@@ -209,7 +209,7 @@ class EngineControl(Handler):
     def status(self) -> dict:
         eng = self.engine
         out = self.info()
-        out["stats"] = dict(getattr(eng, "stats", {}) or {})
+        out["counters"] = dict(getattr(eng, "stats", {}) or {})
         cut = eng.steals_explained()
         if cut:
             out["steals_explained"] = cut

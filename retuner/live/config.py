@@ -19,7 +19,8 @@ defaults). Every field is optional::
       channel: 16                  # switching channel (1..16) for program change and the A/B toggle; null = off
       ab_cc: 80                    # this CC (value >= 64) toggles between the two profiles of 'ab'; null = off
       ab: [meantone-quarter, edo12]
-    status_interval: 600           # seconds between status lines; 0 = none
+    status_interval: 600           # seconds between status lines; 0 = none. Every duration is a
+                                   # number of seconds or has its unit: 10 min, 600 s, 250 ms, 1 h
     port_poll: 0.5                 # seconds between looks for lost/returned ports
     setup_refresh: 1               # our own output port: send the setup (bend range...) again
                                    # before a note-on after this many quiet seconds with nothing
@@ -155,6 +156,40 @@ def _num(v, w, fld, m, k, lo, hi):
     return float(v)
 
 
+#: the units a duration in the config may carry; a bare number is seconds (one rule for every
+#: duration: status_interval, port_poll, setup_refresh, engine.release_time, and the adaptive
+#: chord_window and attack_time)
+DURATION_UNITS = {"ms": 0.001, "s": 1.0, "min": 60.0, "h": 3600.0}
+_DURATION = re.compile(r"\s*([0-9]+(?:\.[0-9]*)?|\.[0-9]+)\s*(ms|s|min|h)\s*")
+#: durations among the engine's settings and the adaptive settings
+ENGINE_DURATIONS = {"release_time"}
+ADAPTIVE_DURATIONS = {"chord_window", "attack_time"}
+#: status_interval counted minutes before it counted seconds: a bare number below this gets a warning
+OLD_MINUTES_BELOW = 60
+
+
+def duration_seconds(v, w, fld, m, k):
+    """A duration as written in the config: a number of seconds, or a number with its unit
+    ('10 min', '600 s', '30 ms', '1 h'). Returns seconds (still a number to be range-checked)."""
+    if not isinstance(v, str):
+        return v
+    found = _DURATION.fullmatch(v)
+    if not found:
+        raise w.err(f"expected seconds, or a number with its unit ({', '.join(DURATION_UNITS)}) such as "
+                    f"'10 min' or '30 ms', got {v!r}", fld, m, k)
+    return float(found.group(1)) * DURATION_UNITS[found.group(2)]
+
+
+def _seconds(v, w, fld, m, k, lo, hi):
+    secs = duration_seconds(v, w, fld, m, k)
+    if isinstance(secs, bool) or not isinstance(secs, (int, float)):
+        raise w.err(f"expected seconds, or a number with its unit such as '10 min', got {_type_name(v)} {v!r}",
+                    fld, m, k)
+    if not lo <= secs <= hi:
+        raise w.err(f"must be between {lo:g} and {hi:g} seconds, got {v!r}", fld, m, k)
+    return float(secs)
+
+
 def _str_list(v, w, fld, m, k):
     if not isinstance(v, list) or not all(isinstance(x, str) and x for x in v):
         raise w.err("expected a list of names", fld, m, k)
@@ -244,11 +279,17 @@ def parse_config(text: str, filename: str = "<config>", base: Optional[Settings]
                     raise w.err(f"expected two profiles, got {len(ab)}", "switch.ab", sw, "ab")
                 s.switch.ab = (ab[0], ab[1])
     if "status_interval" in d:
-        s.status_interval = _num(d["status_interval"], w, "status_interval", d, "status_interval", 0, 24 * 3600)
+        v = d["status_interval"]
+        s.status_interval = _seconds(v, w, "status_interval", d, "status_interval", 0, 24 * 3600)
+        if not isinstance(v, str) and 0 < s.status_interval < OLD_MINUTES_BELOW:
+            # it counted minutes before: a file written then would now print ten times a minute
+            s.notes.append(_note(filename, d, "status_interval",
+                                 f"status_interval: {v:g} is {v:g} seconds (it counted minutes before); "
+                                 f"write '{v:g} min' for minutes, or '{v:g} s' to keep seconds without this warning"))
     if "port_poll" in d:
-        s.port_poll = _num(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
+        s.port_poll = _seconds(d["port_poll"], w, "port_poll", d, "port_poll", 0.05, 60)
     if "setup_refresh" in d:
-        s.setup_refresh = _num(d["setup_refresh"], w, "setup_refresh", d, "setup_refresh", 0, 3600)
+        s.setup_refresh = _seconds(d["setup_refresh"], w, "setup_refresh", d, "setup_refresh", 0, 3600)
     if "panic_all_sound_off" in d:
         s.panic_all_sound_off = _bool(d["panic_all_sound_off"], w, "panic_all_sound_off", d, "panic_all_sound_off")
     if "log_level" in d:
@@ -357,6 +398,8 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
             if w.notes is not None:
                 w.notes.append(_old_key_note(w.filename, v, f"{fld}.{key}", f"{fld}.{ADAPTIVE_KEY_OF[key]}", key))
             key = ADAPTIVE_KEY_OF[key]
+        if key in ADAPTIVE_DURATIONS:
+            value = duration_seconds(value, w, f"{fld}.{key}", v, key)
         out[key] = value
     _unknown(out, names, w, fld + ".")
     return out
@@ -391,9 +434,14 @@ def adaptive_error(exc: RetunerError) -> RetunerError:
 
 
 def _old_key_note(filename: str, mapping: Any, old: str, new: str, key: Any) -> str:
+    return _note(filename, mapping, key, f"{old} is now called {new}; the old name will go in a later release")
+
+
+def _note(filename: str, mapping: Any, key: Any, text: str) -> str:
+    """One warning line naming the file and the line of ``key``."""
     line = getattr(mapping, "lines", {}).get(key)
     where = f"{filename}:{line}" if line is not None else filename
-    return f"retuner: warning: {where}: {old} is now called {new}; the old name will go in a later release"
+    return f"retuner: warning: {where}: {text}"
 
 
 def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel: bool) -> Any:
@@ -463,6 +511,8 @@ def check_engine_settings(eng: dict, w: Optional[_Where] = None, *, mapping: Any
                 raise w.err(f"expected one of {', '.join(MODES)}, got {v!r}", prefix + k, m, k)
             out[k] = v
         else:
+            if k in ENGINE_DURATIONS:
+                v = duration_seconds(v, w, prefix + k, m, k)
             out[k] = _check_value(v, fields[k], w, prefix + k, m, k, _is_channel_field(k))
     return out
 

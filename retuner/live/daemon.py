@@ -477,13 +477,13 @@ class Daemon:
         elif self.session.base.id != profiles.main.id:
             # the config's tuning is unchanged: a tuning switched to live (program change, A/B,
             # control socket) stays
-            log.info("keeping the tuning switched to live: %s", self.session.base.id)
+            log.info("keeping the profile switched to live: %s", self.session.base.id)
         log.info("reloaded %s", new.source or "built-in defaults")
         self.notifier.ready(status=self._status_text())
 
     def _status_text(self) -> str:
         st = dict(getattr(self.engine, "stats", {}) or {})
-        parts = [f"tuning {self.session.base.id} ({self.engine.config.mode}"
+        parts = [f"profile {self.session.base.id} ({self.engine.config.mode}"
                  f"{', adaptive' if self.engine.config.adaptive is not None else ''})",
                  f"{st.get('notes', 0)} notes",
                  f"{st.get('steals', 0)} steals",
@@ -537,7 +537,7 @@ class Daemon:
 
     def status(self) -> dict:
         """For the control socket's status command."""
-        return {"uptime": self.clock() - self.started_at,
+        return {"uptime_s": self.clock() - self.started_at,
                 "input": getattr(self.inp, "connected_to", None) if self.inp else None,
                 "output": getattr(self.outp, "connected_to", None) if self.outp else None,
                 "input_open": self.inp is not None, "output_open": self.outp is not None,

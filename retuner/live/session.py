@@ -131,7 +131,7 @@ class Session:
             raise
         self.current = tuning
         if why:
-            log.info("tuning: %s (%s)", self.base.id, why)
+            log.info("profile: %s (%s)", self.base.id, why)
         self._changed("tuning", t)
         return out or []
 
@@ -142,7 +142,7 @@ class Session:
 
     def set_reference(self, hz: Optional[float], t: float) -> list:
         out = self._apply(t, "", reference=None if hz is None else float(hz))
-        log.info("reference: A4 = %.3f Hz (control socket)", self.reference)
+        log.info("concert pitch: A4 = %.3f Hz (control socket)", self.reference)
         return out
 
     def set_transpose(self, semitones: int, cents: float, t: float) -> list:

@@ -41,7 +41,7 @@ from typing import Optional
 from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
 from retuner.engine.outputs.base import explain_steals
-from retuner.pitch.intervals import CONSONANT_RATIOS
+from retuner.pitch.intervals import CONSONANT_RATIOS, interval_name
 from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
@@ -326,8 +326,6 @@ def plot(res, opts, path: str, decoded: Optional[list] = None) -> None:
 #: consonances whose beat rates are shown (interval class -> just ratio upper:lower), the
 #: impurity set of retuner.measure.metrics (common practice of 5-limit just intonation)
 BEAT_RATIOS = {c: (r.numerator, r.denominator) for c, r in CONSONANT_RATIOS.items()}   # octaves: 2**n:1 below
-CLASS_NAMES = {0: "octave", 3: "minor third", 4: "major third", 5: "fourth", 7: "fifth",
-               8: "minor sixth", 9: "major sixth"}
 
 
 def pair_times(notes) -> dict:
@@ -364,27 +362,27 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
     per tuning (static), and for adaptive tuning live and with lookahead when
     ``adaptive_config`` is given (reference: the first tuning)."""
     rows = []
-    runs = [(t.id, t, config.replace(adaptive=None), False) for t in tunings]
+    runs = [(t, config.replace(adaptive=None), False) for t in tunings]
     if adaptive_config is not None:
-        runs.append(("adaptive", tunings[0], config.replace(adaptive=adaptive_config), False))
-        runs.append(("adaptive+lookahead", tunings[0], config.replace(adaptive=adaptive_config), True))
+        runs.append((tunings[0], config.replace(adaptive=adaptive_config), False))
+        runs.append((tunings[0], config.replace(adaptive=adaptive_config), True))
     decoded = []
-    for name, tun, cfg, la in runs:
+    for tun, cfg, la in runs:
         res = convert_song(song, "compare.mid", ConvertOptions(tun, cfg, lookahead=la))
         notes = []
         for o in res.outputs:
             notes += metrics.decode(output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
                                     exclude_channels=tuple(cfg.passthrough)).notes
-        decoded.append((name, tun, notes))
+        decoded.append((tun, cfg.adaptive is not None, la, notes))
     # the piece's most frequent consonant pairs (by time sounding together), from the first run
-    base = pair_times(decoded[0][2])
+    base = pair_times(decoded[0][3])
     chosen = sorted(base.items(), key=lambda kv: (-kv[1][0], kv[0]))[:top]
     intervals = []
     for (k1, k2), (secs, _, (p, q)) in chosen:
-        intervals.append({"low": k1, "high": k2, "name": f"{note_name(k1)}-{note_name(k2)}",
-                          "interval": CLASS_NAMES[(k2 - k1) % 12] + (" +8ve" if k2 - k1 > 12 else ""),
-                          "ratio": f"{p}/{q}", "seconds": round(secs, 3)})
-    for name, tun, notes in decoded:
+        intervals.append({"low": k1, "high": k2, "pair": f"{note_name(k1)}-{note_name(k2)}",
+                          "interval": interval_name(k2 - k1),
+                          "ratio": f"{p}/{q}", "together_s": round(secs, 3)})
+    for tun, adaptive, lookahead, notes in decoded:
         imp, _ = metrics.impurity(notes)
         dr = metrics.drift(notes)
         pt = pair_times(notes)
@@ -392,23 +390,29 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         for iv in intervals:
             e = pt.get((iv["low"], iv["high"]))
             beats.append(round(e[1] / e[0], 3) if e and e[0] > 0 else None)
-        rows.append({"tuning": name, "impurity_cents": round(imp, 3),
+        rows.append({"profile": tun.id, "adaptive": adaptive, "lookahead": lookahead,
+                     "impurity_cents": round(imp, 3),
                      "motion_cents_per_note": round(metrics.motion(notes), 3),
                      "drift_max_cents": round(dr["max"], 3), "beat_rates_hz": beats})
-    return {"input": song.path, "intervals": intervals, "tunings": rows}
+    return {"input": song.path, "intervals": intervals, "results": rows}
+
+
+def result_label(r: dict) -> str:
+    """A row of compare as the text table names it: the profile, and how it was played."""
+    return r["profile"] + (" adaptive" if r["adaptive"] else "") + (" + lookahead" if r["lookahead"] else "")
 
 
 def compare_text(c: dict) -> str:
-    heads = [f"{iv['name']} {iv['ratio']}" for iv in c["intervals"]]
-    w = max([len(r["tuning"]) for r in c["tunings"]] + [6])
+    heads = [f"{iv['pair']} {iv['ratio']}" for iv in c["intervals"]]
+    w = max([len(result_label(r)) for r in c["results"]] + [7])
     lines = [f"{c['input']}: beat rates (Hz) of the most frequent consonant pairs, "
              f"time-weighted while they sound"]
-    head = f"{'tuning':<{w}}  {'impurity':>9}  {'motion':>9}  {'drift':>8}"
+    head = f"{'profile':<{w}}  {'impurity':>9}  {'motion':>9}  {'drift':>8}"
     for h in heads:
         head += f"  {h:>12}"
     lines.append(head)
-    for r in c["tunings"]:
-        line = (f"{r['tuning']:<{w}}  {r['impurity_cents']:>7.2f} c  {r['motion_cents_per_note']:>7.2f} c"
+    for r in c["results"]:
+        line = (f"{result_label(r):<{w}}  {r['impurity_cents']:>7.2f} c  {r['motion_cents_per_note']:>7.2f} c"
                 f"  {r['drift_max_cents']:>6.2f} c")
         for b in r["beat_rates_hz"]:
             line += f"  {('-' if b is None else f'{b:.2f}'):>12}"

@@ -80,3 +80,32 @@ def usual(steps: int) -> JustInterval:
 USUAL: dict[int, JustInterval] = {c: usual(c) for c in range(12)}
 #: interval class -> just ratio, for the consonances impurity counts (0, 3, 4, 5, 7, 8, 9)
 CONSONANT_RATIOS: dict[int, Fraction] = {j.steps: j.ratio for j in JUST_INTERVALS if j.consonant}
+
+#: the number of a simple interval (second .. seventh) by interval class, to name its compound
+#: an octave up: the number plus 7 (a third and an octave is a tenth; common practice)
+_NUMBERS = {1: 2, 2: 2, 3: 3, 4: 3, 5: 4, 7: 5, 8: 6, 9: 6, 10: 7, 11: 7}
+_ORDINALS = {9: "ninth", 10: "tenth", 11: "eleventh", 12: "twelfth", 13: "thirteenth", 14: "fourteenth"}
+
+
+def interval_name(semitones: int, compact: bool = False) -> str:
+    """The name of an interval of ``semitones`` (0 or more) in words, as a teacher says it: the
+    usual name of its class (major third, fifth), the compound names one octave up (major
+    tenth, twelfth), octave and double octave, and wider ones as the simple interval plus
+    octaves ("major third + 2 octaves"; ``compact``: "major third +2 oct", for a narrow
+    screen). Common practice (any harmony handbook's table of compound intervals)."""
+    if semitones < 0:
+        raise ValueError("an interval's size in semitones is 0 or more")
+    octaves, steps = divmod(semitones, 12)
+    simple = USUAL[steps].name
+    if steps == 0 and octaves <= 2:
+        return ("unison", "octave", "double octave")[octaves]
+    if octaves == 0:
+        return simple
+    if octaves == 1 and steps in _NUMBERS:
+        quality = simple.rsplit(" ", 1)[0] + " " if " " in simple else ""
+        return quality + _ORDINALS[_NUMBERS[steps] + 7]
+    if steps == 0:
+        return f"{octaves} octaves"
+    if compact:
+        return f"{simple} +{octaves} oct"
+    return f"{simple} + {octaves} octave" + ("s" if octaves > 1 else "")

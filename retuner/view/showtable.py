@@ -6,11 +6,11 @@ from dataclasses import dataclass
 from fractions import Fraction
 from typing import Optional
 
-from retuner.pitch.intervals import USUAL
+from retuner.pitch.intervals import USUAL, interval_name
 from retuner.pitch.tuning import KEY_NAMES, Tuning, beat_rate, cents_to_ratio, nearest_simple_ratio, ratio_to_cents
 
 # The intervals a teacher compares, with the just ratio each is heard against (upper:lower = p:q).
-CHECKED_INTERVALS = tuple((USUAL[s].name, s, USUAL[s].ratio) for s in (4, 3, 7))   # major third, minor third, fifth
+CHECKED_INTERVALS = tuple((interval_name(s), s, USUAL[s].ratio) for s in (4, 3, 7))   # major third, minor third, fifth
 
 
 @dataclass

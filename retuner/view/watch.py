@@ -35,31 +35,20 @@ from fractions import Fraction
 from typing import Optional
 
 from retuner.control.client import ControlClient, NoDaemon
-from retuner.pitch.intervals import USUAL
+from retuner.pitch.intervals import USUAL, interval_name
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name, ratio_to_cents
 
-#: interval class -> (short name, just ratio): the consonances of the impurity
-#: metric (so the view and the figures agree) and the usual 5-limit choices for the rest
-#: (common practice).
-INTERVALS: dict[int, tuple[str, Fraction]] = {c: (j.short, j.ratio) for c, j in USUAL.items()}
+#: interval class -> just ratio: the consonances of the impurity metric (so the view and the
+#: figures agree) and the usual 5-limit choices for the rest (common practice).
+INTERVALS: dict[int, Fraction] = {c: j.ratio for c, j in USUAL.items()}
 CONSONANT = {0, 3, 4, 5, 7, 8, 9}
-
-
-def compound_name(name: str, octaves: int) -> str:
-    """Interval name with octaves added, as musicians name them: P1 + 1 octave = P8, M3 + 1
-    octave = M10, P5 + 1 octave = P12; wider ones as 'P5+2oct' (common practice)."""
-    if octaves == 0:
-        return name
-    if octaves == 1 and name != "TT":
-        return f"{name[0]}{int(name[1:]) + 7}"
-    return f"{name}+{octaves}oct"
 
 
 @dataclass
 class IntervalRow:
     low: int
     high: int
-    name: str
+    name: str              # in words (retuner.pitch.intervals.interval_name)
     size: float            # cents
     ratio: Fraction        # just ratio, octaves included (upper:lower)
     deviation: float       # cents from the just ratio
@@ -76,15 +65,13 @@ def interval_rows(notes: list[dict]) -> list[IntervalRow]:
             a, b = ns[i], ns[j]
             lo, hi = (a, b) if a["key"] <= b["key"] else (b, a)
             d = hi["key"] - lo["key"]
-            name, r = INTERVALS[d % 12]
             octaves = d // 12
-            ratio = r * 2 ** octaves
+            ratio = INTERVALS[d % 12] * 2 ** octaves
             size = hi["cents"] - lo["cents"]
             dev = size - ratio_to_cents(ratio)
             f1, f2 = cents_to_hz(lo["cents"]), cents_to_hz(hi["cents"])
             beats = beat_rate(f1, f2, ratio.numerator, ratio.denominator)
-            name = compound_name(name, octaves)
-            rows.append(IntervalRow(lo["key"], hi["key"], name, size, ratio, dev, beats, d % 12 in CONSONANT))
+            rows.append(IntervalRow(lo["key"], hi["key"], interval_name(d), size, ratio, dev, beats, d % 12 in CONSONANT))
     rows.sort(key=lambda r: (r.low, r.high))
     return rows
 
@@ -114,7 +101,7 @@ class WatchState:
         """Start from the subscribe reply (a status plus the sounding notes)."""
         self.notes = {(n.get("channel", 0), n["key"]): dict(n) for n in reply.get("notes") or []}
         self.info = {k: reply.get(k) for k in INFO_FIELDS}
-        self.counters = dict(reply.get("stats") or {})
+        self.counters = dict(reply.get("counters") or {})
 
     def apply(self, ev: dict) -> None:
         self.events += 1
@@ -181,10 +168,11 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     state_word = "LIVE" if state.connected else "** DISCONNECTED: the daemon stopped **"
     if state.message:
         state_word += f"  ** {state.message} **"
-    lines.append(f"{state_word}    PROFILE  {info.get('profile') or '?'}"
-                 + f"    A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
-                 + f"    TRANSPOSE {info.get('transpose_semitones') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c"
-                 + f"    ADAPTIVE {'ON' if info.get('adaptive') else 'OFF'}")
+    # what matters most first: a long profile name on 80 columns cuts the transpose, not the rest
+    lines.append(f"{state_word}   PROFILE {info.get('profile') or '?'}"
+                 + f"   ADAPTIVE {'ON' if info.get('adaptive') else 'OFF'}"
+                 + f"   A4 {'as profile' if ref is None else f'{ref:g} Hz'}"
+                 + f"   TRANSPOSE {info.get('transpose_semitones') or 0:+d} st {info.get('transpose_cents') or 0.0:+.1f} c")
     d = drift(notes)
     c = state.counters
     lines.append(f"DRIFT {_fmt_signed(d)} c    NOTES {c.get('notes', 0)}    STEALS {c.get('steals', 0)}"
@@ -201,11 +189,7 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
     lines.append("")
     rows = interval_rows(notes)
     lines.append(f"INTERVALS {len(rows)}")
-    lines.append(f"{'PAIR':<12}{'NAME':<8}{'SIZE c':>10}{'JUST':>8}{'FROM JUST c':>13}{'BEAT RATE Hz':>14}")
-    for r in rows:
-        pair = f"{note_name(r.low)}-{note_name(r.high)}"
-        lines.append(f"{pair:<12}{r.name:<8}{r.size:>10.2f}{str(r.ratio):>8}{r.deviation:>+13.2f}"
-                     f"{r.beats:>14.2f}" + ("" if r.consonant else "  (dissonant)"))
+    lines += interval_table(rows, width)
     if big and notes:
         banner = big_text("  ".join(note_name(n["key"]) for n in notes))
         if max(len(b) for b in banner) <= width and len(lines) + 6 <= height:
@@ -214,6 +198,28 @@ def render(state: WatchState, width: int = 100, height: int = 40, big: bool = Fa
         hidden = len(lines) - (height - 1)
         lines = lines[: height - 1] + [f"... {hidden} more lines (enlarge the window)"]
     return [ln[:width] for ln in lines]
+
+
+def interval_table(rows: list[IntervalRow], width: int) -> list[str]:
+    """The intervals' header and rows, their names in words. The name column is as wide as the
+    longest name; when that makes a row wider than ``width``, intervals of two octaves and more
+    are named in the compact form ("major third +2 oct") so every column, the word
+    "dissonant" included, still fits an 80-column terminal."""
+    def table(compact: bool) -> list[str]:
+        names = [interval_name(r.high - r.low, compact) for r in rows]
+        pairs = [f"{note_name(r.low)}-{note_name(r.high)}" for r in rows]
+        wp = max([8] + [len(p) + 1 for p in pairs])
+        wn = max([17] + [len(n) + 1 for n in names])
+        out = [f"{'PAIR':<{wp}}{'INTERVAL':<{wn}}{'SIZE c':>8}{'JUST':>7}{'FROM JUST c':>12}{'BEAT RATE Hz':>13}"]
+        for r, pair, name in zip(rows, pairs, names):
+            ratio = f"{r.ratio.numerator}/{r.ratio.denominator}"
+            out.append(f"{pair:<{wp}}{name:<{wn}}{r.size:>8.2f}{ratio:>7}{r.deviation:>+12.2f}"
+                       f"{r.beats:>13.2f}" + ("" if r.consonant else "  dissonant"))
+        return out
+    lines = table(False)
+    if max(len(ln) for ln in lines) > width:
+        lines = table(True)
+    return lines
 
 
 # ---------------------------------------------------------------------------

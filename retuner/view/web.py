@@ -76,7 +76,7 @@ def frame(state: WatchState, waiting: bool = False) -> dict:
                    "offset_cents": n["cents"] - 100.0 * n["key"],
                    "hz": n.get("hz")} for n in sounding],
         "intervals": [{"low": r.low, "high": r.high, "pair": f"{note_name(r.low)}-{note_name(r.high)}",
-                       "name": r.name, "ratio": f"{r.ratio.numerator}/{r.ratio.denominator}",
+                       "interval": r.name, "ratio": f"{r.ratio.numerator}/{r.ratio.denominator}",
                        "size_cents": r.size, "deviation_cents": r.deviation, "beat_rate_hz": r.beats,
                        "consonant": r.consonant} for r in interval_rows(sounding)],
         "counters": {k: state.counters.get(k, 0) for k in ("notes", "steals", "ringing_retunes")},

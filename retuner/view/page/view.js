@@ -136,7 +136,7 @@ function drawIntervals(f) {
     tr.classList.toggle("dissonant", !r.consonant);
     const c = tr.children;
     setText(c[1], r.pair);
-    setText(c[2], r.name);
+    setText(c[2], r.interval);
     setText(c[3], r.ratio);
     setText(c[4], signed(r.deviation_cents, 2) + " c");
     setText(c[5], r.beat_rate_hz.toFixed(2) + " Hz");
