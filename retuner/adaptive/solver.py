@@ -64,7 +64,7 @@ for *tuning a chord* and change how drift is shed:
    rest of the chord implies, and the system is solved again (at most twice).
    In a ii7 chord D-F-A-C this gives D-C = 9/5; with the 7-limit table a
    dominant seventh can settle on 4:5:6:7.
-8. **Re-centre steady drift only.** Two running averages (rate ``steadiness_rate``)
+8. **Re-centre steady drift only** ("limited"). Two running averages (rate ``steadiness_rate``)
    follow the pure chain's step per event and the step's size; their ratio, the
    *steadiness* (0..1), is 1 when the chain keeps drifting one way (the comma pump
    sinks a comma every round) and falls when it wanders back and forth (most
@@ -242,8 +242,8 @@ class AdaptiveConfig:
     steadiness_rate: 0..1, rate of the running averages that tell whether the pure
         chain's drift keeps one direction (steady, as in the comma pump) or wanders
         back and forth (as in most chorales); only steady drift is re-centred within
-        the window and paid for fully with held-note motion. 0 judges every drift
-        steady (the behaviour before this setting).
+        the window and paid for fully with held-note motion ("limited" policy only).
+        0 judges every drift steady (the behaviour before this setting).
     """
 
     chord_window: float = 0.0
@@ -739,7 +739,8 @@ class AdaptiveSolver:
             aim = max(-band, min(band, -cfg.anticipate * self._trend))
             half = cfg.window + cfg.window_per_held * max(0, nh - 1)
             edge = max(0.0, cfg.max_drift - cfg.drift_margin)
-            steady = self.steadiness
+            # (the steadiness rule is about held-note motion: "limited" only)
+            steady = self.steadiness if mode == "limited" else 1.0
             if steady < STEADY:
                 # drift that wanders comes back by itself: re-centre only at the drift edge
                 half = max(half, edge + abs(aim))
