@@ -518,8 +518,21 @@ def live_figures(events: Sequence[Event], tuning, acfg, mode: str = "pool") -> d
     f.update({"latency_p50_ms": round(1000 * percentile(lat, 50), 3), "latency_p99_ms": round(1000 * percentile(lat, 99), 3),
               "compute_p99_us": round(percentile(compute, 99), 1),
               "attack_retunes_per_note": round(st["attack_retunes"] / max(1, st["notes"]), 3),
-              "attack_retune_cents_mean": round(st["attack_retune_cents_total"] / max(1, st["attack_retunes"]), 3)})
+              "attack_retune_cents_mean": round(st["attack_retune_cents_total"] / max(1, st["attack_retunes"]), 3),
+              # what moved notes already sounding (the motion after the attack), c/note by cause
+              "held_motion_by_cause": {k: round(v / max(1, st["notes"]), 4) for k, v in sorted(eng.held_motion.items())}})
     return f
+
+
+def _average(per: Sequence[dict]) -> dict:
+    """The mean of each figure over pieces (causes of held-note motion: per cause)."""
+    avg = {k: round(sum(f[k] for f in per) / len(per), 6) for k in per[0]
+           if k not in ("notes", "held_motion_by_cause")}
+    if "held_motion_by_cause" in per[0]:
+        causes = sorted({c for f in per for c in f["held_motion_by_cause"]})
+        avg["held_motion_by_cause"] = {c: round(sum(f["held_motion_by_cause"].get(c, 0.0) for f in per) / len(per), 4)
+                                       for c in causes}
+    return avg
 
 
 def bench_setups() -> dict:
@@ -600,7 +613,7 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
         hp = live_figures(humanise(pump), edo12, acfg, mode)
         per = [live_figures(humanise(chorale_events(p), seed=i + 2), edo12, acfg, mode)
                for i, p in enumerate(CHORALES)]
-        avg = {k: round(sum(f[k] for f in per) / len(per), 6) for k in per[0] if k != "notes"}
+        avg = _average(per)
         avg["drift_max_worst_cents"] = max(f["drift_max_cents"] for f in per)
         avg["latency_p99_ms"] = max(f["latency_p99_ms"] for f in per)
         out["humanised"][name] = {"pump": hp, "chorales": avg}
@@ -624,6 +637,18 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
         "solver_p99<=150us": out["solver"]["p99_us"] <= 150.0,
     }
     return out
+
+
+#: the causes of held-note motion (Engine.held_motion) in the bench's words
+CAUSE_WORDS = {
+    "chord:recentre": "re-centring at a new chord",
+    "release:recentre": "re-centring when a note of the last chord ended in the new one's attack",
+    "chord:drift-limit": "drift limit at a new chord",
+    "release:drift-limit": "drift limit when a note ended",
+    "chord:recentre+drift-limit": "re-centring and drift limit at a new chord",
+    "release:recentre+drift-limit": "re-centring and drift limit when a note ended",
+    "chord:free": "least squares at a new chord", "release:free": "least squares when a note ended",
+}
 
 
 def format_adaptive_bench(res: dict) -> str:
@@ -650,5 +675,9 @@ def format_adaptive_bench(res: dict) -> str:
             lines.append(f"  {name + ' ' + piece:22s} {f['impurity_cents']:7.3f} | {f['late_motion_cents_per_note']:6.3f} | {dm:6.2f} | "
                          f"{f['latency_p50_ms']:5.1f}/{f['latency_p99_ms']:5.1f} | {f['compute_p99_us']:7.1f} | "
                          f"{f['attack_retunes_per_note']:.2f} ({f['attack_retune_cents_mean']:.2f})")
+            causes = f.get("held_motion_by_cause") or {}
+            if causes:
+                lines.append("    sounding notes moved, c/note by cause: " + ", ".join(
+                    f"{CAUSE_WORDS.get(c, c)} {v:.3f}" for c, v in sorted(causes.items(), key=lambda cv: -cv[1])))
     lines.append("goals: " + ", ".join(f"{k} {'yes' if v else 'NO'}" for k, v in res["goals"].items()))
     return "\n".join(lines)

@@ -39,6 +39,7 @@ class AttackSettle:
         self.held_plan: list[tuple[Note, float]] = []  # held notes' moves, due at ``due``
         self.due: Optional[float] = None
         self.recent: deque[float] = deque(maxlen=1000)   # sizes of the latest retunes (cents)
+        self.cause = ""                                   # why the planned moves move
 
     def fresh(self, sounding: Sequence[Note], t: float, movable) -> list[Note]:
         """The sounding notes still within their attack (held by the player and movable
@@ -78,8 +79,12 @@ class AttackSettle:
                     stats["attack_retune_cents_max"] = d
                 self.recent.append(d)
 
-    def plan(self, held: Sequence[Note], cents: Sequence[float], starts: Sequence[float]) -> None:
+    def plan(self, held: Sequence[Note], cents: Sequence[float], starts: Sequence[float],
+             cause: str = "") -> None:
+        """The held notes' moves, due when the chord's attack is over; ``cause`` says why
+        they move (kept for measurement, see ``Engine.held_motion``)."""
         self.held_plan = [(n, float(c)) for n, c in zip(held, cents) if c != n.cents]
+        self.cause = cause
         self.due = (min(starts) + self.attack) if self.held_plan else None
 
     def take_plan(self) -> list[tuple[Note, float]]:

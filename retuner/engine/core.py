@@ -138,6 +138,9 @@ class Engine:
             "attack_retunes": 0, "attack_retune_cents_total": 0.0, "attack_retune_cents_max": 0.0,
         }
         self._attack: Optional[AttackSettle] = None
+        # adaptive mode: cents moved by notes already sounding, by cause ("chord:recentre",
+        # "release:drift-limit" ...: what started the solve, then the solver's held_cause)
+        self.held_motion: dict[str, float] = {}
         self._warned_keys: set[int] = set()
         self._solver = None
         self._pass_notes = PassthroughNotes()     # kept across layout changes
@@ -561,6 +564,7 @@ class Engine:
         if len(held_new) != len(held):
             held_new = [n.cents for n in held]
         held_new = [c if _finite(c) else n.cents for n, c in zip(held, held_new)]
+        cause = ("chord:" if pend else "release:") + (getattr(solver, "held_cause", "") or "other")
         if fresh:
             nf = len(fresh)
             if len(new_cents) == len(new_notes):
@@ -574,13 +578,15 @@ class Engine:
             # now when several of its notes started at this very instant (a block chord in a
             # file: a later note of the same instant moves them again, unheard)
             starts = [n.t_on for n in new_notes]
-            attack.plan(held, held_new, starts)
+            attack.plan(held, held_new, starts, cause)
             held, held_new = [], []
             if attack.held_plan and len(starts) > 1 and min(starts) >= t:
                 self._settle_held(t, out)
             if fresh:
                 attack.count(fresh, fresh_cents, self.stats)
                 held, held_new = fresh, fresh_cents
+        else:
+            self._count_held_motion(held, held_new, cause)
         if len(new_cents) != len(pend):
             # an answer that does not match the notes one to one cannot be matched by
             # position: every new note takes its profile pitch instead
@@ -597,7 +603,13 @@ class Engine:
         """Attack mode: the held notes move to where the chord's last solve put them."""
         plan = self._attack.take_plan()
         if plan:
+            self._count_held_motion([n for n, _ in plan], [c for _, c in plan], self._attack.cause)
             self.output.sound_solved(t, [n for n, _ in plan], [c for _, c in plan], [], [], out)
+
+    def _count_held_motion(self, held: list, cents: list, cause: str) -> None:
+        moved = sum(abs(float(c) - n.cents) for n, c in zip(held, cents))
+        if moved > 0:
+            self.held_motion[cause] = self.held_motion.get(cause, 0.0) + moved
 
     # ------------------------------------------------------------------ switching
     def set_tuning(self, tuning: Tuning, t: float) -> list[mido.Message]:
