@@ -629,6 +629,12 @@ def test_ctl_commands_against_the_server(rig):
     assert rig.engine.config.adaptive.max_drift == 4.0
     r = ctl("adaptive", "on", "--set", "nonsense")
     assert r.returncode == 2
+    # a duration takes its unit as in the config file: 30 ms is 0.03 s
+    r = ctl("adaptive", "on", "--set", "attack_time=30 ms")
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert rig.engine.config.adaptive.attack_time == pytest.approx(0.03)
+    r = ctl("adaptive", "on", "--set", "attack_time=30 parsecs")
+    assert r.returncode == 2 and "adaptive.attack_time" in r.stderr and len(r.stderr.strip().splitlines()) == 1
     r = ctl("status")
     assert r.returncode == 0 and re.search(r"^adaptive +on$", r.stdout, re.M) and "werckmeister-3" in r.stdout
 

@@ -39,7 +39,8 @@ def add_arguments(parser) -> None:
     p.add_argument("state", choices=["on", "off"])
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
                    help="an adaptive setting (repeatable; value is YAML: 5, true, [1, 2]), e.g. "
-                        "policy=fixed-held, chord_window=0.03, max_drift=4, max_motion=3, limit=7, "
+                        "policy=fixed-held, chord_window=0.03 (seconds, or with a unit: attack_time='30 ms'), max_drift=4, "
+                        "max_motion=3, limit=7, "
                         "centre=profile")
     p = sub.add_parser("concert-pitch", help="set the frequency of A4 in Hz (the profile's own concert "
                                              "pitch is overridden until the next profile switch)")

@@ -416,9 +416,12 @@ ADAPTIVE_UNITS = {"chord_window": "seconds", "attack_time": "seconds", "max_drif
                   "recentre_band_per_held_cents": "cents", "aim_limit": "cents", "drift_margin": "cents"}
 
 
-def adaptive_fields(settings: dict) -> dict:
-    """User-facing adaptive settings -> the solver's field names (AdaptiveConfig)."""
-    return {ADAPTIVE_FIELD_OF.get(k, k): v for k, v in settings.items()}
+def adaptive_fields(settings: dict, source: str = "control socket") -> dict:
+    """User-facing adaptive settings -> the solver's field names (AdaptiveConfig); a duration
+    written with its unit ('30 ms') becomes seconds, as in the config file."""
+    w = _Where(source)
+    return {ADAPTIVE_FIELD_OF.get(k, k): duration_seconds(v, w, f"adaptive.{k}", None, None)
+            if k in ADAPTIVE_DURATIONS else v for k, v in settings.items()}
 
 
 def adaptive_error(exc: RetunerError) -> RetunerError:
@@ -530,7 +533,7 @@ def engine_config(settings: Settings):
         if k == "adaptive" and v is not None:
             from retuner.adaptive.solver import AdaptiveConfig
             try:
-                v = AdaptiveConfig.from_dict(adaptive_fields(v), file=settings.source)
+                v = AdaptiveConfig.from_dict(adaptive_fields(v, settings.source), file=settings.source)
             except RetunerError as exc:
                 exc.field = "engine." + (exc.field or "adaptive")
                 raise adaptive_error(exc)
