@@ -53,7 +53,7 @@ from the first note-on of a group, then solved together.
 
 The solver is handed to the engine: ``Engine(tuning, config, solver=make)``, where
 ``make(adaptive_config, tuning)`` returns a solver (default: ``AdaptiveSolver``; the
-lookahead planner of :mod:`retuner.adaptive.lookahead` hands in one that answers from
+lookahead planner of :mod:`retuner.convert.lookahead` hands in one that answers from
 its plan). The engine calls it again whenever the tuning or the adaptive settings
 change. ``solver.solve(held=[(key, cents), ...], new=[key, ...], t=seconds,
 part=input channel of the new notes)`` returns the
