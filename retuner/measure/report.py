@@ -35,14 +35,13 @@ import json
 import math
 from typing import Optional
 
-from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
 from retuner.pitch.intervals import CONSONANT_RATIOS
 from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
-from retuner.smf.messages import iter_output_stream, output_stream
+from retuner.smf.messages import iter_output_stream
 
 #: seconds a moment must last to count in the drift maximum; changes within this time of a
 #: note's start are within its attack (see retuner.measure.metrics.report)
@@ -347,32 +346,20 @@ def pair_times(notes) -> dict:
     return acc
 
 
-def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dict:
-    """Impurity, motion, drift and beat rates of the piece's most frequent consonant key pairs,
-    per tuning (static), and for adaptive tuning live and with lookahead when
-    ``adaptive_config`` is given (reference: the first tuning)."""
+def compare(path: str, decoded: list, top: int = 5) -> dict:
+    """Impurity, motion, drift and beat rates of the piece's ``top`` most frequent consonant key
+    pairs, per run: ``decoded`` is [(name, notes as :func:`metrics.decode` gives them)], the
+    first the reference (:mod:`retuner.convert.compare` converts the piece for each run)."""
     rows = []
-    runs = [(t.id, t, config.replace(adaptive=None), False) for t in tunings]
-    if adaptive_config is not None:
-        runs.append(("adaptive", tunings[0], config.replace(adaptive=adaptive_config), False))
-        runs.append(("adaptive+lookahead", tunings[0], config.replace(adaptive=adaptive_config), True))
-    decoded = []
-    for name, tun, cfg, la in runs:
-        res = convert_song(song, "compare.mid", ConvertOptions(tun, cfg, lookahead=la))
-        notes = []
-        for o in res.outputs:
-            notes += metrics.decode(output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
-                                    exclude_channels=tuple(cfg.passthrough)).notes
-        decoded.append((name, tun, notes))
     # the piece's most frequent consonant pairs (by time sounding together), from the first run
-    base = pair_times(decoded[0][2])
+    base = pair_times(decoded[0][1])
     chosen = sorted(base.items(), key=lambda kv: (-kv[1][0], kv[0]))[:top]
     intervals = []
     for (k1, k2), (secs, _, (p, q)) in chosen:
         intervals.append({"low": k1, "high": k2, "name": f"{note_name(k1)}-{note_name(k2)}",
                           "interval": CLASS_NAMES[(k2 - k1) % 12] + (" +8ve" if k2 - k1 > 12 else ""),
                           "ratio": f"{p}/{q}", "seconds": round(secs, 3)})
-    for name, tun, notes in decoded:
+    for name, notes in decoded:
         imp, _ = metrics.impurity(notes)
         dr = metrics.drift(notes)
         pt = pair_times(notes)
@@ -383,7 +370,7 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         rows.append({"tuning": name, "impurity_cents": round(imp, 3),
                      "motion_cents_per_note": round(metrics.motion(notes), 3),
                      "drift_max_cents": round(dr["max"], 3), "beat_rates_hz": beats})
-    return {"input": song.path, "intervals": intervals, "tunings": rows}
+    return {"input": path, "intervals": intervals, "tunings": rows}
 
 
 def compare_text(c: dict) -> str:
