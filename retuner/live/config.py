@@ -42,7 +42,6 @@ import copy
 import dataclasses
 import enum
 import os
-import re
 import time
 import types
 import typing
@@ -50,6 +49,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Optional
 
+from retuner.adaptive.settings import ADAPTIVE_FIELD_OF, ADAPTIVE_KEY_OF, adaptive_error, adaptive_fields
 from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 
@@ -360,34 +360,6 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
         out[key] = value
     _unknown(out, names, w, fld + ".")
     return out
-
-
-# adaptive settings whose user-facing name differs from the solver's field (the band, in cents,
-# within which the centre is not re-centred; not to be confused with chord_window, in seconds)
-ADAPTIVE_KEY_OF = {"window": "recentre_band_cents", "window_per_held": "recentre_band_per_held_cents"}
-ADAPTIVE_FIELD_OF = {v: k for k, v in ADAPTIVE_KEY_OF.items()}
-
-# units of the numeric adaptive settings, named in a range error
-ADAPTIVE_UNITS = {"chord_window": "seconds", "attack_time": "seconds", "max_drift": "cents",
-                  "max_motion": "cents", "recentre_band_cents": "cents",
-                  "recentre_band_per_held_cents": "cents", "aim_limit": "cents", "drift_margin": "cents"}
-
-
-def adaptive_fields(settings: dict) -> dict:
-    """User-facing adaptive settings -> the solver's field names (AdaptiveConfig)."""
-    return {ADAPTIVE_FIELD_OF.get(k, k): v for k, v in settings.items()}
-
-
-def adaptive_error(exc: RetunerError) -> RetunerError:
-    """A solver's error on an adaptive setting, named and measured as the user wrote it."""
-    head, _, name = (exc.field or "").rpartition(".")
-    user = ADAPTIVE_KEY_OF.get(name, name)
-    if name:
-        exc.field = f"{head}.{user}" if head else user
-    unit = ADAPTIVE_UNITS.get(user)
-    if unit and exc.message.startswith("must be between") and unit not in exc.message:
-        exc.message = re.sub(r"^(must be between [^\s,]+ and [^\s,]+)", rf"\1 {unit}", exc.message)
-    return exc
 
 
 def _old_key_note(filename: str, mapping: Any, old: str, new: str, key: Any) -> str:
