@@ -137,6 +137,26 @@ def test_every_part_of_the_package_is_a_layer_of_the_core_or_a_shell():
     assert set(RANK) <= parts, set(RANK) - parts
 
 
+def part_graph(g: dict[str, set[str]]) -> dict[str, set[str]]:
+    """The same graph between the package's parts (``retuner.live.daemon`` -> live)."""
+    def part(m):
+        return m.split(".")[1] if "." in m else m
+    out: dict[str, set[str]] = {}
+    for n, deps in g.items():
+        out.setdefault(part(n), set()).update(part(d) for d in deps if part(d) != part(n))
+    return out
+
+
+def test_no_import_cycle_between_the_parts_of_the_package():
+    """Shells too import one way: a part that imports another is never imported by it, through
+    any chain (the daemon hosts the control socket, so control never imports live; convert
+    measures its plans, so measure never imports convert)."""
+    assert part_graph({"retuner.live.daemon": {"retuner.control.server"},
+                       "retuner.control.commands": {"retuner.live.config"}})["control"] == {"live"}
+    g = part_graph(graph())
+    assert find_cycle(g) is None, " -> ".join(find_cycle(g))
+
+
 def test_the_core_never_imports_a_shell_nor_a_higher_layer():
     bad = upward_imports(graph())
     assert not bad, bad
