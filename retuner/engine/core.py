@@ -382,17 +382,12 @@ class Engine:
 
     def _end_pedalled(self, t: float, dom: int) -> None:
         """The pedals of ``dom`` changed: notes no longer held stop sounding."""
-        holds = self._pedals.holds
         table = self.output.table
-        for c in table.channels:
-            ns = table.notes[c]
-            if not ns:
-                continue
-            for n in list(ns):
-                if n.dom != dom or n.down or holds(dom, n):
-                    continue
-                n.alive = False
-                table.remove(n, t)
+        notes = table.notes
+        released = [n for c in table.channels for n in notes[c] if n.dom == dom and not n.down]
+        for n in self._pedals.let_go(dom, released):
+            n.alive = False
+            table.remove(n, t)
 
     def _sounding_notes(self) -> list[Note]:
         return self._table.sounding()

@@ -69,6 +69,15 @@ class Pedals:
         """Does a pedal of ``dom`` keep the released ``press`` sounding? (true or false)"""
         return self.sustain.get(dom) or (press.sost and self.sostenuto.get(dom))
 
+    def let_go(self, dom: Hashable, released: list) -> list:
+        """Of ``released`` (presses of ``dom`` whose keys are up, held so far), those no pedal
+        holds any more: :meth:`holds` for many at once, with no call per press."""
+        if self.sustain.get(dom):
+            return []
+        if self.sostenuto.get(dom):
+            return [p for p in released if not p.sost]
+        return released
+
     def sustain_to(self, dom: Hashable, value: int) -> bool:
         """The sustain pedal of ``dom`` moved to ``value``: True if it went up (the notes it held
         and nothing else holds stop)."""
@@ -184,12 +193,15 @@ class NoteTracker:
         held = self._held.get(dom)
         if not held:
             return []
-        holds = self.pedals.holds
-        ended = [p.value for p in held if not holds(dom, p)]
+        ended = self.pedals.let_go(dom, held)
         if ended:
-            self._held[dom] = [p for p in held if holds(dom, p)]
+            if ended is held:
+                del self._held[dom]
+            else:
+                gone = {id(p) for p in ended}
+                self._held[dom] = [p for p in held if id(p) not in gone]
             self._count[dom] -= len(ended)
-        return ended
+        return [p.value for p in ended]
 
     def release_all(self, dom: Hashable) -> list:
         """Every key of ``dom`` released at once (all notes off): the values that stop now,
