@@ -1,7 +1,7 @@
 """The package's structure, read from its own import statements (the ast of every module,
 imports inside functions included, since a lazy import is a dependency all the same).
 
-* no import cycle among retuner's modules;
+* no import cycle among retuner's modules, nor among its parts (live, control, convert, ...);
 * data flows one way, down the layers of the core: the engine calls adaptive and profiles, they
   call pitch and midi, all may raise errors; the sans-I/O core never imports anything above it.
   Every other part of the package (live, control, convert, smf, measure, bench, view, commands,
