@@ -7,6 +7,7 @@ import argparse
 from retuner.commands._common import add_old_name, add_profile_dir, print_json
 from retuner.commands._engine_options import channel_list as _channels_or_none
 from retuner.commands.convert import _one_blas_thread
+from retuner.convert.compare import compare
 from retuner.engine.core import EngineConfig
 from retuner.errors import RetunerError
 from retuner.measure import report
@@ -61,7 +62,7 @@ def run(args) -> int:
         # lazy: the solver loads numpy, which must come after _one_blas_thread
         from retuner.adaptive.solver import AdaptiveConfig
         acfg = AdaptiveConfig()
-    c = report.compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)
+    c = compare(song, tunings, cfg, adaptive_config=acfg, top=args.top)
     if args.plot:
         plot.plot_tunings(tunings, args.plot)
     if args.json:

@@ -19,7 +19,7 @@ from retuner.adaptive.solver import AdaptiveConfig
 from retuner.control.protocol import Command
 from retuner.control.server import ControlServer, Handler
 from retuner.errors import RetunerError
-from retuner.live.config import adaptive_error, adaptive_fields
+from retuner.adaptive.settings import adaptive_error, adaptive_fields
 from retuner.pitch.tuning import cents_to_hz
 from retuner.profiles.profile import list_profiles, load_profile
 

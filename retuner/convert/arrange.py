@@ -110,9 +110,9 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
             if n > most[p]:
                 most[p] = n
         elif hi == 0x80 or hi == 0x90:
-            b, ended = notes.note_off(p, raw[1])
-            if ended:
-                drop(p, b)
+            for b, ended in notes.note_off(p, raw[1]):
+                if ended:
+                    drop(p, b)
         elif hi == 0xB0 and raw[1] == SUSTAIN:
             for b in notes.control(p, SUSTAIN, raw[2]):
                 drop(p, b)

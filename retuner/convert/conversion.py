@@ -29,7 +29,7 @@ only on its own channels (its program and controllers) with its own pedals and w
 as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together but share
 their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
-parts together (see :mod:`retuner.adaptive.lookahead`).
+parts together (see :mod:`retuner.convert.lookahead`).
 """
 
 from __future__ import annotations
@@ -201,7 +201,7 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
     if config.adaptive is None:
         raise RetunerError("--lookahead needs --adaptive", field="lookahead")
     # lazy: the planner needs numpy, and the command line sets numpy's thread count first
-    from retuner.adaptive import lookahead
+    from retuner.convert import lookahead
     say = progress or (lambda text: None)
     say("lookahead: playing the file live")
     live = _render(song, merged, secs, groups, tuning, config, out_path, None)

@@ -53,7 +53,7 @@ from the first note-on of a group, then solved together.
 
 The solver is handed to the engine: ``Engine(tuning, config, solver=make)``, where
 ``make(adaptive_config, tuning)`` returns a solver (default: ``AdaptiveSolver``; the
-lookahead planner of :mod:`retuner.adaptive.lookahead` hands in one that answers from
+lookahead planner of :mod:`retuner.convert.lookahead` hands in one that answers from
 its plan). The engine calls it again whenever the tuning or the adaptive settings
 change. ``solver.solve(held=[(key, cents), ...], new=[key, ...], t=seconds,
 part=input channel of the new notes)`` returns the
@@ -88,6 +88,7 @@ from retuner.engine.allocator import NEG_INF, Note
 from retuner.engine.chord import ChordWindow
 from retuner.engine.config import DEFAULT_POOL, EngineConfig
 from retuner.engine.inputs import InputState, PassthroughNotes
+from retuner.engine.notes import release
 from retuner.engine.outputs import MODES, OutputMode
 from retuner.engine.outputs.base import explain_steals
 from retuner.errors import RetunerError
@@ -155,6 +156,8 @@ class Engine:
         self.output: OutputMode = MODES[cfg.mode](cfg, self.inputs, self.stats)
         self._table = self.output.table
         self._presses = self.inputs.presses
+        self._pedals = self.inputs.pedals
+        self._holds = self._pedals.holds
         self._domain = [self.output.domain(c) for c in range(16)]    # input channel -> domain
         self._chord = ChordWindow()
         self._plan_tuning()
@@ -336,27 +339,20 @@ class Engine:
         if self._orphaned and self._pass_notes.take_orphan(ch, key):
             out.append(msg)     # started while its channel was passed through: it goes as it came
             return
-        # the oldest press of this key ends (see retuner.engine.inputs)
+        # the presses this note-off ends (the one rule: retuner.engine.notes.release)
         presses = self._presses
         q = presses.get((ch, key))
         if not q:
             return
-        note = q.popleft()
+        ended = release(q)
         if not q:
             del presses[(ch, key)]
-        else:
-            if note.stale and not q[-1].stale:
-                # presses that outlived an earlier release of their key while a newer press
-                # waits: their own note-offs were lost. They end now, with the newer press
-                # this note-off belongs to
-                self._end_press(t, ch, note, msg, out)
-                while q[0].stale:
-                    self._end_press(t, ch, q.popleft(), msg, out)
-                note = q.popleft()
-                if not q:
-                    del presses[(ch, key)]
-            for n in q:
-                n.stale = True
+        note = ended.pop()
+        for n in ended:
+            # presses that outlived an earlier release of their key while a newer press
+            # waited: their own note-offs were lost. They end now, with the newer press
+            # this note-off belongs to
+            self._end_press(t, ch, n, msg, out)
         if self._solver is not None and self._window > 0 and not note.pending and note.alive:
             self._chord.delay(t + self._window, ch, note, msg)
             return
@@ -380,8 +376,7 @@ class Engine:
         if msg is None:
             msg = E.note_off(note.in_ch, note.in_key, 0)
         out.append(self.output.note_off(note, msg))
-        dom = note.dom
-        if self.inputs.sustain.get(dom) or (note.sost and self.inputs.sostenuto.get(dom)):
+        if self._holds(note.dom, note):
             return
         note.alive = False
         self._table.remove(note, t)
@@ -391,20 +386,12 @@ class Engine:
 
     def _end_pedalled(self, t: float, dom: int) -> None:
         """The pedals of ``dom`` changed: notes no longer held stop sounding."""
-        sus = self.inputs.sustain.get(dom, False)
-        sost = self.inputs.sostenuto.get(dom, False)
         table = self.output.table
-        for c in table.channels:
-            ns = table.notes[c]
-            if not ns:
-                continue
-            for n in list(ns):
-                if n.dom != dom or n.down:
-                    continue
-                if sus or (n.sost and sost):
-                    continue
-                n.alive = False
-                table.remove(n, t)
+        notes = table.notes
+        released = [n for c in table.channels for n in notes[c] if n.dom == dom and not n.down]
+        for n in self._pedals.let_go(dom, released):
+            n.alive = False
+            table.remove(n, t)
 
     def _sounding_notes(self) -> list[Note]:
         return self._table.sounding()
@@ -422,22 +409,17 @@ class Engine:
             self._chord.delay(t + self._window, ch, None, msg)
             return
         if cc == E.CC_SUSTAIN:
-            down = msg.value >= E.PEDAL_ON
             out += output.zone(dom, msg)
-            was = inputs.sustain.get(dom, False)
-            inputs.sustain[dom] = down
-            if was and not down:
+            if self._pedals.sustain_to(dom, msg.value):
                 self._end_pedalled(t, dom)
         elif cc == E.CC_SOSTENUTO:
-            down = msg.value >= E.PEDAL_ON
             out += output.zone(dom, msg)
-            was = inputs.sostenuto.get(dom, False)
-            inputs.sostenuto[dom] = down
-            if down and not was:
+            step = self._pedals.sostenuto_to(dom, msg.value)
+            if step > 0:
                 for n in self._sounding_notes():
                     if n.dom == dom and n.down:
                         n.sost = True
-            elif was and not down:
+            elif step < 0:
                 self._end_pedalled(t, dom)
                 for n in self._sounding_notes():
                     if n.dom == dom:
@@ -455,8 +437,7 @@ class Engine:
         elif cc == E.CC_RESET_ALL_CONTROLLERS:
             out += output.channel_mode(dom, msg)
             inputs.rpn.pop(ch, None)
-            inputs.sustain[dom] = False
-            inputs.sostenuto[dom] = False
+            self._pedals.up(dom)
             self._end_pedalled(t, dom)
             for n in self._sounding_notes():
                 if n.dom == dom:
@@ -491,7 +472,7 @@ class Engine:
                     n.down = False
                     n.t_off = t
                     inputs.forget(n)
-                if hard or not (inputs.sustain.get(dom) or (n.sost and inputs.sostenuto.get(dom))):
+                if hard or not self._pedals.holds(dom, n):
                     n.alive = False
                     table.remove(n, t)
                     if hard and not table.notes[c]:

@@ -1,23 +1,16 @@
 """What the player is doing, as the engine tracks it from the input.
 
 * **Press queues**: each (input channel, key) keeps its presses first in, first
-  out; a note-off (or a note-on with velocity 0) ends the oldest press, on the
-  channel and key that press was sent on, whatever happened since (pedals,
-  repeated presses, profile switches). A stolen press keeps its place, so its
-  own note-off sends nothing; an all-notes-off or all-sound-off from the input
-  forgets every press of its domain (the keyboard sends no note-offs for what
-  it cleared).
-* **A lost note-off** costs at most one note: a press that outlived a release of
-  its key is *stale* (that release may have been its own, taken by an older press
-  whose note-off was lost). When the next note-off of that key comes while a
-  newer press waits behind the stale ones, the stale presses end together with
-  the newer press (whose note-off it is), so the queue is in step again from the
-  key's second release after the loss. The price: of three or more overlapping
-  presses of one key on one channel (merged keyboards, a file's overlapping
-  doubled notes) with a new press between two of their note-offs, the newer
-  press ends early, at the same moment as the stale one.
+  out, paired with note-offs (or note-ons with velocity 0) by the one rule of
+  :mod:`retuner.engine.notes` (a lost note-off costs at most one note); a
+  note-off ends its press on the channel and key that press was sent on,
+  whatever happened since (pedals, repeated presses, profile switches). A stolen
+  press keeps its place, so its own note-off sends nothing; an all-notes-off or
+  all-sound-off from the input forgets every press of its domain (the keyboard
+  sends no note-offs for what it cleared).
 * **Pedals** (sustain, sostenuto), per pedal domain (the output mode says which
-  input channels form a domain).
+  input channels form a domain): :class:`retuner.engine.notes.Pedals`, the same
+  rule as the file side's.
 * The **wheel** per input channel (a wheel bends only its own channel's notes
   where the output mode can keep them apart).
 * The input's **RPN selection** per channel: an input RPN 0 (pitch bend
@@ -34,6 +27,7 @@ from typing import Any, Callable, Optional
 
 from retuner.midi import encode as E
 from retuner.engine.allocator import Note
+from retuner.engine.notes import Pedals
 
 #: RPNs whose data entry from the input is the engine's, not the synth's
 MANAGED_RPNS = {E.RPN_PITCH_BEND_SENSITIVITY, E.RPN_TUNING_PROGRAM, E.RPN_TUNING_BANK,
@@ -46,8 +40,9 @@ class InputState:
 
     def __init__(self, wheel_range_semitones: float):
         self.presses: dict[tuple[int, int], deque] = {}
-        self.sustain: dict[int, bool] = {}       # domain -> down
-        self.sostenuto: dict[int, bool] = {}     # domain -> down
+        self.pedals = Pedals()
+        self.sustain = self.pedals.sustain       # domain -> down (read by the output modes)
+        self.sostenuto = self.pedals.sostenuto   # domain -> down
         self.wheel: dict[int, int] = {}          # input channel -> signed bend -8192..8191
         self.wheel_range = wheel_range_semitones * 100.0   # cents a full wheel spans (default)
         self.wheel_ranges: dict[int, float] = {}  # input channel -> cents, as its RPN 0 set it

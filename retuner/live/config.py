@@ -43,7 +43,6 @@ import copy
 import dataclasses
 import enum
 import os
-import re
 import time
 import types
 import typing
@@ -51,8 +50,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Optional
 
+from retuner.adaptive.settings import ADAPTIVE_DURATIONS, ADAPTIVE_FIELD_OF, ADAPTIVE_KEY_OF, adaptive_error, adaptive_fields
 from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
+from retuner.units import DURATION_HELP, seconds_of
 
 LOG_LEVELS = ("debug", "info", "warning", "error")
 
@@ -159,11 +160,8 @@ def _num(v, w, fld, m, k, lo, hi):
 #: the units a duration in the config may carry; a bare number is seconds (one rule for every
 #: duration: status_interval, port_poll, setup_refresh, engine.release_time, and the adaptive
 #: chord_window and attack_time)
-DURATION_UNITS = {"ms": 0.001, "s": 1.0, "min": 60.0, "h": 3600.0}
-_DURATION = re.compile(r"\s*([0-9]+(?:\.[0-9]*)?|\.[0-9]+)\s*(ms|s|min|h)\s*")
 #: durations among the engine's settings and the adaptive settings
 ENGINE_DURATIONS = {"release_time"}
-ADAPTIVE_DURATIONS = {"chord_window", "attack_time"}
 #: status_interval counted minutes before it counted seconds: a bare number below this gets a warning
 OLD_MINUTES_BELOW = 60
 
@@ -171,13 +169,10 @@ OLD_MINUTES_BELOW = 60
 def duration_seconds(v, w, fld, m, k):
     """A duration as written in the config: a number of seconds, or a number with its unit
     ('10 min', '600 s', '30 ms', '1 h'). Returns seconds (still a number to be range-checked)."""
-    if not isinstance(v, str):
-        return v
-    found = _DURATION.fullmatch(v)
-    if not found:
-        raise w.err(f"expected seconds, or a number with its unit ({', '.join(DURATION_UNITS)}) such as "
-                    f"'10 min' or '30 ms', got {v!r}", fld, m, k)
-    return float(found.group(1)) * DURATION_UNITS[found.group(2)]
+    secs = seconds_of(v)
+    if secs is None:
+        raise w.err(f"{DURATION_HELP}, got {v!r}", fld, m, k)
+    return secs
 
 
 def _seconds(v, w, fld, m, k, lo, hi):
@@ -403,37 +398,6 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
         out[key] = value
     _unknown(out, names, w, fld + ".")
     return out
-
-
-# adaptive settings whose user-facing name differs from the solver's field (the band, in cents,
-# within which the centre is not re-centred; not to be confused with chord_window, in seconds)
-ADAPTIVE_KEY_OF = {"window": "recentre_band_cents", "window_per_held": "recentre_band_per_held_cents"}
-ADAPTIVE_FIELD_OF = {v: k for k, v in ADAPTIVE_KEY_OF.items()}
-
-# units of the numeric adaptive settings, named in a range error
-ADAPTIVE_UNITS = {"chord_window": "seconds", "attack_time": "seconds", "max_drift": "cents",
-                  "max_motion": "cents", "recentre_band_cents": "cents",
-                  "recentre_band_per_held_cents": "cents", "aim_limit": "cents", "drift_margin": "cents"}
-
-
-def adaptive_fields(settings: dict, source: str = "control socket") -> dict:
-    """User-facing adaptive settings -> the solver's field names (AdaptiveConfig); a duration
-    written with its unit ('30 ms') becomes seconds, as in the config file."""
-    w = _Where(source)
-    return {ADAPTIVE_FIELD_OF.get(k, k): duration_seconds(v, w, f"adaptive.{k}", None, None)
-            if k in ADAPTIVE_DURATIONS else v for k, v in settings.items()}
-
-
-def adaptive_error(exc: RetunerError) -> RetunerError:
-    """A solver's error on an adaptive setting, named and measured as the user wrote it."""
-    head, _, name = (exc.field or "").rpartition(".")
-    user = ADAPTIVE_KEY_OF.get(name, name)
-    if name:
-        exc.field = f"{head}.{user}" if head else user
-    unit = ADAPTIVE_UNITS.get(user)
-    if unit and exc.message.startswith("must be between") and unit not in exc.message:
-        exc.message = re.sub(r"^(must be between [^\s,]+ and [^\s,]+)", rf"\1 {unit}", exc.message)
-    return exc
 
 
 def _old_key_note(filename: str, mapping: Any, old: str, new: str, key: Any) -> str:

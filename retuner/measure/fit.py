@@ -106,9 +106,9 @@ def read_notes(path: str | os.PathLike, *, passthrough: Iterable[int] = (DRUM_CH
         if status == 0x90 and vel > 0:
             held.note_on(ch, key, (t, key, ch))
         else:
-            pressed, _ = held.note_off(ch, key)
-            if pressed is not None and t > pressed[0]:
-                notes.append(Note(pressed[0], t, key, ch))
+            for pressed, _ in held.note_off(ch, key):
+                if t > pressed[0]:
+                    notes.append(Note(pressed[0], t, key, ch))
     for st, key, ch in held.remaining():
         if t > st:
             notes.append(Note(st, t, key, ch))

@@ -38,7 +38,6 @@ import json
 import math
 from typing import Optional
 
-from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.engine.outputs import MODES
 from retuner.engine.outputs.base import explain_steals
 from retuner.pitch.intervals import CONSONANT_RATIOS, interval_name
@@ -46,7 +45,7 @@ from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
-from retuner.smf.messages import iter_output_stream, output_stream
+from retuner.smf.messages import iter_output_stream
 
 #: seconds a moment must last to count in the drift maximum; changes within this time of a
 #: note's start are within its attack (see retuner.measure.metrics.report)
@@ -357,23 +356,11 @@ def pair_times(notes) -> dict:
     return acc
 
 
-def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dict:
-    """Impurity, motion, drift and beat rates of the piece's most frequent consonant key pairs,
-    per tuning (static), and for adaptive tuning live and with lookahead when
-    ``adaptive_config`` is given (reference: the first tuning)."""
+def compare(path: str, decoded: list, top: int = 5) -> dict:
+    """Impurity, motion, drift and beat rates of the piece's ``top`` most frequent consonant key
+    pairs, per run: ``decoded`` is [(profile id, adaptive, lookahead, notes as :func:`metrics.decode`
+    gives them)], the first the reference (:mod:`retuner.convert.compare` converts the piece for each run)."""
     rows = []
-    runs = [(t, config.replace(adaptive=None), False) for t in tunings]
-    if adaptive_config is not None:
-        runs.append((tunings[0], config.replace(adaptive=adaptive_config), False))
-        runs.append((tunings[0], config.replace(adaptive=adaptive_config), True))
-    decoded = []
-    for tun, cfg, la in runs:
-        res = convert_song(song, "compare.mid", ConvertOptions(tun, cfg, lookahead=la))
-        notes = []
-        for o in res.outputs:
-            notes += metrics.decode(output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
-                                    exclude_channels=tuple(cfg.passthrough)).notes
-        decoded.append((tun, cfg.adaptive is not None, la, notes))
     # the piece's most frequent consonant pairs (by time sounding together), from the first run
     base = pair_times(decoded[0][3])
     chosen = sorted(base.items(), key=lambda kv: (-kv[1][0], kv[0]))[:top]
@@ -382,7 +369,7 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         intervals.append({"low": k1, "high": k2, "pair": f"{note_name(k1)}-{note_name(k2)}",
                           "interval": interval_name(k2 - k1),
                           "ratio": f"{p}/{q}", "together_s": round(secs, 3)})
-    for tun, adaptive, lookahead, notes in decoded:
+    for profile, adaptive, lookahead, notes in decoded:
         imp, _ = metrics.impurity(notes)
         dr = metrics.drift(notes)
         pt = pair_times(notes)
@@ -390,11 +377,11 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         for iv in intervals:
             e = pt.get((iv["low"], iv["high"]))
             beats.append(round(e[1] / e[0], 3) if e and e[0] > 0 else None)
-        rows.append({"profile": tun.id, "adaptive": adaptive, "lookahead": lookahead,
+        rows.append({"profile": profile, "adaptive": adaptive, "lookahead": lookahead,
                      "impurity_cents": round(imp, 3),
                      "motion_cents_per_note": round(metrics.motion(notes), 3),
                      "drift_max_cents": round(dr["max"], 3), "beat_rates_hz": beats})
-    return {"input": song.path, "intervals": intervals, "results": rows}
+    return {"input": path, "intervals": intervals, "results": rows}
 
 
 def result_label(r: dict) -> str:

@@ -9,7 +9,7 @@ import sys
 import tomllib
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parent.parent
+ROOT = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file())   # the checkout, at any depth of tests/
 
 
 def test_every_package_of_the_tree_is_listed_for_installation():

@@ -194,7 +194,7 @@ def test_move_bends_early_rules():
     """A note's bend goes back to when its channel fell silent (note-off + release time), never
     before the channel's previous bend or a reset all controllers (CC121 resets the bend, MIDI 1.0),
     and stays at the note-on when the channel still rings."""
-    from retuner.adaptive.lookahead import move_bends_early
+    from retuner.convert.lookahead import move_bends_early
 
     song = reader.parse_smf(writer.serialize(0, 480, [([(0, b"\xFF\x51\x03\x07\xA1\x20")], 0)]))  # 120 bpm
 
@@ -219,7 +219,7 @@ def test_l1_solve_weighted_median():
     weighted median of the b_p (a fact of L1 fitting, common practice); with the centre row on
     that pitch priced above the pull, the pitch goes to the reference instead."""
     import numpy as np
-    from retuner.adaptive.lookahead import l1_solve
+    from retuner.convert.lookahead import l1_solve
 
     b = [3.0, -2.0, 7.0, 1.0, 5.0]
     c = [1.0, 1.0, 1.0, 2.5, 1.0]   # weighted median: 1.0 (weights below it 1.0, above it 3.0)
@@ -237,7 +237,7 @@ def test_l1_solve_agrees_with_brute_force():
     """Three pitches (a held note before the window, a pair, a chord's centre): the programme's
     optimum equals the minimum over a fine grid of the objective written out independently."""
     import numpy as np
-    from retuner.adaptive.lookahead import l1_solve
+    from retuner.convert.lookahead import l1_solve
 
     rng = np.random.default_rng(7)
     for _ in range(3):
@@ -276,7 +276,7 @@ def test_mixture_of_plans_is_no_worse_than_its_parts():
     """choose() relies on the measures being convex in the planned pitches: the output of a
     mixture of two plans measures no worse than the mixture of their measures (up to a bend
     step, 200/8192 c at the default range: MIDI 1.0 pitch bend, 14 bits)."""
-    from retuner.adaptive import lookahead
+    from retuner.convert import lookahead
 
     song = _song("pump", legato=True)
     cfg = EngineConfig(adaptive=AdaptiveConfig())

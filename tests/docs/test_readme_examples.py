@@ -24,7 +24,7 @@ from retuner import cli
 from retuner.live.config import load_config, parse_config
 from retuner.profiles.parse import parse_profile
 
-REPO = Path(__file__).resolve().parent.parent
+REPO = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file())   # the checkout, at any depth of tests/
 README = (REPO / "README.md").read_text()
 OPERATORS = {"&&", "||", ";", "&", "|", ">", ">>", "<", "2>"}
 RUN_FOR_REAL = {"show", "profiles", "manual", "completion"}

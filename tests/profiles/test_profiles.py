@@ -400,7 +400,8 @@ def test_installed_package_finds_its_builtin_profiles(tmp_path):
 
 def readme_profile_blocks():
     """The YAML blocks of the README's profile section, as a user would copy them."""
-    text = (pathlib.Path(__file__).resolve().parent.parent / "README.md").read_text()
+    text = (next(p for p in pathlib.Path(__file__).resolve().parents if (p / "pyproject.toml").is_file())
+            / "README.md").read_text()
     start = text.index("## Profiles")
     end = text.index("\n## ", start + 1)
     return re.findall(r"```yaml\n(.*?)```", text[start:end], re.S)

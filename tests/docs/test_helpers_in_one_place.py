@@ -5,9 +5,10 @@ module that another one imports, so a test module can be moved, split or removed
 from __future__ import annotations
 
 import ast
+from collections import Counter
 from pathlib import Path
 
-TESTS = Path(__file__).resolve().parent
+TESTS = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file()) / "tests"   # every folder below it too
 
 
 def imported_test_modules(source: str) -> list[str]:
@@ -35,3 +36,15 @@ def test_no_module_under_tests_imports_a_test_module():
         for name in imported_test_modules(path.read_text(encoding="utf-8")):
             bad.append(f"{path.relative_to(TESTS)} imports {name}")
     assert not bad, bad
+
+
+def test_test_modules_have_unique_names_and_helpers_stay_in_tests():
+    """Test modules are grouped in folders by the package they test, and pytest imports each by
+    its base name (its default import mode, prepend), so no two may share one; the helper
+    modules stay in tests/ itself (on the path of every folder: pyproject's pythonpath), the
+    converter's generated files in tests/data."""
+    names = Counter(p.name for p in TESTS.rglob("test_*.py"))
+    assert not [n for n, c in names.items() if c > 1], names.most_common(3)
+    strays = [str(p.relative_to(TESTS)) for p in TESTS.rglob("*.py")
+              if p.parent not in (TESTS, TESTS / "data") and not p.name.startswith("test_")]
+    assert not strays, strays

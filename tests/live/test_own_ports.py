@@ -14,7 +14,7 @@ from pathlib import Path
 
 from retuner.live.ports import RtMidiBackend
 
-README = (Path(__file__).resolve().parent.parent / "README.md").read_text()
+README = (next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file()) / "README.md").read_text()
 
 
 def test_client_names_are_the_same_on_alsa_and_jack():

@@ -74,6 +74,7 @@ from typing import Callable, Optional
 
 import numpy as np
 
+from retuner.engine.notes import NoteTracker
 from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
 from retuner.measure import metrics
@@ -102,7 +103,7 @@ CENTRING_TOL = 0.1
 
 
 class _Note:
-    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0", "stale")
+    __slots__ = ("id", "part", "key", "on", "end", "off", "s0", "s1", "var0")
 
     def __init__(self, id_, part, key, on):
         self.id = id_
@@ -114,18 +115,15 @@ class _Note:
         self.s0 = 0
         self.s1 = -1
         self.var0 = -1
-        self.stale = False      # outlived a release of its key (see retuner.engine.inputs)
 
 
 def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
-    """Notes of the file with their sounding times (sustain pedal honoured; note-offs matched to
-    presses per channel and key as the engine does: first in, first out, and stale presses
-    ended with the newer press, see :mod:`retuner.engine.inputs`). ``merged``: (tick, track, kind, raw bytes) of every
-    event; channel messages are those whose status byte is below 0xF0 (MIDI 1.0)."""
+    """Notes of the file with their sounding times: presses, releases and pedals (sustain,
+    sostenuto) by the engine's own rule (:mod:`retuner.engine.notes`), per channel. ``merged``:
+    (tick, track, kind, raw bytes) of every event; channel messages are those whose status
+    byte is below 0xF0 (MIDI 1.0)."""
     notes: list[_Note] = []
-    fifo: dict[tuple[int, int], list] = {}
-    pedal: dict[int, bool] = {}
-    pedalled: dict[int, list] = {}
+    tracker = NoteTracker(sostenuto=True)
     for (tick, ti, kind, raw), t in zip(merged, secs):
         st = raw[0]
         if st >= 0xF0:
@@ -140,39 +138,15 @@ def extract_notes(merged, secs, passthrough, tuning) -> list[_Note]:
                 continue
             n = _Note(len(notes), ch, key, t)
             notes.append(n)
-            fifo.setdefault((ch, key), []).append(n)
+            tracker.note_on(ch, key, n)
         elif hi == 0x80 or hi == 0x90:
-            q = fifo.get((ch, raw[1]))
-            if q:
-                ended = [q.pop(0)]
-                if q and ended[0].stale and not q[-1].stale:
-                    while q[0].stale:
-                        ended.append(q.pop(0))
-                    ended.append(q.pop(0))
-                for n in q:
-                    n.stale = True
-                for n in ended:
-                    n.off = t
-                    if pedal.get(ch):
-                        pedalled.setdefault(ch, []).append(n)
-                    else:
-                        n.end = t
-        elif hi == 0xB0:
-            cc, v = raw[1], raw[2]
-            if cc == 64:
-                down = v >= 64
-                if pedal.get(ch) and not down:
-                    for n in pedalled.pop(ch, []):
-                        n.end = t
-                pedal[ch] = down
-            elif cc in (120, 123, 124, 125, 126, 127):
-                for (c, k), q in list(fifo.items()):
-                    if c == ch:
-                        for n in q:
-                            n.end = n.off = t
-                        del fifo[(c, k)]
-                for n in pedalled.pop(ch, []):
+            for n, now in tracker.note_off(ch, raw[1]):
+                n.off = t
+                if now:
                     n.end = t
+        elif hi == 0xB0:
+            for n in tracker.control(ch, raw[1], raw[2]):
+                n.end = t
     end = secs[-1] if secs else 0.0
     for n in notes:
         if n.end == math.inf:

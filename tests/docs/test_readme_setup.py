@@ -23,7 +23,7 @@ from retuner.cli import build_parser
 from retuner.live import ports
 from retuner.live.config import Settings
 
-REPO = Path(__file__).resolve().parent.parent
+REPO = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file())   # the checkout, at any depth of tests/
 README = (REPO / "README.md").read_text()
 PREFIX = 'S=$(test "$(id -u)" = 0 || echo sudo)'
 VENV = ".venv"

@@ -19,6 +19,7 @@ import subprocess
 import sys
 import threading
 import time
+from pathlib import Path
 from fnmatch import fnmatchcase
 
 import pytest
@@ -26,7 +27,7 @@ import pytest
 from data import midigen
 from daemonrig import Rig, note_on
 
-REPO = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+REPO = next(str(p) for p in Path(os.path.abspath(__file__)).parents if (p / "pyproject.toml").is_file())   # the checkout, at any depth of tests/
 
 #: where a mapping's keys are data (names of progressions, profiles, policies, goals, part and
 #: worker numbers), not field names: path patterns, '*' standing for one key

@@ -25,7 +25,7 @@ import pytest
 
 from jack import Received, decode
 
-TESTS = Path(__file__).resolve().parent
+TESTS = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file()) / "tests"   # where the helper modules are
 SYNT_COMMA = 1200 * math.log2(81 / 80)
 MEANTONE_FIFTH = 1200 * math.log2(3 / 2) - SYNT_COMMA / 4
 

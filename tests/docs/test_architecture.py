@@ -1,11 +1,12 @@
 """The package's structure, read from its own import statements (the ast of every module,
 imports inside functions included, since a lazy import is a dependency all the same).
 
-* no import cycle among retuner's modules;
-* data flows one way: the sans-I/O core (pitch, midi, engine, adaptive, profiles) never imports
-  a shell (live, control, convert, smf, measure, bench, view, commands, cli), except the measures
-  of an output stream (measure.metrics: pure functions of messages), which the lookahead planner
-  uses to choose among its plans;
+* no import cycle among retuner's modules, nor among its parts (live, control, convert, ...);
+* data flows one way, down the layers of the core: the engine calls adaptive and profiles, they
+  call pitch and midi, all may raise errors; the sans-I/O core never imports anything above it.
+  Every other part of the package (live, control, convert, smf, measure, bench, view, commands,
+  cli, and any part added later) counts as a shell, so an import from the core to any of them
+  fails, with no exception;
 * no output-mode name is compared outside the modules that define the modes.
 """
 
@@ -17,9 +18,11 @@ from pathlib import Path
 import retuner
 
 PKG = Path(retuner.__file__).resolve().parent
-CORE = ("pitch", "midi", "engine", "adaptive", "profiles")
-SHELLS = ("live", "control", "convert", "smf", "measure", "bench", "view", "commands", "cli")
-ALLOWED = {"retuner.measure.metrics"}
+#: the core's layers, lowest first: a module imports only from its own layer or the ones below.
+#: Whatever is not named here is a shell and stands above them all.
+LAYERS = (("errors", "units"), ("pitch", "midi"), ("profiles", "adaptive"), ("engine",))
+RANK = {part: i for i, layer in enumerate(LAYERS) for part in layer}
+SHELL = len(LAYERS)
 
 
 def modules() -> dict[str, Path]:
@@ -103,16 +106,59 @@ def test_no_import_cycle_counting_imports_inside_functions():
     assert find_cycle(g) is None, " -> ".join(find_cycle(g))
 
 
-def test_the_core_never_imports_a_shell():
-    bad = []
-    for n, deps in graph().items():
-        parts = n.split(".")
-        if len(parts) < 2 or parts[1] not in CORE:
-            continue
-        for d in deps:
-            dp = d.split(".")
-            if len(dp) > 1 and dp[1] in SHELLS and d not in ALLOWED and d != "retuner.measure":
-                bad.append(f"{n} imports {d}")
+def rank(module: str) -> int:
+    """The layer of a module: its first part below ``retuner`` (``retuner.engine.core`` -> engine)."""
+    parts = module.split(".")
+    return RANK.get(parts[1], SHELL) if len(parts) > 1 else SHELL
+
+
+def upward_imports(g: dict[str, set[str]]) -> list[str]:
+    return sorted(f"{n} imports {d}" for n, deps in g.items() for d in deps if rank(d) > rank(n))
+
+
+def test_the_checker_sees_an_upward_import():
+    """The layer check itself, on made-up graphs (so the real check can fail): the lookahead
+    planner as it stood in adaptive/ (it used measure.metrics), a solver reaching for the engine,
+    and the pitch arithmetic reaching for a part of the package that does not exist yet."""
+    assert upward_imports({"retuner.adaptive.lookahead": {"retuner.measure.metrics", "retuner.measure",
+                                                          "retuner.engine.outputs", "retuner.errors"}}) == [
+        "retuner.adaptive.lookahead imports retuner.engine.outputs",
+        "retuner.adaptive.lookahead imports retuner.measure",
+        "retuner.adaptive.lookahead imports retuner.measure.metrics"]
+    assert upward_imports({"retuner.pitch.tuning": {"retuner.newshell.x", "retuner.cli"}}) == [
+        "retuner.pitch.tuning imports retuner.cli", "retuner.pitch.tuning imports retuner.newshell.x"]
+    assert upward_imports({"retuner.live.daemon": {"retuner.engine.core", "retuner.control.server"},
+                           "retuner.engine.core": {"retuner.adaptive.solver", "retuner.midi.encode"}}) == []
+
+
+def test_every_part_of_the_package_is_a_layer_of_the_core_or_a_shell():
+    """A core layer named here that no longer exists would silently check nothing."""
+    parts = {n.split(".")[1] for n in modules() if "." in n}
+    assert set(RANK) <= parts, set(RANK) - parts
+
+
+def part_graph(g: dict[str, set[str]]) -> dict[str, set[str]]:
+    """The same graph between the package's parts (``retuner.live.daemon`` -> live)."""
+    def part(m):
+        return m.split(".")[1] if "." in m else m
+    out: dict[str, set[str]] = {}
+    for n, deps in g.items():
+        out.setdefault(part(n), set()).update(part(d) for d in deps if part(d) != part(n))
+    return out
+
+
+def test_no_import_cycle_between_the_parts_of_the_package():
+    """Shells too import one way: a part that imports another is never imported by it, through
+    any chain (the daemon hosts the control socket, so control never imports live; convert
+    measures its plans, so measure never imports convert)."""
+    assert part_graph({"retuner.live.daemon": {"retuner.control.server"},
+                       "retuner.control.commands": {"retuner.live.config"}})["control"] == {"live"}
+    g = part_graph(graph())
+    assert find_cycle(g) is None, " -> ".join(find_cycle(g))
+
+
+def test_the_core_never_imports_a_shell_nor_a_higher_layer():
+    bad = upward_imports(graph())
     assert not bad, bad
 
 
