@@ -39,7 +39,9 @@ Definitions (the same everywhere a figure is shown, so figures compare):
 
 from __future__ import annotations
 
+import itertools
 import math
+from array import array
 from dataclasses import dataclass, field
 from typing import Iterable, Optional, Sequence
 
@@ -453,25 +455,23 @@ def _moments(notes: Sequence[NoteTrack]):
     start ``t0``, end ``t1`` and count of sounding notes, and per sounding note (the moments
     one after the other) its key and pitch. The same walk as :func:`segments`, kept in arrays
     instead of one list per moment."""
-    n_steps = sum(len(n.steps) for n in notes)
-    total = n_steps + len(notes)
-    times = np.empty(total)
-    cents = np.empty(total)
-    index = np.empty(total, dtype=np.int64)
-    ends = np.zeros(total, dtype=np.int8)          # 0 a start or change, 1 an end
-    j = 0
+    times = array("d")
+    cents = array("d")
+    index = array("q")
+    ends = array("b")                              # 0 a start or change, 1 an end
     for i, n in enumerate(notes):
-        for t, c in n.steps:
-            times[j] = t
-            cents[j] = c
-            index[j] = i
-            j += 1
-        times[j] = n.end if n.end is not None else n.start
-        cents[j] = 0.0
-        index[j] = i
-        ends[j] = 1
-        j += 1
-    order = np.lexsort((ends, times))              # stable: as sorting by (time, kind)
+        steps = n.steps
+        for t, c in steps:
+            times.append(t)
+            cents.append(c)
+        times.append(n.end if n.end is not None else n.start)
+        cents.append(0.0)
+        index.extend([i] * (len(steps) + 1))
+        ends.extend(bytes(len(steps)))
+        ends.append(1)
+    times_a, cents_a = np.frombuffer(times, dtype=np.float64), np.frombuffer(cents, dtype=np.float64)
+    index_a, ends_a = np.frombuffer(index, dtype=np.int64), np.frombuffer(ends, dtype=np.int8)
+    order = np.lexsort((ends_a, times_a))          # stable: as sorting by (time, kind)
     keys_of = np.fromiter((n.key for n in notes), dtype=np.float64, count=len(notes))
     at_once = MOMENTS_AT_ONCE
     cur: dict[int, float] = {}
@@ -482,8 +482,11 @@ def _moments(notes: Sequence[NoteTrack]):
     counts: list[int] = []
     who: list[int] = []
     pitch: list[float] = []
-    for t, kind, i, c in zip(times[order].tolist(), ends[order].tolist(), index[order].tolist(),
-                             cents[order].tolist()):
+    # in time order, a slice at a time as Python numbers (a long piece holds millions)
+    events = (zip(times_a[part].tolist(), ends_a[part].tolist(), index_a[part].tolist(),
+                  cents_a[part].tolist())
+              for part in (order[k:k + 4 * at_once] for k in range(0, len(order), 4 * at_once)))
+    for t, kind, i, c in itertools.chain.from_iterable(events):
         if prev_t is not None and t > prev_t + TIME_EPS:
             if cur:
                 t0s.append(prev_t)

@@ -42,7 +42,7 @@ from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
-from retuner.smf.messages import output_stream, wire_stream
+from retuner.smf.messages import wire_stream
 
 #: seconds a moment must last to count in the drift maximum; changes within this time of a
 #: note's start are within its attack (see retuner.measure.metrics.report)
