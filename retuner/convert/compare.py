@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from retuner.convert.conversion import ConvertOptions, convert_song
 from retuner.measure import metrics, report
-from retuner.smf.messages import output_stream
+from retuner.smf.messages import wire_stream
 
 
 def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dict:
@@ -22,7 +22,7 @@ def compare(song, tunings, config, *, adaptive_config=None, top: int = 5) -> dic
         res = convert_song(song, "compare.mid", ConvertOptions(tun, cfg, lookahead=la))
         notes = []
         for o in res.outputs:
-            notes += metrics.decode(output_stream(o.data, o.path), bend_scale=cfg.bend_scale,
-                                    exclude_channels=tuple(cfg.passthrough)).notes
+            notes += metrics.decode_wire(wire_stream(o.data, o.path), bend_scale=cfg.bend_scale,
+                                         exclude_channels=tuple(cfg.passthrough)).notes
         decoded.append((tun.id, cfg.adaptive is not None, la, notes))
     return report.compare(song.path, decoded, top)

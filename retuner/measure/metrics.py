@@ -39,14 +39,17 @@ Definitions (the same everywhere a figure is shown, so figures compare):
 
 from __future__ import annotations
 
+import itertools
 import math
+from array import array
 from dataclasses import dataclass, field
 from typing import Iterable, Optional, Sequence
 
 import mido
+import numpy as np
 
 from retuner.midi.mts import is_mts, parse_sysex
-from retuner.midi.resets import system_reset
+from retuner.midi.resets import system_reset_bytes
 from retuner.pitch import intervals
 from retuner.pitch.tuning import Tuning
 
@@ -63,6 +66,10 @@ RPN_BEND_RANGE = (0, 0)
 RPN_MPE_CONFIG = (0, 6)
 RPN_TUNING_PROGRAM = (0, 3)
 RPN_TUNING_BANK = (0, 4)
+# the controllers that change what the decoder hears: RPN and NRPN selection, data entry,
+# reset all controllers (121), all notes off (123), all sound off (120)
+_CC_HEARD = frozenset((CC_RPN_MSB, CC_RPN_LSB, CC_NRPN_MSB, CC_NRPN_LSB, CC_DATA_MSB, CC_DATA_LSB,
+                       121, 123, 120))
 
 
 @dataclass(slots=True)
@@ -105,8 +112,9 @@ class Decoded:
 
 # -- MIDI Tuning Standard part ---------------------------------------------------
 
-def _parse_mts(msg: mido.Message):
-    """MTS sysex -> (realtime, bank, program, [(key, cents|None)]) or None."""
+def _parse_mts(msg):
+    """MTS sysex (a mido message, or its bytes from F0 to F7) -> (realtime, bank, program,
+    [(key, cents|None)]) or None."""
     if not is_mts(msg):
         return None
     try:
@@ -145,7 +153,21 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
     output carries it: ``round(cents / step)`` steps), so the notes carry the tuning's part only (a pitch
     error is then measured against tuning plus wheel, and motion and drift count
     what the tuning does).
+
+    The messages are decoded as their bytes (:func:`decode_wire`).
     """
+    return decode_wire(((t, m.bytes()) for t, m in stream), bend_scale=bend_scale,
+                       bend_range=bend_range, exclude_channels=exclude_channels,
+                       end_time=end_time, expression=expression)
+
+
+def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: float = 1.0,
+                bend_range: Optional[float] = None, exclude_channels: Sequence[int] = (),
+                end_time: Optional[float] = None,
+                expression: Optional[Sequence[tuple[float, int, float]]] = None) -> Decoded:
+    """:func:`decode` of a stream of ``(seconds, bytes)``, each message as a synth receives it
+    (MIDI 1.0: status byte and data bytes; system exclusive from F0 to F7; System Reset FF),
+    as :func:`retuner.smf.messages.wire_stream` reads them from a file: no object per message."""
     chans = [_Channel() for _ in range(16)]
     if bend_range is not None:
         for c in chans:
@@ -153,15 +175,19 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
     tables: dict[tuple[int, int], list[float]] = {}
     last_prog: list[Optional[tuple[int, int]]] = [None]
     sounding: dict[tuple[int, int], NoteTrack] = {}
+    # the same notes by channel: key -> [note, tuning-table pitch of the note]
+    on_ch: list[dict[int, list]] = [{} for _ in range(16)]
     done: list[NoteTrack] = []
     bends = 0
     used: set[int] = set()
     t_last = 0.0
     excl = set(exclude_channels)
-    bases: dict[int, float] = {}  # id(NoteTrack) -> tuning-table pitch of the sounding note
     expr = [0.0] * 16             # the player's wheel on each channel, cents (taken off)
     xs = list(expression or ())
     xi = 0
+    nx = len(xs)
+    x_next = xs[0][0] if xs else math.inf
+    step_of = _step
 
     def table_for(ch: int) -> Optional[list[float]]:
         c = chans[ch]
@@ -171,10 +197,6 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
             return tables.get(last_prog[0])
         return None
 
-    def base(ch: int, key: int) -> float:
-        tab = table_for(ch)
-        return tab[key] if tab is not None else 100.0 * key
-
     def bend(ch: int) -> float:
         c = chans[ch]
         step = c.range * 100.0 * bend_scale / 8192.0
@@ -183,35 +205,49 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
         share = round(w / step) * step if w and step else 0.0
         return c.bend * step - share
 
-    def restep(t: float, pred) -> None:
-        for (ch, key), nt in sounding.items():
-            if pred(ch, key):
-                p = bases[id(nt)] + bend(ch)
+    def restep_channel(t: float, ch: int) -> None:
+        notes = on_ch[ch]
+        if notes:
+            b = bend(ch)
+            for nt, b0 in notes.values():
+                p = b0 + b
                 if abs(p - nt.steps[-1][1]) > 1e-9:
-                    _step(nt, t, p)
+                    step_of(nt, t, p)
 
-    for t, msg in stream:
+    def end_note(ch: int, key: int, t: float) -> None:
+        nt = sounding.pop((ch, key))
+        del on_ch[ch][key]
+        nt.end = t
+        done.append(nt)
+
+    for t, raw in stream:
         if t > t_last:
             t_last = t
-        while xi < len(xs) and xs[xi][0] <= t + TIME_EPS:
-            tx, xch, cents = xs[xi]
-            xi += 1
-            if expr[xch] != cents:
-                expr[xch] = cents
-                restep(tx, lambda cc2, key, xch=xch: cc2 == xch)
-        typ = msg.type
-        if (typ == "sysex" or typ == "reset") and system_reset(msg) is not None:
-            # GM/GM2/GS/XG system on, System Reset: every note stops, every channel is
-            # back at bend range 2 (General MIDI), wheel centred, RPN null, no tuning selected
-            for nt in sounding.values():
-                nt.end = t
-                done.append(nt)
-            sounding.clear()
-            chans[:] = [_Channel() for _ in range(16)]
-            last_prog[0] = None
-            continue
-        if typ == "sysex":
-            parsed = _parse_mts(msg)
+        if x_next <= t + TIME_EPS:
+            while xi < nx and xs[xi][0] <= t + TIME_EPS:
+                tx, xch, cents = xs[xi]
+                xi += 1
+                if expr[xch] != cents:
+                    expr[xch] = cents
+                    restep_channel(tx, xch)
+            x_next = xs[xi][0] if xi < nx else math.inf
+        status = raw[0]
+        if status >= 0xF0:
+            if system_reset_bytes(raw) is not None:
+                # GM/GM2/GS/XG system on, System Reset: every note stops, every channel is
+                # back at bend range 2 (General MIDI), wheel centred, RPN null, no tuning selected
+                for nt in sounding.values():
+                    nt.end = t
+                    done.append(nt)
+                sounding.clear()
+                for d in on_ch:
+                    d.clear()
+                chans[:] = [_Channel() for _ in range(16)]
+                last_prog[0] = None
+                continue
+            if status != 0xF0:
+                continue
+            parsed = _parse_mts(raw)
             if parsed is None:
                 continue
             realtime, bank, program, changes = parsed
@@ -223,40 +259,40 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
             last_prog[0] = pk
             if realtime:
                 # real-time: sounding notes of this table take the new pitch at once
-                for (ch, key), nt in sounding.items():
-                    if table_for(ch) is tab:
-                        bases[id(nt)] = tab[key]
-                restep(t, lambda ch, key: table_for(ch) is tab)
+                for ch in range(16):
+                    if on_ch[ch] and table_for(ch) is tab:
+                        for key, entry in on_ch[ch].items():
+                            entry[1] = tab[key]
+                        restep_channel(t, ch)
             # non-real-time: sounding notes keep their pitch; later notes use the new table
             continue
-        if not hasattr(msg, "channel"):
-            continue
-        ch = msg.channel
+        ch = status & 0x0F
         if ch in excl:
             continue
-        c = chans[ch]
-        if typ == "note_on" and msg.velocity > 0:
-            k = (ch, msg.note)
-            if k in sounding:  # re-strike of a sounding key: the old note ends
-                old = sounding.pop(k)
-                old.end = t
-                done.append(old)
-            b0 = base(ch, msg.note)
-            nt = NoteTrack(msg.note, ch, t, steps=[(t, b0 + bend(ch))])
-            bases[id(nt)] = b0
-            sounding[k] = nt
+        hi = status & 0xF0
+        if hi == 0x90 and raw[2] > 0:
+            key = raw[1]
+            if key in on_ch[ch]:  # re-strike of a sounding key: the old note ends
+                end_note(ch, key, t)
+            tab = table_for(ch)
+            b0 = tab[key] if tab is not None else 100.0 * key
+            nt = NoteTrack(key, ch, t, steps=[(t, b0 + bend(ch))])
+            on_ch[ch][key] = [nt, b0]
+            sounding[(ch, key)] = nt
             used.add(ch + 1)
-        elif typ == "note_off" or (typ == "note_on" and msg.velocity == 0):
-            nt = sounding.pop((ch, msg.note), None)
-            if nt is not None:
-                nt.end = t
-                done.append(nt)
-        elif typ == "pitchwheel":
+        elif hi == 0x80 or hi == 0x90:
+            if raw[1] in on_ch[ch]:
+                end_note(ch, raw[1], t)
+        elif hi == 0xE0:
             bends += 1
-            c.bend = msg.pitch
-            restep(t, lambda cc, key: cc == ch)
-        elif typ == "control_change":
-            cc, v = msg.control, msg.value
+            chans[ch].bend = (raw[1] | (raw[2] << 7)) - 8192
+            restep_channel(t, ch)
+        elif hi == 0xB0:
+            cc = raw[1]
+            if cc not in _CC_HEARD:                  # a pedal, a volume: no pitch changes
+                continue
+            c = chans[ch]
+            v = raw[2]
             if cc == CC_RPN_MSB:
                 c.rpn = (v, c.rpn[1] if c.rpn else 127)
             elif cc == CC_RPN_LSB:
@@ -266,13 +302,14 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
             elif cc == CC_DATA_MSB and c.rpn is not None:
                 if c.rpn == RPN_BEND_RANGE:
                     c.range = float(v)  # the MSB resets the cents part
-                    restep(t, lambda cc2, key: cc2 == ch)
+                    restep_channel(t, ch)
                 elif c.rpn == RPN_MPE_CONFIG and ch in (0, 15):
                     members = range(1, 1 + v) if ch == 0 else range(15 - v, 15)
                     for m in members:
                         chans[m].range = 48.0
                     c.range = 2.0
-                    restep(t, lambda cc2, key: True)
+                    for m in range(16):
+                        restep_channel(t, m)
                 elif c.rpn == RPN_TUNING_PROGRAM:
                     c.tprog = v
                     if c.pending_bank is not None:
@@ -281,16 +318,14 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
                     c.pending_bank = v
             elif cc == CC_DATA_LSB and c.rpn == RPN_BEND_RANGE:
                 c.range = math.floor(c.range) + v / 100.0
-                restep(t, lambda cc2, key: cc2 == ch)
+                restep_channel(t, ch)
             elif cc == 121:  # reset all controllers (RP-015): wheel centred, RPN null, range kept
                 c.bend = 0
                 c.rpn = None
-                restep(t, lambda cc2, key: cc2 == ch)
+                restep_channel(t, ch)
             elif cc == 123 or cc == 120:  # all notes off / all sound off
-                for k in [k for k in sounding if k[0] == ch]:
-                    nt = sounding.pop(k)
-                    nt.end = t
-                    done.append(nt)
+                for key in [k for (c2, k) in sounding if c2 == ch]:
+                    end_note(ch, key, t)
 
     t_end = end_time if end_time is not None else t_last
     for nt in sounding.values():
@@ -309,8 +344,15 @@ def input_wheel(stream: Iterable[tuple[float, mido.Message]], wheel_range: float
     until it sets one, and again after a system reset); reset all controllers (CC121)
     centres it. ``channels_of`` maps an input channel to the output channels that carry its
     notes (and its wheel); returns ``(seconds, output channel, cents)`` in time order, for
-    :func:`decode`'s ``expression``.
+    :func:`decode`'s ``expression``. The messages are read as their bytes
+    (:func:`input_wheel_wire`).
     """
+    return input_wheel_wire(((t, m.bytes()) for t, m in stream), wheel_range, channels_of)
+
+
+def input_wheel_wire(stream: Iterable[tuple[float, Sequence[int]]], wheel_range: float,
+                     channels_of: dict) -> list[tuple[float, int, float]]:
+    """:func:`input_wheel` of a stream of ``(seconds, bytes)`` as :func:`decode_wire` reads."""
     rng: dict[int, float] = {}
     rpn: dict[int, Optional[tuple[int, int]]] = {}
     wheel: dict[int, int] = {}
@@ -321,24 +363,16 @@ def input_wheel(stream: Iterable[tuple[float, mido.Message]], wheel_range: float
         for oc in channels_of.get(ch, ()):
             out.append((t, oc, cents))
 
-    for t, msg in stream:
-        if system_reset(msg) is not None:
-            moved = [ch for ch, w in wheel.items() if w]
-            rng.clear()
-            rpn.clear()
-            wheel.clear()
-            for ch in moved:
-                emit(t, ch)
-            continue
-        ch = getattr(msg, "channel", None)
-        if ch is None:
-            continue
-        typ = msg.type
-        if typ == "pitchwheel":
-            wheel[ch] = msg.pitch
+    for t, raw in stream:
+        status = raw[0]
+        hi = status & 0xF0
+        if hi == 0xE0:
+            ch = status & 0x0F
+            wheel[ch] = (raw[1] | (raw[2] << 7)) - 8192
             emit(t, ch)
-        elif typ == "control_change":
-            cc, v = msg.control, msg.value
+        elif hi == 0xB0:
+            ch = status & 0x0F
+            cc, v = raw[1], raw[2]
             sel = rpn.get(ch)
             if cc == CC_RPN_MSB:
                 rpn[ch] = (v, sel[1] if sel else 127)
@@ -357,6 +391,13 @@ def input_wheel(stream: Iterable[tuple[float, mido.Message]], wheel_range: float
             elif cc == 121:
                 wheel[ch] = 0
                 rpn[ch] = None
+                emit(t, ch)
+        elif status >= 0xF0 and system_reset_bytes(raw) is not None:
+            moved = [ch for ch, w in wheel.items() if w]
+            rng.clear()
+            rpn.clear()
+            wheel.clear()
+            for ch in moved:
                 emit(t, ch)
     out.sort(key=lambda e: e[0])
     return out
@@ -403,20 +444,113 @@ def pair_deviation(cents_low: float, cents_high: float) -> Optional[float]:
     return d - (CONSONANT_CENTS[cls] + 1200.0 * octs)
 
 
+# interval class -> its just size in cents (NaN: not a counted consonance), for the arrays
+_JUST_BY_CLASS = np.array([CONSONANT_CENTS.get(c, np.nan) for c in range(12)])
+#: moments handled at once by :func:`moment_figures` (bounds its memory on a long piece)
+MOMENTS_AT_ONCE = 1 << 15
+
+
+def _moments(notes: Sequence[NoteTrack]):
+    """The moments of :func:`segments` in blocks of arrays, for the measures: per moment its
+    start ``t0``, end ``t1`` and count of sounding notes, and per sounding note (the moments
+    one after the other) its key and pitch. The same walk as :func:`segments`, kept in arrays
+    instead of one list per moment."""
+    times = array("d")
+    cents = array("d")
+    index = array("q")
+    ends = array("b")                              # 0 a start or change, 1 an end
+    for i, n in enumerate(notes):
+        steps = n.steps
+        for t, c in steps:
+            times.append(t)
+            cents.append(c)
+        times.append(n.end if n.end is not None else n.start)
+        cents.append(0.0)
+        index.extend([i] * (len(steps) + 1))
+        ends.extend(bytes(len(steps)))
+        ends.append(1)
+    times_a, cents_a = np.frombuffer(times, dtype=np.float64), np.frombuffer(cents, dtype=np.float64)
+    index_a, ends_a = np.frombuffer(index, dtype=np.int64), np.frombuffer(ends, dtype=np.int8)
+    order = np.lexsort((ends_a, times_a))          # stable: as sorting by (time, kind)
+    keys_of = np.fromiter((n.key for n in notes), dtype=np.float64, count=len(notes))
+    at_once = MOMENTS_AT_ONCE
+    cur: dict[int, float] = {}
+    ended: set[int] = set()
+    prev_t: Optional[float] = None
+    t0s: list[float] = []
+    t1s: list[float] = []
+    counts: list[int] = []
+    who: list[int] = []
+    pitch: list[float] = []
+    # in time order, a slice at a time as Python numbers (a long piece holds millions)
+    events = (zip(times_a[part].tolist(), ends_a[part].tolist(), index_a[part].tolist(),
+                  cents_a[part].tolist())
+              for part in (order[k:k + 4 * at_once] for k in range(0, len(order), 4 * at_once)))
+    for t, kind, i, c in itertools.chain.from_iterable(events):
+        if prev_t is not None and t > prev_t + TIME_EPS:
+            if cur:
+                t0s.append(prev_t)
+                t1s.append(t)
+                counts.append(len(cur))
+                who.extend(cur)
+                pitch.extend(cur.values())
+                if len(t0s) >= at_once:
+                    w = np.array(who, dtype=np.int64)
+                    yield np.array(t0s), np.array(t1s), np.array(counts), keys_of[w], np.array(pitch)
+                    t0s, t1s, counts, who, pitch = [], [], [], [], []
+            prev_t = t
+        elif prev_t is None:
+            prev_t = t
+        if kind:
+            cur.pop(i, None)
+            ended.add(i)
+        elif i not in ended:
+            cur[i] = c
+    if t0s:
+        w = np.array(who, dtype=np.int64)
+        yield np.array(t0s), np.array(t1s), np.array(counts), keys_of[w], np.array(pitch)
+
+
+def moment_figures(notes: Sequence[NoteTrack], settle: float = 0.0) -> tuple[float, float, dict]:
+    """:func:`impurity` and :func:`drift` from one walk over the moments: (impurity, total
+    pair time, drift). The pairs and means of each block of moments are taken with array
+    arithmetic; the figures are those of the definitions (sums in another order: equal to
+    about 1e-12 of their size)."""
+    tot = wsum = 0.0
+    mx = final = sq = tt = 0.0
+    for t0, t1, counts, keys, cents in _moments(notes):
+        dt = t1 - t0
+        starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+        # drift: the mean deviation from 12-EDO of the notes sounding in each moment
+        d = np.add.reduceat(cents - 100.0 * keys, starts) / counts
+        long_enough = dt >= settle
+        if long_enough.any():
+            mx = max(mx, float(np.abs(d[long_enough]).max()))
+        final = float(d[-1])
+        sq += float(np.sum(dt * d * d))
+        tt += float(np.sum(dt))
+        # impurity: every pair of notes of a moment, moments of one size at a time
+        for size in np.unique(counts).tolist():
+            if size < 2:
+                continue
+            rows = np.nonzero(counts == size)[0]
+            held = cents[starts[rows][:, None] + np.arange(size)]
+            lo, hi = np.triu_indices(size, 1)
+            dist = np.abs(held[:, hi] - held[:, lo])
+            semis = np.rint(dist / 100.0).astype(np.int64)      # round half to even, as round()
+            just = _JUST_BY_CLASS[semis % 12] + 1200.0 * (semis // 12)
+            counted = ~np.isnan(just)
+            w = np.broadcast_to(dt[rows][:, None], dist.shape)[counted]
+            tot += float(np.sum(w * np.abs(dist[counted] - just[counted])))
+            wsum += float(np.sum(w))
+    imp = tot / wsum if wsum > 0 else 0.0
+    return imp, wsum, {"max": mx, "final": final, "rms": math.sqrt(sq / tt) if tt > 0 else 0.0}
+
+
 def impurity(notes: Sequence[NoteTrack]) -> tuple[float, float]:
     """(time-weighted mean |deviation from just| of consonant pairs, total pair time)."""
-    tot = 0.0
-    wsum = 0.0
-    for t0, t1, snd in segments(notes):
-        dt = t1 - t0
-        ps = [p for _, p in snd]
-        for a in range(len(ps)):
-            for b in range(a + 1, len(ps)):
-                dev = pair_deviation(ps[a], ps[b])
-                if dev is not None:
-                    tot += dt * abs(dev)
-                    wsum += dt
-    return (tot / wsum if wsum > 0 else 0.0), wsum
+    imp, wsum, _ = moment_figures(notes)
+    return imp, wsum
 
 
 def motion(notes: Sequence[NoteTrack], after: float = 0.0) -> float:
@@ -425,13 +559,19 @@ def motion(notes: Sequence[NoteTrack], after: float = 0.0) -> float:
     within the attack is masked by it)."""
     if not notes:
         return 0.0
-    if after <= 0:
-        return sum(n.motion for n in notes) / len(notes)
-    tot = 0.0
-    for n in notes:
-        lim = n.start + after
-        tot += sum(abs(b[1] - a[1]) for a, b in zip(n.steps, n.steps[1:]) if b[0] > lim + TIME_EPS)
-    return tot / len(notes)
+    moved = [n for n in notes if len(n.steps) > 1]
+    if not moved:
+        return 0.0
+    times = np.array([t for n in moved for t, _ in n.steps])
+    cents = np.array([c for n in moved for _, c in n.steps])
+    first = np.cumsum([0] + [len(n.steps) for n in moved[:-1]])
+    change = np.ones(len(times), dtype=bool)        # a step that changes its note's pitch
+    change[first] = False
+    size = np.abs(np.diff(cents, prepend=0.0))
+    if after > 0:
+        lim = np.repeat(np.array([n.start for n in moved]) + after, [len(n.steps) for n in moved])
+        change &= times > lim + TIME_EPS
+    return float(np.sum(size[change])) / len(notes)
 
 
 def drift(notes: Sequence[NoteTrack], settle: float = 0.0) -> dict:
@@ -441,19 +581,7 @@ def drift(notes: Sequence[NoteTrack], settle: float = 0.0) -> dict:
     seconds (a chord window leaves held notes alone for a few milliseconds;
     this tells those moments apart). RMS and final are unaffected.
     """
-    mx = 0.0
-    final = 0.0
-    sq = 0.0
-    tt = 0.0
-    for t0, t1, snd in segments(notes):
-        d = sum(p - 100.0 * k for k, p in snd) / len(snd)
-        dt = t1 - t0
-        if dt >= settle:
-            mx = max(mx, abs(d))
-        final = d
-        sq += dt * d * d
-        tt += dt
-    return {"max": mx, "final": final, "rms": math.sqrt(sq / tt) if tt > 0 else 0.0}
+    return moment_figures(notes, settle)[2]
 
 
 def worst_error(notes: Sequence[NoteTrack], tuning: Tuning) -> float:
@@ -466,6 +594,25 @@ def worst_error(notes: Sequence[NoteTrack], tuning: Tuning) -> float:
         for _, c in n.steps:
             worst = max(worst, abs(c - target))
     return worst
+
+
+def worst_target_error(notes: Sequence[NoteTrack], tuning: Tuning) -> float:
+    """Largest distance of any pitch any note took from its target: the profile pitch of its
+    key, or, more than 50 cents away from it (the nearest-key rule plays a key from another)
+    or for a key the profile leaves unmapped, the nearest pitch the profile maps."""
+    if not notes:
+        return 0.0
+    mapped = np.array([c for c in tuning.cents if c is not None])
+    target = np.array([math.nan if c is None else c for c in tuning.cents])
+    keys = np.array([n.key for n in notes for _ in n.steps])
+    cents = np.array([c for n in notes for _, c in n.steps])
+    inside = (keys >= 0) & (keys < len(target))
+    err = np.full(len(cents), math.inf)
+    err[inside] = np.abs(cents[inside] - target[keys[inside]])
+    far = ~(err <= 50.0)                        # also NaN: an unmapped key
+    if far.any() and len(mapped):
+        err[far] = np.abs(cents[far][:, None] - mapped[None, :]).min(axis=1)
+    return float(err.max())
 
 
 def report(stream: Iterable[tuple[float, mido.Message]], *, tuning: Optional[Tuning] = None,

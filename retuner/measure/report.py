@@ -45,7 +45,7 @@ from retuner.errors import RetunerError
 from retuner.measure import metrics
 from retuner.outfile import write_atomic
 from retuner.pitch.tuning import beat_rate, cents_to_hz, note_name
-from retuner.smf.messages import iter_output_stream
+from retuner.smf.messages import wire_stream
 
 #: seconds a moment must last to count in the drift maximum; changes within this time of a
 #: note's start are within its attack (see retuner.measure.metrics.report)
@@ -85,15 +85,15 @@ def expression(res, opts, o) -> Optional[list]:
     try:
         with open(res.input, "rb") as f:
             data = f.read()
-        return metrics.input_wheel(iter_output_stream(data, res.input), config.wheel_range, channels_of)
+        return metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range, channels_of)
     except (OSError, RetunerError):
         return None
 
 
 def _decode(o, config):
-    stream = iter_output_stream(o.data, o.path)
-    return metrics.decode(stream, bend_scale=config.bend_scale,
-                          exclude_channels=tuple(config.passthrough), expression=o.wheel)
+    # the file's bytes as a synth receives them: no mido message per event
+    return metrics.decode_wire(wire_stream(o.data, o.path), bend_scale=config.bend_scale,
+                               exclude_channels=tuple(config.passthrough), expression=o.wheel)
 
 
 def decode_outputs(res, opts) -> list:
@@ -108,8 +108,7 @@ def decode_outputs(res, opts) -> list:
 
 
 def _measures(dec, tuning, stats: dict) -> dict:
-    imp, _ = metrics.impurity(dec.notes)
-    dr = metrics.drift(dec.notes, SETTLE)
+    imp, _, dr = metrics.moment_figures(dec.notes, SETTLE)   # impurity and drift: one walk
     rep = {
         "notes": len(dec.notes),
         "channels_used": list(dec.channels_used),
@@ -133,16 +132,7 @@ def _measures(dec, tuning, stats: dict) -> dict:
         "drift_rms_cents": round(dr["rms"], 4),
     }
     if tuning is not None:
-        worst = 0.0
-        for n in dec.notes:
-            # the note's target: the profile pitch of the key that asked for it. With the
-            # nearest-key rule the output key can differ; take the closest mapped target.
-            tgt = tuning.cents[n.key] if 0 <= n.key < 128 else None
-            for _, c in n.steps:
-                err = abs(c - tgt) if tgt is not None else math.inf
-                if err > 50.0:  # played from another key: compare with the nearest target
-                    err = min(abs(c - x) for x in tuning.cents if x is not None)
-                worst = max(worst, err)
+        worst = metrics.worst_target_error(dec.notes, tuning)
         rep["worst_pitch_error_cents"] = round(worst, 4)
     return rep
 

@@ -62,6 +62,18 @@ def system_reset(msg: Any) -> Optional[str]:
     return None
 
 
+def system_reset_bytes(raw) -> Optional[str]:
+    """The same for a message as a synth receives it (MIDI 1.0): System Reset (FF), or system
+    exclusive from F0 to F7; None for anything else."""
+    if not raw:
+        return None
+    if raw[0] == 0xFF and len(raw) == 1:
+        return SYSTEM_RESET
+    if raw[0] == 0xF0 and raw[-1] == 0xF7:
+        return _same_reset(bytes(raw[1:-1]))
+    return None
+
+
 def system_reset_raw(raw: bytes) -> Optional[str]:
     """The same for a system exclusive event as it stands in a Standard MIDI File
     (F0, length, data, F7); None for anything else."""
