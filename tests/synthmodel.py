@@ -8,7 +8,11 @@ lifted; sostenuto (CC66) holds the notes that were down when it was pressed; all
 (CC123) acts like a note-off for every note, all-sound-off (CC120) silences at once;
 reset-all-controllers (CC121) centres the bend and lifts the pedals, as recommended by the
 MMA's RP-015 (from memory)). It decodes each sounding note's pitch as key*100 +
-bend/8192*range cents, independently of the engine.
+bend/8192*range cents, independently of the engine. It also keeps each channel's instrument
+as a GM synth does: the program (with the bank selected by CC0/CC32 before it: a bank select
+takes effect at the next program change, GM2) each note starts with, and the channel's
+controllers (volume 7, default 100; pan 10, default 64; expression 11, default 127; the rest
+default 0: GM2 defaults, from memory; RP-015 resets modulation to 0 and expression to 127).
 
 :class:`MtsSynth`: a synth's key table under the MIDI Tuning Standard.
 """
@@ -20,11 +24,16 @@ import mido
 from mtsdecode import parse_single_note
 
 
-class Voice:
-    __slots__ = ("key", "down", "sost", "tag")
+CONTROLLER_DEFAULTS = {7: 100, 10: 64, 11: 127}
 
-    def __init__(self, key, tag=None):
+
+class Voice:
+    __slots__ = ("key", "down", "sost", "tag", "velocity", "program")
+
+    def __init__(self, key, tag=None, velocity=0, program=(0, 0, 0)):
         self.key, self.down, self.sost, self.tag = key, True, False, tag
+        self.velocity = velocity
+        self.program = program        # (bank MSB, bank LSB, program) it started with
 
 
 class SynthModel:
@@ -41,6 +50,13 @@ class SynthModel:
         self.messages = 0
         self.problems: list[str] = []
         self.last_on: list[tuple[int, Voice]] = []   # voices started by the last feed
+        self.program = [(0, 0, 0)] * 16        # (bank MSB, bank LSB, program) in force
+        self.bank = [(0, 0)] * 16              # bank selected (for the next program change)
+        self.controllers = [dict() for _ in range(16)]
+
+    def controller(self, c, number):
+        """Channel ``c``'s controller ``number`` as the synth has it."""
+        return self.controllers[c].get(number, CONTROLLER_DEFAULTS.get(number, 0))
 
     def feed(self, msgs, tag=None):
         self.last_on = []
@@ -59,7 +75,7 @@ class SynthModel:
             for v in self.voices[c]:
                 if v.key == m.note and v.down:
                     self.problems.append(f"key {m.note} struck twice on channel {c}")
-            v = Voice(m.note, tag)
+            v = Voice(m.note, tag, m.velocity, self.program[c])
             self.voices[c].append(v)
             self.last_on.append((c, v))
         elif m.type in ("note_on", "note_off"):
@@ -70,8 +86,16 @@ class SynthModel:
             self._release(c, down[0])
         elif m.type == "pitchwheel":
             self.bend[c] = m.pitch
+        elif m.type == "program_change":
+            self.program[c] = self.bank[c] + (m.program,)
         elif m.type == "control_change":
             cc, val = m.control, m.value
+            if cc == 0:
+                self.bank[c] = (val, self.bank[c][1])
+            elif cc == 32:
+                self.bank[c] = (self.bank[c][0], val)
+            if cc < 64 and cc not in (6, 38) or 70 <= cc < 96:
+                self.controllers[c][cc] = val
             if cc == 101:
                 self.rpn[c] = (val, self.rpn[c][1])
             elif cc == 100:
@@ -100,6 +124,8 @@ class SynthModel:
                     if v.down:
                         self._release(c, v)
             elif cc == 121:
+                self.controllers[c][1] = 0
+                self.controllers[c][11] = 127
                 self.bend[c] = 0
                 self.sustain[c] = False
                 self.sostenuto[c] = False

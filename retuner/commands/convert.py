@@ -38,7 +38,8 @@ def add_arguments(parser) -> None:
     add_engine_arguments(parser)
     parser.add_argument("--merge-parts", action="store_true",
                         help="one engine and one pool for all parts, as the live daemon treats a "
-                             "multi-channel input (parts share channels, programs and controllers)")
+                             "multi-channel input (parts share the channels, each channel dressed with "
+                             "the program and controllers of the part it plays; pedals shared)")
     parser.add_argument("--parts-apart", action="store_true",
                         help="with --adaptive: tune each part on its own (default: the parts are "
                              "tuned together as one harmony, each on its own channels)")

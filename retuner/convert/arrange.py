@@ -9,7 +9,9 @@ sounding at once (its *minimum*: with fewer it would steal notes; in a static tu
 with one bend share a channel, so it counts notes with different bends); channels left over
 go, one at a time, to the part whose wish is least met (its *wish*: one channel per bend
 value it ever uses in a static tuning -- then every note finds a channel already bent right
-and nothing is re-bent while ringing -- or twice its minimum in adaptive mode). When the
+and nothing is re-bent while ringing -- or twice its minimum in adaptive mode). Parts
+tuned together keep no channel back: once every wish is met, the rest is still shared out in
+proportion to the wishes (a one-note bass never gets as many as a part playing chords). When the
 minimums of all parts together exceed one port (16 channels minus the pass-through
 channels), the parts are split into groups that fit (first-fit, largest first) and each
 group is written to its own file, ``OUT-part1.mid``, ``OUT-part2.mid``, ...; each such file
@@ -176,10 +178,6 @@ def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> lis
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
     need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)
-    if together:
-        # one engine for the group: no channel is kept back, each part wishes for them all
-        # (spare channels rest longer between notes: fewer ringing retunes)
-        wish = {p: avail for p in parts}
     # groups: first fit, largest minimum first
     groups: list[list[int]] = []
     for p in sorted(parts, key=lambda q: (-need_min[q], q)):
@@ -197,7 +195,12 @@ def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> lis
         while left > 0:
             cands = [p for p in g if share[p] < wish[p]]
             if not cands:
-                break
+                if not together:
+                    break
+                # one engine for the group: no channel is kept back; once every wish is met
+                # the rest is shared in proportion to the wishes (spare channels rest longer
+                # between notes: fewer ringing retunes)
+                cands = g
             p = min(cands, key=lambda q: (share[q] / wish[q], q))
             share[p] += 1
             left -= 1

@@ -27,8 +27,9 @@ and ``--lookahead`` too) runs one engine for the parts of an output file: one so
 which pairs the notes of every part) tunes them together as one harmony, and each part still sounds
 only on its own channels (its program and controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
 as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
-as the daemon treats a multi-channel input: the parts are then tuned together but share
-their output channels, programs and controllers. With ``--lookahead`` the plan tunes all
+as the daemon treats a multi-channel input: the parts are then tuned together and share
+the output channels, each channel dressed for the part whose note it plays (its program and
+controllers: :mod:`retuner.engine.outputs.pool`), the pedals shared. With ``--lookahead`` the plan tunes all
 parts together (see :mod:`retuner.convert.lookahead`).
 """
 

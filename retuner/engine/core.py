@@ -723,6 +723,7 @@ class Engine:
         inputs.sostenuto.clear()
         inputs.wheel.clear()
         inputs.rpn.clear()
+        inputs.dress.clear()
         inputs.wheel_range = self.config.wheel_range * 100.0
         inputs.wheel_ranges.clear()
         self.output.wheel_changed()

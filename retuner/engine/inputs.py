@@ -18,6 +18,9 @@
   ``wheel_range`` from the config until the input sets one) instead of reaching
   the synth; data entry for the other RPNs the engine manages (tuning program
   and bank, MPE configuration) is dropped.
+* The **dress** per input channel: its last program, bank and sound-shaping
+  controllers (see :mod:`retuner.engine.dress`), kept by the output mode that
+  dresses its channels per part.
 """
 
 from __future__ import annotations
@@ -47,6 +50,7 @@ class InputState:
         self.wheel_range = wheel_range_semitones * 100.0   # cents a full wheel spans (default)
         self.wheel_ranges: dict[int, float] = {}  # input channel -> cents, as its RPN 0 set it
         self.rpn: dict[int, Any] = {}            # input channel -> (msb, lsb) or "nrpn"
+        self.dress: dict[int, dict] = {}         # input channel -> {program / controller: value}
 
     # ------------------------------------------------------------------ presses
     # (a press is queued and taken by the engine's note-on and note-off handling itself,

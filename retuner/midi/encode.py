@@ -60,7 +60,13 @@ RPN_NULL = RPN["null"]
 #: Control change numbers (MIDI 1.0 Detailed Specification, "Control Number
 #: Assignments" and "Channel Mode Messages").
 CC: dict[str, int] = {
+    "bank_select_msb": 0,
+    "modulation": 1,
     "data_entry_msb": 6,
+    "volume": 7,
+    "pan": 10,
+    "expression": 11,
+    "bank_select_lsb": 32,
     "data_entry_lsb": 38,
     "sustain": 64,
     "sostenuto": 66,
@@ -89,6 +95,25 @@ CC_RESET_ALL_CONTROLLERS = CC["reset_all_controllers"]
 CC_ALL_NOTES_OFF = CC["all_notes_off"]
 #: Omni off/on, mono on, poly on (124..127) also turn all notes off (MIDI 1.0).
 CC_MODE_NOTES_OFF = (124, 125, 126, 127)
+CC_BANK_MSB = CC["bank_select_msb"]
+CC_BANK_LSB = CC["bank_select_lsb"]
+CC_MODULATION = CC["modulation"]
+CC_EXPRESSION = CC["expression"]
+
+#: The controllers that shape a channel's sound and stay set (its *dress*, with the program):
+#: the continuous controllers 0..31 with their LSBs 32..63 (bank select, modulation, volume,
+#: pan, expression, ...) and 70..95 (sound controllers, effects depths), but not data entry
+#: (6, 38, 96..101: RPN and NRPN), the pedals and switches (64..69) or the channel mode
+#: messages (120..127). MIDI 1.0 Detailed Specification, "Control Number Assignments".
+DRESS_CCS = frozenset(c for c in list(range(0, 64)) + list(range(70, 96))
+                      if c not in (CC_DATA_ENTRY_MSB, CC_DATA_ENTRY_LSB))
+#: Values a synth starts with (GM2 specification, "Default values": volume 100, pan 64
+#: (centre), expression 127; everything else 0, program 0, bank 0/0).
+DRESS_DEFAULTS: dict[int, int] = {CC["volume"]: 100, CC["pan"]: 64, CC_EXPRESSION: 127}
+#: What Reset All Controllers (CC121) sets among the dress controllers (RP-015, MIDI
+#: Manufacturers Association: modulation 0, expression 127; volume, pan, bank, program,
+#: sound and effects controllers are kept).
+RESET_ALL_CONTROLLERS_SETS: dict[int, int] = {CC_MODULATION: 0, CC_EXPRESSION: 127}
 
 #: 14-bit pitch bend (MIDI 1.0 Detailed Specification).
 BEND_CENTRE = 8192

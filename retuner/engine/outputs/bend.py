@@ -58,6 +58,8 @@ class BendMode(OutputMode):
     #: the pedals live on one channel the pool's members do not carry (MPE's manager):
     #: a steal silences the member alone with all-sound-off
     pedals_apart: ClassVar[bool] = False
+    #: the pool's channels are dressed per part (pool mode, several input channels live)
+    dressing: bool = False
 
     def __init__(self, config: Any, inputs: Any, stats: dict):
         super().__init__(config, inputs, stats)
@@ -191,13 +193,19 @@ class BendMode(OutputMode):
     def sound(self, t: float, note: Note, out: list, share: Optional[bool] = None) -> None:
         """Strike ``note`` on a channel of the pool (shared with notes of the same bend
         when ``share``, by default the mode's setting)."""
+        c, kind = self.pool.choose(note.bend, note.out_key, t, self.share if share is None else share,
+                                   note.in_ch, self.channels_of(note.in_ch))
+        self.strike(t, note, c, kind, out)
+
+    def strike(self, t: float, note: Note, c: int, kind: str, out: list) -> None:
+        """Sound ``note`` on channel ``c``, chosen by the allocator rule ``kind``."""
         pool = self.pool
-        c, kind = pool.choose(note.bend, note.out_key, t, self.share if share is None else share,
-                              note.in_ch, self.channels_of(note.in_ch))
         if kind is STEAL:
             self.steal(c, t, out)
         elif kind is RINGING:
             self.stats["ringing_retunes"] += 1
+        if self.dressing:
+            self.redress(c, note.in_ch, out)
         pool.bend[c] = note.bend
         self.owner[c] = note.in_ch
         self.send_bend(c, out)
@@ -205,6 +213,9 @@ class BendMode(OutputMode):
         pool.add(c, note, t)
         out.append(E.note_on(c, note.out_key, note.velocity))
         self.stats["note_ons_out"] += 1
+
+    def redress(self, c: int, part: int, out: list) -> None:
+        """Before a note of input channel ``part`` sounds on ``c``: dress ``c`` for it."""
 
     def movable(self, note: Note) -> bool:
         # a bend moves its whole channel: only a note alone on it can move alone
