@@ -28,11 +28,13 @@ from __future__ import annotations
 
 import itertools
 import random
+import statistics
 import time
 from typing import Iterable, Optional, Sequence
 
 import mido
 
+from retuner.engine.attack import CORRECTED
 from retuner.engine.core import Engine, EngineConfig
 from retuner.engine.drive import Drive, play
 from retuner.measure.metrics import NoteTrack, report
@@ -493,10 +495,12 @@ def added_latency(events: Sequence[Event], stream: Sequence[Event]) -> list[floa
     return metrics_added_latency(ons(events), ons(stream))
 
 
-def live_figures(events: Sequence[Event], tuning, acfg, mode: str = "pool") -> dict:
+def live_figures(events: Sequence[Event], tuning, acfg, mode: str = "pool",
+                 corrections: Optional[list] = None) -> dict:
     """Figures of one performance played live: the measures, the added latency of every
     note-on (engine clock, ms), the engine's compute per note-on (wall clock, us) and the
-    retunes within the attack."""
+    retunes within the attack; ``corrections``, if given, is extended by every note's
+    correction within its attack (cents)."""
     eng = Engine(tuning, EngineConfig(mode=mode, adaptive=acfg))
     drive = Drive(eng)
     drive_out: list = [(0.0, m) for m in drive.start(0.0)]
@@ -515,10 +519,19 @@ def live_figures(events: Sequence[Event], tuning, acfg, mode: str = "pool") -> d
     lat = added_latency(events, drive_out)
     compute.sort()
     st = eng.stats
+    corr = eng.attack_corrections
+    if corrections is not None:
+        corrections.extend(corr)
+    big = [c for c in corr if c > CORRECTED]
     f.update({"latency_p50_ms": round(1000 * percentile(lat, 50), 3), "latency_p99_ms": round(1000 * percentile(lat, 99), 3),
               "compute_p99_us": round(percentile(compute, 99), 1),
               "attack_retunes_per_note": round(st["attack_retunes"] / max(1, st["notes"]), 3),
               "attack_retune_cents_mean": round(st["attack_retune_cents_total"] / max(1, st["attack_retunes"]), 3),
+              # how often the first guess missed: notes whose pitch at the end of their attack lies
+              # more than 0.5 c from the pitch they left with, and the median of those corrections
+              "attack_corrected_per_note": round(st["attack_corrected_notes"] / max(1, st["notes"]), 4),
+              "attack_corrected_median_cents": round(statistics.median(big), 3) if big else 0.0,
+              "attack_corrected_notes": st["attack_corrected_notes"],
               # what moved notes already sounding (the motion after the attack), c/note by cause
               "held_motion_by_cause": {k: round(v / max(1, st["notes"]), 4) for k, v in sorted(eng.held_motion.items())}})
     return f
@@ -611,9 +624,16 @@ def adaptive_bench(rounds: int = 8, mode: str = "pool", solver_events: int = 500
     for name in ("adaptive", "chord-window"):
         acfg = setups[name][1]
         hp = live_figures(humanise(pump), edo12, acfg, mode)
-        per = [live_figures(humanise(chorale_events(p), seed=i + 2), edo12, acfg, mode)
+        corr: list[float] = []
+        per = [live_figures(humanise(chorale_events(p), seed=i + 2), edo12, acfg, mode, corr)
                for i, p in enumerate(CHORALES)]
         avg = _average(per)
+        # the first guess over all the chorales' notes (not a mean of the pieces' shares)
+        big = [c for c in corr if c > CORRECTED]
+        avg["attack_corrected_notes"] = sum(f["attack_corrected_notes"] for f in per)
+        avg["attack_notes"] = sum(f["notes"] for f in per)
+        avg["attack_corrected_per_note"] = round(avg["attack_corrected_notes"] / max(1, avg["attack_notes"]), 4)
+        avg["attack_corrected_median_cents"] = round(statistics.median(big), 3) if big else 0.0
         avg["drift_max_worst_cents"] = max(f["drift_max_cents"] for f in per)
         avg["latency_p99_ms"] = max(f["latency_p99_ms"] for f in per)
         out["humanised"][name] = {"pump": hp, "chorales": avg}
@@ -668,13 +688,15 @@ def format_adaptive_bench(res: dict) -> str:
                          f"{f['drift_final_cents']:7.2f}")
     lines.append("played by hand (notes and releases spread 0..25 ms): impurity c | motion after the attack "
                  "c/note | drift max c | added latency p50/p99 ms | engine per note-on p99 us | "
-                 "retunes in the attack per note (mean c)")
+                 "retunes in the attack per note (mean c) | notes corrected by more than "
+                 f"{CORRECTED} c in their attack (median c)")
     for name, h in res.get("humanised", {}).items():
         for piece, f in (("pump", h["pump"]), ("chorales", h["chorales"])):
             dm = f.get("drift_max_worst_cents", f["drift_max_cents"])
             lines.append(f"  {name + ' ' + piece:22s} {f['impurity_cents']:7.3f} | {f['late_motion_cents_per_note']:6.3f} | {dm:6.2f} | "
                          f"{f['latency_p50_ms']:5.1f}/{f['latency_p99_ms']:5.1f} | {f['compute_p99_us']:7.1f} | "
-                         f"{f['attack_retunes_per_note']:.2f} ({f['attack_retune_cents_mean']:.2f})")
+                         f"{f['attack_retunes_per_note']:.2f} ({f['attack_retune_cents_mean']:.2f}) | "
+                         f"{100 * f['attack_corrected_per_note']:.0f} % ({f['attack_corrected_median_cents']:.2f})")
             causes = f.get("held_motion_by_cause") or {}
             if causes:
                 lines.append("    sounding notes moved, c/note by cause: " + ", ".join(

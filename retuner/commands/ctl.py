@@ -141,11 +141,13 @@ def _fmt_status(r: dict) -> str:
     st = dict(r.get("counters") or {})
     n = st.pop("attack_retunes", 0)
     total, largest = st.pop("attack_retune_cents_total", 0.0), st.pop("attack_retune_cents_max", 0.0)
+    corrected = st.pop("attack_corrected_notes", 0)
     for k, v in st.items():
         rows.append((COUNTER_WORDS.get(k, _words(k)), _number(v)))
     if n:
         rows.append(("attack retunes", f"{n}, mean {total / n:.2f} c, largest {largest:.2f} c "
                                        "(notes retuned within their attack)"))
+        rows.append(("first guess missed", f"{corrected} notes corrected by more than 0.5 c in their attack"))
     if r.get("steals_explained"):
         rows.append(("notes cut short", r["steals_explained"]))
     if "bad_input" in r:

@@ -28,6 +28,11 @@ from typing import Optional, Sequence
 from retuner.engine.allocator import Note
 
 
+#: cents: a note whose pitch within its attack ends further than this from the pitch it left
+#: with counts as corrected (the first guess missed)
+CORRECTED = 0.5
+
+
 class AttackSettle:
     """The bookkeeping of attack mode for one engine (pure state; time is an argument)."""
 
@@ -39,6 +44,11 @@ class AttackSettle:
         self.held_plan: list[tuple[Note, float]] = []  # held notes' moves, due at ``due``
         self.due: Optional[float] = None
         self.recent: deque[float] = deque(maxlen=1000)   # sizes of the latest retunes (cents)
+        # each note's correction within its attack: how far its last retune there put it from
+        # the pitch it left with (cents); the chord in its attack by id(note) -> [note, first,
+        # correction], earlier notes' corrections in ``done``
+        self.net: dict[int, list] = {}
+        self.done: deque[float] = deque(maxlen=10000)
         self.cause = ""                                   # why the planned moves move
 
     def fresh(self, sounding: Sequence[Note], t: float, movable) -> list[Note]:
@@ -52,6 +62,9 @@ class AttackSettle:
         mark = getattr(solver, "mark", None)
         if mark is not None:
             mark()
+        # the notes of earlier chords are past their attack: their corrections are final
+        self.done.extend(abs(v[2]) for v in self.net.values())
+        self.net = {}
         self.mark_cents = {id(n): (n, n.cents) for n in held}
         return [(n.in_key, n.cents) for n in held]
 
@@ -69,8 +82,16 @@ class AttackSettle:
 
     def count(self, fresh: Sequence[Note], cents: Sequence[float], stats: dict) -> None:
         """Count the retunes of notes within their attack (more than 0.01 c) in ``stats``:
-        ``attack_retunes``, ``attack_retune_cents_total`` and ``attack_retune_cents_max``."""
+        ``attack_retunes``, ``attack_retune_cents_total`` and ``attack_retune_cents_max``; and
+        the notes whose correction within their attack (last pitch there less the pitch they
+        left with) is more than ``CORRECTED`` cents: ``attack_corrected_notes``."""
         for n, c in zip(fresh, cents):
+            v = self.net.get(id(n))
+            if v is None or v[0] is not n:
+                v = self.net[id(n)] = [n, n.cents, 0.0]
+            was = abs(v[2]) > CORRECTED
+            v[2] = float(c) - v[1]
+            stats["attack_corrected_notes"] += (abs(v[2]) > CORRECTED) - was
             d = abs(float(c) - n.cents)
             if d > 0.01:
                 stats["attack_retunes"] += 1
@@ -78,6 +99,10 @@ class AttackSettle:
                 if d > stats["attack_retune_cents_max"]:
                     stats["attack_retune_cents_max"] = d
                 self.recent.append(d)
+
+    def corrections(self) -> list[float]:
+        """The corrections (cents, unsigned) of the latest notes retuned within their attack."""
+        return list(self.done) + [abs(v[2]) for v in self.net.values()]
 
     def plan(self, held: Sequence[Note], cents: Sequence[float], starts: Sequence[float],
              cause: str = "") -> None:
@@ -93,3 +118,5 @@ class AttackSettle:
 
     def clear(self) -> None:
         self.held_plan, self.due, self.mark_cents = [], None, {}
+        self.done.extend(abs(v[2]) for v in self.net.values())
+        self.net = {}

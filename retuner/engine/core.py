@@ -137,6 +137,7 @@ class Engine:
             "wheel_clamps": 0, "range_widenings": 0,
             # attack mode: retunes of notes within their attack, how many and how large (cents)
             "attack_retunes": 0, "attack_retune_cents_total": 0.0, "attack_retune_cents_max": 0.0,
+            "attack_corrected_notes": 0,
         }
         self._attack: Optional[AttackSettle] = None
         # adaptive mode: cents moved by notes already sounding, by cause ("chord:recentre",
@@ -199,6 +200,12 @@ class Engine:
     def attack_retune_cents(self) -> list[float]:
         """Attack mode: the sizes (cents) of the latest retunes of notes within their attack."""
         return list(self._attack.recent) if self._attack is not None else []
+
+    @property
+    def attack_corrections(self) -> list[float]:
+        """Attack mode: per note retuned within its attack (the latest 10000), how far (cents)
+        its pitch at the end of the attack lies from the pitch it left with."""
+        return self._attack.corrections() if self._attack is not None else []
 
     @property
     def adaptive(self) -> bool:
