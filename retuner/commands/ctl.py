@@ -90,7 +90,7 @@ COUNTER_WORDS = {
     "notes": "notes played", "note_ons_out": "note-ons sent", "steals": "steals",
     "ringing_retunes": "ringing retunes", "bends_sent": "bends sent", "messages_out": "messages sent",
     "note_on_messages": "messages for note-ons", "dropped_unmapped": "unmapped keys left silent",
-    "chords_solved": "chords tuned",
+    "chords_solved": "chords tuned", "redressings": "channels dressed again for another part",
 }
 CONTROL_WORDS = {
     "clients": "clients now", "connections": "connections", "commands": "commands", "errors": "refused",

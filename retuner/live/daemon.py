@@ -490,7 +490,10 @@ class Daemon:
                  f"{st.get('ringing_retunes', 0)} ringing retunes"]
         if st.get("attack_retunes"):
             parts.append(f"{st['attack_retunes']} retunes within the attack "
-                         f"(mean {st.get('attack_retune_cents_total', 0.0) / st['attack_retunes']:.2f} c)")
+                         f"(mean {st.get('attack_retune_cents_total', 0.0) / st['attack_retunes']:.2f} c; "
+                         f"{st.get('attack_corrected_notes', 0)} notes corrected by more than 0.5 c)")
+        if st.get("redressings"):
+            parts.append(f"{st['redressings']} channels dressed again for another part")
         try:
             parts.append(f"{len(self.engine.sounding())} sounding")
         except Exception:  # pragma: no cover

@@ -119,6 +119,10 @@ def _measures(dec, tuning, stats: dict) -> dict:
         "attack_retune_cents_mean": round(float(stats.get("attack_retune_cents_total", 0.0))
                                           / max(1, int(stats.get("attack_retunes", 0))), 4),
         "attack_retune_cents_max": round(float(stats.get("attack_retune_cents_max", 0.0)), 4),
+        # ... and the first guesses that missed: notes corrected by more than 0.5 c in their attack
+        "attack_corrected_notes": int(stats.get("attack_corrected_notes", 0)),
+        # parts sharing output channels: a channel dressed again for another part's instrument
+        "redressings": int(stats.get("redressings", 0)),
         "bends_sent": int(dec.bends_sent),
         # the player's wheel: output range widened to fit it, bends still cut short
         "range_widenings": int(stats.get("range_widenings", 0)),
@@ -173,7 +177,8 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:
         top["notes"] = sum(f["notes"] for f in files_rep)
-        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "range_widenings", "wheel_clamps"):
+        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "attack_corrected_notes",
+                  "redressings", "range_widenings", "wheel_clamps"):
             top[k] = sum(f[k] for f in files_rep)
         top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
         said = [(f["steals"], o.steals_why) for f, o in zip(files_rep, res.outputs) if f.get("steals_explained")]
@@ -224,7 +229,12 @@ def text_summary(rep: dict) -> str:
     if rep.get("attack_retunes"):
         lines.append(f"  {rep['attack_retunes']} retunes of notes within their attack"
                      + (f", mean {rep['attack_retune_cents_mean']:.2f} c" if "attack_retune_cents_mean" in rep else "")
-                     + f", largest {rep['attack_retune_cents_max']:.2f} c")
+                     + f", largest {rep['attack_retune_cents_max']:.2f} c"
+                     + (f"; {rep['attack_corrected_notes']} of {rep['notes']} notes corrected by more than 0.5 c"
+                        if "attack_corrected_notes" in rep else ""))
+    if rep.get("redressings"):
+        lines.append(f"  {rep['redressings']} time(s) a channel was dressed again for another part's instrument "
+                     f"(program and controllers sent before its note)")
     if rep.get("worst_pitch_error_cents") is not None:
         lines.append(f"  worst pitch error {rep['worst_pitch_error_cents']:.4f} c")
     if "impurity_cents" in rep:
