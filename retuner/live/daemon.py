@@ -17,6 +17,9 @@ two queues:
   outputs)``; signal handlers put ``("signal", signum)``; the control socket
   (retuner.control.server) wakes the loop with ``("wake",)``.
 
+No thread polls: under JACK the input callback runs in JACK's process callback, under ALSA on
+python-rtmidi's input thread, and each wakes the engine thread through the event queue.
+
 Each turn of the loop (:meth:`Daemon.step`) handles every waiting event first, then
 the control commands (a panic), then at most :attr:`Daemon.MIDI_BATCH` MIDI
 messages, coming back at once when more wait: signals and commands never wait
@@ -24,8 +27,8 @@ behind MIDI. The loop waits on the event queue with a timeout: the earliest of t
 engine's ``next_deadline()``, the watchdog ping and the status line. Output is sent
 the moment the engine returns it.
 
-The ports come from a backend (retuner.live.backend: rtmidi over ALSA or JACK, or
-ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
+The ports come from a backend (retuner.live.backend: python-rtmidi over ALSA, JACK-Client
+over JACK, or ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
 is one turn of the loop, so a test can drive the daemon in-process.
 
 Hotplug
@@ -166,7 +169,7 @@ class Daemon:
         self.engine = self._new_engine(settings, self.profiles.main)
         self.session = Session(self.engine, self.profiles.main)     # the tuning in force
         # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
-        # rtmidi one is made again when the port settings change. Made after the profiles: a
+        # one is made again when the port settings change. Made after the profiles: a
         # mistake in them is reported before a MIDI system that is not there
         self._own_backend = backend is None
         self.backend: PortBackend = backend or self._new_backend(settings)
@@ -198,7 +201,7 @@ class Daemon:
     # ------------------------------------------------------------------ engine
     @staticmethod
     def _new_backend(settings: Settings) -> PortBackend:
-        return _ports.RtMidiBackend(settings.backend, f"{settings.client_name}-probe")
+        return _ports.make_backend(settings.backend, settings.client_name)
 
     @staticmethod
     def _new_engine(settings: Settings, tuning):

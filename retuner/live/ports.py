@@ -26,7 +26,6 @@ daemon logs the closest existing names once (:func:`closest`) and keeps waiting 
 
 from __future__ import annotations
 
-import contextlib
 import difflib
 import fnmatch
 import logging
@@ -43,7 +42,8 @@ import mido
 import rtmidi
 
 from retuner.errors import RetunerError, Unavailable
-from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver
+from retuner.live import jackmidi
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver, quiet_library
 
 log = logging.getLogger("retuner.live.ports")
 
@@ -103,7 +103,7 @@ def choose_backend(backend: str) -> str:
     saved = os.environ.get("JACK_NO_START_SERVER")
     os.environ["JACK_NO_START_SERVER"] = "1"
     try:
-        if _opens(rtmidi.API_UNIX_JACK):
+        if jackmidi.server_running():
             return "jack"
     finally:
         if saved is None:
@@ -132,28 +132,7 @@ def _rt_error(exc: Exception, what: str, backend: str) -> Unavailable:
     return Unavailable(f"{what}: {exc}{hint}", field="backend")
 
 
-@contextlib.contextmanager
-def _quiet_library():
-    """The JACK and ALSA libraries print to the process's stderr (file descriptor 2) when no
-    server or sequencer is there, several lines before our own one-line message. Opening a
-    client is quick, so fd 2 goes to /dev/null meanwhile (kept with -v, for debugging)."""
-    if logging.getLogger("retuner").isEnabledFor(logging.DEBUG):
-        yield
-        return
-    try:
-        sys.stderr.flush()
-        saved = os.dup(2)
-        devnull = os.open(os.devnull, os.O_WRONLY)
-    except OSError:
-        yield
-        return
-    try:
-        os.dup2(devnull, 2)
-        yield
-    finally:
-        os.dup2(saved, 2)
-        os.close(saved)
-        os.close(devnull)
+_quiet_library = quiet_library
 
 
 def _new_in(backend: str, client_name: str, queue_size: int = 1024) -> rtmidi.MidiIn:
@@ -252,13 +231,23 @@ class PortLister:
 
 
 def is_own(name: str, base: str = "retuner") -> bool:
-    """Whether a listed port is one of a retuner daemon's own (client ``BASE-in``/``BASE-out``)."""
+    """Whether a listed port is one of a retuner daemon's own (JACK: client ``BASE``; ALSA: clients
+    ``BASE-in``/``BASE-out``)."""
     return name.startswith((f"{base}-", f"{base}:"))
 
 
-def list_ports(backend: str) -> tuple[list[str], list[str]]:
+def make_backend(backend: str, base: str = "retuner") -> PortBackend:
+    """The backend a daemon named ``base`` uses: the ALSA sequencer through python-rtmidi, or a
+    JACK server through JACK-Client (one client ``base`` with the ports ``in`` and ``out``)."""
+    word = choose_backend(backend)
+    if word == "jack":
+        return jackmidi.JackBackend(base, error=lambda exc, what: _rt_error(exc, what, "jack"))
+    return RtMidiBackend(word, f"{base}-probe")
+
+
+def list_ports(backend: str, base: str = "retuner-probe") -> tuple[list[str], list[str]]:
     """(inputs, outputs) as the backend names them."""
-    lister = PortLister(backend)
+    lister = make_backend(backend, base)
     try:
         return lister.inputs(), lister.outputs()
     finally:
