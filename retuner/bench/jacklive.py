@@ -76,27 +76,35 @@ class _Server:
 
 
 class _Meter:
-    """A JACK client of our own: plays a note-on at the start of a period, waits for it to return."""
+    """Two JACK clients of our own, a keyboard (``NAME:play``) that plays a note-on at the start of a
+    period and a synth (``NAME-rec:record``) that waits for it to return. Two clients, as keyboard and
+    synth are in use: JACK runs them before and after the daemon in each period (one client both
+    before and after it would be a loop, whose order JACK does not promise)."""
 
     def __init__(self, name: str):
         self.client = jackmidi.open_client(name)
+        self.rec = jackmidi.open_client(f"{name}-rec")
         self.out = self.client.midi_outports.register("play")
-        self.inp = self.client.midi_inports.register("record")
+        self.inp = self.rec.midi_inports.register("record")
         self._pending: Optional[bytes] = None
         self._sent: Optional[tuple] = None        # (frame, wall) of the period it left in
         self._key = 0
         self.got = threading.Event()
         self.result: Optional[tuple] = None
-        self.client.set_process_callback(self._process)
+        self.client.set_process_callback(self._play)
+        self.rec.set_process_callback(self._record)
         self.client.activate()
+        self.rec.activate()
 
-    def _process(self, frames: int) -> None:
+    def _play(self, frames: int) -> None:
         self.out.clear_buffer()
-        start = self.client.last_frame_time
         if self._pending is not None:
             self.out.write_midi_event(0, self._pending)
             self._pending = None
-            self._sent = (start, time.monotonic())
+            self._sent = (self.client.last_frame_time, time.monotonic())
+
+    def _record(self, frames: int) -> None:
+        start = self.rec.last_frame_time
         for offset, buf in self.inp.incoming_midi_events():
             data = bytes(buf)
             if (self._sent is not None and not self.got.is_set() and len(data) == 3
@@ -118,8 +126,9 @@ class _Meter:
         return self.result if ok else None
 
     def close(self) -> None:
-        self.client.deactivate()
-        self.client.close()
+        for c in (self.client, self.rec):
+            c.deactivate()
+            c.close()
 
 
 def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: int, period: int) -> dict:
