@@ -91,6 +91,8 @@ class PortBackend:
     """A MIDI system the daemon can open ports on. ``word`` names it in logs ("alsa", "jack")."""
 
     word = "?"
+    on_server_lost: Optional[Callable[[], None]] = None   # called from any thread when the MIDI
+                                                          # system itself goes away (a JACK server)
 
     def client_name(self, base: str, side: str) -> str:
         """Our client's name for one side ("in", "out", "probe")."""

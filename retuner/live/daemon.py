@@ -50,6 +50,12 @@ believe sounds: pedals up on every channel, a note-off for each note we know of
 (passthrough included), All Notes Off on every channel, All Sound Off where the config
 allows it (``panic_all_sound_off``).
 
+MIDI system gone
+----------------
+When the MIDI system itself goes away (a JACK server stops: the backend's ``on_server_lost``),
+the daemon exits with status 1: a service manager starts it again, and its start-up waits for a
+server.
+
 Signals
 -------
 SIGHUP reloads the config file and the profiles (a bad one is logged and the old
@@ -325,7 +331,11 @@ class Daemon:
         self.emit(out)
         return known
 
+    def _on_server_lost(self) -> None:                   # backend thread
+        self.q.put(("lost",))
+
     def _open_ports(self, now: float) -> None:
+        self.backend.on_server_lost = self._on_server_lost
         named = self._side_spec("in") is not None or self._side_spec("out") is not None
         self._open_output(now)
         self._open_input()
@@ -707,6 +717,11 @@ class Daemon:
                 log.info("%s: releasing every note and stopping", signal.Signals(signum).name)
                 self.panic(now)
                 self.exit_status = 0
+                return True
+            elif kind == "lost":
+                log.error("the %s server stopped: exiting with status 1 (a service manager starts "
+                          "retuner again, and it waits for a server)", self.backend.word.upper())
+                self.exit_status = 1
                 return True
             elif kind == "ports":
                 self._check_ports(self.clock(), item[1], item[2])

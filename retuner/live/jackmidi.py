@@ -22,9 +22,10 @@ held elsewhere only while a list of ports changes (never across a JACK call), th
 
 Server gone
 -----------
-When the JACK server stops, JACK calls our shutdown callback; the client is marked dead, its
-ports list nothing, and the port watcher (when a port is named) opens a new client once a server
-answers again, so the daemon's hotplug reconnects as it does when a device returns.
+When the JACK server stops, JACK calls our shutdown callback: the client is marked dead (its ports
+list nothing, sending fails) and ``on_server_lost`` is called; the daemon then exits with status 1,
+so a service manager starts it again, and its start-up waits for a server. (Opening a new client in
+the same process right after a server stopped was seen to list no ports at times.)
 """
 
 from __future__ import annotations
@@ -100,8 +101,9 @@ def server_running() -> bool:
 class _Client:
     """One open JACK client and its ports; the process and shutdown callbacks run here."""
 
-    def __init__(self, name: str):
+    def __init__(self, name: str, on_lost: Optional[Callable[[], None]] = None):
         self.jack = jack_module()
+        self.on_lost = on_lost
         self.client = open_client(name)
         self.name = self.client.name
         self.dead = False
@@ -139,7 +141,9 @@ class _Client:
 
     def _shutdown(self, status, reason) -> None:
         self.dead = True
-        log.warning("the JACK server stopped (%s); waiting for one to return", reason)
+        log.warning("the JACK server stopped (%s)", reason)
+        if self.on_lost is not None:
+            self.on_lost()
 
     # --------------------------------------------------------------- ports
     def register(self, kind: str, port_name: str, connect_to: Optional[str]):
@@ -273,11 +277,11 @@ class JackBackend(PortBackend):
         """The open client (a new one when there is none, or the server it knew stopped)."""
         with self._lock:
             if self._client is not None and self._client.dead:
-                self._client.close()
+                _close_apart(self._client)
                 self._client = None
             if self._client is None:
                 try:
-                    self._client = _Client(name or self.base)
+                    self._client = _Client(name or self.base, lambda: self.on_server_lost and self.on_server_lost())
                 except JackUnavailable as exc:
                     raise self._error(exc, "cannot open the jack MIDI system") from exc
             return self._client
@@ -308,10 +312,16 @@ class JackBackend(PortBackend):
         self._stop = stop = threading.Event()
 
         def run():
+            last = None
             while not stop.wait(interval):
                 try:
                     with self._lock:
                         client = self._live()
+                    if last is not None and client is not last:
+                        # a new client (the server stopped and came back before a look found it
+                        # gone): ports opened on the old one are gone even if their names returned
+                        on_change([], [])
+                    last = client
                     on_change(client.names(is_input=False), client.names(is_input=True))
                 except Exception as exc:  # noqa: BLE001 - no server (yet): its ports are gone
                     log.debug("listing ports: %s", exc)
@@ -327,5 +337,18 @@ class JackBackend(PortBackend):
             self._watcher = None
         with self._lock:
             if self._client is not None:
-                self._client.close()
+                if self._client.dead:
+                    _close_apart(self._client)
+                else:
+                    self._client.close()
                 self._client = None
+
+
+def _close_apart(client: _Client, wait: float = 2.0) -> None:
+    """Close a client whose server stopped, before a new client is opened (libjack cleans up the
+    clients a stopped server left when the next one opens, and a new client opened meanwhile was
+    seen to list no ports); on a thread of its own, waited for at most ``wait`` seconds, so that a
+    close that blocks cannot stop the port watcher."""
+    th = threading.Thread(target=client.close, name="retuner-jack-close", daemon=True)
+    th.start()
+    th.join(wait)
