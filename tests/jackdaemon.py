@@ -31,8 +31,8 @@ class Run:
         except AssertionError:
             self.daemon.stop()
             raise AssertionError("daemon never became ready:\n" + self.daemon.log()[-3000:])
-        self.in_port = f"{self.client_name}-in:in"
-        self.out_port = f"{self.client_name}-out:out"
+        self.in_port = f"{self.client_name}:in"
+        self.out_port = f"{self.client_name}:out"
         if client is not None:
             if wire_in:
                 jack_server.connect(client.out_full, self.in_port)

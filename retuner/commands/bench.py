@@ -39,6 +39,18 @@ def add_arguments(parser):
                              "saving them (100 000 events; a piano-like 10 000 with the summary), "
                              "--lookahead against plain --adaptive, peak memory on 1 000 000 events, "
                              "and a batch with 1..N worker processes")
+    parser.add_argument("--jack", action="store_true",
+                        help="measure the daemon under a JACK server instead (one is started with its dummy "
+                             "driver when none runs): idle CPU in percent of a core and note-on latency in "
+                             "ms and in JACK periods, static and adaptive")
+    parser.add_argument("--idle", type=float, default=10.0, metavar="SECONDS",
+                        help="with --jack: how long the idle daemon is measured (default 10)")
+    parser.add_argument("--notes", type=int, default=50, metavar="N",
+                        help="with --jack: note-ons timed in each play (default 50)")
+    parser.add_argument("--against", metavar="REPO",
+                        help="with --jack: also measure the daemon of another checkout, in the same run")
+    parser.add_argument("--against-python", metavar="PYTHON",
+                        help="with --against: the Python that runs it (default this one)")
     parser.add_argument("--json", action="store_true", help="print the figures as one JSON object")
     add_profile_dir(parser)
 
@@ -72,9 +84,24 @@ def _files_bench(args) -> int:
     return 0
 
 
+def _jack_bench(args) -> int:
+    from retuner.bench.jacklive import format_jack_bench, jack_bench   # lazy: it loads JACK-Client
+    if args.idle <= 0 or args.notes < 1:
+        raise RetunerError("--idle must be above 0 and --notes at least 1", field="--jack")
+    figs = jack_bench(idle=args.idle, notes=args.notes, against=args.against,
+                      against_python=args.against_python)
+    if args.json:
+        print_json(figs)
+    else:
+        print(format_jack_bench(figs))
+    return 0
+
+
 def run(args) -> int:
     if args.files:
         return _files_bench(args)
+    if args.jack:
+        return _jack_bench(args)
     tuning = load_profile(args.profile, args.profile_dirs)
     adaptive = None
     if args.adaptive:

@@ -2,7 +2,8 @@
 
 The daemon never builds ports itself; it is handed a :class:`PortBackend`:
 
-* retuner.live.ports.RtMidiBackend: the ALSA sequencer or a JACK server, through python-rtmidi;
+* retuner.live.ports.RtMidiBackend: the ALSA sequencer, through python-rtmidi;
+* retuner.live.jackmidi.JackBackend: a JACK server, through JACK-Client (one client, ports in and out);
 * retuner.live.memory.MemoryBackend: ports in memory, for tests that drive the daemon in-process
   (hotplug, switching, reload, panic) without a MIDI system.
 
@@ -13,6 +14,10 @@ one of those by its exact name), and reports changes of the lists to a watcher.
 
 from __future__ import annotations
 
+import contextlib
+import logging
+import os
+import sys
 from typing import Callable, Optional
 
 import mido
@@ -35,6 +40,30 @@ def deliver(raw, callback: Callback, on_error: Optional[ErrorCallback]) -> None:
                 on_error(exc, list(raw))
             except Exception:
                 pass
+
+
+@contextlib.contextmanager
+def quiet_library():
+    """The JACK and ALSA libraries print to the process's stderr (file descriptor 2) when no
+    server or sequencer is there, several lines before our own one-line message. Opening a
+    client is quick, so fd 2 goes to /dev/null meanwhile (kept with -v, for debugging)."""
+    if logging.getLogger("retuner").isEnabledFor(logging.DEBUG):
+        yield
+        return
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+        devnull = os.open(os.devnull, os.O_WRONLY)
+    except OSError:
+        yield
+        return
+    try:
+        os.dup2(devnull, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(devnull)
 
 
 class InputHandle:
@@ -62,6 +91,8 @@ class PortBackend:
     """A MIDI system the daemon can open ports on. ``word`` names it in logs ("alsa", "jack")."""
 
     word = "?"
+    on_server_lost: Optional[Callable[[], None]] = None   # called from any thread when the MIDI
+                                                          # system itself goes away (a JACK server)
 
     def client_name(self, base: str, side: str) -> str:
         """Our client's name for one side ("in", "out", "probe")."""

@@ -17,6 +17,9 @@ two queues:
   outputs)``; signal handlers put ``("signal", signum)``; the control socket
   (retuner.control.server) wakes the loop with ``("wake",)``.
 
+No thread polls: under JACK the input callback runs in JACK's process callback, under ALSA on
+python-rtmidi's input thread, and each wakes the engine thread through the event queue.
+
 Each turn of the loop (:meth:`Daemon.step`) handles every waiting event first, then
 the control commands (a panic), then at most :attr:`Daemon.MIDI_BATCH` MIDI
 messages, coming back at once when more wait: signals and commands never wait
@@ -24,8 +27,8 @@ behind MIDI. The loop waits on the event queue with a timeout: the earliest of t
 engine's ``next_deadline()``, the watchdog ping and the status line. Output is sent
 the moment the engine returns it.
 
-The ports come from a backend (retuner.live.backend: rtmidi over ALSA or JACK, or
-ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
+The ports come from a backend (retuner.live.backend: python-rtmidi over ALSA, JACK-Client
+over JACK, or ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
 is one turn of the loop, so a test can drive the daemon in-process.
 
 Hotplug
@@ -46,6 +49,12 @@ Panic
 believe sounds: pedals up on every channel, a note-off for each note we know of
 (passthrough included), All Notes Off on every channel, All Sound Off where the config
 allows it (``panic_all_sound_off``).
+
+MIDI system gone
+----------------
+When the MIDI system itself goes away (a JACK server stops: the backend's ``on_server_lost``),
+the daemon exits with status 1: a service manager starts it again, and its start-up waits for a
+server.
 
 Signals
 -------
@@ -166,7 +175,7 @@ class Daemon:
         self.engine = self._new_engine(settings, self.profiles.main)
         self.session = Session(self.engine, self.profiles.main)     # the tuning in force
         # a backend handed in (tests: retuner.live.memory) is kept across reloads; our own
-        # rtmidi one is made again when the port settings change. Made after the profiles: a
+        # one is made again when the port settings change. Made after the profiles: a
         # mistake in them is reported before a MIDI system that is not there
         self._own_backend = backend is None
         self.backend: PortBackend = backend or self._new_backend(settings)
@@ -198,7 +207,7 @@ class Daemon:
     # ------------------------------------------------------------------ engine
     @staticmethod
     def _new_backend(settings: Settings) -> PortBackend:
-        return _ports.RtMidiBackend(settings.backend, f"{settings.client_name}-probe")
+        return _ports.make_backend(settings.backend, settings.client_name)
 
     @staticmethod
     def _new_engine(settings: Settings, tuning):
@@ -322,7 +331,11 @@ class Daemon:
         self.emit(out)
         return known
 
+    def _on_server_lost(self) -> None:                   # backend thread
+        self.q.put(("lost",))
+
     def _open_ports(self, now: float) -> None:
+        self.backend.on_server_lost = self._on_server_lost
         named = self._side_spec("in") is not None or self._side_spec("out") is not None
         self._open_output(now)
         self._open_input()
@@ -710,6 +723,11 @@ class Daemon:
                 log.info("%s: releasing every note and stopping", signal.Signals(signum).name)
                 self.panic(now)
                 self.exit_status = 0
+                return True
+            elif kind == "lost":
+                log.error("the %s server stopped: exiting with status 1 (a service manager starts "
+                          "retuner again, and it waits for a server)", self.backend.word.upper())
+                self.exit_status = 1
                 return True
             elif kind == "ports":
                 self._check_ports(self.clock(), item[1], item[2])

@@ -1,10 +1,12 @@
 """MIDI ports: choosing the backend, listing, matching names, opening.
 
-retuner talks to the ALSA sequencer or to a JACK server through python-rtmidi, the library behind mido's ``mido.backends.rtmidi`` backend; the
-bytes that arrive are parsed into :class:`mido.Message` objects and messages
-go out as ``msg.bytes()``. python-rtmidi is used directly (not through
-``mido.open_input``) because only it lets us name our client and port when we
-connect to somebody else's port, so users find ``retuner`` in their patchbay.
+retuner talks to the ALSA sequencer through python-rtmidi, the library behind mido's
+``mido.backends.rtmidi`` backend, and to a JACK server through JACK-Client (retuner.live.jackmidi:
+one client with the ports ``in`` and ``out``); :func:`make_backend` picks one. The bytes that
+arrive are parsed into :class:`mido.Message` objects and messages go out as ``msg.bytes()``.
+python-rtmidi is used directly (not through ``mido.open_input``) because only it lets us name our
+client and port when we connect to somebody else's port, so users find ``retuner`` in their
+patchbay.
 
 Names a user gives (``--input``, ``--output``) match a port when they are:
 
@@ -26,16 +28,13 @@ daemon logs the closest existing names once (:func:`closest`) and keeps waiting 
 
 from __future__ import annotations
 
-import contextlib
 import difflib
 import fnmatch
 import logging
 import os
 import re
 import shutil
-import sys
 import threading
-import time
 from dataclasses import dataclass
 from typing import Callable, Optional, Sequence
 
@@ -43,7 +42,8 @@ import mido
 import rtmidi
 
 from retuner.errors import RetunerError, Unavailable
-from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver
+from retuner.live import jackmidi
+from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver, quiet_library
 
 log = logging.getLogger("retuner.live.ports")
 
@@ -103,7 +103,7 @@ def choose_backend(backend: str) -> str:
     saved = os.environ.get("JACK_NO_START_SERVER")
     os.environ["JACK_NO_START_SERVER"] = "1"
     try:
-        if _opens(rtmidi.API_UNIX_JACK):
+        if jackmidi.server_running():
             return "jack"
     finally:
         if saved is None:
@@ -132,28 +132,7 @@ def _rt_error(exc: Exception, what: str, backend: str) -> Unavailable:
     return Unavailable(f"{what}: {exc}{hint}", field="backend")
 
 
-@contextlib.contextmanager
-def _quiet_library():
-    """The JACK and ALSA libraries print to the process's stderr (file descriptor 2) when no
-    server or sequencer is there, several lines before our own one-line message. Opening a
-    client is quick, so fd 2 goes to /dev/null meanwhile (kept with -v, for debugging)."""
-    if logging.getLogger("retuner").isEnabledFor(logging.DEBUG):
-        yield
-        return
-    try:
-        sys.stderr.flush()
-        saved = os.dup(2)
-        devnull = os.open(os.devnull, os.O_WRONLY)
-    except OSError:
-        yield
-        return
-    try:
-        os.dup2(devnull, 2)
-        yield
-    finally:
-        os.dup2(saved, 2)
-        os.close(saved)
-        os.close(devnull)
+_quiet_library = quiet_library        # fd 2 quiet while a client opens (retuner.live.backend)
 
 
 def _new_in(backend: str, client_name: str, queue_size: int = 1024) -> rtmidi.MidiIn:
@@ -252,13 +231,23 @@ class PortLister:
 
 
 def is_own(name: str, base: str = "retuner") -> bool:
-    """Whether a listed port is one of a retuner daemon's own (client ``BASE-in``/``BASE-out``)."""
+    """Whether a listed port is one of a retuner daemon's own (JACK: client ``BASE``; ALSA: clients
+    ``BASE-in``/``BASE-out``)."""
     return name.startswith((f"{base}-", f"{base}:"))
 
 
-def list_ports(backend: str) -> tuple[list[str], list[str]]:
+def make_backend(backend: str, base: str = "retuner") -> PortBackend:
+    """The backend a daemon named ``base`` uses: the ALSA sequencer through python-rtmidi, or a
+    JACK server through JACK-Client (one client ``base`` with the ports ``in`` and ``out``)."""
+    word = choose_backend(backend)
+    if word == "jack":
+        return jackmidi.JackBackend(base, error=lambda exc, what: _rt_error(exc, what, "jack"))
+    return RtMidiBackend(word, f"{base}-probe")
+
+
+def list_ports(backend: str, base: str = "retuner-probe") -> tuple[list[str], list[str]]:
     """(inputs, outputs) as the backend names them."""
-    lister = PortLister(backend)
+    lister = make_backend(backend, base)
     try:
         return lister.inputs(), lister.outputs()
     finally:
@@ -282,31 +271,21 @@ def _index_of(rt, name: str) -> int:
 
 
 class InputPort(InputHandle):
-    """An open input; ``callback(msg)`` runs on a backend thread for every parsed message.
+    """An open ALSA input; ``callback(msg)`` runs on python-rtmidi's input thread for every parsed
+    message. ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse.
 
-    ``on_error(exc, data)`` is called (also on that thread) for bytes that do not parse.
-
-    ALSA: python-rtmidi's own input thread calls us. JACK: python-rtmidi would call us from
-    JACK's process thread, which then has to wait for Python's global interpreter lock (up to
-    ``sys.getswitchinterval()``, 5 ms by default, longer than a period) and can make the whole
-    JACK graph miss its deadline. So under JACK the process thread only queues the bytes
-    (python-rtmidi's own queue, in C) and a reader thread of ours collects them every
-    ``poll`` seconds (default 0.5 ms; JACK itself delivers once per period)."""
+    (JACK is served by retuner.live.jackmidi: a python-rtmidi callback would run on JACK's process
+    thread, which would then wait for Python's interpreter lock, and closing the port, which holds
+    that lock while it waits for the process cycle, could hang.)"""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
                  connect_to: Optional[str] = None,
                  callback: Callable[[mido.Message], None],
-                 on_error: Optional[Callable[[Exception, list], None]] = None,
-                 poll: Optional[float] = None):
+                 on_error: Optional[Callable[[Exception, list], None]] = None):
         self.backend = choose_backend(backend)
         self.connected_to = connect_to
         self._callback = callback
         self._on_error = on_error
-        if poll is None and self.backend == "jack":
-            poll = 0.0005
-        self._poll = poll
-        self._reader: Optional[threading.Thread] = None
-        self._stop = threading.Event()
         self._rt = _new_in(self.backend, client_name, queue_size=4096)
         try:
             if connect_to is None:
@@ -315,12 +294,7 @@ class InputPort(InputHandle):
                 self._rt.open_port(_index_of(self._rt, connect_to), port_name)
             # deliver system exclusive and timing clock, drop active sensing
             self._rt.ignore_types(sysex=False, timing=False, active_sense=True)
-            if self._poll:
-                self._reader = threading.Thread(target=self._read_loop, name=f"retuner-{port_name}",
-                                                daemon=True)
-                self._reader.start()
-            else:
-                self._rt.set_callback(self._on_bytes)
+            self._rt.set_callback(self._on_bytes)
         except RetunerError:
             self._rt.delete()
             raise
@@ -332,25 +306,10 @@ class InputPort(InputHandle):
     def _on_bytes(self, event, data=None) -> None:
         deliver(event[0], self._callback, self._on_error)
 
-    def _read_loop(self) -> None:
-        rt, stop, poll, on_bytes = self._rt, self._stop, self._poll, self._on_bytes
-        while not stop.is_set():
-            try:
-                event = rt.get_message()
-            except Exception:  # pragma: no cover - the port went away under us
-                event = None
-            if event is None:
-                time.sleep(poll)
-            else:
-                on_bytes(event)
-
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
-        self._stop.set()
-        if self._reader is not None:
-            self._reader.join(1)
         try:
             self._rt.cancel_callback()
             self._rt.close_port()
@@ -360,7 +319,7 @@ class InputPort(InputHandle):
 
 
 class OutputPort(OutputHandle):
-    """An open output; ``send(msg)`` writes at once."""
+    """An open ALSA output; ``send(msg)`` writes at once (the sequencer delivers it at once too)."""
 
     def __init__(self, backend: str, client_name: str, port_name: str, *,
                  connect_to: Optional[str] = None):
@@ -379,77 +338,27 @@ class OutputPort(OutputHandle):
             self._rt.delete()
             raise _rt_error(exc, f"cannot open output {connect_to or port_name!r}", self.backend) from exc
         self.closed = False
-        self._last_send = float("-inf")
-        self._client, self._port = client_name, port_name
 
     def send(self, msg: mido.Message) -> None:
         self._rt.send_message(msg.bytes())
-        self._last_send = time.monotonic()
 
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
-        if self.backend == "jack" and time.monotonic() - self._last_send < 1.0:
-            self.drain()
         try:
             self._rt.close_port()
             self._rt.delete()
         except Exception as exc:  # pragma: no cover - teardown
             log.debug("closing output: %s", exc)
 
-    def drain(self, timeout: float = 2.0) -> bool:
-        """JACK: wait until what was sent has left in a process cycle (closing at once would lose
-        it: JACK hands queued events over once per period, and a cycle may be late). A loop-back
-        input of our own is connected to our output and a marker (Active Sensing, FE: MIDI 1.0;
-        a synth may take it as a request to silence its notes should nothing follow, which at
-        shutdown is welcome) is sent until it comes back: the ring buffer is first in, first out,
-        so everything before it has gone out to every port connected. Without the loop-back
-        (it cannot be opened), a fixed wait of 0.25 s."""
-        try:
-            with _quiet_library():
-                probe = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, f"{self._client}-drain")
-        except Exception:  # noqa: BLE001 - no loop-back: the old fixed wait
-            time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
-            return False
-        try:
-            names = probe.get_ports()
-            ours = [i for i, n in enumerate(names) if n == f"{self._client}:{self._port}"] or \
-                   [i for i, n in enumerate(names) if n.startswith(self._client) and n.endswith(f":{self._port}")]
-            if not ours:
-                time.sleep(max(0.0, 0.25 - (time.monotonic() - self._last_send)))
-                return False
-            probe.ignore_types(sysex=True, timing=True, active_sense=False)
-            probe.open_port(ours[0], "drain")
-            end = time.monotonic() + timeout
-            while time.monotonic() < end:
-                self._rt.send_message([0xFE])
-                resend = time.monotonic() + 0.05
-                while time.monotonic() < resend:
-                    ev = probe.get_message()
-                    if ev is None:
-                        time.sleep(0.001)
-                    elif ev[0] == [0xFE]:
-                        return True
-            log.debug("the output did not drain within %.1f s", timeout)
-            return False
-        except Exception as exc:  # noqa: BLE001 - teardown: never fail the exit
-            log.debug("draining the output: %s", exc)
-            return False
-        finally:
-            try:
-                probe.close_port()
-                probe.delete()
-            except Exception:  # pragma: no cover - teardown
-                pass
-
 
 class RtMidiBackend(PortBackend):
-    """The ALSA sequencer or a JACK server, through python-rtmidi.
+    """The ALSA sequencer, through python-rtmidi (:func:`make_backend` gives JACK to
+    retuner.live.jackmidi).
 
-    Client names: python-rtmidi opens one client per port (a MidiIn or a MidiOut each), and JACK
-    renames a second client of a name already taken ("retuner-01"), so each side has a client
-    of its own, named alike on both systems: "retuner-in:in" and "retuner-out:out"."""
+    Client names: python-rtmidi opens one client per port (a MidiIn or a MidiOut each), so each
+    side has a client of its own: "retuner-in:in" and "retuner-out:out"."""
 
     def __init__(self, backend: str, probe_name: str = "retuner-probe"):
         self.word = choose_backend(backend)

@@ -79,8 +79,8 @@ class Run:
         while not os.path.exists(self.sock):
             assert time.monotonic() < end, "no control socket:\n" + self.daemon.log()[-3000:]
             time.sleep(0.02)
-        for src, dst in ((client.out_full, f"{self.client_name}-in:in"),
-                         (f"{self.client_name}-out:out", client.in_full)):
+        for src, dst in ((client.out_full, f"{self.client_name}:in"),
+                         (f"{self.client_name}:out", client.in_full)):
             for attempt in range(3):      # jack_connect is itself a JACK client; it can fail to attach
                 try:
                     jack_server.connect(src, dst)

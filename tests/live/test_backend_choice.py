@@ -60,8 +60,8 @@ def test_run_picks_the_running_jack_server(jack_server, tmp_path):
     d = Daemon(["--virtual", "--client-name", name, "--no-control-socket"], env, str(tmp_path / "d.log"))
     try:
         if EXPECTED == "jack":
-            jack_server.wait_port(f"{name}-in:in")
-            jack_server.wait_port(f"{name}-out:out")
+            jack_server.wait_port(f"{name}:in")
+            jack_server.wait_port(f"{name}:out")
         else:
             deadline = time.monotonic() + 10
             while "input: our own port" not in d.log() and time.monotonic() < deadline:

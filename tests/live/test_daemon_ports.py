@@ -43,15 +43,16 @@ def test_backend_words():
 
 def test_open_list_and_carry_messages(jack_server, jack_client):
     got = []
-    inp = ports.InputPort("jack", "rt-test-in", "in", callback=got.append)
-    out = ports.OutputPort("jack", "rt-test-out", "out")
+    backend = ports.make_backend("jack", "rt-test")      # one JACK client, ports in and out
+    inp = backend.open_input("rt-test", "in", connect_to=None, callback=got.append)
+    out = backend.open_output("rt-test", "out", connect_to=None)
     try:
         listed_in, listed_out = ports.list_ports("jack")
         assert jack_client.out_full in listed_in          # we can read from the client's output
-        assert "rt-test-in:in" in listed_out              # others can write to our input
-        assert "rt-test-out:out" in listed_in
-        jack_server.connect(jack_client.out_full, "rt-test-in:in")
-        jack_server.connect("rt-test-out:out", jack_client.in_full)
+        assert "rt-test:in" in listed_out              # others can write to our input
+        assert "rt-test:out" in listed_in
+        jack_server.connect(jack_client.out_full, "rt-test:in")
+        jack_server.connect("rt-test:out", jack_client.in_full)
         jack_client.send(mido.Message("note_on", note=60, velocity=99, channel=3))
         sysex = mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x01])
         jack_client.send(sysex)
@@ -66,6 +67,7 @@ def test_open_list_and_carry_messages(jack_server, jack_client):
     finally:
         inp.close()
         out.close()
+        backend.close()
 
 
 def test_open_by_name_connects(jack_server, jack_client):
@@ -74,7 +76,8 @@ def test_open_by_name_connects(jack_server, jack_client):
     name = ports.match_port(spec, names)
     assert name == jack_client.out_full
     got = []
-    inp = ports.InputPort("jack", "rt-named", "in", connect_to=name, callback=got.append)
+    backend = ports.make_backend("jack", "rt-named")
+    inp = backend.open_input("rt-named", "in", connect_to=name, callback=got.append)
     try:
         assert "rt-named:in" in jack_server.connections(jack_client.out_full)
         jack_client.send(mido.Message("control_change", control=64, value=127))
@@ -84,6 +87,7 @@ def test_open_by_name_connects(jack_server, jack_client):
         assert got == [mido.Message("control_change", control=64, value=127)]
     finally:
         inp.close()
+        backend.close()
 
 
 def test_ports_command_lists_both_directions(jack_server, jack_client):

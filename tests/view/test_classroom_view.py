@@ -69,7 +69,7 @@ class LiveDaemon:
             self.daemon.stop()
             raise AssertionError("daemon never became ready:\n" + self.daemon.log()[-3000:])
         assert os.path.exists(self.sock), "no control socket:\n" + self.daemon.log()[-3000:]
-        for src, dst in ((self.client.out_full, f"{name}-in:in"), (f"{name}-out:out", self.client.in_full)):
+        for src, dst in ((self.client.out_full, f"{name}:in"), (f"{name}:out", self.client.in_full)):
             for attempt in range(3):      # jack_connect is itself a JACK client; it can fail to attach
                 try:
                     self.jack.connect(src, dst)

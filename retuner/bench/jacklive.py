@@ -1,0 +1,242 @@
+"""``retuner bench --jack``: the daemon's idle cost and its note-on latency under a JACK server.
+
+For each daemon (this checkout, and with ``--against REPO`` another checkout run by
+``--against-python``) and each of static and adaptive (default attack mode) play:
+
+* ``idle_cpu_percent``: CPU time of the idle daemon (utime + stime from /proc/PID/stat, proc(5))
+  over ``idle`` seconds, in percent of one core;
+* note-on latency from a measuring client of our own (JACK-Client): its process callback writes a
+  note-on at the start of a period and finds the retuned note-on on its input some periods later.
+  ``latency_periods`` counts those periods (JACK time, exact); ``latency_ms`` is the same span in
+  milliseconds of JACK time (frames / sample rate); ``wall_ms`` is the wall-clock time from the
+  period the note-on left to the process callback that found it come back.
+
+When no JACK server answers, one is started with its dummy driver (``jackd --no-realtime -n NAME
+-d dummy -r 48000 -p 128``, NAME from ``JACK_DEFAULT_SERVER`` or a private one) and stopped after.
+Figures, not goals: they depend on the machine and its load.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import uuid
+from typing import Optional
+
+from retuner.errors import Unavailable
+from retuner.live import jackmidi
+
+
+def _cpu_ticks(pid: int) -> int:
+    with open(f"/proc/{pid}/stat") as fh:
+        fields = fh.read().rsplit(")", 1)[1].split()
+    return int(fields[11]) + int(fields[12])          # utime, stime (proc(5))
+
+
+class _Server:
+    """A JACK server already running, or one started here with the dummy driver."""
+
+    def __init__(self, rate: int = 48000, period: int = 128):
+        self.proc: Optional[subprocess.Popen] = None
+        os.environ["JACK_NO_START_SERVER"] = "1"
+        if jackmidi.server_running():
+            return
+        jackd = shutil.which("jackd")
+        if jackd is None:
+            raise Unavailable("no JACK server running and jackd is not installed (apt-get install jackd2)",
+                              field="--jack")
+        name = os.environ.get("JACK_DEFAULT_SERVER") or f"retuner-bench-{os.getpid()}"
+        os.environ["JACK_DEFAULT_SERVER"] = name
+        self.log = tempfile.TemporaryFile()
+        self.proc = subprocess.Popen([jackd, "--no-realtime", "-n", name, "-d", "dummy", "-r", str(rate),
+                                      "-p", str(period)], stdout=self.log, stderr=subprocess.STDOUT,
+                                     start_new_session=True)
+        end = time.monotonic() + 20
+        while not jackmidi.server_running():
+            if self.proc.poll() is not None or time.monotonic() > end:
+                self.stop()
+                raise Unavailable(f"jackd -n {name} did not start", field="--jack")
+            time.sleep(0.1)
+
+    def stop(self) -> None:
+        if self.proc is not None and self.proc.poll() is None:
+            self.proc.terminate()
+            try:
+                self.proc.wait(5)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait(5)
+        self.proc = None
+
+
+class _Meter:
+    """Two JACK clients of our own, a keyboard (``NAME:play``) that plays a note-on at the start of a
+    period and a synth (``NAME-rec:record``) that waits for it to return. Two clients, as keyboard and
+    synth are in use: JACK runs them before and after the daemon in each period (one client both
+    before and after it would be a loop, whose order JACK does not promise)."""
+
+    def __init__(self, name: str):
+        self.client = jackmidi.open_client(name)
+        self.rec = jackmidi.open_client(f"{name}-rec")
+        self.out = self.client.midi_outports.register("play")
+        self.inp = self.rec.midi_inports.register("record")
+        self._pending: Optional[bytes] = None
+        self._sent: Optional[tuple] = None        # (frame, wall) of the period it left in
+        self._key = 0
+        self.got = threading.Event()
+        self.result: Optional[tuple] = None
+        self.client.set_process_callback(self._play)
+        self.rec.set_process_callback(self._record)
+        self.client.activate()
+        self.rec.activate()
+
+    def _play(self, frames: int) -> None:
+        self.out.clear_buffer()
+        if self._pending is not None:
+            self.out.write_midi_event(0, self._pending)
+            self._pending = None
+            self._sent = (self.client.last_frame_time, time.monotonic())
+
+    def _record(self, frames: int) -> None:
+        start = self.rec.last_frame_time
+        for offset, buf in self.inp.incoming_midi_events():
+            data = bytes(buf)
+            if (self._sent is not None and not self.got.is_set() and len(data) == 3
+                    and data[0] & 0xF0 == 0x90 and data[1] == self._key and data[2]):
+                frame, wall = self._sent
+                self.result = (start + offset - frame, start - frame, time.monotonic() - wall)
+                self.got.set()
+
+    def note(self, key: int, timeout: float = 5.0) -> Optional[tuple]:
+        """(frames, frames to the period it came back in, wall seconds), or None if it never came."""
+        self.got.clear()
+        self._sent = None
+        self._key = key
+        self._pending = bytes([0x90, key, 80])
+        ok = self.got.wait(timeout)
+        off = bytes([0x80, key, 0])
+        time.sleep(0.005)
+        self._pending = off
+        return self.result if ok else None
+
+    def close(self) -> None:
+        for c in (self.client, self.rec):
+            c.deactivate()
+            c.close()
+
+
+def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: int, period: int) -> dict:
+    name = f"rb{uuid.uuid4().hex[:6]}"
+    tmp = tempfile.mkdtemp(prefix="rbj")
+    env = dict(os.environ, XDG_RUNTIME_DIR=tmp, XDG_CONFIG_HOME=tmp, PYTHONPATH=repo)
+    args = [python, "-m", "retuner", "run", "--backend", "jack", "--virtual", "--client-name", name,
+            "--no-control-socket", "--status-interval", "0", "--profile", "edo12"]
+    if adaptive:
+        args.append("--adaptive")
+    log = open(os.path.join(tmp, "daemon.log"), "wb")
+    proc = subprocess.Popen(args, stdout=log, stderr=subprocess.STDOUT, env=env, cwd=repo)
+    meter = None
+    fig: dict = {}
+    try:
+        meter = _Meter(f"{name}-meter")
+        end = time.monotonic() + 30
+        ins = outs = []
+        while time.monotonic() < end:
+            ins = [p.name for p in meter.client.get_ports(f"^{name}(-in|-out)?:", is_midi=True, is_input=True)]
+            outs = [p.name for p in meter.client.get_ports(f"^{name}(-in|-out)?:", is_midi=True, is_output=True)]
+            if ins and outs:
+                break
+            if proc.poll() is not None:
+                break
+            time.sleep(0.05)
+        if not (ins and outs):
+            log.flush()
+            return {"error": "the daemon opened no ports: "
+                    + open(os.path.join(tmp, "daemon.log"), errors="replace").read()[-500:]}
+        meter.client.connect(meter.out, ins[0])
+        meter.client.connect(outs[0], meter.inp)
+        fig["ports"] = ins + outs
+        time.sleep(2.0)                                   # settle after start-up
+        hz = os.sysconf("SC_CLK_TCK")
+        c0, t0 = _cpu_ticks(proc.pid), time.monotonic()
+        time.sleep(idle)
+        c1, t1 = _cpu_ticks(proc.pid), time.monotonic()
+        fig["idle_cpu_percent"] = round(100.0 * (c1 - c0) / hz / (t1 - t0), 2)
+        frames, periods, wall = [], [], []
+        for i in range(notes):
+            r = meter.note(48 + i % 36)
+            if r is not None:
+                frames.append(r[0])
+                periods.append(r[1] / period)
+                wall.append(r[2])
+            time.sleep(0.05)
+        fig["notes"] = notes
+        fig["notes_back"] = len(frames)
+        if frames:
+            ms = sorted(1000.0 * f / rate for f in frames)
+            fig["latency_ms"] = {"median": round(statistics.median(ms), 2), "max": round(ms[-1], 2)}
+            fig["latency_periods"] = {"median": statistics.median(periods), "max": max(periods)}
+            fig["wall_ms"] = {"median": round(1000 * statistics.median(wall), 2),
+                              "max": round(1000 * max(wall), 2)}
+    finally:
+        if meter is not None:
+            meter.close()
+        proc.terminate()
+        try:
+            proc.wait(15)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(5)
+        log.close()
+        shutil.rmtree(tmp, ignore_errors=True)
+    return fig
+
+
+def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = None,
+               against_python: Optional[str] = None) -> dict:
+    """Figures for this checkout (``new``) and, with ``against``, another one (``old``)."""
+    here = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    server = _Server()
+    try:
+        probe = jackmidi.open_client("retuner-bench-probe")
+        rate, period = probe.samplerate, probe.blocksize
+        probe.close()
+        out: dict = {"server": os.environ.get("JACK_DEFAULT_SERVER", "default"), "sample_rate": rate,
+                     "period_frames": period, "period_ms": round(1000.0 * period / rate, 3),
+                     "idle_s": idle}
+        runs = [("new", sys.executable, here)]
+        if against:
+            runs.append(("old", against_python or sys.executable, os.path.abspath(against)))
+        for label, python, repo in runs:
+            out[label] = {"repo": repo, "python": python}
+            for play in ("static", "adaptive"):
+                out[label][play] = _one(python, repo, play == "adaptive", idle, notes, rate, period)
+        return out
+    finally:
+        server.stop()
+
+
+def format_jack_bench(f: dict) -> str:
+    lines = [f"JACK server {f['server']}: {f['sample_rate']} Hz, periods of {f['period_frames']} frames "
+             f"({f['period_ms']} ms); idle measured over {f['idle_s']:g} s"]
+    for label in ("old", "new"):
+        if label not in f:
+            continue
+        for play in ("static", "adaptive"):
+            r = f[label][play]
+            if "error" in r:
+                lines.append(f"{label} {play}: {r['error']}")
+                continue
+            lat = r.get("latency_ms")
+            text = (f"note-on in->out median {lat['median']} ms = {r['latency_periods']['median']:g} periods "
+                    f"(max {lat['max']} ms = {r['latency_periods']['max']:g}), wall clock median "
+                    f"{r['wall_ms']['median']} ms" if lat else "no note-on came back")
+            lines.append(f"{label} {play}: idle {r['idle_cpu_percent']} % of a core; {text} "
+                         f"({r['notes_back']}/{r['notes']} notes); ports {', '.join(r['ports'])}")
+    return "\n".join(lines)
