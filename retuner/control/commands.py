@@ -147,9 +147,9 @@ class EngineControl(Handler):
 
     def _session_changed(self, kind: str, t: float) -> None:
         if kind == "tuning":
-            self._publish({"event": "profile", "t": t, **self.info()})
+            self._publish({"event": "profile", "time_s": t, **self.info()})
         else:
-            self._publish({"event": "adaptive", "t": t, "on": self.session.adaptive_settings is not None,
+            self._publish({"event": "adaptive", "time_s": t, "on": self.session.adaptive_settings is not None,
                            "settings": self.session.adaptive_settings})
 
     def _emit(self, out) -> None:
@@ -182,7 +182,7 @@ class EngineControl(Handler):
                 sounding = len(self.engine.sounding())
                 self._emit(self.engine.release_all(now))
             log.warning("panic: every note released (control socket)")
-            self._publish({"event": "panic", "t": now})
+            self._publish({"event": "panic", "time_s": now})
             self.observe(now, force=True)
             # notes held by a pedal have had their note-off already: count every sounding note
             return {"released": sounding}
@@ -240,20 +240,20 @@ class EngineControl(Handler):
         old = self._sounding
         for k, n in old.items():
             if k not in now_notes:
-                server.publish({"event": "note_off", "t": now, "key": n["key"], "channel": k[0] + 1})
+                server.publish({"event": "note_off", "time_s": now, "key": n["key"], "channel": k[0] + 1})
         for k, n in now_notes.items():
             prev = old.get(k)
             c = n.get("cents")
             if prev is None:
-                server.publish({"event": "note_on", "t": now, "key": n["key"], "channel": k[0] + 1,
+                server.publish({"event": "note_on", "time_s": now, "key": n["key"], "channel": k[0] + 1,
                                 "cents": c, "hz": None if c is None else cents_to_hz(c),
                                 "velocity": n.get("velocity")})
             elif prev.get("cents") != c:
-                server.publish({"event": "pitch", "t": now, "key": n["key"], "channel": k[0] + 1,
+                server.publish({"event": "pitch", "time_s": now, "key": n["key"], "channel": k[0] + 1,
                                 "cents": c, "hz": None if c is None else cents_to_hz(c)})
         self._sounding = {k: dict(v) for k, v in now_notes.items()}
         if force or now >= self._next_counters:
             self._next_counters = now + self.COUNTER_INTERVAL
             stats = dict(getattr(self.engine, "stats", {}) or {})
             stats["events_dropped"] = server.counters["events_dropped"] + server.counters["central_dropped"]
-            server.publish({"event": "counters", "t": now, "profile": self.session.base.id, **stats})
+            server.publish({"event": "counters", "time_s": now, "profile": self.session.base.id, **stats})

@@ -122,7 +122,7 @@ class WatchState:
         elif kind == "adaptive":
             self.info["adaptive"] = ev.get("on")
         elif kind == "counters":
-            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "t", "profile")}
+            c = {k2: v for k2, v in ev.items() if k2 not in ("event", "time_s", "profile")}
             self.counters.update(c)
             if ev.get("profile"):
                 self.info["profile"] = ev["profile"]
