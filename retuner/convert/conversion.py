@@ -76,6 +76,7 @@ class Output:
     report: Optional[dict] = None
     wheel: Optional[list] = None        # the player's wheel per output channel, for the measures
     steals_why: str = ""                # why steals cut notes short and what avoids it ("" if none did)
+    engines: int = 1                    # engines that played this file's parts (1: one harmony)
 
 
 @dataclass
@@ -85,6 +86,12 @@ class ConvertResult:
     split: bool = False
     lookahead: Optional[dict] = None    # what the lookahead planner chose, and the live figures
     note_ons: Optional[list] = None     # --live: the input's note-ons as (seconds, key)
+
+    @property
+    def one_harmony(self) -> bool:
+        """Did one engine (one solver) play every part? Parts in other files, or in MPE zones of
+        their own, are each tuned against themselves."""
+        return len(self.outputs) == 1 and self.outputs[0].engines == 1
 
     @property
     def stats(self) -> dict:
@@ -250,7 +257,7 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
                 stats[k] = stats.get(k, 0) + v
         path = split_name(out_path, gi + 1) if split else str(out_path)
         outputs.append(Output(path, parts, channels, data, stats,
-                              steals_why=_steals_why(distinct)))
+                              steals_why=_steals_why(distinct), engines=len(distinct)))
     return outputs
 
 

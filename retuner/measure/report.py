@@ -161,7 +161,13 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     if not static and len(parts) > 1:
         # adaptive mode (live, as the daemon, or planned): the parts of a file as one harmony,
         # or each part alone
-        top["parts_tuned"] = "apart" if getattr(opts, "parts_apart", False) else "together"
+        together = not getattr(opts, "parts_apart", False) and res.one_harmony
+        top["parts_tuned"] = "together" if together else "apart"
+        if together and getattr(opts, "merge_parts", False):
+            top["parts_share_channels"] = True      # one pool, each channel dressed for its note's part
+        if not together and not getattr(opts, "parts_apart", False):
+            # asked for one harmony, but the parts were played by engines of their own
+            top["parts_apart_why"] = MODES[config.mode].why_parts_apart(bool(res.split))
     if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
         # played as live: how much later each note-on left than it came (engine clock)
         outs = [(n.start, n.key) for dec in decs for n in dec.notes]
@@ -211,9 +217,12 @@ def text_summary(rep: dict) -> str:
         lines.append(f"  notes {rep['notes']}, steals {rep['steals']}, ringing retunes "
                      f"{rep['ringing_retunes']}, bends sent {rep['bends_sent']}")
     if rep.get("parts_tuned") == "together":
-        lines.append("  parts tuned together as one harmony, each on its own channels")
+        lines.append("  parts tuned together as one harmony, " + (
+            "sharing the output channels (each dressed for the part whose note it plays)"
+            if rep.get("parts_share_channels") else "each on its own channels"))
     elif rep.get("parts_tuned") == "apart":
-        lines.append("  parts tuned apart, each against itself")
+        lines.append("  parts tuned apart, each against itself"
+                     + (f": {rep['parts_apart_why']}" if rep.get("parts_apart_why") else ""))
     if rep.get("added_latency_ms"):
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "

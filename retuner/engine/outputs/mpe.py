@@ -67,6 +67,11 @@ class MPEMode(BendMode):
         return list(config.mpe_member_channels())
 
     @classmethod
+    def why_parts_apart(cls, split: bool) -> str:
+        return ("in MPE each part has a zone and an engine of its own; to tune the parts as one "
+                "harmony use pool mode, or --merge-parts (one zone, one instrument)")
+
+    @classmethod
     def without_passthrough(cls, config: Any) -> Any:
         # the zone stops short of the passthrough channels only to keep drums out of it: a file
         # without drums gives the zone every channel (fewer ringing retunes)
