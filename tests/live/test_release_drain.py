@@ -1,59 +1,84 @@
 """The release burst of a stopping daemon reaches the synth even when JACK's process cycle is late.
 
-Under JACK, python-rtmidi's output only queues what we send (a ring buffer); the bytes go out in
-the client's next process cycle, once per process cycle. Closing the port unregisters it, and whatever
-is still queued then never goes out. python-rtmidi's own close waits for one more cycle, but at
-most one second (RtMidi.cpp, the JACK output's port close: sem_post, then sem_timedwait with
-"wait max one second", then jack_port_unregister; the wheel installed here links sem_timedwait).
-So a cycle later than retuner's own wait before closing plus that second loses the note-offs of
-a shutdown: notes hang on the synth.
+What JACK-Client does, read in the installed package's own code (JACK-Client 0.5.7, ``jack.py``; it
+reaches the system's libjack through cffi, ``_ffi.dlopen``, one C call per method, nothing kept between):
 
-These tests put a model of that JACK behaviour (:class:`FakeJack`) under retuner.live.ports, in
-place of python-rtmidi, with a clock of its own that only moves when ports.py sleeps: every
-run is the same, no server and no timing. The daemon is the real one, on the real rtmidi backend
-code (retuner.live.ports.RtMidiBackend), stopped by SIGTERM while the cycle is late.
+* ``OwnMidiPort.write_midi_event(time, event)`` calls ``jack_midi_event_write`` on
+  ``jack_port_get_buffer(port, blocksize)``: it writes straight into the port's buffer of the
+  process cycle in progress, and raises ``JackError`` when the event does not fit. JACK-Client keeps
+  no queue of its own, so the only queue is retuner's (``JackOutput``'s deque, emptied by the process
+  callback in retuner/live/jackmidi.py).
+* ``OwnPort.unregister()`` takes the port out of the client's port list and calls
+  ``jack_port_unregister`` at once; it waits for no cycle. ``Client.deactivate()`` calls
+  ``jack_deactivate`` (out of the process graph, every connection of the client's ports removed)
+  and ``Client.close()`` calls ``jack_client_close``.
+* A process callback that raises is not called again (``Client.set_process_callback``'s text).
+
+So whatever the deque still holds when the port is unregistered never goes out, and while JACK's
+process cycle is late nothing is written at all: the note-offs of a shutdown would be lost and
+notes would hang on the synth, unless ``JackOutput.drain`` waits (at most its ``timeout``) until
+the deque is written and two more cycles ran, before the port closes.
+
+These tests put a model of that JACK behaviour (:class:`JackModel`, a fake ``jack`` module) where
+jackmidi.py finds JACK-Client (``jackmidi._MODULE``, what ``jack_module()`` returns once loaded),
+and the model's clock where jackmidi waits (its ``time``): time is the model's own and moves only
+when someone sleeps or the test turns it; a cycle runs every ``CYCLE`` seconds of it except while
+the cycle is late. Every run is the same: no server, no threads, no timing. The daemon is the real
+one, on the real JACK backend (``jackmidi.JackBackend``), stopped by SIGTERM while the cycle is late.
 """
 
 from __future__ import annotations
 
+import inspect
 import signal
 import threading
-import time as _time
 import types
 
 import mido
 import pytest
 
-from jack import Decoder
 from retuner.cli import build_parser
 from retuner.commands import run as run_cmd
-from retuner.live import ports
+from retuner.live import jackmidi
 from retuner.live.daemon import Daemon
 
-CYCLE = 128 / 48000         # one JACK process cycle: 128 frames at 48 kHz (the dummy driver the tests start)
-LIBRARY_CLOSE_WAIT = 1.0     # python-rtmidi's own wait for a cycle when an output port closes
+CYCLE = 128 / 48000       # one process cycle: 128 frames at 48 kHz (the dummy driver the JACK tests start)
+BUFFER_EVENTS = 16        # the model's room for events in one cycle's port buffer: its own choice, far
+                          # below a real buffer's, so that the release burst needs several cycles
+DRAIN_TIMEOUT = inspect.signature(jackmidi.JackOutput.drain).parameters["timeout"].default
 
 
-class FakeJack:
-    """A JACK server and python-rtmidi's JACK ports, as far as sending and closing go.
+class ModelError(Exception):
+    """The model's ``jack.JackError``."""
 
-    Time is the model's own (``now``); cycles run every ``CYCLE`` seconds when time moves, except while
-    the process cycle is late (:meth:`stall`). In a cycle every output port hands everything
-    queued to its connections (rtmidi's process callback empties its ring buffer); a port that
-    is unregistered drops what is still queued."""
+
+class JackModel:
+    """A JACK server and the part of JACK-Client retuner uses, as far as ports, cycles and closing go.
+
+    ``module`` is the fake ``jack`` module (``Client``, ``MidiPort``, ``JackError``). A cycle runs every
+    active client's process callback once, in the order of the connections (a source's client before
+    the clients it feeds); just before its callback, each input port's buffer gets what the output
+    ports connected to it hold at that moment. A port unregistered or a client deactivated loses its
+    connections; what was never written to a port buffer is not the model's to keep."""
 
     def __init__(self):
         self.now = 0.0
         self.next_cycle = CYCLE
         self.late_until = float("-inf")
-        self.ports: dict[str, object] = {}           # full name -> FakeOut / FakeIn
-        self.links: list[tuple[str, str]] = []       # (source, destination)
+        self.cycles = 0
+        self.clients: list[FakeClient] = []           # in the order they were activated
+        self.ports: dict[str, FakePort] = {}          # full name -> registered port
+        self.links: list[tuple[str, str]] = []        # (source, destination), in the order made
         self.lock = threading.RLock()
-        self.owner = threading.current_thread()
+        self.module = types.SimpleNamespace(Client=self._client, MidiPort=FakePort, JackError=ModelError,
+                                            __name__="jack (model)")
+
+    def _client(self, name, use_exact_name=False, no_start_server=False, servername=None, session_id=None):
+        return FakeClient(self, name)
 
     # ---------------------------------------------------------------- time
     def stall(self, seconds: float) -> None:
-        """No process cycle for ``seconds`` (a late cycle on a loaded machine)."""
+        """No process cycle for ``seconds`` from now (a late cycle on a loaded machine)."""
         with self.lock:
             self.late_until = self.now + seconds
 
@@ -67,228 +92,285 @@ class FakeJack:
                 self.next_cycle += CYCLE
             self.now = end
 
-    def _cycle(self) -> None:
-        outs = [p for p in self.ports.values() if isinstance(p, FakeOut)]
-        for p in outs:
-            events, p.ring = p.ring, []
-            for src, dst in self.links:
-                if src == p.full and dst in self.ports:
-                    self.ports[dst].arrive(events)
-            if p.needpost:
-                p.needpost, p.cleanup = False, True
-
     def time_module(self):
-        """What ports.py sees as ``time``: sleeping moves the model's clock (on the thread that
-        owns it; a reader thread of an input only naps)."""
-        def sleep(seconds):
-            if threading.current_thread() is self.owner:
-                self.advance(seconds)
-            else:
-                _time.sleep(0.0005)
-        return types.SimpleNamespace(monotonic=lambda: self.now, sleep=sleep,
-                                     perf_counter=lambda: self.now)
+        """What jackmidi sees as ``time``: sleeping moves the model's clock."""
+        return types.SimpleNamespace(monotonic=lambda: self.now, perf_counter=lambda: self.now,
+                                     sleep=self.advance)
 
-    # ---------------------------------------------------------------- listing
-    def sources(self) -> list[str]:
-        with self.lock:
-            return [n for n, p in self.ports.items() if isinstance(p, FakeOut)]
+    # ---------------------------------------------------------------- cycles
+    def _order(self) -> list["FakeClient"]:
+        left = [c for c in self.clients if c.active]
+        done: list[FakeClient] = []
+        while left:
+            def feeds(c):       # the clients whose output ports are connected to c's input ports
+                return {self.ports[s].client for s, d in self.links
+                        if s in self.ports and d in self.ports and self.ports[d].client is c} - {c}
+            ready = [c for c in left if feeds(c) <= set(done)]
+            pick = ready[0] if ready else left[0]     # a loop in the graph: activation order
+            done.append(pick)
+            left.remove(pick)
+        return done
 
-    def sinks(self) -> list[str]:
-        with self.lock:
-            return [n for n, p in self.ports.items() if isinstance(p, FakeIn)]
+    def _cycle(self) -> None:
+        self.cycles += 1
+        for client in self._order():
+            for port in client.own_ports():
+                if port.is_input:
+                    port.buffer = [e for s, d in self.links if d == port.name and s in self.ports
+                                   for e in self.ports[s].buffer]
+            if client.process is not None:
+                client.in_cycle = True
+                try:
+                    client.process(128)
+                except Exception:   # as JACK-Client: a callback that raised is not called again
+                    client.process = None
+                finally:
+                    client.in_cycle = False
 
-    def rtmidi_module(self):
-        jack = self
-
-        class MidiOut(FakeOut):
-            def __init__(self, api=None, name="client"):
-                super().__init__(jack, name)
-
-        class MidiIn(FakeIn):
-            def __init__(self, api=None, name="client", queue_size=1024):
-                super().__init__(jack, name)
-
-        return types.SimpleNamespace(MidiOut=MidiOut, MidiIn=MidiIn, SystemError=RuntimeError,
-                                     API_UNIX_JACK=ports.rtmidi.API_UNIX_JACK,
-                                     API_LINUX_ALSA=ports.rtmidi.API_LINUX_ALSA,
-                                     get_compiled_api=lambda: [ports.rtmidi.API_UNIX_JACK])
+    def names(self) -> list[str]:
+        return list(self.ports)
 
 
-class FakeOut:
-    def __init__(self, jack: FakeJack, client: str):
-        self.jack, self.client = jack, client
-        self.full = None
-        self.ring: list[list[int]] = []
-        self.needpost = self.cleanup = False
+class FakeClient:
+    """``jack.Client``: ports registered, a process and a shutdown callback, activate, connect, close."""
 
-    def get_ports(self) -> list[str]:
-        return self.jack.sinks()
+    def __init__(self, model: JackModel, name: str):
+        self.model = model
+        self.name = name
+        self.midi_inports = FakePorts(self, is_input=True)
+        self.midi_outports = FakePorts(self, is_input=False)
+        self.process = None
+        self.on_shutdown = None
+        self.active = False
+        self.closed = False
+        self.in_cycle = False
 
-    def open_virtual_port(self, name: str) -> None:
-        with self.jack.lock:
-            self.full = f"{self.client}:{name}"
-            self.jack.ports[self.full] = self
+    def own_ports(self) -> list["FakePort"]:
+        return list(self.midi_inports) + list(self.midi_outports)
 
-    def open_port(self, index: int, name: str) -> None:
-        dst = self.get_ports()[index]
-        self.open_virtual_port(name)
-        with self.jack.lock:
-            self.jack.links.append((self.full, dst))
+    def set_process_callback(self, callback) -> None:
+        if self.active:
+            raise ModelError("the process callback cannot be set while the client is active")
+        self.process = callback
 
-    def send_message(self, data) -> None:
-        with self.jack.lock:
-            if self.full is not None:
-                self.ring.append(list(data))
+    def set_shutdown_callback(self, callback) -> None:
+        self.on_shutdown = callback
 
-    def close_port(self) -> None:
-        """As python-rtmidi's JACK output closes: wait for one more cycle, at most one second,
-        then unregister the port (what is still queued is lost)."""
-        if self.full is None:
+    def activate(self) -> None:
+        with self.model.lock:
+            self.active = True
+            if self not in self.model.clients:
+                self.model.clients.append(self)
+
+    def deactivate(self, ignore_errors=True) -> None:
+        with self.model.lock:
+            self.active = False
+            if self in self.model.clients:
+                self.model.clients.remove(self)
+            mine = {p.name for p in self.own_ports()}
+            self.model.links = [(s, d) for s, d in self.model.links if s not in mine and d not in mine]
+
+    def close(self, ignore_errors=True) -> None:
+        if self.closed:
             return
-        with self.jack.lock:
-            self.needpost, self.cleanup = True, False
-        waited = 0.0
-        while not self.cleanup and waited < LIBRARY_CLOSE_WAIT:
-            self.jack.advance(CYCLE / 4)
-            waited += CYCLE / 4
-        with self.jack.lock:
-            self.jack.ports.pop(self.full, None)
-            self.jack.links = [(s, d) for s, d in self.jack.links if self.full not in (s, d)]
-            self.ring = []
-            self.full = None
+        self.deactivate()
+        for port in self.own_ports():
+            port.unregister()
+        self.closed = True
 
-    def delete(self) -> None:
-        self.close_port()
+    def connect(self, source, destination) -> None:
+        src = source.name if isinstance(source, FakePort) else source
+        dst = destination.name if isinstance(destination, FakePort) else destination
+        with self.model.lock:
+            if src not in self.model.ports or dst not in self.model.ports:
+                raise ModelError(f"Error connecting {src!r} -> {dst!r}")
+            if (src, dst) in self.model.links:
+                raise ModelError(f"Connection {src!r} -> {dst!r} already exists")
+            self.model.links.append((src, dst))
 
-
-class FakeIn:
-    def __init__(self, jack: FakeJack, client: str):
-        self.jack, self.client = jack, client
-        self.full = None
-        self.queue: list[list[int]] = []
-        self.skip_active_sense = True
-        self.callback = None
-        self.got: list[list[int]] = []              # everything that ever arrived (for the test)
-
-    def get_ports(self) -> list[str]:
-        return self.jack.sources()
-
-    def open_virtual_port(self, name: str) -> None:
-        with self.jack.lock:
-            self.full = f"{self.client}:{name}"
-            self.jack.ports[self.full] = self
-
-    def open_port(self, index: int, name: str = "in") -> None:
-        src = self.get_ports()[index]
-        self.open_virtual_port(name)
-        with self.jack.lock:
-            self.jack.links.append((src, self.full))
-
-    def ignore_types(self, sysex=True, timing=True, active_sense=True) -> None:
-        self.skip_active_sense = active_sense
-
-    def arrive(self, events) -> None:
-        for e in events:
-            if e == [0xFE] and self.skip_active_sense:
-                continue
-            self.got.append(e)
-            self.queue.append(e)
-
-    def get_message(self):
-        with self.jack.lock:
-            return (self.queue.pop(0), 0.0) if self.queue else None
-
-    def set_callback(self, fn, data=None) -> None:
-        self.callback = fn
-
-    def cancel_callback(self) -> None:
-        self.callback = None
-
-    def close_port(self) -> None:
-        with self.jack.lock:
-            if self.full is not None:
-                self.jack.ports.pop(self.full, None)
-                self.jack.links = [(s, d) for s, d in self.jack.links if self.full not in (s, d)]
-                self.full = None
-
-    def delete(self) -> None:
-        self.close_port()
+    def get_ports(self, name_pattern="", is_audio=False, is_midi=False, is_input=False, is_output=False,
+                  **flags) -> list["FakePort"]:
+        with self.model.lock:
+            return [p for p in self.model.ports.values()
+                    if (not is_input or p.is_input) and (not is_output or not p.is_input)]
 
 
+class FakePorts(list):
+    """``Client.midi_inports`` / ``midi_outports``: a list with ``register(shortname)``."""
+
+    def __init__(self, client: FakeClient, *, is_input: bool):
+        super().__init__()
+        self.client, self.is_input = client, is_input
+
+    def register(self, shortname: str, is_terminal=False, is_physical=False) -> "FakePort":
+        port = FakePort(self.client, shortname, self.is_input)
+        with self.client.model.lock:
+            if port.name in self.client.model.ports:
+                raise ModelError(f"Error registering {port.name!r}")
+            self.client.model.ports[port.name] = port
+        self.append(port)
+        return port
+
+
+class FakePort:
+    """``jack.OwnMidiPort``: one cycle's buffer of events."""
+
+    def __init__(self, client: FakeClient, shortname: str, is_input: bool):
+        self.client = client
+        self.name = f"{client.name}:{shortname}"
+        self.is_input = is_input
+        self.is_output = not is_input
+        self.buffer: list[bytes] = []
+
+    def clear_buffer(self) -> None:
+        self.buffer = []
+
+    def write_midi_event(self, time: int, event) -> None:
+        if not self.client.in_cycle:
+            raise ModelError("a MIDI event can only be written in the process callback")
+        if len(self.buffer) >= BUFFER_EVENTS:
+            raise ModelError("Error writing MIDI event")
+        self.buffer.append(bytes(event))
+
+    def incoming_midi_events(self):
+        for data in self.buffer:
+            yield 0, memoryview(data)
+
+    def unregister(self) -> None:
+        """At once, as JACK-Client's ``unregister``: out of the lists, its connections gone."""
+        model = self.client.model
+        ports = self.client.midi_inports if self.is_input else self.client.midi_outports
+        if self in ports:
+            ports.remove(self)
+        with model.lock:
+            model.ports.pop(self.name, None)
+            model.links = [(s, d) for s, d in model.links if self.name not in (s, d)]
+        self.buffer = []
+
+
+# -------------------------------------------------------------------- the rig
 @pytest.fixture
-def jack(monkeypatch):
-    model = FakeJack()
-    monkeypatch.setattr(ports, "rtmidi", model.rtmidi_module())
-    monkeypatch.setattr(ports, "time", model.time_module())
-    return model
+def model(monkeypatch):
+    m = JackModel()
+    monkeypatch.setattr(jackmidi, "_MODULE", m.module)     # where jack_module() finds JACK-Client
+    monkeypatch.setattr(jackmidi, "time", m.time_module())   # where JackOutput.drain waits
+    return m
 
 
-def _decode(events) -> Decoder:
-    d = Decoder()
-    for i, e in enumerate(events):
-        d.feed(float(i), mido.Message.from_bytes(e))
-    return d
+class Keys:
+    """A keyboard: a JACK client whose process callback writes what was pressed since the last cycle."""
+
+    def __init__(self, model: JackModel, to: str):
+        self.pending: list[bytes] = []
+        self.client = model.module.Client("keys")
+        self.port = self.client.midi_outports.register("out")
+        self.client.set_process_callback(self._process)
+        self.client.activate()
+        self.client.connect(self.port, to)
+
+    def _process(self, frames: int) -> None:
+        self.port.clear_buffer()
+        while self.pending:
+            self.port.write_midi_event(0, self.pending.pop(0))
+
+    def press(self, keys) -> None:
+        self.pending += [bytes(mido.Message("note_on", note=k, velocity=80).bytes()) for k in keys]
 
 
-def _daemon(tmp_path, monkeypatch, jack: FakeJack):
+class Synth:
+    """A synth: a JACK client that keeps every event its input port got."""
+
+    def __init__(self, model: JackModel, source: str):
+        self.got: list[mido.Message] = []
+        self.client = model.module.Client("synth")
+        self.port = self.client.midi_inports.register("in")
+        self.client.set_process_callback(self._process)
+        self.client.activate()
+        self.client.connect(source, self.port)
+
+    def _process(self, frames: int) -> None:
+        for _, data in self.port.incoming_midi_events():
+            self.got.append(mido.Message.from_bytes(bytes(data)))
+
+    def sounding(self) -> list[tuple[int, int]]:
+        """(channel, key) of every note that had a note-on and no note-off of its own since (a
+        note-on with velocity 0 is a note-off: MIDI 1.0 Detailed Specification). All Notes Off
+        does not count: each note must get its own note-off."""
+        on: dict[tuple[int, int], int] = {}
+        for m in self.got:
+            if m.type == "note_on" and m.velocity > 0:
+                on[(m.channel, m.note)] = on.get((m.channel, m.note), 0) + 1
+            elif m.type in ("note_on", "note_off") and on.get((m.channel, m.note)):
+                on[(m.channel, m.note)] -= 1
+        return sorted(k for k, n in on.items() for _ in range(n))
+
+
+def _daemon(tmp_path, monkeypatch, model: JackModel) -> Daemon:
     monkeypatch.setenv("XDG_RUNTIME_DIR", str(tmp_path / "xdg"))
     (tmp_path / "config.yaml").write_text("")
     args = build_parser().parse_args(["run", "--virtual", "--no-control-socket", "--status-interval", "0",
                                       "--profile", "edo12", "--backend", "jack",
                                       "--config", str(tmp_path / "config.yaml")])
     settings = run_cmd.settings_loader(args)()
-    d = Daemon(settings, backend=ports.RtMidiBackend("jack"))
+    d = Daemon(settings, backend=jackmidi.JackBackend("retuner"), clock=lambda: model.now)
     d.start()
     return d
 
 
-def _run_until(daemon: Daemon, done, jack: FakeJack, timeout: float = 10.0) -> None:
-    """Turn the daemon's loop (and the model's cycles) until ``done()``; the input's reader
-    thread is a real thread, so this waits in real time, bounded."""
-    end = _time.monotonic() + timeout
-    while not done():
-        assert _time.monotonic() < end, "the daemon did not get there"
-        jack.advance(CYCLE)
-        daemon.step(wait=False)
-        _time.sleep(0.001)
+PLAYED = [48, 52, 55, 60, 64, 67, 72, 76]
 
 
-@pytest.mark.parametrize("late", [0.0, 0.6, 1.5])
-def test_sigterm_release_burst_reaches_the_synth_though_the_cycle_is_late(tmp_path, monkeypatch, jack, late):
-    """Eight notes sound; SIGTERM arrives while the process cycle is ``late`` seconds late: the
-    synth still gets a note-off for every one (the 1.5 s case is later than python-rtmidi's own
-    one-second wait at close plus the fixed 0.25 s retuner used to wait: there the burst was lost)."""
-    d = _daemon(tmp_path, monkeypatch, jack)
+def _play_and_stop(tmp_path, monkeypatch, model: JackModel, late: float):
+    """Eight notes sound on the synth; then SIGTERM while the cycle is ``late`` seconds late, and the
+    daemon shuts down. Returns the synth, the model time the shutdown took and what the synth got
+    during it."""
+    d = _daemon(tmp_path, monkeypatch, model)
     try:
-        synth = jack.rtmidi_module().MidiIn(None, "synth")
-        synth.open_port(jack.sources().index("retuner-out:out"), "in")
-        keys = jack.rtmidi_module().MidiOut(None, "keys")
-        keys.open_port(jack.sinks().index("retuner-in:in"), "out")
-        played = [48, 52, 55, 60, 64, 67, 72, 76]
-        for k in played:
-            keys.send_message(mido.Message("note_on", note=k, velocity=80).bytes())
-        _run_until(d, lambda: len(_decode(synth.got).stuck()) == len(played), jack)
-        # the keys' port goes first, so only the daemon's own output is left queued
-        keys.close_port()
-        jack.stall(late)
+        assert sorted(model.names()) == ["retuner:in", "retuner:out"]
+        synth = Synth(model, "retuner:out")
+        keys = Keys(model, "retuner:in")
+        keys.press(PLAYED)
+        for _ in range(1000):
+            if len(synth.sounding()) == len(PLAYED):
+                break
+            model.advance(CYCLE)
+            d.step(wait=False)
+        assert len(synth.sounding()) == len(PLAYED), "the notes did not reach the synth"
+        model.stall(late)
         d.post_signal(signal.SIGTERM)
         assert d.step(wait=False) is True
+        t0, before = model.now, len(synth.got)
         d.shutdown()
-        assert _decode(synth.got).stuck() == []
-        assert "retuner-out:out" not in jack.sources()     # and the port did close
+        took = model.now - t0
+        assert "retuner:out" not in model.names()        # the port did close
+        return synth, took, synth.got[before:]
     finally:
         d.shutdown()
 
 
-def test_a_cycle_that_never_comes_does_not_hold_the_exit(jack):
-    """A server that never runs another cycle: closing gives up within a few seconds (of the
-    model's clock) instead of hanging the daemon's exit."""
-    out = ports.OutputPort("jack", "retuner-out", "out")
-    synth = jack.rtmidi_module().MidiIn(None, "synth")
-    synth.open_port(jack.sources().index("retuner-out:out"), "in")
-    out.send(mido.Message("note_off", note=60))
-    jack.stall(float("inf"))
-    t0 = jack.now
-    out.close()
-    assert jack.now - t0 <= 4.0
-    assert "retuner-out:out" not in jack.sources()
+@pytest.mark.parametrize("late", [0.0, 0.6, 1.5])
+def test_sigterm_release_burst_reaches_the_synth_though_the_cycle_is_late(tmp_path, monkeypatch, model, late):
+    """Every sounding note gets its note-off, though the process cycle is ``late`` seconds late when
+    SIGTERM comes (the burst also needs several cycles: it is more than one buffer holds)."""
+    synth, took, burst = _play_and_stop(tmp_path, monkeypatch, model, late)
+    assert synth.sounding() == []
+    assert late <= took <= DRAIN_TIMEOUT       # the drain waited out the late cycle, within its bound
+    assert len(burst) > BUFFER_EVENTS          # and the burst did not fit in one cycle
+
+
+@pytest.mark.parametrize("late", [0.6, 1.5])
+def test_without_the_drain_the_late_cycle_loses_the_note_offs(tmp_path, monkeypatch, model, late):
+    """The same run with ``JackOutput.drain`` returning at once: the port closes before a late cycle
+    writes the burst, and the note-offs are lost (the check above would fail)."""
+    monkeypatch.setattr(jackmidi.JackOutput, "drain", lambda self, timeout=DRAIN_TIMEOUT: True)
+    synth, took, burst = _play_and_stop(tmp_path, monkeypatch, model, late)
+    assert synth.sounding() != []
+    assert burst == [] and took < late
+
+
+def test_a_cycle_that_never_comes_does_not_hold_the_exit(tmp_path, monkeypatch, model):
+    """A server that never runs another cycle: the daemon's shutdown gives up after the drain's bound
+    (of the model's clock, plus the one poll step past it) and closes the port."""
+    synth, took, burst = _play_and_stop(tmp_path, monkeypatch, model, float("inf"))
+    assert DRAIN_TIMEOUT <= took <= DRAIN_TIMEOUT + CYCLE
+    assert len(synth.sounding()) == len(PLAYED)               # nothing went out: nothing could
