@@ -168,3 +168,50 @@ def test_convert_two_parts_each_wheel_in_its_own_zone(tmp_path):
     rep = build_report(res, opts)              # one output file: its figures at the top
     assert rep["motion_cents_per_note"] == pytest.approx(0.0, abs=1e-9)
     assert rep["worst_pitch_error_cents"] <= HALF_STEP_48 + 1e-9
+
+
+def test_one_keyboard_wheel_on_the_manager_then_per_note_when_a_second_plays(caplog):
+    # live: one input channel plays, its wheel on the manager; a second input channel joins the
+    # zone: the first part's notes keep their pitch (within one member step) and from then on
+    # each part's wheel is in its own notes' member bends, the manager centred
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe"))
+    m = e.config.mpe_manager()
+    s = SynthModel(mpe_manager=m)
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, [ON(60, 0), ON(64, 0)], tag=0)
+    play(e, s, 0.1, [WHEEL(3000, 0)], tag=None)
+    assert s.bend[m] == 3000                     # manager range 2 = the input's: the value itself
+    for (part, k), c in pitches(s).items():
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(3000), abs=TOL_ONE_PART), k
+    before = pitches(s)
+    with caplog.at_level("DEBUG", logger="retuner.engine.outputs.mpe"):
+        play(e, s, 0.2, [ON(67, 1)], tag=1)
+    assert any("second input channel" in r.getMessage() for r in caplog.records)
+    assert s.bend[m] == 0
+    now = pitches(s)
+    for key, c in before.items():
+        assert now[key] == pytest.approx(c, abs=2 * HALF_STEP_48), key
+    assert now[(1, 67)] == pytest.approx(MEANTONE[67], abs=HALF_STEP_48)
+    play(e, s, 0.3, [WHEEL(-6000, 1)], tag=None)
+    now = pitches(s)
+    for (part, k), c in now.items():
+        w = 3000 if part == 0 else -6000
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(w), abs=TOL), (part, k)
+    assert s.bend[m] == 0 and not s.problems
+
+
+def test_a_wheel_beyond_the_managers_range_goes_to_the_members():
+    # one part whose wheel spans 12 semitones (its RPN 0): beyond the manager's 2, the wheel
+    # goes to the members' bends (48 semitones), the manager centred
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe"))
+    m = e.config.mpe_manager()
+    s = SynthModel(mpe_manager=m)
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, RPN0(12, 0) + [ON(60, 0), ON(67, 0)], tag=0)
+    play(e, s, 0.1, [WHEEL(1000, 0)], tag=None)          # 146 c: the manager holds it
+    assert s.bend[m] == round(1000 * 1200 / 200)
+    play(e, s, 0.2, [WHEEL(4096, 0)], tag=None)          # 600 c: beyond the manager's 200
+    assert s.bend[m] == 0
+    for (part, k), c in pitches(s).items():
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(4096, 12), abs=TOL), k
+    assert not s.problems

@@ -19,7 +19,7 @@ parts the zone holds (one rule, for files and live alike):
   zone): the wheel goes on the manager channel, at the manager's range (2 semitones by
   default, a step of 0.024 c); the MPE specification makes a manager-channel bend apply
   to every note of the zone. The members' bends carry the tuning alone, so a note sounds
-  at tuning + wheel within half a member step plus half a manager step (0.30 c at the
+  at tuning + wheel within half a member step plus half a manager step (0.31 c at the
   default ranges).
 * **A zone shared by several parts** (live: a second input channel plays a note or moves
   its wheel in the zone), or a wheel beyond the manager's range: the zone switches, once,
@@ -36,8 +36,8 @@ parts the zone holds (one rule, for files and live alike):
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 import logging
+from dataclasses import dataclass
 from typing import Any, Optional
 
 import mido
@@ -169,8 +169,8 @@ class MPEMode(BendMode):
     def share_zone(self, t: float, out: list, why: str) -> None:
         """From now on each part's wheel in its own notes' member bends; the manager centred."""
         self.shared = True
-        log.debug("MPE zone: the player's wheel moves from the manager channel to each note's "
-                  "member channel: %s", why)
+        log.debug("MPE zone shared: the player's wheel now goes in each note's member bend, the "
+                  "manager channel back at centre (%s)", why)
         # each moved wheel reaches its notes' members as a wheel move would (widening the
         # members' range when it must)
         self.wheel_units = {}
