@@ -75,6 +75,7 @@ class Output:
     stats: dict = field(default_factory=dict)
     report: Optional[dict] = None
     wheel: Optional[list] = None        # the player's wheel per output channel, for the measures
+    wheel_channels: Optional[dict] = None   # part -> the output channels its wheel was sent on
     steals_why: str = ""                # why steals cut notes short and what avoids it ("" if none did)
     engines: int = 1                    # engines that played this file's parts (1: one harmony)
 
@@ -256,8 +257,10 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
             for k, v in e.stats.items():
                 stats[k] = stats.get(k, 0) + v
         path = split_name(out_path, gi + 1) if split else str(out_path)
+        wheel_channels = {p: engines[p].output.wheel_channels(channels[p]) for p in parts}
         outputs.append(Output(path, parts, channels, data, stats,
-                              steals_why=_steals_why(distinct), engines=len(distinct)))
+                              steals_why=_steals_why(distinct), engines=len(distinct),
+                              wheel_channels=wheel_channels))
     return outputs
 
 

@@ -9,7 +9,9 @@ the engine's internal state):
   RPN 0 (CC101=0, CC100=0, data entry CC6 semitones + CC38 cents) as sent in the
   stream itself. Default range 2 semitones (MIDI 1.0 common practice); after an
   MPE Configuration Message (RPN 6 on channel 1 or 16, MPE specification 2018)
-  the member channels default to 48 semitones and the manager to 2.
+  the member channels default to 48 semitones and the manager to 2, and a
+  member's note sounds at its own bend plus the manager's (the manager-channel
+  bend applies to every note of the zone).
   ``bend_scale`` lets a caller model a synth that plays bends at a different
   size (e.g. 127/128).
 * **MIDI Tuning Standard**: per-key pitches from bulk tuning dumps and single
@@ -150,7 +152,9 @@ def decode(stream: Iterable[tuple[float, mido.Message]], *, bend_scale: float = 
     ``expression``: the player's wheel as it reaches each output channel,
     ``(seconds, channel, cents)`` in time order (see :func:`input_wheel`); it is
     taken off the pitch heard, in whole bend steps of the channel's range (as the
-    output carries it: ``round(cents / step)`` steps), so the notes carry the tuning's part only (a pitch
+    output carries it: ``round(cents / step)`` steps; a wheel given for an MPE manager
+    channel is taken off in the manager's steps from every note of its zone, as the
+    manager carries it), so the notes carry the tuning's part only (a pitch
     error is then measured against tuning plus wheel, and motion and drift count
     what the tuning does).
 
@@ -188,6 +192,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
     nx = len(xs)
     x_next = xs[0][0] if xs else math.inf
     step_of = _step
+    manager_of: list[Optional[int]] = [None] * 16     # MPE member channel -> its zone's manager
 
     def table_for(ch: int) -> Optional[list[float]]:
         c = chans[ch]
@@ -197,13 +202,25 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
             return tables.get(last_prog[0])
         return None
 
-    def bend(ch: int) -> float:
+    def own_bend(ch: int) -> float:
         c = chans[ch]
         step = c.range * 100.0 * bend_scale / 8192.0
         w = expr[ch]
         # the wheel's share as the output carries it: whole bend steps of the channel's range
         share = round(w / step) * step if w and step else 0.0
         return c.bend * step - share
+
+    def bend(ch: int) -> float:
+        m = manager_of[ch]
+        return own_bend(ch) if m is None else own_bend(ch) + own_bend(m)
+
+    def restep_zone(t: float, ch: int) -> None:
+        """Channel ``ch``'s bend changed: its notes, and if it is a manager, its members'."""
+        restep_channel(t, ch)
+        if ch in (0, 15):
+            for m in range(16):
+                if manager_of[m] == ch:
+                    restep_channel(t, m)
 
     def restep_channel(t: float, ch: int) -> None:
         notes = on_ch[ch]
@@ -229,7 +246,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
                 xi += 1
                 if expr[xch] != cents:
                     expr[xch] = cents
-                    restep_channel(tx, xch)
+                    restep_zone(tx, xch)
             x_next = xs[xi][0] if xi < nx else math.inf
         status = raw[0]
         if status >= 0xF0:
@@ -243,6 +260,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
                 for d in on_ch:
                     d.clear()
                 chans[:] = [_Channel() for _ in range(16)]
+                manager_of[:] = [None] * 16
                 last_prog[0] = None
                 continue
             if status != 0xF0:
@@ -286,7 +304,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
         elif hi == 0xE0:
             bends += 1
             chans[ch].bend = (raw[1] | (raw[2] << 7)) - 8192
-            restep_channel(t, ch)
+            restep_zone(t, ch)
         elif hi == 0xB0:
             cc = raw[1]
             if cc not in _CC_HEARD:                  # a pedal, a volume: no pitch changes
@@ -302,11 +320,15 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
             elif cc == CC_DATA_MSB and c.rpn is not None:
                 if c.rpn == RPN_BEND_RANGE:
                     c.range = float(v)  # the MSB resets the cents part
-                    restep_channel(t, ch)
+                    restep_zone(t, ch)
                 elif c.rpn == RPN_MPE_CONFIG and ch in (0, 15):
                     members = range(1, 1 + v) if ch == 0 else range(15 - v, 15)
+                    for m in range(16):
+                        if manager_of[m] == ch:
+                            manager_of[m] = None
                     for m in members:
                         chans[m].range = 48.0
+                        manager_of[m] = ch
                     c.range = 2.0
                     for m in range(16):
                         restep_channel(t, m)
@@ -318,11 +340,11 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
                     c.pending_bank = v
             elif cc == CC_DATA_LSB and c.rpn == RPN_BEND_RANGE:
                 c.range = math.floor(c.range) + v / 100.0
-                restep_channel(t, ch)
+                restep_zone(t, ch)
             elif cc == 121:  # reset all controllers (RP-015): wheel centred, RPN null, range kept
                 c.bend = 0
                 c.rpn = None
-                restep_channel(t, ch)
+                restep_zone(t, ch)
             elif cc == 123 or cc == 120:  # all notes off / all sound off
                 for key in [k for (c2, k) in sounding if c2 == ch]:
                     end_note(ch, key, t)

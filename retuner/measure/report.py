@@ -20,9 +20,9 @@ counters that only the engine knows (steals, ringing retunes) come from its
 
 The player's wheel is expression, not error: it is decoded from the INPUT file (each
 part's wheel at its own bend range) and taken off the pitch of the notes on the channels
-that carry that part alone (:func:`expression`; in MPE mode each note's member carries
-its part's wheel, the manager stays centred), so worst error, motion, drift and the
-plot count what the tuning does.
+that carry that part alone (:func:`expression`; in MPE mode the manager channel of a
+zone that holds one part carries its wheel, in a zone shared by several parts each
+note's member does), so worst error, motion, drift and the plot count what the tuning does.
 * ``impurity_cents``, ``motion_cents_per_note``, ``drift_max_cents``,
   ``drift_final_cents``, ``drift_rms_cents``: as defined in :mod:`retuner.measure.metrics`.
 
@@ -68,7 +68,8 @@ def expression(res, opts, o) -> Optional[list]:
     """The player's wheel as it reaches output file ``o``'s channels, decoded from the INPUT
     file (see :func:`retuner.measure.metrics.input_wheel`): each part's wheel goes to the
     channels that carry that part alone (in MTS mode, its own channel; in MPE mode, its zone's
-    members). None when the input cannot be read again."""
+    manager when the zone held that part alone, else its members). None when the input
+    cannot be read again."""
     config = opts.config
     mode = MODES[config.mode]
     if not res.input:
@@ -76,12 +77,13 @@ def expression(res, opts, o) -> Optional[list]:
     if mode.keeps_input_channels:
         channels_of = {p: [p] for p in o.parts}
     else:
+        sent_on = o.wheel_channels or o.channels
         count: dict[int, int] = {}
-        for chans in o.channels.values():
+        for chans in sent_on.values():
             for c in chans:
                 count[c] = count.get(c, 0) + 1
         # a channel shared by several parts (merged parts) carries no one wheel: left as heard
-        channels_of = {p: [c for c in chans if count[c] == 1] for p, chans in o.channels.items()}
+        channels_of = {p: [c for c in chans if count[c] == 1] for p, chans in sent_on.items()}
     try:
         with open(res.input, "rb") as f:
             data = f.read()

@@ -102,9 +102,9 @@ def test_mpe_zone_messages_on_manager():
         out = e.feed(0.0, m)
         assert [x.channel for x in out] == [0], m
         assert out[0].bytes()[1:] == m.bytes()[1:]
-    # the wheel is its part's, in the members' bends: with nothing sounding nothing is sent,
-    # and the manager's bend is never moved
-    assert e.feed(0.1, WHEEL(1234)) == []
+    # the zone holds one part: its wheel goes on the manager channel, whose range (2 semitones)
+    # is the input's (2 semitones until set, MIDI 1.0), so the value passes unchanged
+    assert e.feed(0.1, WHEEL(1234)) == [WHEEL(1234)]
 
 
 def test_mpe_poly_pressure_becomes_member_channel_pressure():
@@ -114,16 +114,33 @@ def test_mpe_poly_pressure_becomes_member_channel_pressure():
     assert out == [E.msg("aftertouch", channel=ch, value=77)]
 
 
-def test_mpe_wheel_bends_every_note_of_its_channel_on_its_member():
+def test_mpe_wheel_of_the_one_part_on_the_manager():
     tu = load_profile("edo31")
     e, s = mpe(tu)
     out = e.feed(0.0, ON(60)) + e.feed(0.0, ON(64)) + e.feed(0.1, WHEEL(4096))
     s.feed(out)
-    assert not [m for m in out if m.type == "pitchwheel" and m.channel == 0]   # manager centred
+    # one input channel in the zone: its wheel is the manager's bend, the members carry the tuning
+    assert [m for m in out if m.type == "pitchwheel" and m.channel == 0] == [WHEEL(4096)]
     for c, v in s.sounding():
-        # half the wheel at range 2 = +100 c (MIDI 1.0 bend); at the members' 48 semitones, half a
-        # bend step for the tuning's share and half for the wheel's (each in whole steps)
-        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 100.0)) <= 2 * 4800 / 16384 + 1e-9
+        # half the wheel at range 2 = +100 c (MIDI 1.0 bend); a member's bend plus the manager's
+        # (MPE specification 2018): half a step at 48 semitones and half a step at 2
+        assert abs(s.pitch(c, v) - (tu.cents[v.key] + 100.0)) <= 4800 / 16384 + 200 / 16384 + 1e-9
+
+
+def test_mpe_wheel_in_the_members_once_a_second_channel_plays():
+    tu = load_profile("edo31")
+    e, s = mpe(tu)
+    s.feed(e.feed(0.0, ON(60)) + e.feed(0.1, WHEEL(4096)))
+    assert s.bend[0] == 4096
+    out = e.feed(0.2, mido.Message("note_on", channel=1, note=64, velocity=90))
+    s.feed(out)
+    assert s.bend[0] == 0                       # the manager back at centre
+    s.feed(e.feed(0.3, mido.Message("pitchwheel", channel=1, pitch=-4096)))
+    want = {60: tu.cents[60] + 100.0, 64: tu.cents[64] - 100.0}
+    for c, v in s.sounding():
+        # each note on its own member: half a step of 48 semitones for the tuning and the wheel
+        assert abs(s.pitch(c, v) - want[v.key]) <= 2 * 4800 / 16384 + 1e-9, v.key
+    assert not s.problems
 
 
 def test_mpe_steal_when_members_exhausted():
@@ -231,14 +248,14 @@ def test_mts_release_all():
     assert chans == {c for c in range(16) if c != 9}
 
 
-def test_mpe_reconfigure_wheel_range_rescales_the_wheel_in_member_bends():
+def test_mpe_reconfigure_wheel_range_rescales_the_wheel():
     e, s = mpe(Tuning.equal12())
     s.feed(e.feed(0.0, ON(60)) + e.feed(0.0, WHEEL(2048)))   # a quarter of the wheel: 50 c at 2 semitones
     out = e.reconfigure(e.config.replace(wheel_range=4.0), 0.1)
     s.feed(out)
     (c, v), = s.sounding()
-    assert s.pitch(c, v) == pytest.approx(6000.0 + 100.0, abs=4800 / 16384)   # now 100 c (12-EDO: no tuning share)
-    assert s.bend[0] == 0
+    assert s.pitch(c, v) == pytest.approx(6000.0 + 100.0, abs=200 / 16384)   # now 100 c (12-EDO: no tuning share)
+    assert s.bend[0] == 4096                   # on the manager (one part): 100 c of its 200
 
 
 def test_mts_key_struck_twice_is_ended_first():

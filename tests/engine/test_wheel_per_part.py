@@ -1,5 +1,7 @@
 """In MPE mode the player's wheel belongs to its part: a wheel on input channel c bends only the
-notes that came from c, in their own member channels' bends; the manager channel stays centred.
+notes that came from c. A zone that holds one part (a converted file gives each part a zone of
+its own) carries the part's wheel on its manager channel; a zone that several input channels
+play in carries each part's wheel in its own notes' member bends, the manager centred.
 
 Decoded as an MPE synth plays it (tests/synthmodel.py, written from the MIDI 1.0 Detailed
 Specification and the MPE specification, The MIDI Association, 2018: a member's note sounds at
@@ -8,8 +10,10 @@ default to 48 semitones, the manager to 2). The player's wheel is read the same 
 bend w at the input channel's range r (its own RPN 0, 2 semitones until set) means
 w/8192 * r cents.
 
-Tolerance: the member bend is the tuning's bend plus the wheel in whole bend steps, each
-rounded to the nearest step: half a step (4800/16384 = 0.29 c at 48 semitones) for each.
+Tolerance: a shared zone's member bend is the tuning's bend plus the wheel in whole bend steps,
+each rounded to the nearest step: half a step (4800/16384 = 0.29 c at 48 semitones) for each.
+A zone of one part: half a member step for the tuning, half a manager step (200/16384 = 0.012 c
+at 2 semitones) for the wheel.
 
 Targets: quarter-comma meantone from its definition (every fifth 1/4 syntonic comma narrow,
 chain Eb..G#, A4 = 440 Hz; J. Murray Barbour, Tuning and Temperament, 1951), computed in
@@ -24,6 +28,7 @@ import pytest
 from retuner.adaptive.solver import AdaptiveConfig
 from retuner.convert.conversion import ConvertOptions, convert_file
 from retuner.engine.core import Engine, EngineConfig
+from retuner.measure.report import build_report
 from retuner.profiles.profile import load_profile
 from synth import note_events, write_midi
 from synthmodel import SynthModel
@@ -31,6 +36,8 @@ from temperaments import MEANTONE
 
 HALF_STEP_48 = 4800.0 / 16384      # MIDI 1.0: half a bend step at 48 semitones
 TOL = 2 * HALF_STEP_48              # the tuning's share and the wheel's, each rounded
+HALF_STEP_2 = 200.0 / 16384         # MIDI 1.0: half a bend step at 2 semitones (the manager's)
+TOL_ONE_PART = HALF_STEP_48 + HALF_STEP_2
 
 
 def ON(k, ch):
@@ -116,10 +123,12 @@ def test_a_wheel_beyond_the_members_range_widens_it():
 
 def test_convert_two_parts_each_wheel_in_its_own_zone(tmp_path):
     # a file of two parts: each gets a zone of its own (lower: manager 1, upper: manager 16);
-    # the second part's wheel swells while both hold a chord
+    # the first part's wheel dips, then the second part's swells, while both hold a chord
     ev = note_events([(0.1, 3.0, 0, k, 80) for k in (48, 55, 64)] + [(0.1, 3.0, 1, k, 80) for k in (67, 72)])
-    wheel = [(1.0 + 0.05 * i, int(8191 * i / 20)) for i in range(21)]
-    ev += [(t, WHEEL(w, 1)) for t, w in wheel]
+    wheels = {0: [(0.4 + 0.02 * i, -int(5000 * i / 20)) for i in range(21)],
+              1: [(1.0 + 0.05 * i, int(8191 * i / 20)) for i in range(21)]}
+    for part, gesture in wheels.items():
+        ev += [(t, WHEEL(w, part)) for t, w in gesture]
     src = write_midi(tmp_path / "two.mid", ev)
     opts = ConvertOptions(tuning=load_profile("meantone-quarter"), config=EngineConfig(mode="mpe"))
     res = convert_file(src, tmp_path / "out.mid", opts)
@@ -137,17 +146,72 @@ def test_convert_two_parts_each_wheel_in_its_own_zone(tmp_path):
             groups.append((t, []))
         groups[-1][1].append(msg.copy(time=0))
     checked = 0
-    wheel_now = 0
+    wheel_now = {0: 0, 1: 0}
     for t, msgs in groups:
         for msg in msgs:
             zones[0 if msg.channel <= 7 else 15].one(msg)
-        while wheel and wheel[0][0] <= t + 1e-3:
-            wheel_now = wheel.pop(0)[1]
+        for part, gesture in wheels.items():
+            while gesture and gesture[0][0] <= t + 1e-3:
+                wheel_now[part] = gesture.pop(0)[1]
         for z, s in zones.items():
             for c, v in s.sounding():
-                w = wheel_now if part_of_zone[z] == 1 else 0
-                assert s.pitch(c, v) == pytest.approx(MEANTONE[v.key] + wheel_cents(w), abs=TOL), (t, z, v.key)
+                w = wheel_now[part_of_zone[z]]
+                assert s.pitch(c, v) == pytest.approx(MEANTONE[v.key] + wheel_cents(w), abs=TOL_ONE_PART), \
+                    (t, z, v.key)
                 checked += 1
-            assert s.bend[z] == 0
+            # the zone's one part: its wheel on the manager (at 2 semitones, as the input's)
+            assert s.bend[z] == wheel_now[part_of_zone[z]]
     assert checked > 100
     assert not zones[0].problems and not zones[15].problems
+    # the measures take each part's wheel off as its manager carries it: no motion, and the
+    # worst error against profile + wheel within the tuning's half step
+    rep = build_report(res, opts)              # one output file: its figures at the top
+    assert rep["motion_cents_per_note"] == pytest.approx(0.0, abs=1e-9)
+    assert rep["worst_pitch_error_cents"] <= HALF_STEP_48 + 1e-9
+
+
+def test_one_keyboard_wheel_on_the_manager_then_per_note_when_a_second_plays(caplog):
+    # live: one input channel plays, its wheel on the manager; a second input channel joins the
+    # zone: the first part's notes keep their pitch (within one member step) and from then on
+    # each part's wheel is in its own notes' member bends, the manager centred
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe"))
+    m = e.config.mpe_manager()
+    s = SynthModel(mpe_manager=m)
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, [ON(60, 0), ON(64, 0)], tag=0)
+    play(e, s, 0.1, [WHEEL(3000, 0)], tag=None)
+    assert s.bend[m] == 3000                     # manager range 2 = the input's: the value itself
+    for (part, k), c in pitches(s).items():
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(3000), abs=TOL_ONE_PART), k
+    before = pitches(s)
+    with caplog.at_level("DEBUG", logger="retuner.engine.outputs.mpe"):
+        play(e, s, 0.2, [ON(67, 1)], tag=1)
+    assert any("second input channel" in r.getMessage() for r in caplog.records)
+    assert s.bend[m] == 0
+    now = pitches(s)
+    for key, c in before.items():
+        assert now[key] == pytest.approx(c, abs=2 * HALF_STEP_48), key
+    assert now[(1, 67)] == pytest.approx(MEANTONE[67], abs=HALF_STEP_48)
+    play(e, s, 0.3, [WHEEL(-6000, 1)], tag=None)
+    now = pitches(s)
+    for (part, k), c in now.items():
+        w = 3000 if part == 0 else -6000
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(w), abs=TOL), (part, k)
+    assert s.bend[m] == 0 and not s.problems
+
+
+def test_a_wheel_beyond_the_managers_range_goes_to_the_members():
+    # one part whose wheel spans 12 semitones (its RPN 0): beyond the manager's 2, the wheel
+    # goes to the members' bends (48 semitones), the manager centred
+    e = Engine(load_profile("meantone-quarter"), EngineConfig(mode="mpe"))
+    m = e.config.mpe_manager()
+    s = SynthModel(mpe_manager=m)
+    s.feed(e.start(0.0))
+    play(e, s, 0.0, RPN0(12, 0) + [ON(60, 0), ON(67, 0)], tag=0)
+    play(e, s, 0.1, [WHEEL(1000, 0)], tag=None)          # 146 c: the manager holds it
+    assert s.bend[m] == round(1000 * 1200 / 200)
+    play(e, s, 0.2, [WHEEL(4096, 0)], tag=None)          # 600 c: beyond the manager's 200
+    assert s.bend[m] == 0
+    for (part, k), c in pitches(s).items():
+        assert c == pytest.approx(MEANTONE[k] + wheel_cents(4096, 12), abs=TOL), k
+    assert not s.problems

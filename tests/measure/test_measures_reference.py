@@ -51,6 +51,7 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
     bends, used, t_last = 0, set(), 0.0
     expr = [0.0] * 16
     xs, xi = list(expression or ()), 0
+    mgr = {}            # MPE member channel -> its zone's manager (MPE specification 2018)
 
     def table(ch):
         c = chans[ch]
@@ -58,11 +59,19 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
             return tables.get((c.tbank, c.tprog))
         return tables.get(last[0]) if last[0] is not None else None
 
-    def bend(ch):
+    def own(ch):
         c = chans[ch]
         step = c.range * 100.0 * bend_scale / 8192.0
         w = expr[ch]
         return c.bend * step - (round(w / step) * step if w and step else 0.0)
+
+    def bend(ch):
+        # a manager-channel bend applies to every note of its zone (MPE specification 2018)
+        return own(ch) + (own(mgr[ch]) if ch in mgr else 0.0)
+
+    def of(ch):
+        """The channels whose notes a change on ``ch`` moves: itself and, if a manager, its zone."""
+        return lambda c2, k: c2 == ch or mgr.get(c2) == ch
 
     def restep(t, pred):
         for (ch, key), nt in sounding.items():
@@ -83,11 +92,12 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
             xi += 1
             if expr[xch] != cents:
                 expr[xch] = cents
-                restep(tx, lambda c2, k, xch=xch: c2 == xch)
+                restep(tx, of(xch))
         if msg.type == "reset" or (msg.type == "sysex" and bytes(msg.data) in SYSEX_RESETS.values()):
             for k in list(sounding):
                 end(k, t)
             chans[:] = [_Chan() for _ in range(16)]
+            mgr.clear()
             last[0] = None
             continue
         if msg.type == "sysex":
@@ -124,7 +134,7 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
         elif msg.type == "pitchwheel":
             bends += 1
             c.bend = msg.pitch
-            restep(t, lambda c2, k: c2 == ch)
+            restep(t, of(ch))
         elif msg.type == "control_change":
             cc, v = msg.control, msg.value
             if cc == 101:
@@ -135,10 +145,13 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
                 c.rpn = None
             elif cc == 6 and c.rpn == (0, 0):
                 c.range = float(v)
-                restep(t, lambda c2, k: c2 == ch)
+                restep(t, of(ch))
             elif cc == 6 and c.rpn == (0, 6) and ch in (0, 15):
+                for m in [m for m, g in mgr.items() if g == ch]:
+                    del mgr[m]
                 for m in (range(1, 1 + v) if ch == 0 else range(15 - v, 15)):
                     chans[m].range = 48.0
+                    mgr[m] = ch
                 c.range = 2.0
                 restep(t, lambda c2, k: True)
             elif cc == 6 and c.rpn == (0, 3):
@@ -149,10 +162,10 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
                 c.pending = v
             elif cc == 38 and c.rpn == (0, 0):
                 c.range = math.floor(c.range) + v / 100.0
-                restep(t, lambda c2, k: c2 == ch)
+                restep(t, of(ch))
             elif cc == 121:
                 c.bend, c.rpn = 0, None
-                restep(t, lambda c2, k: c2 == ch)
+                restep(t, of(ch))
             elif cc in (120, 123):
                 for k in [k for k in sounding if k[0] == ch]:
                     end(k, t)

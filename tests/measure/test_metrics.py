@@ -113,8 +113,25 @@ def test_mpe_configuration_sets_member_range_48():
     s = [(0.0, m) for m in cfg] + [(0.0, bend(1, 4096)), (0.0, on(1, 60)), (0.0, bend(0, 4096)),
                                    (0.0, on(0, 72)), (1.0, off(1, 60)), (1.0, off(0, 72))]
     notes = {n.key: n for n in M.decode(s).notes}
-    assert abs(notes[60].steps[0][1] - (6000 + 2400)) < 1e-9   # member: 48 semitones range
+    # member: 48 semitones range, plus the manager's bend (MPE specification 2018: a
+    # manager-channel bend applies to every note of the zone), at the manager's 2 semitones
+    assert abs(notes[60].steps[0][1] - (6000 + 2400 + 100)) < 1e-9
     assert abs(notes[72].steps[0][1] - (7200 + 100)) < 1e-9    # manager: 2 semitones
+
+
+def test_mpe_manager_bend_moves_its_zone_only():
+    # two zones (MPE specification 2018): lower, manager 1 with members 2..8; upper, manager 16
+    # with members 15..9. A manager's bend moves the notes of its own zone, not the other's.
+    cfg = [cc(0, 101, 0), cc(0, 100, 6), cc(0, 6, 7), cc(15, 101, 0), cc(15, 100, 6), cc(15, 6, 7)]
+    s = [(0.0, m) for m in cfg] + [(0.0, on(1, 60)), (0.0, on(14, 64)), (0.5, bend(15, -8192)),
+                                   (1.0, off(1, 60)), (1.0, off(14, 64))]
+    notes = {n.key: n for n in M.decode(s).notes}
+    assert notes[60].steps == [(0.0, 6000.0)]
+    assert notes[64].steps == [(0.0, 6400.0), (0.5, 6200.0)]       # -2 semitones at range 2
+    # the player's wheel given for the upper manager is taken off its zone's notes
+    dec = M.decode(s, expression=[(0.5, 15, -200.0)])
+    notes = {n.key: n for n in dec.notes}
+    assert notes[64].steps == [(0.0, 6400.0)] and notes[60].steps == [(0.0, 6000.0)]
 
 
 def _single_note_change(key, cents_abs, realtime=True):

@@ -161,6 +161,11 @@ class OutputMode(abc.ABC):
     def controllers_reset(self, t: float, out: list) -> None:
         """Reset-all-controllers reached the output: the wheel is centred."""
 
+    def wheel_channels(self, channels: Sequence[int]) -> list[int]:
+        """The output channels a part's wheel is sent on, given the ``channels`` its notes use
+        (for the measures, which take the wheel off as the output carries it)."""
+        return list(channels)
+
     def retuned(self, tuning: Any, sounding: Sequence[Note]) -> list[mido.Message]:
         """A new tuning is in force; ``sounding`` keep their pitch."""
         return []

@@ -10,8 +10,10 @@ Channel choice, sharing, ringing and the steal policy are the allocator's
   target below key 0 or above key 127 by more than the range is clamped.
 * The **player's wheel** of an input channel is added, in whole output bend steps,
   to the tuning bend of the channels whose notes came from that channel (and
-  widens the range when the sum would not fit): in the pool mode and in MPE
-  alike (see :mod:`retuner.engine.outputs.pool` for the rules).
+  widens the range when the sum would not fit): in the pool mode (see
+  :mod:`retuner.engine.outputs.pool` for the rules), and in an MPE zone shared by
+  several parts (a zone of one part carries its wheel on the manager channel:
+  :mod:`retuner.engine.outputs.mpe`).
 * A bend is sent only when a channel's bend value changes.
 * Note-offs go to the channel and key the note was sent on; polyphonic pressure
   to the note's channel.
