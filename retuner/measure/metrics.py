@@ -93,6 +93,15 @@ class NoteTrack:
         return sum(abs(b[1] - a[1]) for a, b in zip(self.steps, self.steps[1:]))
 
 
+def _close(nt: NoteTrack, t: float) -> None:
+    """The note ends at ``t``: a change at that very instant (an output event at the note-off's
+    time, after it) was never heard on this note."""
+    nt.end = t
+    steps = nt.steps
+    while len(steps) > 1 and steps[-1][0] >= t - TIME_EPS:
+        steps.pop()
+
+
 def _step(nt: NoteTrack, t: float, p: float) -> None:
     """A note's pitch becomes ``p`` at ``t``. Changes at one instant are heard as their
     last value: a step at the time of the previous one replaces it."""
@@ -234,7 +243,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
     def end_note(ch: int, key: int, t: float) -> None:
         nt = sounding.pop((ch, key))
         del on_ch[ch][key]
-        nt.end = t
+        _close(nt, t)
         done.append(nt)
 
     for t, raw in stream:
@@ -254,7 +263,7 @@ def decode_wire(stream: Iterable[tuple[float, Sequence[int]]], *, bend_scale: fl
                 # GM/GM2/GS/XG system on, System Reset: every note stops, every channel is
                 # back at bend range 2 (General MIDI), wheel centred, RPN null, no tuning selected
                 for nt in sounding.values():
-                    nt.end = t
+                    _close(nt, t)
                     done.append(nt)
                 sounding.clear()
                 for d in on_ch:

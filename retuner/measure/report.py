@@ -82,14 +82,54 @@ def expression(res, opts, o) -> Optional[list]:
         for chans in sent_on.values():
             for c in chans:
                 count[c] = count.get(c, 0) + 1
-        # a channel shared by several parts (merged parts) carries no one wheel: left as heard
         channels_of = {p: [c for c in chans if count[c] == 1] for p, chans in sent_on.items()}
+        shared = sorted(c for c, n in count.items() if n > 1)
     try:
         with open(res.input, "rb") as f:
             data = f.read()
-        return metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range, channels_of)
+        own = metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range, channels_of)
+        if mode.keeps_input_channels or not shared:
+            return own
+        # a channel shared by several parts (merged parts) carries the wheel of the part whose
+        # note it plays at the time: each output note is traced to its part by its key and start
+        parts_wheel = metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range,
+                                               {p: [p] for p in sent_on})
+        onsets = [(t, raw[0] & 0x0F, raw[1]) for t, raw in wire_stream(data, res.input)
+                  if raw[0] & 0xF0 == 0x90 and len(raw) > 2 and raw[2] and (raw[0] & 0x0F) in sent_on]
+        return sorted(own + _wheel_by_note(o, parts_wheel, onsets, set(shared)), key=lambda e: e[0])
     except (OSError, RetunerError):
         return None
+
+
+def _wheel_by_note(o, parts_wheel: list, onsets: list, shared: set) -> list:
+    """Wheel events for output channels that several parts share: at each output note-on on
+    such a channel, the wheel of the part that played that key last (at or before that
+    moment); at each wheel move of a part, every shared channel now playing that part's note."""
+    import bisect
+
+    by_key: dict[int, list] = {}
+    for t, p, k in onsets:
+        by_key.setdefault(k, []).append((t, p))
+    starts = {k: [t for t, _ in v] for k, v in by_key.items()}
+    events = [(t, 1, p, cents) for t, p, cents in parts_wheel]
+    for t, raw in wire_stream(o.data, o.path):
+        if raw[0] & 0xF0 == 0x90 and len(raw) > 2 and raw[2] and (raw[0] & 0x0F) in shared:
+            k = raw[1]
+            i = bisect.bisect_right(starts.get(k, ()), t + 1e-6) - 1
+            if i >= 0:
+                events.append((t, 0, raw[0] & 0x0F, by_key[k][i][1]))
+    events.sort(key=lambda e: (e[0], e[1]))
+    wheel: dict[int, float] = {}            # part -> cents
+    playing: dict[int, int] = {}            # shared output channel -> part
+    out = []
+    for t, kind, a, b in events:
+        if kind:                            # part a's wheel is now b cents
+            wheel[a] = b
+            out += [(t, c, b) for c, p in playing.items() if p == a]
+        else:                               # a note of part b starts on channel a
+            playing[a] = b
+            out.append((t, a, wheel.get(b, 0.0)))
+    return out
 
 
 def _decode(o, config):

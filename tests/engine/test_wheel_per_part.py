@@ -215,3 +215,44 @@ def test_a_wheel_beyond_the_managers_range_goes_to_the_members():
     for (part, k), c in pitches(s).items():
         assert c == pytest.approx(MEANTONE[k] + wheel_cents(4096, 12), abs=TOL), k
     assert not s.problems
+
+
+def widest_range(path) -> float:
+    """The widest pitch bend range (semitones) a file sets with RPN 0 (MIDI 1.0: CC101/100 = 0/0,
+    then data entry CC6), the General MIDI default 2 if none."""
+    sel, widest = {}, 2.0
+    for m in mido.MidiFile(str(path)):
+        if m.type == "control_change":
+            if m.control in (101, 100):
+                sel[(m.channel, m.control)] = m.value
+            elif m.control == 6 and sel.get((m.channel, 101)) == 0 and sel.get((m.channel, 100)) == 0:
+                widest = max(widest, float(m.value))
+    return widest
+
+
+@pytest.mark.parametrize("mode", ["pool", "mpe"])
+def test_merged_parts_each_wheel_is_expression_not_error(tmp_path, mode):
+    """--merge-parts: two parts share one pool (or one MPE zone), so an output channel plays
+    one part's note now and the other's later. The measures trace each note to its part and
+    take that part's wheel off: the report of a file with two wheel gestures then says what
+    the tuning does (no motion, worst error within the bend steps), as without the gestures;
+    before, the wheels counted as tens of cents of error and motion."""
+    notes = [(0.1 + 0.5 * i, 0.5 + 0.5 * i, 0, k, 80) for i, k in enumerate((60, 62, 64, 65, 67, 69))]
+    notes += [(0.1 + 1.0 * i, 1.05 + 1.0 * i, 1, k, 80) for i, k in enumerate((48, 43, 45))]
+    plain = note_events(notes)
+    bent = list(plain) + [(0.0, m) for m in RPN0(12, 1)]                           # the bass bends over 12 semitones
+    bent += [(0.3 + 0.02 * i, WHEEL(int(6000 * i / 20), 0)) for i in range(21)]
+    bent += [(1.3 + 0.05 * i, WHEEL(-int(4096 * i / 20), 1)) for i in range(21)]
+    opts = ConvertOptions(tuning=load_profile("meantone-quarter"), config=EngineConfig(mode=mode),
+                          merge_parts=True)
+    reps = []
+    for name, ev in (("plain", plain), ("bent", bent)):
+        src = write_midi(tmp_path / f"{name}.mid", ev)
+        reps.append(build_report(convert_file(src, tmp_path / f"{name}-out.mid", opts), opts))
+    plain_rep, bent_rep = reps
+    # the tuning's share and the wheel's, each within half a step of the widest range sent
+    tol = 2 * widest_range(tmp_path / "bent-out.mid") * 100.0 / 16384
+    assert bent_rep["wheel_clamps"] == 0
+    assert bent_rep["motion_cents_per_note"] == pytest.approx(plain_rep["motion_cents_per_note"], abs=0.01)
+    assert bent_rep["worst_pitch_error_cents"] <= tol
+    assert bent_rep["impurity_cents"] == pytest.approx(plain_rep["impurity_cents"], abs=0.05)

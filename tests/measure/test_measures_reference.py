@@ -83,6 +83,8 @@ def ref_decode(stream, *, bend_scale=1.0, exclude_channels=(), expression=None):
     def end(k, t):
         nt = sounding.pop(k)
         nt.end = t
+        # a change at the note-off's very instant is not heard on this note
+        nt.steps[:] = [nt.steps[0]] + [st for st in nt.steps[1:] if st[0] < t - EPS]
         done.append(nt)
 
     for t, msg in stream:
