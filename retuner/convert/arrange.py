@@ -26,7 +26,7 @@ configured zone.
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Iterable, Sequence
+from typing import Iterable, Optional, Sequence
 
 from retuner.engine.outputs import MODES
 from retuner.engine.notes import SUSTAIN, NoteTracker
@@ -64,12 +64,16 @@ def split_name(out_path: str, index: int) -> str:
     return str(p.with_name(f"{p.stem}-part{index}{p.suffix or '.mid'}"))
 
 
-def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool, avail: int) -> tuple[dict, dict]:
+def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool, avail: int,
+               secs: Optional[Sequence[float]] = None, release: float = 0.0) -> tuple[dict, dict]:
     """Per part: the channels it needs at least (most notes with different bends sounding at
     once, pedal included: with fewer it would steal) and the channels it wishes for (one per
     bend value it ever uses: then every note finds a channel already bent right, and no
     channel is re-bent while ringing). Static tunings share a channel among notes with one bend;
-    in adaptive mode every note has a bend of its own."""
+    in adaptive mode every note has a bend of its own, and a part wishes for twice its most
+    notes at once, or for as many as sound or still ring (released less than ``release``
+    seconds before, ``secs`` giving each event's time) when a note starts, if that is more:
+    a quick melody line needs a third channel when its notes come back within the release."""
     want = set(parts)
     dev_cache: dict[int, object] = {}
 
@@ -85,13 +89,22 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
     most: dict[int, int] = {p: 1 for p in parts}
     used: dict[int, set] = {p: set() for p in parts}
 
+    ringing: dict[int, list] = {p: [] for p in parts}     # part -> end times of its notes
+    busy: dict[int, int] = {p: 1 for p in parts}         # most notes sounding or ringing at a note-on
+    timed = adaptive and secs is not None and release > 0
+
     def drop(p: int, b) -> None:
         snd = sounding[p]
         snd[b] -= 1
         if not snd[b]:
             del snd[b]
+        if timed:
+            ringing[p].append(now)
 
-    for _, _, kind, raw in merged:
+    now = 0.0
+    for i, (_, _, kind, raw) in enumerate(merged):
+        if timed:
+            now = secs[i]
         if kind != CHANNEL:
             continue
         st = raw[0]
@@ -111,6 +124,10 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
             n = notes.sounding(p) if adaptive else len(snd)
             if n > most[p]:
                 most[p] = n
+            if timed:
+                ends = ringing[p] = [e for e in ringing[p] if e > now - release]
+                if n + len(ends) > busy[p]:
+                    busy[p] = n + len(ends)
         elif hi == 0x80 or hi == 0x90:
             for b, ended in notes.note_off(p, raw[1]):
                 if ended:
@@ -119,7 +136,8 @@ def part_needs(merged: Sequence, parts: Sequence[int], tuning, *, adaptive: bool
             for b in notes.control(p, SUSTAIN, raw[2]):
                 drop(p, b)
     need_min = {p: max(1, min(most[p], avail)) for p in parts}
-    wish = {p: max(need_min[p], min(avail, len(used[p]) if not adaptive else 2 * most[p])) for p in parts}
+    wish = {p: max(need_min[p], min(avail, len(used[p]) if not adaptive else max(2 * most[p], busy[p])))
+            for p in parts}
     return need_min, wish
 
 
@@ -146,7 +164,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
         config = wide
     if MODES[config.mode].keeps_input_channels or len(parts) <= 1 or merge:
         return [(all_parts, {p: config for p in all_parts})]
-    groups = _plan_note_groups(merged, parts, tuning, config, pas, together)
+    groups = _plan_note_groups(merged, parts, tuning, config, pas, together, secs)
     mode = MODES[config.mode]
     if together and not mode.zone_per_part:
         for i, (g, cfgs) in enumerate(groups):
@@ -160,7 +178,7 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     return groups
 
 
-def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> list[tuple[list[int], dict]]:
+def _plan_note_groups(merged, parts, tuning, config, pas, together=False, secs=None) -> list[tuple[list[int], dict]]:
     if MODES[config.mode].zone_per_part:
         # one MPE zone per part: two parts per file, the first in the lower zone (manager
         # channel 1, members 2..8), the second in the upper zone (manager 16, members 15..9)
@@ -177,7 +195,8 @@ def _plan_note_groups(merged, parts, tuning, config, pas, together=False) -> lis
         return out
     pool = [c for c in config.pool if c not in pas]
     avail = len(pool)
-    need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail)
+    need_min, wish = part_needs(merged, parts, tuning, adaptive=config.adaptive is not None, avail=avail,
+                                secs=secs, release=config.release_time)
     # groups: first fit, largest minimum first
     groups: list[list[int]] = []
     for p in sorted(parts, key=lambda q: (-need_min[q], q)):

@@ -69,3 +69,28 @@ def test_channels_are_shared_out_by_need_when_parts_are_tuned_together(tmp_path)
     assert len(chans[PIANO]) >= 6
     assert len(chans[BASS]) <= 3
     assert not any(chans[p] & chans[q] for p in PROGRAMS for q in PROGRAMS if p < q)
+
+
+def test_a_quick_melody_gets_a_channel_for_each_note_still_ringing(tmp_path):
+    """The arrangement above with a quicker flute line, a note every second: with the two channels
+    that twice its one note at a time gives it, each note would come back to a channel released
+    1 s before, still ringing (release time 2 s, the default), and re-bend it (adaptive mode:
+    every note a bend of its own). The flute wishes for as many channels as notes sound or ring
+    at one of its note-ons (itself and the two before it: 3); the 15 channels then go piano 6,
+    strings 4, bass 2, flute 3, and nothing is re-bent while it rings."""
+    ev = [(0.0, mido.Message("program_change", channel=c, program=p)) for c, p in PROGRAMS.items()]
+    notes = []
+    for i in range(len(PIANO_CHORDS)):
+        t0, t1 = 0.2 + BEAT * i, 0.2 + BEAT * (i + 1)
+        notes += [(t0, t1, PIANO, k, VELOCITY[PIANO]) for k in PIANO_CHORDS[i]]
+        notes += [(t0, t1, STRINGS, k, VELOCITY[STRINGS]) for k in STRING_CHORDS[i]]
+        notes.append((t0, t1, BASS, BASS_KEYS[i], VELOCITY[BASS]))
+    line = [72, 74, 76, 77, 79, 77, 76, 74, 72, 71, 72, 74, 76, 74, 72, 71, 72]
+    notes += [(0.2 + 1.0 * j, 0.2 + 1.0 * j + 0.95, FLUTE, k, VELOCITY[FLUTE]) for j, k in enumerate(line)]
+    write_midi(tmp_path / "melody.mid", ev + note_events(notes))
+    opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(adaptive=AdaptiveConfig()))
+    res = convert_file(tmp_path / "melody.mid", tmp_path / "out.mid", opts)
+    rep = report.build_report(res, opts)
+    assert rep["parts_tuned"] == "together" and rep["steals"] == 0
+    assert rep["ringing_retunes"] == 0
+    assert len(res.outputs[0].channels[FLUTE]) >= 3
