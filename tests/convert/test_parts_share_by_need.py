@@ -33,7 +33,8 @@ BASS_KEYS = [36, 45, 41, 43, 36, 38, 43, 36]
 FLUTE_KEYS = [76, 76, 77, 74, 79, 77, 74, 72]
 
 
-def arrangement(path):
+def arrangement(path, flute=None):
+    """The four parts; ``flute``: (start, end, key) of another flute line (default: a note a chord)."""
     ev = [(0.0, mido.Message("program_change", channel=c, program=p)) for c, p in PROGRAMS.items()]
     notes = []
     for i in range(len(PIANO_CHORDS)):
@@ -41,7 +42,9 @@ def arrangement(path):
         notes += [(t0, t1, PIANO, k, VELOCITY[PIANO]) for k in PIANO_CHORDS[i]]
         notes += [(t0, t1, STRINGS, k, VELOCITY[STRINGS]) for k in STRING_CHORDS[i]]
         notes.append((t0, t1, BASS, BASS_KEYS[i], VELOCITY[BASS]))
-        notes.append((t0, t1 - 0.05, FLUTE, FLUTE_KEYS[i], VELOCITY[FLUTE]))
+        if flute is None:
+            notes.append((t0, t1 - 0.05, FLUTE, FLUTE_KEYS[i], VELOCITY[FLUTE]))
+    notes += [(a, b, FLUTE, k, VELOCITY[FLUTE]) for a, b, k in flute or ()]
     write_midi(path, ev + note_events(notes))
     return len(notes)
 
@@ -78,16 +81,8 @@ def test_a_quick_melody_gets_a_channel_for_each_note_still_ringing(tmp_path):
     every note a bend of its own). The flute wishes for as many channels as notes sound or ring
     at one of its note-ons (itself and the two before it: 3); the 15 channels then go piano 6,
     strings 4, bass 2, flute 3, and nothing is re-bent while it rings."""
-    ev = [(0.0, mido.Message("program_change", channel=c, program=p)) for c, p in PROGRAMS.items()]
-    notes = []
-    for i in range(len(PIANO_CHORDS)):
-        t0, t1 = 0.2 + BEAT * i, 0.2 + BEAT * (i + 1)
-        notes += [(t0, t1, PIANO, k, VELOCITY[PIANO]) for k in PIANO_CHORDS[i]]
-        notes += [(t0, t1, STRINGS, k, VELOCITY[STRINGS]) for k in STRING_CHORDS[i]]
-        notes.append((t0, t1, BASS, BASS_KEYS[i], VELOCITY[BASS]))
     line = [72, 74, 76, 77, 79, 77, 76, 74, 72, 71, 72, 74, 76, 74, 72, 71, 72]
-    notes += [(0.2 + 1.0 * j, 0.2 + 1.0 * j + 0.95, FLUTE, k, VELOCITY[FLUTE]) for j, k in enumerate(line)]
-    write_midi(tmp_path / "melody.mid", ev + note_events(notes))
+    arrangement(tmp_path / "melody.mid", flute=[(0.2 + 1.0 * j, 0.2 + 1.0 * j + 0.95, k) for j, k in enumerate(line)])
     opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(adaptive=AdaptiveConfig()))
     res = convert_file(tmp_path / "melody.mid", tmp_path / "out.mid", opts)
     rep = report.build_report(res, opts)
