@@ -18,6 +18,7 @@ import contextlib
 import logging
 import os
 import sys
+import threading
 from typing import Callable, Optional
 
 import mido
@@ -91,6 +92,8 @@ class PortBackend:
     """A MIDI system the daemon can open ports on. ``word`` names it in logs ("alsa", "jack")."""
 
     word = "?"
+    _watcher: Optional[threading.Thread] = None           # the port watcher (see :meth:`watch`)
+    _stop: Optional[threading.Event] = None
     on_server_lost: Optional[Callable[[], None]] = None   # called from any thread when the MIDI
                                                           # system itself goes away (a JACK server)
 
@@ -113,8 +116,32 @@ class PortBackend:
 
     def watch(self, interval: float, on_change: Callable[[list[str], list[str]], None]) -> None:
         """Call ``on_change(inputs, outputs)`` with the port lists about every ``interval`` seconds
-        (or whenever they change), from any thread, until :meth:`close`."""
+        (or whenever they change), from any thread, until :meth:`close`. Here: a thread that
+        runs :meth:`_looker`'s look every ``interval`` seconds; :meth:`_stop_watching` ends it."""
+        if self._watcher is not None:
+            return
+        look = self._looker(on_change)
+        self._stop = stop = threading.Event()
+
+        def run():
+            while not stop.wait(interval):
+                look()
+
+        self._watcher = threading.Thread(target=run, name="retuner-ports", daemon=True)
+        self._watcher.start()
+
+    def _looker(self, on_change: Callable[[list[str], list[str]], None]) -> Callable[[], None]:
+        """One look at the port lists, passed to ``on_change``; never raises (it runs on the
+        watcher's thread)."""
         raise NotImplementedError  # pragma: no cover - interface
+
+    def _stop_watching(self) -> None:
+        """End the watcher thread, if any (waited for at most 2 s)."""
+        if self._stop is not None:
+            self._stop.set()
+        if self._watcher is not None:
+            self._watcher.join(2)
+            self._watcher = None
 
     def close(self) -> None:
         """Stop watching and let go of anything opened for listing."""

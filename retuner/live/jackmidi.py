@@ -267,8 +267,6 @@ class JackBackend(PortBackend):
         self._error = error or (lambda exc, what: RuntimeError(f"{what}: {exc}"))
         self._lock = threading.RLock()
         self._client: Optional[_Client] = None
-        self._watcher: Optional[threading.Thread] = None
-        self._stop = threading.Event()
 
     def client_name(self, base: str, side: str) -> str:
         return base if side in ("in", "out") else f"{base}-{side}"
@@ -306,35 +304,27 @@ class JackBackend(PortBackend):
         except Exception as exc:
             raise self._error(exc, f"cannot open output {connect_to or port!r}") from exc
 
-    def watch(self, interval, on_change) -> None:
-        if self._watcher is not None:
-            return
-        self._stop = stop = threading.Event()
+    def _looker(self, on_change):
+        last = None
 
-        def run():
-            last = None
-            while not stop.wait(interval):
-                try:
-                    with self._lock:
-                        client = self._live()
-                    if last is not None and client is not last:
-                        # a new client (the server stopped and came back before a look found it
-                        # gone): ports opened on the old one are gone even if their names returned
-                        on_change([], [])
-                    last = client
-                    on_change(client.names(is_input=False), client.names(is_input=True))
-                except Exception as exc:  # noqa: BLE001 - no server (yet): its ports are gone
-                    log.debug("listing ports: %s", exc)
+        def look():
+            nonlocal last
+            try:
+                with self._lock:
+                    client = self._live()
+                if last is not None and client is not last:
+                    # a new client (the server stopped and came back before a look found it
+                    # gone): ports opened on the old one are gone even if their names returned
                     on_change([], [])
-
-        self._watcher = threading.Thread(target=run, name="retuner-ports", daemon=True)
-        self._watcher.start()
+                last = client
+                on_change(client.names(is_input=False), client.names(is_input=True))
+            except Exception as exc:  # noqa: BLE001 - no server (yet): its ports are gone
+                log.debug("listing ports: %s", exc)
+                on_change([], [])
+        return look
 
     def close(self) -> None:
-        self._stop.set()
-        if self._watcher is not None:
-            self._watcher.join(2)
-            self._watcher = None
+        self._stop_watching()
         with self._lock:
             if self._client is not None:
                 if self._client.dead:

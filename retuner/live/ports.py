@@ -365,8 +365,6 @@ class RtMidiBackend(PortBackend):
         self._probe_name = probe_name
         self._lister: Optional[PortLister] = None
         self._lock = threading.Lock()
-        self._watcher: Optional[threading.Thread] = None
-        self._stop = threading.Event()
 
     def _list(self) -> PortLister:
         with self._lock:
@@ -387,27 +385,18 @@ class RtMidiBackend(PortBackend):
     def open_output(self, client, port, *, connect_to) -> OutputPort:
         return OutputPort(self.word, client, port, connect_to=connect_to)
 
-    def watch(self, interval, on_change) -> None:
-        if self._watcher is not None:
-            return
+    def _looker(self, on_change):
         lister = self._list()
-        self._stop = stop = threading.Event()
 
-        def run():
-            while not stop.wait(interval):
-                try:
-                    on_change(lister.inputs(), lister.outputs())
-                except Exception as exc:  # pragma: no cover - backend trouble
-                    log.debug("listing ports: %s", exc)
-
-        self._watcher = threading.Thread(target=run, name="retuner-ports", daemon=True)
-        self._watcher.start()
+        def look():
+            try:
+                on_change(lister.inputs(), lister.outputs())
+            except Exception as exc:  # pragma: no cover - backend trouble
+                log.debug("listing ports: %s", exc)
+        return look
 
     def close(self) -> None:
-        self._stop.set()
-        if self._watcher is not None:
-            self._watcher.join(2)
-            self._watcher = None
+        self._stop_watching()
         with self._lock:
             if self._lister is not None:
                 self._lister.close()
