@@ -34,6 +34,7 @@ sounding notes) as a black step line.
 
 from __future__ import annotations
 
+import bisect
 import json
 import math
 from typing import Optional
@@ -87,13 +88,14 @@ def expression(res, opts, o) -> Optional[list]:
     try:
         with open(res.input, "rb") as f:
             data = f.read()
-        own = metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range, channels_of)
+        # each part's wheel once, then onto the channels that carry that part alone
+        parts_wheel = metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range,
+                                               {p: [p] for p in channels_of})
+        own = [(t, c, cents) for t, p, cents in parts_wheel for c in channels_of[p]]
         if mode.keeps_input_channels or not shared:
             return own
         # a channel shared by several parts (merged parts) carries the wheel of the part whose
         # note it plays at the time: each output note is traced to its part by its key and start
-        parts_wheel = metrics.input_wheel_wire(wire_stream(data, res.input), config.wheel_range,
-                                               {p: [p] for p in sent_on})
         onsets = [(t, raw[0] & 0x0F, raw[1]) for t, raw in wire_stream(data, res.input)
                   if raw[0] & 0xF0 == 0x90 and len(raw) > 2 and raw[2] and (raw[0] & 0x0F) in sent_on]
         return sorted(own + _wheel_by_note(o, parts_wheel, onsets, set(shared)), key=lambda e: e[0])
@@ -105,8 +107,6 @@ def _wheel_by_note(o, parts_wheel: list, onsets: list, shared: set) -> list:
     """Wheel events for output channels that several parts share: at each output note-on on
     such a channel, the wheel of the part that played that key last (at or before that
     moment); at each wheel move of a part, every shared channel now playing that part's note."""
-    import bisect
-
     by_key: dict[int, list] = {}
     for t, p, k in onsets:
         by_key.setdefault(k, []).append((t, p))
