@@ -28,6 +28,8 @@ from typing import Callable, Optional
 import mido
 import rtmidi
 
+from retuner.bench.jacklive import stop_child
+
 REPO = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 
@@ -76,13 +78,8 @@ class JackServer:
         raise JackError(f"jackd {self.name} did not answer jack_lsp within {timeout} s")
 
     def stop(self) -> None:
-        if self.proc is not None and self.proc.poll() is None:
-            self.proc.terminate()
-            try:
-                self.proc.wait(5)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(5)
+        if self.proc is not None:
+            stop_child(self.proc, 5)
         self.proc = None
 
     def lsp(self) -> list[str]:
@@ -253,13 +250,7 @@ class Daemon:
         return self.proc.wait(timeout)
 
     def stop(self) -> Optional[int]:
-        if self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGTERM)
-            try:
-                self.proc.wait(5)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(5)
+        stop_child(self.proc, 5)
         self._log.close()
         return self.proc.returncode
 

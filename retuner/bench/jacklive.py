@@ -39,6 +39,19 @@ def _cpu_ticks(pid: int) -> int:
     return int(fields[11]) + int(fields[12])          # utime, stime (proc(5))
 
 
+
+def stop_child(proc: subprocess.Popen, grace: float) -> None:
+    """SIGTERM ``proc`` and wait up to ``grace`` seconds, then SIGKILL it (a child that is still
+    running; one that has ended is left as it is)."""
+    if proc.poll() is not None:
+        return
+    proc.terminate()
+    try:
+        proc.wait(grace)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait(5)
+
 class _Server:
     """A JACK server already running, or one started here with the dummy driver."""
 
@@ -65,13 +78,8 @@ class _Server:
             time.sleep(0.1)
 
     def stop(self) -> None:
-        if self.proc is not None and self.proc.poll() is None:
-            self.proc.terminate()
-            try:
-                self.proc.wait(5)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(5)
+        if self.proc is not None:
+            stop_child(self.proc, 5)
         self.proc = None
 
 
@@ -187,12 +195,7 @@ def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: 
     finally:
         if meter is not None:
             meter.close()
-        proc.terminate()
-        try:
-            proc.wait(15)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait(5)
+        stop_child(proc, 15)
         log.close()
         shutil.rmtree(tmp, ignore_errors=True)
     return fig

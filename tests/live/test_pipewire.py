@@ -24,6 +24,8 @@ from pathlib import Path
 import mido
 import pytest
 
+from retuner.bench.jacklive import stop_child
+
 from jack import Received, decode
 
 TESTS = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file()) / "tests"   # where the helper modules are
@@ -65,12 +67,7 @@ def pipewire(tmp_path):
             time.sleep(0.1)
         yield env, preload
     finally:
-        proc.terminate()
-        try:
-            proc.wait(5)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait(5)
+        stop_child(proc, 5)
         log.close()
 
 
