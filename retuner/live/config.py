@@ -53,6 +53,7 @@ from typing import Any, Optional
 from retuner.adaptive.settings import ADAPTIVE_DURATIONS, ADAPTIVE_FIELD_OF, ADAPTIVE_KEY_OF, adaptive_error, adaptive_fields
 from retuner.engine.outputs import MODES
 from retuner.errors import RetunerError
+from retuner.profiles.document import kind_of
 from retuner.units import DURATION_HELP, seconds_of
 
 LOG_LEVELS = ("debug", "info", "warning", "error")
@@ -118,18 +119,11 @@ class _Where:
         return RetunerError(msg, file=self.filename, line=line, field=fld)
 
 
-def _type_name(v: Any) -> str:
-    if v is None:
-        return "nothing (null)"
-    return {bool: "true/false", int: "a whole number", float: "a number", str: "text",
-            list: "a list"}.get(type(v), type(v).__name__)
-
-
 def _str(v, w, fld, m, k, allow_none=False):
     if v is None and allow_none:
         return None
     if not isinstance(v, str) or not v.strip():
-        raise w.err(f"expected text, got {_type_name(v)}", fld, m, k)
+        raise w.err(f"expected text, got {kind_of(v)}", fld, m, k)
     return v
 
 
@@ -143,7 +137,7 @@ def _int(v, w, fld, m, k, lo, hi, allow_none=False):
     if v is None and allow_none:
         return None
     if isinstance(v, bool) or not isinstance(v, int):
-        raise w.err(f"expected a whole number, got {_type_name(v)} {v!r}", fld, m, k)
+        raise w.err(f"expected a whole number, got {kind_of(v)} {v!r}", fld, m, k)
     if not lo <= v <= hi:
         raise w.err(f"must be between {lo} and {hi}, got {v}", fld, m, k)
     return v
@@ -151,7 +145,7 @@ def _int(v, w, fld, m, k, lo, hi, allow_none=False):
 
 def _num(v, w, fld, m, k, lo, hi):
     if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise w.err(f"expected a number, got {_type_name(v)} {v!r}", fld, m, k)
+        raise w.err(f"expected a number, got {kind_of(v)} {v!r}", fld, m, k)
     if not lo <= v <= hi:
         raise w.err(f"must be between {lo} and {hi}, got {v}", fld, m, k)
     return float(v)
@@ -178,7 +172,7 @@ def duration_seconds(v, w, fld, m, k):
 def _seconds(v, w, fld, m, k, lo, hi):
     secs = duration_seconds(v, w, fld, m, k)
     if isinstance(secs, bool) or not isinstance(secs, (int, float)):
-        raise w.err(f"expected seconds, or a number with its unit such as '10 min', got {_type_name(v)} {v!r}",
+        raise w.err(f"expected seconds, or a number with its unit such as '10 min', got {kind_of(v)} {v!r}",
                     fld, m, k)
     if not lo <= secs <= hi:
         raise w.err(f"must be between {lo:g} and {hi:g} seconds, got {v!r}", fld, m, k)
@@ -193,7 +187,7 @@ def _str_list(v, w, fld, m, k):
 
 def _mapping(v, w, fld, m, k):
     if not isinstance(v, dict):
-        raise w.err(f"expected a mapping, got {_type_name(v)}", fld, m, k)
+        raise w.err(f"expected a mapping, got {kind_of(v)}", fld, m, k)
     return v
 
 
@@ -384,7 +378,7 @@ def _adaptive_settings(v: Any, w: "_Where", fld: str, m: Any, k: Any) -> Any:
     if v is True:
         v = {}
     if not isinstance(v, dict):
-        raise w.err(f"expected true, false or a mapping of adaptive settings, got {_type_name(v)}", fld, m, k)
+        raise w.err(f"expected true, false or a mapping of adaptive settings, got {kind_of(v)}", fld, m, k)
     from retuner.adaptive.solver import AdaptiveConfig
     names = {ADAPTIVE_KEY_OF.get(f.name, f.name) for f in dataclasses.fields(AdaptiveConfig)}
     out = {}
@@ -433,7 +427,7 @@ def _check_value(v: Any, hint: Any, w: _Where, fld: str, m: Any, k: Any, channel
         return v
     if origin in (list, tuple, set, frozenset) or hint in (list, tuple):
         if not isinstance(v, list):
-            raise w.err(f"expected a list, got {_type_name(v)}", fld, m, k)
+            raise w.err(f"expected a list, got {kind_of(v)}", fld, m, k)
         item = args[0] if args else Any
         out = [_check_value(x, item, w, fld, m, k, channel) for x in v]
         return tuple(out) if (origin is tuple or hint is tuple) else (set(out) if origin in (set, frozenset) else out)

@@ -37,6 +37,17 @@ class Sequence(list):
         self.line = line
 
 
+def kind_of(v: Any) -> str:
+    """A YAML value's kind in a user's words (for "expected ..., got ..." messages)."""
+    if v is None:
+        return "nothing (null)"
+    for t, words in ((bool, "true/false"), (int, "a whole number"), (float, "a number"), (str, "text"),
+                     (dict, "a mapping"), (list, "a list")):
+        if isinstance(v, t):
+            return words
+    return type(v).__name__
+
+
 class _Loader(yaml.SafeLoader):
     """SafeLoader that keeps lines and refuses nesting deeper than MAX_DEPTH (the composer
     recurses once per level, so a deep file would otherwise end in RecursionError)."""

@@ -7,7 +7,7 @@ import re
 from retuner.errors import RetunerError
 from retuner.pitch.tuning import A4_KEY, A4_HZ, Degree, Tuning, build_keyboard, hz_to_cents
 from retuner.profiles import values
-from retuner.profiles.document import Mapping, Sequence, Where, load_yaml
+from retuner.profiles.document import Mapping, Sequence, Where, kind_of, load_yaml
 from retuner.profiles.forms import FORMS, check_fields
 from retuner.profiles.layout import DEFAULT_ROOT, parse_layout
 from retuner.profiles.oldform import check_old_form
@@ -38,7 +38,7 @@ def parse_profile(text: str, filename: str = "<profile>") -> Tuning:
     form = forms[0]
     body = doc[form]
     if not isinstance(body, Mapping):
-        raise where.err(f"expected a mapping, got {type(body).__name__}", form, doc, form)
+        raise where.err(f"expected a mapping, got {kind_of(body)}", form, doc, form)
     scale = FORMS[form](body, where)
     n = len(scale.degrees)
 

@@ -321,3 +321,14 @@ def test_bend_range_reaches_the_mpe_members_from_the_file_and_the_option(tmp_pat
     s = C.load_config(str(cfg))
     s.engine.update(engine_overrides(args))
     assert C.engine_config(s).mpe_member_range == 24
+
+
+@pytest.mark.parametrize("text, kind", [("engine: [1, 2]\n", "a list"), ("engine: {pool: x}\n", None),
+                                        ("switch: 3\n", "a whole number")])
+def test_a_value_of_the_wrong_kind_is_named_in_plain_words(text, kind):
+    with pytest.raises(RetunerError) as ei:
+        parse_config(text, "cfg.yaml")
+    msg = str(ei.value)
+    assert "Sequence" not in msg and "Mapping" not in msg and "\n" not in msg, msg
+    if kind is not None:
+        assert msg.endswith(f"got {kind}"), msg

@@ -456,3 +456,15 @@ def test_any_profile_loads_or_gives_one_line(parts):
         assert "\n" not in str(exc) and str(exc).startswith("p.yaml")
     else:
         assert len(t.cents) == 128
+
+
+@pytest.mark.parametrize("text, kind", [
+    ("id: x\ndescription: d\nequal: [12]\n", "a list"),
+    ("id: x\ndescription: d\nequal: twelve\n", "text"),
+    ("id: x\ndescription: d\nequal: 12\n", "a whole number"),
+])
+def test_a_value_of_the_wrong_kind_is_named_in_plain_words(text, kind):
+    # the YAML reader's own classes (which remember lines) never reach the message
+    with pytest.raises(RetunerError) as info:
+        parse_profile(text, "bad.yaml")
+    assert str(info.value).endswith(f"expected a mapping, got {kind}"), str(info.value)
