@@ -13,6 +13,10 @@ as a GM synth does: the program (with the bank selected by CC0/CC32 before it: a
 takes effect at the next program change, GM2) each note starts with, and the channel's
 controllers (volume 7, default 100; pan 10, default 64; expression 11, default 127; the rest
 default 0: GM2 defaults, from memory; RP-015 resets modulation to 0 and expression to 127).
+A GM System On (F0 7E <device> 09 01 F7, General MIDI System Level 1; GM2 System On ends
+09 03, General MIDI 2; bytes from memory) puts the synth back at its power-up state: every
+note silenced, bend range 2 semitones, wheel centred, pedals up, RPN null, programs 0,
+controllers at their defaults. A set-up sent before it is lost.
 
 :class:`MtsSynth`: a synth's key table under the MIDI Tuning Standard.
 """
@@ -40,15 +44,19 @@ class SynthModel:
     """What a synth does with a stream of messages (see the module docstring)."""
 
     def __init__(self, mpe_manager=None):
+        self.mpe_manager = mpe_manager
+        self.messages = 0
+        self.problems: list[str] = []
+        self.power_up()
+
+    def power_up(self):
+        """The state after power-up or a GM System On."""
         self.bend = [0] * 16                   # signed, as mido's 'pitch'
         self.range = [200.0] * 16              # cents; MIDI 1.0 default sensitivity: 2 semitones
         self.rpn = [(127, 127)] * 16
         self.sustain = [False] * 16
         self.sostenuto = [False] * 16
         self.voices: list[list[Voice]] = [[] for _ in range(16)]
-        self.mpe_manager = mpe_manager
-        self.messages = 0
-        self.problems: list[str] = []
         self.last_on: list[tuple[int, Voice]] = []   # voices started by the last feed
         self.program = [(0, 0, 0)] * 16        # (bank MSB, bank LSB, program) in force
         self.bank = [(0, 0)] * 16              # bank selected (for the next program change)
@@ -68,6 +76,9 @@ class SynthModel:
         # every message must be valid MIDI: its bytes re-parse to the same message
         if mido.Message.from_bytes(m.bytes()) != m:
             self.problems.append(f"invalid {m}")
+        if m.type == "sysex" and len(m.data) == 4 and m.data[0] == 0x7E and m.data[2:] in ((0x09, 0x01), (0x09, 0x03)):
+            self.power_up()
+            return
         if not hasattr(m, "channel"):
             return
         c = m.channel
