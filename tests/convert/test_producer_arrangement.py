@@ -333,13 +333,15 @@ def test_the_arrangement_holds_what_a_producer_writes(piece):
     assert len(channel_events(src, DRUMS)) > 50
 
 
-@pytest.mark.parametrize("mode", ["pool", "mpe"])
-def test_a_temperament_sounds_at_its_pitch_plus_the_players_wheel(piece, mode):
+@pytest.mark.parametrize("mode,bend_range", [("pool", 2.0), ("pool", 12.0), ("mpe", 2.0)],
+                         ids=["pool", "pool-bend-range-12", "mpe"])
+def test_a_temperament_sounds_at_its_pitch_plus_the_players_wheel(piece, mode, bend_range):
     """Quarter-comma meantone, every note at every moment it sounds (pedalled notes too, the bass
     while its wheel moves) within half a bend step at the range the synth has for its channel
     (while the wheel is off centre, half a step for the tuning's share and half for the wheel's;
     MPE: plus half a manager step where the manager's bend is off centre)."""
-    res, opts, outs = convert(piece, f"meantone-{mode}", load_profile("meantone-quarter"), mode=mode)
+    res, opts, outs = convert(piece, f"meantone-{mode}-{bend_range:g}", load_profile("meantone-quarter"),
+                              mode=mode, bend_range=bend_range)
     _, src = piece
     assert len(outs) == (1 if mode == "pool" else 3)             # MPE: two zones a port
     checked = bent = dressed = 0
