@@ -327,7 +327,7 @@ def test_the_arrangement_holds_what_a_producer_writes(piece):
     max_wheel = 0.0
     for _, msgs in timeline(src):
         player.feed(msgs)
-        if any(v.key == BASS_ROOTS[WHEEL_CHORD] for _, v in player.sounding() if _ == BASS):
+        if any(v.key == BASS_ROOTS[WHEEL_CHORD] for c, v in player.sounding() if c == BASS):
             max_wheel = max(max_wheel, player.bend[BASS] / 8192 * player.range[BASS])
     assert player.range[BASS] == 1200.0 and max_wheel == 600.0        # RPN 0 = 12, +6 semitones
     assert len(channel_events(src, DRUMS)) > 50
@@ -340,7 +340,7 @@ def test_a_temperament_sounds_at_its_pitch_plus_the_players_wheel(piece, mode, b
     while its wheel moves) within half a bend step at the range the synth has for its channel
     (while the wheel is off centre, half a step for the tuning's share and half for the wheel's;
     MPE: plus half a manager step where the manager's bend is off centre)."""
-    res, opts, outs = convert(piece, f"meantone-{mode}-{bend_range:g}", load_profile("meantone-quarter"),
+    _, _, outs = convert(piece, f"meantone-{mode}-{bend_range:g}", load_profile("meantone-quarter"),
                               mode=mode, bend_range=bend_range)
     _, src = piece
     assert len(outs) == (1 if mode == "pool" else 3)             # MPE: two zones a port
@@ -385,8 +385,7 @@ MPE_APART = ("MPE gives each part of a file a zone and an engine of its own, so 
 
 @pytest.mark.parametrize("mode", ["pool", pytest.param("mpe", marks=pytest.mark.xfail(strict=True, reason=MPE_APART))])
 def test_adaptive_tunes_the_parts_as_one_harmony(piece, mode):
-    _, src = piece
-    res, opts, outs = convert(piece, f"adaptive-{mode}-harmony", Tuning.equal12(), mode=mode,
+    res, opts, _ = convert(piece, f"adaptive-{mode}-harmony", Tuning.equal12(), mode=mode,
                               adaptive=AdaptiveConfig())
     imp, drift = harmony(res, opts)
     # the same file untuned: 12-EDO's thirds and sixths, several cents from just
@@ -400,7 +399,7 @@ def test_adaptive_tunes_the_parts_as_one_harmony(piece, mode):
 @pytest.mark.parametrize("mode", ["pool", "mpe"])
 def test_adaptive_keeps_every_note_at_its_tick_on_its_parts_instrument(piece, mode):
     _, src = piece
-    res, opts, outs = convert(piece, f"adaptive-{mode}", Tuning.equal12(), mode=mode, adaptive=AdaptiveConfig())
+    _, _, outs = convert(piece, f"adaptive-{mode}", Tuning.equal12(), mode=mode, adaptive=AdaptiveConfig())
     assert note_ons(outs) == note_ons([src])
     dressed = 0
     for out in outs:
