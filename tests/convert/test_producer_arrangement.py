@@ -25,6 +25,11 @@ Sources of the checks:
   the MIDI 1.0 and MPE specifications) hears, not retuner's own decoder;
 * FluidSynth (a real GM synth) renders the converted files, measured against the same keys
   rendered untuned (tests/synth.py).
+
+Two rules of retuner's own that the tolerances follow: the tuning's bend and the player's wheel
+are each sent in whole bend steps (retuner.engine.outputs.bend), so while a wheel is off centre
+a note may be half a step off for each; and in MPE a file's parts get a zone each (two zones a
+port, so six parts make three files, each file the whole piece with its own parts' notes).
 """
 
 from __future__ import annotations
