@@ -3,11 +3,11 @@
 What JACK-Client does, read in the installed package's own code (JACK-Client 0.5.7, ``jack.py``; it
 reaches the system's libjack through cffi, ``_ffi.dlopen``, one C call per method, nothing kept between):
 
-* ``OwnMidiPort.write_midi_event(time, event)`` calls ``jack_midi_event_write`` on
-  ``jack_port_get_buffer(port, blocksize)``: it writes straight into the port's buffer of the
-  process cycle in progress, and raises ``JackError`` when the event does not fit. JACK-Client keeps
-  no queue of its own, so the only queue is retuner's (``JackOutput``'s deque, emptied by the process
-  callback in retuner/live/jackmidi.py).
+* retuner's process callback (retuner/live/jackmidi.py) calls libjack through JACK-Client's own
+  cffi handle (``jack._lib``): ``jack_midi_event_write`` on ``jack_port_get_buffer(port, frames)``
+  writes straight into the port's buffer of the process cycle in progress and returns non-zero
+  (ENOBUFS) when the event does not fit. Nothing keeps a queue but retuner (``JackOutput``'s deque,
+  emptied by that callback).
 * ``OwnPort.unregister()`` takes the port out of the client's port list and calls
   ``jack_port_unregister`` at once; it waits for no cycle. ``Client.deactivate()`` calls
   ``jack_deactivate`` (out of the process graph, every connection of the client's ports removed)
@@ -71,7 +71,7 @@ class JackModel:
         self.links: list[tuple[str, str]] = []        # (source, destination), in the order made
         self.lock = threading.RLock()
         self.module = types.SimpleNamespace(Client=self._client, MidiPort=FakePort, JackError=ModelError,
-                                            __name__="jack (model)")
+                                            _lib=FakeLib(), _ffi=FakeFFI(), __name__="jack (model)")
 
     def _client(self, name, use_exact_name=False, no_start_server=False, servername=None, session_id=None):
         return FakeClient(self, name)
@@ -221,6 +221,7 @@ class FakePort:
         self.is_input = is_input
         self.is_output = not is_input
         self.buffer: list[bytes] = []
+        self._ptr = self             # what the libjack calls are given (``jack._lib`` above)
 
     def clear_buffer(self) -> None:
         self.buffer = []
@@ -246,6 +247,51 @@ class FakePort:
             model.ports.pop(self.name, None)
             model.links = [(s, d) for s, d in model.links if self.name not in (s, d)]
         self.buffer = []
+
+
+ENOBUFS = 105     # what jack_midi_event_write returns when the buffer is full (Linux errno)
+
+
+class FakeLib:
+    """The libjack calls of the process callback (``jack._lib``): a port's "buffer" is the port."""
+
+    @staticmethod
+    def jack_port_get_buffer(port: FakePort, frames: int) -> FakePort:
+        return port
+
+    @staticmethod
+    def jack_midi_clear_buffer(port: FakePort) -> None:
+        port.clear_buffer()
+
+    @staticmethod
+    def jack_midi_event_write(port: FakePort, time: int, data, size: int) -> int:
+        try:
+            port.write_midi_event(time, bytes(data)[:size])
+        except ModelError:
+            if not port.client.in_cycle:
+                raise
+            return ENOBUFS
+        return 0
+
+    @staticmethod
+    def jack_midi_get_event_count(port: FakePort) -> int:
+        return len(port.buffer)
+
+    @staticmethod
+    def jack_midi_event_get(event, port: FakePort, index: int) -> int:
+        data = port.buffer[index]
+        event.time, event.buffer, event.size = 0, data, len(data)
+        return 0
+
+
+class FakeFFI:
+    @staticmethod
+    def new(ctype: str):
+        return types.SimpleNamespace(time=0, buffer=b"", size=0)
+
+    @staticmethod
+    def buffer(data: bytes, size: int) -> bytes:
+        return bytes(data[:size])
 
 
 # -------------------------------------------------------------------- the rig
