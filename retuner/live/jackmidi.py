@@ -58,7 +58,7 @@ def jack_module():
         import jack as mod  # noqa: PLC0415 - loaded only when the JACK backend is used
     except ImportError:
         mod = None
-    if mod is None or not hasattr(mod, "Client") or not hasattr(mod, "MidiPort"):
+    if mod is None or not all(hasattr(mod, a) for a in ("Client", "MidiPort", "_lib", "_ffi")):
         shadow = os.path.dirname(os.path.abspath(getattr(mod, "__file__", "") or "")) if mod else None
         path = [p for p in sys.path if os.path.abspath(p or ".") != shadow]
         spec = importlib.machinery.PathFinder.find_spec("jack", path)
@@ -103,13 +103,16 @@ class _Client:
 
     def __init__(self, name: str, on_lost: Optional[Callable[[], None]] = None):
         self.jack = jack_module()
+        self._lib = self.jack._lib              # libjack through cffi (JACK-Client's own handle)
+        self._ffi = self.jack._ffi
+        self._event = self._ffi.new("jack_midi_event_t*")
         self.on_lost = on_lost
         self.client = open_client(name)
         self.name = self.client.name
         self.dead = False
         self._lock = threading.Lock()          # taken by the process callback and by port changes
-        self.inputs: list = []                 # (port, callback, on_error)
-        self.outputs: list = []                # (port, deque of bytes)
+        self.inputs: list = []                 # (port pointer, callback, on_error)
+        self.outputs: list = []                # (port pointer, deque of bytes)
         self.cycles = 0                        # process cycles run (a drain waits on it)
         self.active = False                    # activated with the first port: a client that only
         self.client.set_process_callback(self._process)   # lists ports costs nothing per period
@@ -117,26 +120,37 @@ class _Client:
 
     # --------------------------------------------------------------- JACK's threads
     def _process(self, frames: int) -> None:
+        # libjack is called directly (cffi), with the port pointers kept at registration and the
+        # period's ``frames``: JACK-Client's port methods ask the server for the buffer size on
+        # every call and build a generator per port; an idle period costs four C calls here
         self._lock.acquire()        # held elsewhere only to change the port tables, never across a JACK call
         try:
-            self._cycle()
+            self._cycle(frames)
         except Exception:  # noqa: BLE001 - an exception here would make JACK drop the client
             pass
         finally:
             self._lock.release()
 
-    def _cycle(self) -> None:
-        for port, queue in self.outputs:
-            port.clear_buffer()
+    def _cycle(self, frames: int) -> None:
+        lib = self._lib
+        get = lib.jack_port_get_buffer
+        for ptr, queue in self.outputs:
+            buf = get(ptr, frames)
+            lib.jack_midi_clear_buffer(buf)       # every period, before any write (JACK MIDI API)
             while queue:
-                try:
-                    port.write_midi_event(0, queue[0])
-                except self.jack.JackError:     # no room left in this period's buffer
-                    break
+                data = queue[0]
+                if lib.jack_midi_event_write(buf, 0, data, len(data)):
+                    break                         # no room left in this period's buffer
                 queue.popleft()
-        for port, callback, on_error in self.inputs:
-            for _, data in port.incoming_midi_events():
-                deliver(bytes(data), callback, on_error)
+        for ptr, callback, on_error in self.inputs:
+            buf = get(ptr, frames)
+            n = lib.jack_midi_get_event_count(buf)
+            if n:
+                event = self._event
+                for i in range(n):
+                    if lib.jack_midi_event_get(event, buf, i):
+                        break
+                    deliver(self._ffi.buffer(event.buffer, event.size)[:], callback, on_error)
         self.cycles += 1
 
     def _shutdown(self, status, reason) -> None:
@@ -169,7 +183,7 @@ class _Client:
 
     def detach(self, table: list, port) -> None:
         with self._lock:
-            table[:] = [e for e in table if e[0] is not port]
+            table[:] = [e for e in table if e[0] != port._ptr]
         if not self.dead:
             try:
                 port.unregister()
@@ -201,7 +215,7 @@ class JackInput(InputHandle):
         self.connected_to = connect_to
         self._port = owner.register("in", port_name, connect_to)
         self.name = self._port.name
-        owner.attach(owner.inputs, (self._port, callback, on_error))
+        owner.attach(owner.inputs, (self._port._ptr, callback, on_error))
         self.closed = False
 
     def close(self) -> None:
@@ -220,7 +234,7 @@ class JackOutput(OutputHandle):
         self._port = owner.register("out", port_name, connect_to)
         self.name = self._port.name
         self._queue: collections.deque = collections.deque()
-        owner.attach(owner.outputs, (self._port, self._queue))
+        owner.attach(owner.outputs, (self._port._ptr, self._queue))
         self.closed = False
 
     def send(self, msg) -> None:
