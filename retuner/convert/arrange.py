@@ -15,7 +15,9 @@ proportion to the wishes (a one-note bass never gets as many as a part playing c
 minimums of all parts together exceed one port (16 channels minus the pass-through
 channels), the parts are split into groups that fit (first-fit, largest first) and each
 group is written to its own file, ``OUT-part1.mid``, ``OUT-part2.mid``, ...; each such file
-holds the conductor track, the percussion and the group's parts, and plays on its own. MTS
+holds the conductor track (tempo, time and key signatures) and the group's parts; the first file
+also holds the percussion (passthrough channels) and the lyrics, markers, cue points and texts, so
+that the files played together on their ports sound each drum and show each lyric once. MTS
 mode keeps notes on their own channels: one engine, no sharing needed. In MPE mode a zone
 belongs to one part: a file holds two parts, the first in the lower zone (manager channel
 1, members 2..8), the second in the upper zone (manager channel 16, members 15..9, channel

@@ -47,7 +47,7 @@ from retuner.engine.drive import Drive
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
-from retuner.smf.reader import CHANNEL, SYSEX, Song, event_seconds, merged_events, read_smf
+from retuner.smf.reader import CHANNEL, META, SYSEX, Song, event_seconds, merged_events, read_smf
 from retuner.smf.writer import TrackBytes, serialize
 
 
@@ -118,9 +118,19 @@ class _Group:
         self.channels = channels
 
 
+#: meta events a listener sees or reads rather than hears the timing of (text, lyrics, marker, cue
+#: point: Standard MIDI File 1.0, "Meta-Events"): when a file's parts are written to several files,
+#: only the first file has them, with the percussion, so that playing the files together on their
+#: ports shows each lyric and sounds each drum once; tempo, time signature, key signature, track
+#: names and System Exclusive (a synth reset each port's synth needs) go to every file
+SHOWN_ONCE = frozenset({0x01, 0x05, 0x06, 0x07})
+
+
 def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, passthrough: frozenset,
-           as_lists: bool = False) -> list[tuple[list, int]]:
-    """Feed the group's engines with the file's events on the file's clock; return output tracks."""
+           as_lists: bool = False, first: bool = True) -> list[tuple[list, int]]:
+    """Feed the group's engines with the file's events on the file's clock; return output tracks.
+    ``first``: the group's file is the first (or only) one, the one with the percussion and the
+    text meta events (:data:`SHOWN_ONCE`)."""
     ntr = len(song.tracks)
     # a plan rewrites the tracks after the drive: it gets lists; otherwise bytes as they come
     outs: list = [[] for _ in range(ntr)] if as_lists else [TrackBytes() for _ in range(ntr)]
@@ -148,6 +158,8 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
                 outs[home.get(id(e), ti)].extend((dt, to_raw(m)) for m in res)
         last_tick = tick
         if kind != CHANNEL:
+            if not first and kind == META and raw[1] in SHOWN_ONCE:
+                continue
             outs[ti].append((tick, raw))
             if kind == SYSEX and system_reset_raw(raw) is not None:
                 # the file resets the synth: each engine's set-up follows right after it
@@ -156,7 +168,8 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
             continue
         ch = raw[0] & 0x0F
         if ch in passthrough:
-            outs[ti].append((tick, raw))
+            if first:
+                outs[ti].append((tick, raw))
             continue
         e = engine_of.get(ch)
         if e is None:
@@ -247,7 +260,7 @@ def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[
         channels = {p: list(dict(cfgs[p].parts).get(p, ())) or MODES[cfgs[p].mode].part_channels(cfgs[p])
                     for p in parts}
         group = _Group(parts, engines, channels)
-        tracks = _drive(song, merged, secs, group, pas, as_lists=plan is not None)
+        tracks = _drive(song, merged, secs, group, pas, as_lists=plan is not None, first=gi == 0)
         if plan is not None:
             plan.after_drive(song, tracks, group)
         data = serialize(song.format, song.header_division, tracks)

@@ -224,6 +224,17 @@ def meta_events(path, types=("set_tempo", "marker", "lyrics")):
                   for t, m in _absolute(tr) if m.is_meta and m.type in types)
 
 
+def one_file_only(src, outs):
+    """Drums byte for byte, each event at its tick, and the markers and lyrics, in the first output
+    file only (part files played together on their ports sound each drum once); the tempo map in
+    every file, each of which plays on its own."""
+    for i, out in enumerate(outs):
+        first = i == 0
+        assert channel_events(out, DRUMS) == (channel_events(src, DRUMS) if first else [])
+        assert meta_events(out, ("marker", "lyrics")) == (meta_events(src, ("marker", "lyrics")) if first else [])
+        assert meta_events(out, ("set_tempo",)) == meta_events(src, ("set_tempo",))
+
+
 def note_ons(paths):
     """(tick, key, velocity) of every note-on of the files but the drums'."""
     return sorted((t, m.note, m.velocity) for p in paths for tr in mido.MidiFile(str(p)).tracks
@@ -367,12 +378,7 @@ def test_a_temperament_sounds_at_its_pitch_plus_the_players_wheel(piece, mode, b
         assert not ear.problems(), ear.problems()
     assert dressed == 8 * 4 + 8 * 4 + 8
     assert checked > 500 and bent > 0
-    # drums byte for byte, each event at its tick, in every file that plays them
-    for out in outs:
-        assert channel_events(out, DRUMS) == channel_events(src, DRUMS)
-    # tempo, markers and lyrics at their ticks, in every file (each file is the whole piece)
-    for out in outs:
-        assert meta_events(out) == meta_events(src)
+    one_file_only(src, outs)
     assert note_ons(outs) == note_ons([src])
 
 
@@ -412,8 +418,7 @@ def test_adaptive_keeps_every_note_at_its_tick_on_its_parts_instrument(piece, mo
         for _ in ear.ticks():
             dressed += sounds_with_its_parts_dress(ear)
         assert not ear.problems(), ear.problems()
-        assert channel_events(out, DRUMS) == channel_events(src, DRUMS)
-        assert meta_events(out) == meta_events(src)
+    one_file_only(src, outs)
     assert dressed == 8 * 4 + 8 * 4 + 8
 
 
