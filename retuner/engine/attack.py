@@ -80,16 +80,23 @@ class AttackSettle:
             out.append((n.in_key, m[1] if m is not None and m[0] is n else n.cents))
         return out
 
-    def count(self, fresh: Sequence[Note], cents: Sequence[float], stats: dict) -> None:
+    def count(self, fresh: Sequence[Note], cents: Sequence[float], stats: dict,
+              t: Optional[float] = None) -> None:
         """Count the retunes of notes within their attack (more than 0.01 c) in ``stats``:
         ``attack_retunes``, ``attack_retune_cents_total`` and ``attack_retune_cents_max``; and
         the notes whose correction within their attack (last pitch there less the pitch they
-        left with) is more than ``CORRECTED`` cents: ``attack_corrected_notes``."""
+        left with) is more than ``CORRECTED`` cents: ``attack_corrected_notes``. A note retuned
+        at the very instant it started (``t``: notes that start together, as the block chords
+        of a file do) starts with that pitch: nobody can hear it change, so it is no retune."""
         for n, c in zip(fresh, cents):
             v = self.net.get(id(n))
             if v is None or v[0] is not n:
                 v = self.net[id(n)] = [n, n.cents, 0.0]
             was = abs(v[2]) > CORRECTED
+            if t is not None and n.t_on >= t:
+                v[1], v[2] = float(c), 0.0
+                stats["attack_corrected_notes"] -= was
+                continue
             v[2] = float(c) - v[1]
             stats["attack_corrected_notes"] += (abs(v[2]) > CORRECTED) - was
             d = abs(float(c) - n.cents)

@@ -571,7 +571,7 @@ class Engine:
             if attack.held_plan and len(starts) > 1 and min(starts) >= t:
                 self._settle_held(t, out)
             if fresh:
-                attack.count(fresh, fresh_cents, self.stats)
+                attack.count(fresh, fresh_cents, self.stats, t)
                 held, held_new = fresh, fresh_cents
         else:
             self._count_held_motion(held, held_new, cause)
