@@ -15,6 +15,7 @@ from typing import Any
 
 from retuner.engine.outputs import MODES
 from retuner.commands._common import add_old_name
+from retuner.units import DURATION_HELP, seconds_of
 
 ADAPTIVE_OPTIONS = ("policy", "chord_window", "attack_time", "max_drift", "max_motion", "limit", "centre")
 
@@ -49,6 +50,17 @@ def number(text: str) -> float:
         raise argparse.ArgumentTypeError(f"expected a number or a fraction like 127/128, got {text!r}") from None
 
 
+def duration(text: str) -> float:
+    """A duration as the config file takes it: seconds, or a number with its unit ('30 ms')."""
+    v = seconds_of(text.strip())
+    if v is None:
+        try:
+            v = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{DURATION_HELP}, got {text!r}") from None
+    return float(v)
+
+
 def _byte(text: str) -> int:
     try:
         v = int(text, 0)
@@ -69,8 +81,9 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
                    help="input channels passed through untouched, e.g. drums (default 10; 'none')")
     g.add_argument("--bend-range", type=number, metavar="SEMITONES",
                    help="pitch bend range announced with RPN 0 (default 2; MPE members: 48)")
-    g.add_argument("--release-time", type=number, metavar="SECONDS",
-                   help="a channel rings this long after its last note-off (default 2)")
+    g.add_argument("--release-time", type=duration, metavar="DURATION",
+                   help="a channel rings this long after its last note-off (seconds, or with a unit "
+                        "as '500 ms'; default 2)")
     g.add_argument("--bend-scale", type=number, metavar="FACTOR",
                    help="synth correction: the synth plays a bend at FACTOR of its specified size "
                         "(e.g. 127/128 for FluidSynth)")
@@ -95,12 +108,13 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
                    help="tune every chord justly as it is played, re-centring towards 12-EDO (see --centre)")
     a.add_argument("--policy", help="how sounding notes may move: fixed-held, limited or free, "
                                     "optionally +reset (default limited+reset)")
-    a.add_argument("--attack-time", type=number, metavar="SECONDS",
+    a.add_argument("--attack-time", type=duration, metavar="DURATION",
                    help="notes sound at once; while a note is this young it is retuned as the rest "
-                        "of its chord arrives (default 0.04)")
-    a.add_argument("--chord-window", type=number, metavar="SECONDS",
+                        "of its chord arrives (seconds, or with a unit as '40 ms'; default 40 ms)")
+    a.add_argument("--chord-window", type=duration, metavar="DURATION",
                    help="instead: wait this long for the rest of a chord before sounding it "
-                        "(adds this much latency; default 0 = no window)")
+                        "(adds this much latency; seconds, or with a unit as '20 ms'; default 0 = no "
+                        "window)")
     a.add_argument("--max-drift", type=number, metavar="CENTS",
                    help="largest distance of the centre from where it is pulled to (default 4.8)")
     a.add_argument("--max-motion", type=number, metavar="CENTS", help="largest move of a held note per chord (default 6)")

@@ -11,7 +11,7 @@ from retuner.live.daemon import Daemon, setup_logging
 from retuner.errors import RetunerError
 from retuner.profiles.profile import load_profile
 from retuner.commands._common import add_control_socket, add_old_name, add_profile_dir
-from retuner.commands._engine_options import add_engine_arguments, engine_overrides, option_for_field
+from retuner.commands._engine_options import add_engine_arguments, duration, engine_overrides, option_for_field
 
 NAME = "run"
 HELP = "retune live: read a MIDI port, play the tuning on another (the daemon)"
@@ -43,8 +43,9 @@ def add_arguments(parser):
                  metavar="CH", choices=range(1, 17))
     add_control_socket(parser)
     parser.add_argument("--no-control-socket", action="store_true", help="do not open the control socket")
-    parser.add_argument("--status-interval", type=float, metavar="SECONDS",
-                        help="seconds between status lines (0: none; default 600)")
+    parser.add_argument("--status-interval", type=duration, metavar="DURATION",
+                        help="time between status lines (seconds, or with a unit as '10 min'; 0: none; "
+                             "default 10 min)")
     parser.add_argument("--log-level", choices=_config.LOG_LEVELS,
                         help="what the log shows (default info; config: log_level)")
     parser.add_argument("-v", dest="verbose", action="count", default=0,

@@ -57,6 +57,23 @@ def test_adaptive_options_need_adaptive_unless_the_config_has_it():
     assert ec.adaptive is not None and ec.adaptive.chord_window == pytest.approx(0.03)
 
 
+def test_durations_on_the_command_line_take_the_config_files_units():
+    """One rule for every duration (retuner/units.py): seconds, or a number with its unit."""
+    s = run_cmd._apply_flags(Settings(), parse("run", "--adaptive", "--attack-time", "30 ms",
+                                               "--release-time", "1.5 s", "--status-interval", "10 min"))
+    ec = engine_config(s)
+    assert ec.adaptive.attack_time == pytest.approx(0.03)
+    assert ec.release_time == pytest.approx(1.5)
+    assert s.status_interval == pytest.approx(600.0)
+    s = run_cmd._apply_flags(Settings(), parse("run", "--adaptive", "--chord-window", "0.02"))
+    assert engine_config(s).adaptive.chord_window == pytest.approx(0.02)
+    r = subprocess.run([sys.executable, "-m", "retuner", "run", "--attack-time", "30 parsecs"],
+                       capture_output=True, text=True)
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "--attack-time" in lines[0] and "'30 ms'" in lines[0]
+
+
 def test_bad_adaptive_value_names_the_option():
     with pytest.raises(RetunerError) as ei:
         build_engine_config(engine_overrides(parse("convert", "a", "-o", "b", "--adaptive", "--policy", "wobbly")))
