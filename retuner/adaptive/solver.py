@@ -76,8 +76,9 @@ for *tuning a chord* and change how drift is shed:
    Measured on the project's chorales this removes about 40 % of the motion at
    slightly lower impurity, and leaves the comma pump as it was (its steadiness
    stays 1 where it re-centres); see ``retuner bench --adaptive``.
-9. **Silence.** With "+reset" the solver forgets everything when nothing
-   sounds: the next chord is pure and exactly centred. Without it, the next
+9. **Silence.** With "+reset" the solver forgets the centre, its trend and the
+   last notes when nothing sounds: the next chord is pure and centred (exactly,
+   unless it was heard only inside a larger chord: item 10). Without it, the next
    chord is first tuned pure and centred, then moved as one block towards
    pure intervals with the notes that sounded last (``memory_weight``), as
    far as the drift limit allows: a detached passage keeps its melodic
