@@ -76,12 +76,24 @@ for *tuning a chord* and change how drift is shed:
    Measured on the project's chorales this removes about 40 % of the motion at
    slightly lower impurity, and leaves the comma pump as it was (its steadiness
    stays 1 where it re-centres); see ``retuner bench --adaptive``.
-9. **Silence.** With "+reset" the solver forgets everything when nothing
-   sounds: the next chord is pure and exactly centred. Without it, the next
+9. **Silence.** With "+reset" the solver forgets the centre, its trend and the
+   last notes when nothing sounds: the next chord is pure and centred (exactly,
+   unless it was heard only inside a larger chord: item 10). Without it, the next
    chord is first tuned pure and centred, then moved as one block towards
    pure intervals with the notes that sounded last (``memory_weight``), as
    far as the drift limit allows: a detached passage keeps its melodic
    intervals near pure and its chords exactly pure.
+
+10. **The shape of a chord heard before.** The solver remembers, for the last ``CHORDS``
+   chords it tuned (by their set of pitch classes), how far each pitch class sat from the
+   chord's centre. A chord solved with nothing held (struck from silence, or with every held
+   note left out as about to end: see :mod:`retuner.engine.attack`) is pure and centred so
+   that its notes sit where they sat around the centre of the last chord heard that holds
+   all its pitch classes (the reference itself for a chord never heard). While a chord played
+   by hand arrives note by note, its first notes then already sit where the whole chord puts
+   them, instead of at the centre of the partial chord; a chord heard before ends exactly
+   centred, and one heard only inside a larger chord sits as it sat there (within
+   ``max_drift``). "+reset" forgets the centre and the trend, not these shapes.
 
 The policy "free" is the published form (every held note its own motion
 cost, centre pulled to the reference at every event), kept for comparison.
@@ -151,6 +163,8 @@ DEFAULT_WEIGHTS: dict[int, float] = {
 POLICIES = ("fixed-held", "limited", "free")
 REFERENCES = ("edo12", "profile")
 MAX_NOTES = 16
+#: how many chords (sets of pitch classes) the solver remembers the shape of
+CHORDS = 64
 #: steadiness (0..1) from which the pure chain's drift counts as steady: re-centred within the window
 STEADY = 0.9
 
@@ -468,6 +482,9 @@ class AdaptiveSolver:
         self._step_mean = 0.0
         self._step_size = 0.0
         self._sounding = False
+        # the shapes of the latest chords: pitch classes -> each one's deviation from the
+        # chord's centre (cents), oldest first
+        self._chords: dict[frozenset, dict[int, float]] = {}
         self.held_cause = ""
         self._pair_cache = None
         self._triu: dict[int, tuple[np.ndarray, np.ndarray]] = {}
@@ -476,7 +493,7 @@ class AdaptiveSolver:
         """Remember the state before the first note of a chord that may be solved again
         (attack mode: its notes within their attack are solved again with each newcomer)."""
         self._mark = (dict(self._last), dict(self._ghosts), self._drift, self._trend,
-                      self._step_mean, self._step_size)
+                      self._step_mean, self._step_size, dict(self._chords))
 
     def rewind(self) -> None:
         """Back to the state of the last :meth:`mark`: the chord is solved again as a whole,
@@ -486,6 +503,7 @@ class AdaptiveSolver:
             self._last, self._ghosts = dict(m[0]), dict(m[1])
             self._drift, self._trend = m[2], m[3]
             self._step_mean, self._step_size = m[4], m[5]
+            self._chords = dict(m[6])
 
     @property
     def steadiness(self) -> float:
@@ -580,11 +598,21 @@ class AdaptiveSolver:
             x[:] = np.linalg.solve(A + 1e-9 * np.eye(n), b)
         return x
 
-    def _first(self, tau, W, mode, cur, nh, ng, lam, mu, ref):
+    def _first(self, tau, W, mode, cur, nh, ng, lam, mu, ref, shape=0.0):
         if mode == "free":
             return self._lsq(tau, W, "free", cur, nh, ng, lam, mu, 0.0, ref)
-        # pure against the notes that sound; from silence, centred on the reference
-        return self._lsq(tau, W, "fixed", cur, nh, ng, lam, mu if nh + ng == 0 else 0.0, 0.0, ref)
+        # pure against the notes that sound; from silence, centred on the reference, or as the
+        # chord heard before that holds these notes sat around its centre (``shape``)
+        return self._lsq(tau, W, "fixed", cur, nh, ng, lam, mu if nh + ng == 0 else 0.0, shape, ref)
+
+    def _shape(self, keys: Sequence[int]) -> float:
+        """Where the notes ``keys`` sat, on average, around the centre of the last chord heard
+        that holds all their pitch classes (cents; 0 for a chord never heard)."""
+        pcs = frozenset(k % 12 for k in keys)
+        for have, devs in reversed(self._chords.items()):
+            if pcs <= have:
+                return sum(devs[k % 12] for k in keys) / len(keys)
+        return 0.0
 
     def _targets(self, keys: np.ndarray):
         D = keys[None, :] - keys[:, None] + 127
@@ -672,7 +700,8 @@ class AdaptiveSolver:
 
         max_motion = cfg.max_motion   # held-note motion allowed at this event (limited)
         causes: list[str] = []        # why held notes move at this event (see held_cause)
-        x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
+        shape = self._shape(new) if nh + ng == 0 and not skip else 0.0
+        x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref, shape)
         # context choice among ambiguous candidates (at most two more passes)
         amb = self._ambig[D]   # the diagonal (unison) has one candidate only
         if amb.any() and (mode == "free" or amb[:, nh + ng:].any()):
@@ -699,7 +728,7 @@ class AdaptiveSolver:
                     tau = tau.copy()
                     tau[iu, ju] = vals
                     tau[ju, iu] = -vals
-                    x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref)
+                    x = self._first(tau, W, mode, cur, nh, ng, lam, mu, ref, shape)
                 return x, tau
             x, tau = refine(x, tau)
             septimal = amb & self._has7[D]
@@ -722,7 +751,7 @@ class AdaptiveSolver:
                     if not mask.any():
                         continue
                     tau7 = np.where(mask, self._tau7[D], tau)
-                    x7, tau7 = refine(self._first(tau7, W, mode, cur, nh, ng, lam, mu, ref), tau7)
+                    x7, tau7 = refine(self._first(tau7, W, mode, cur, nh, ng, lam, mu, ref, shape), tau7)
                     c7 = cost(x7, tau7)
                     if c7 < best - 1e-9:
                         x, tau, best = x7, tau7, c7
@@ -803,6 +832,18 @@ class AdaptiveSolver:
                 x[nh + ng:] -= rest * m_sound / nn
             centre = centre_of(x)
         self._drift = centre
+        if not skip:
+            # the chord's shape: each pitch class's deviation from its centre
+            dev = (x - ref).tolist()
+            if ng:
+                del dev[nh:nh + ng]
+            shape_of = {k % 12: d - centre for k, d in zip(hk + new, dev)}
+            pcs = frozenset(shape_of)
+            chords = self._chords
+            chords.pop(pcs, None)
+            chords[pcs] = shape_of
+            if len(chords) > CHORDS:
+                del chords[next(iter(chords))]
         if mode == "free":
             causes = ["free"]
         self.held_cause = "+".join(causes) if nh and np.any(np.abs(x[:nh] - cur[:nh]) > 1e-9) else ""

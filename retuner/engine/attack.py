@@ -18,6 +18,19 @@ count the chord once. Nothing waits: note-offs and pedal changes go out when the
 ``attack_time`` (seconds, default 0.04): how long a note may still be retuned. 40 ms covers
 the spread of a chord played by hand (up to 25 ms in the project's humanised material) with
 a margin, and stays within the tens of milliseconds an attack masks.
+
+Voice leading (the first guess): in legato playing each voice moves by a small step and its
+old note ends a few milliseconds after the new one starts (common practice). So a new note
+that arrives while a note of the previous chord is still held within ``VOICE_STEP``
+semitones of it is taken for that note's voice moving on: the held note is about to end, and
+the solves within the new note's attack leave it out of the context (it keeps its pitch,
+the solver does not see it), so the first guess is already the tuning the chord gets once
+that note has ended. Each new note takes one such note, the nearest first; a note the
+player let go of within the attack time counts too (its voice has already moved, and the
+new note then takes no held note in its place: the held notes near it belong to voices
+that stay); a new note as near to two held notes takes neither. A note sounding on only by
+the sustain pedal is never left out: its key is up, so no voice leading says when the pedal
+will end it.
 """
 
 from __future__ import annotations
@@ -31,6 +44,10 @@ from retuner.engine.allocator import Note
 #: cents: a note whose pitch within its attack ends further than this from the pitch it left
 #: with counts as corrected (the first guess missed)
 CORRECTED = 0.5
+
+#: semitones: a new note at most this far from a held note of the previous chord is taken for
+#: the next note of that note's voice (a step: a semitone or a whole tone)
+VOICE_STEP = 2
 
 
 class AttackSettle:
@@ -50,12 +67,57 @@ class AttackSettle:
         self.net: dict[int, list] = {}
         self.done: deque[float] = deque(maxlen=10000)
         self.cause = ""                                   # why the planned moves move
+        # voice leading: id(new note) -> (new note, the note of its voice it is taken to
+        # replace), for the notes of the chord in its attack; and the notes the player let
+        # go of lately (their voices have moved already)
+        self.claims: dict[int, tuple[Note, Note]] = {}
+        self.let_go: deque[Note] = deque(maxlen=32)
 
     def fresh(self, sounding: Sequence[Note], t: float, movable) -> list[Note]:
         """The sounding notes still within their attack (held by the player and movable
         alone by the output)."""
         lim = self.attack
         return [n for n in sounding if n.down and t - n.t_on < lim and movable(n)]
+
+    def released(self, note: Note) -> None:
+        """The player let go of ``note`` (its key is up; it may sound on by the pedal)."""
+        self.let_go.append(note)
+
+    def ending(self, held: Sequence[Note], new: Sequence[Note], arrived: Sequence[Note],
+               t: float) -> set[int]:
+        """The held notes (by id) to leave out of the solve at ``t``: those the notes in
+        their attack (``new``) are taken to replace. Each note just ``arrived`` takes the
+        nearest note within ``VOICE_STEP`` semitones, one each, among the notes past their
+        attack still held by their key and the notes let go of within the attack time (a
+        note let go of wins a tie; a tie of two held notes takes neither: which voice moved
+        is not known). Only a taken note still held by its key is left out."""
+        claims = self.claims
+        lim = self.attack
+        if arrived:
+            taken = {id(c[1]) for c in claims.values()}
+            past = [n for n in held if n.down and t - n.t_on >= lim and id(n) not in taken]
+            gone = [n for n in self.let_go
+                    if n.t_off is not None and t - n.t_off <= lim and id(n) not in taken]
+            for m in arrived:
+                near = [(abs(o.in_key - m.in_key), o) for o in gone + past
+                        if abs(o.in_key - m.in_key) <= VOICE_STEP and id(o) not in taken]
+                if not near:
+                    continue
+                d = min(x for x, _ in near)
+                near = [o for x, o in near if x == d]
+                # a note let go of at that distance wins; two held ones are a guess too far
+                o = near[0] if (len(near) == 1 or not near[0].down) else None
+                if o is not None:
+                    taken.add(id(o))
+                    claims[id(m)] = (m, o)
+        if not claims:
+            return set()
+        out = set()
+        for n in new:
+            c = claims.get(id(n))
+            if c is not None and c[0] is n and c[1].alive and c[1].down:
+                out.add(id(c[1]))
+        return out
 
     def begin(self, solver, held: Sequence[Note]) -> list[tuple[int, float]]:
         """A chord's first note: remember the solver's state and the held notes' pitches."""
@@ -65,6 +127,7 @@ class AttackSettle:
         # the notes of earlier chords are past their attack: their corrections are final
         self.done.extend(abs(v[2]) for v in self.net.values())
         self.net = {}
+        self.claims = {}
         self.mark_cents = {id(n): (n, n.cents) for n in held}
         return [(n.in_key, n.cents) for n in held]
 
@@ -125,5 +188,7 @@ class AttackSettle:
 
     def clear(self) -> None:
         self.held_plan, self.due, self.mark_cents = [], None, {}
+        self.claims = {}
+        self.let_go.clear()
         self.done.extend(abs(v[2]) for v in self.net.values())
         self.net = {}

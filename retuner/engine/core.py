@@ -380,6 +380,8 @@ class Engine:
             return
         note.down = False
         note.t_off = t
+        if self._attack is not None:
+            self._attack.released(note)
         if msg is None:
             msg = E.note_off(note.in_ch, note.in_key, 0)
         out.append(self.output.note_off(note, msg))
@@ -541,9 +543,23 @@ class Engine:
         else:
             held_in = attack.begin(solver, held)
         new_notes = fresh + pend
+        # voice leading: the held notes the new ones are taken to replace are about to end,
+        # so they stay out of the solve (they keep their pitch); see engine/attack.py
+        ending = attack.ending(held, new_notes, pend, t) if attack is not None else ()
         try:
-            held_new, new_cents = solver.solve(held=held_in, new=[n.in_key for n in new_notes],
-                                               t=t, part=new_notes[0].in_ch)
+            if ending:
+                keep = [id(n) not in ending for n in held]
+                kept, new_cents = solver.solve(held=[h for h, k in zip(held_in, keep) if k],
+                                               new=[n.in_key for n in new_notes], t=t, part=new_notes[0].in_ch)
+                kept = list(kept)
+                if len(kept) == sum(keep):
+                    it = iter(kept)
+                    held_new = [next(it) if k else n.cents for n, k in zip(held, keep)]
+                else:
+                    held_new = kept   # a short answer: caught below
+            else:
+                held_new, new_cents = solver.solve(held=held_in, new=[n.in_key for n in new_notes],
+                                                   t=t, part=new_notes[0].in_ch)
             held_new, new_cents = list(held_new), list(new_cents)
         except Exception:  # the engine must never die on a solver failure
             log.exception("adaptive solver failed: the chord keeps static pitches")
