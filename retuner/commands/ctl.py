@@ -94,7 +94,8 @@ COUNTER_WORDS = {
 }
 CONTROL_WORDS = {
     "clients": "clients now", "connections": "connections", "commands": "commands", "errors": "refused",
-    "events": "events sent", "events_dropped": "events dropped", "central_dropped": "events dropped (queue)",
+    "events": "events sent", "events_dropped": "events dropped for slow clients",
+    "central_dropped": "events dropped while the daemon's event queue was full",
     "throttled": "slow clients held back", "subscribers": "subscribers",
 }
 
