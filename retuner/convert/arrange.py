@@ -173,6 +173,13 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
             shares = tuple((p, tuple(cfgs[p].pool)) for p in g)
             one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
             groups[i] = (g, {p: one for p in g})
+    elif together:
+        # MPE: one engine for every part of every file, each part in the zone it has; output
+        # channel 16 k + c is channel c of file k
+        zones = tuple((p, 16 * i + cfgs[p].mpe_manager(), tuple(16 * i + c for c in cfgs[p].mpe_member_channels()))
+                      for i, (g, cfgs) in enumerate(groups) for p in g)
+        one = config.replace(part_zones=zones)
+        groups = [(g, {p: one for p in g}) for g, _ in groups]
     first_parts, first_cfgs = groups[0]
     for q in quiet:
         first_cfgs[q] = first_cfgs[first_parts[0]]
