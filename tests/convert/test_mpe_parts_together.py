@@ -25,6 +25,7 @@ Checks, against sources outside retuner:
 from __future__ import annotations
 
 import mido
+import pytest
 
 from retuner.adaptive.solver import AdaptiveConfig
 from retuner.convert import conversion
@@ -254,3 +255,36 @@ def test_parts_apart_keep_an_engine_each(tmp_path, monkeypatch):
     res, rep, logs = convert(tmp_path, src, "apart.mid", monkeypatch, parts_apart=True)
     assert len(logs) == 4 and not res.one_harmony and rep["parts_tuned"] == "apart"
     assert "parts_apart_why" not in rep
+
+
+@pytest.mark.parametrize("how", ["live", "lookahead"])
+def test_live_and_lookahead_play_the_mpe_parts_as_one_harmony(tmp_path, how):
+    """``--live`` (a chord window, as the daemon) and ``--lookahead`` (the plan as the solver):
+    one engine for the four parts, within 1 c of just; every note-on at its input tick."""
+    src = chorale(tmp_path / "quartet.mid")
+    acfg = AdaptiveConfig(chord_window=0.03) if how == "live" else AdaptiveConfig()
+    opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(mode="mpe", adaptive=acfg),
+                          **{how: True})
+    res = convert_file(src, tmp_path / f"{how}.mid", opts)
+    rep = report.build_report(res, opts)
+    assert res.one_harmony and len(res.outputs) == 2 and rep["parts_tuned"] == "together"
+    assert rep["impurity_cents"] <= 1.0
+    ticks_in = {}
+    tick = 0
+    for m in mido.MidiFile(src).tracks[0]:
+        tick += m.time
+        if m.type == "note_on" and m.velocity and m.channel != 9:
+            ticks_in.setdefault(m.channel, []).append(tick)
+    for o in res.outputs:
+        notes, _ = programs_per_note(o.path)
+        assert all(prog == PROGRAMS[p] for p, prog in notes)
+        tick = 0
+        ticks_out = {}
+        for m in mido.MidiFile(o.path).tracks[0]:
+            tick += m.time
+            if m.type == "note_on" and m.velocity and m.channel != 9:
+                ticks_out.setdefault(PART_OF_VELOCITY[m.velocity], []).append(tick)
+        delay = 0 if how == "lookahead" else round(0.03 * 2 * 960)      # the window, in ticks (120 bpm)
+        for p in o.parts:
+            assert len(ticks_out[p]) == len(ticks_in[p])
+            assert all(0 <= b - a <= delay for a, b in zip(ticks_in[p], ticks_out[p]))
