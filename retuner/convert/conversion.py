@@ -23,9 +23,13 @@ the target folder, then ``os.replace`` -- there is never a half-written output.
 Parts
 -----
 How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode (``--live``
-and ``--lookahead`` too) runs one engine for the parts of an output file: one solver (or the plan,
+and ``--lookahead`` too) runs one engine for the parts of an output file (in MPE mode, for the parts
+of every output file: each part in a zone of its own, two zones a file): one solver (or the plan,
 which pairs the notes of every part) tunes them together as one harmony, and each part still sounds
-only on its own channels (its program and controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
+only on its own channels (its program and controllers) with its own pedals and wheel. An engine
+that plays several files numbers channel c of its k-th file ``16 k + c``; every file is driven in
+one pass over the input and each message written to its file. Such an engine's counters go with
+the first file it plays. ``parts_apart`` runs one engine per part instead,
 as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together and share
 the output channels, each channel dressed for the part whose note it plays (its program and

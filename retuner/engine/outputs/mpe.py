@@ -11,11 +11,21 @@ sostenuto, channel pressure, program change and other controllers go to the
 manager channel. A steal of a pedalled note silences its member alone with
 all-sound-off (the pedals live on the manager).
 
+**Zones of their own.** File conversion in adaptive mode puts each part of a file in a
+zone of its own and plays them all with one engine, so one solver tunes them as one
+harmony (``EngineConfig.part_zones``: each part's manager and members). Two zones share a
+port, the lower and the upper; a third part goes to a further port: output channel
+``16 k + c`` is channel ``c`` of port ``k`` (the converter writes port k to the k-th file).
+Each part is then a pedal and controller domain of its own: its program, bank, controllers,
+pedals and channel pressure go to its zone's manager, a channel mode message (all notes off
+and the like) to its zone's channels, its notes to its zone's members; each zone follows the
+wheel rules below on its own.
+
 The player's wheel belongs to its part, and where it is sent depends on how many
 parts the zone holds (one rule, for files and live alike):
 
-* **A zone that holds one part** (a converted file gives each part a zone of its own;
-  live, while only one input channel has played a note or moved its wheel into the
+* **A zone that holds one part** (a converted file gives each part a zone of its own, with
+  an engine per part or one engine for all; live, while only one input channel has played a note or moved its wheel into the
   zone): the wheel goes on the manager channel, at the manager's range (2 semitones by
   default, a step of 0.024 c); the MPE specification makes a manager-channel bend apply
   to every note of the zone. The members' bends carry the tuning alone, so a note sounds
