@@ -47,8 +47,13 @@ GM_ON = mido.Message("sysex", data=[0x7E, 0x7F, 0x09, 0x01])      # GM System On
 HALF_MEMBER_STEP = 4800 / 16384 + 1e-9
 
 
-def chorale(path, parts=(0, 1, 2, 3), reset_at=None):
+def chorale(path, parts=(0, 1, 2, 3), reset_at=None, bass_wheel=False):
     ev = [(0.0, mido.Message("program_change", channel=p, program=PROGRAMS[p])) for p in parts]
+    if bass_wheel:
+        # the bass bends its third note up a semitone (half of the default 2-semitone wheel
+        # range: 4096 of 8192, MIDI 1.0) and back
+        ev += [(0.2 + BEAT * 2 + 0.2, mido.Message("pitchwheel", channel=3, pitch=4096)),
+               (0.2 + BEAT * 2 + 0.5, mido.Message("pitchwheel", channel=3, pitch=0))]
     notes = []
     for i, chord in enumerate(CHORDS):
         for p in parts:
@@ -288,3 +293,20 @@ def test_live_and_lookahead_play_the_mpe_parts_as_one_harmony(tmp_path, how):
         for p in o.parts:
             assert len(ticks_out[p]) == len(ticks_in[p])
             assert all(0 <= b - a <= delay for a, b in zip(ticks_in[p], ticks_out[p]))
+
+
+def test_a_parts_wheel_goes_to_its_own_zones_manager_and_is_no_tuning_motion(tmp_path):
+    """MPE specification 2018: a bend on the manager channel applies to every note of its zone. The
+    bass (part 4, the upper zone of the second file) bends with its own wheel: the bend goes to
+    that zone's manager (channel 16) alone, and the report counts it as the player's expression,
+    not as motion or drift of the tuning."""
+    src = chorale(tmp_path / "quartet.mid", bass_wheel=True)
+    res, rep, _ = convert(tmp_path, src, "wheel.mid")
+    assert res.one_harmony and [o.parts for o in res.outputs] == [[0, 1], [2, 3]]
+    wheels = [[(m.channel, m.pitch) for m in mido.MidiFile(o.path).tracks[0] if m.type == "pitchwheel"
+               and m.channel in (0, 15)] for o in res.outputs]
+    assert all(p == 0 for _, p in wheels[0])               # the first file's managers stay centred
+    assert (15, 4096) in wheels[1] and wheels[1][-1] == (15, 0) and all(c == 15 for c, p in wheels[1] if p)
+    second = rep["files"][1]
+    assert second["late_motion_cents_per_note"] < 1.0 and second["drift_max_cents"] < 6.0
+    assert rep["impurity_cents"] <= 1.0

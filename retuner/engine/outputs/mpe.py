@@ -131,6 +131,8 @@ class MPEMode(BendMode):
         for p, _, chs in config.part_zones:
             if p == part:
                 return list(chs)
+        if config.part_zones:       # a channel that plays no note of its own goes with the first zone
+            return list(config.part_zones[0][2])
         return cls.part_channels(config)
 
     @classmethod
