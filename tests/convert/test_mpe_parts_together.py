@@ -310,3 +310,17 @@ def test_a_parts_wheel_goes_to_its_own_zones_manager_and_is_no_tuning_motion(tmp
     second = rep["files"][1]
     assert second["late_motion_cents_per_note"] < 1.0 and second["drift_max_cents"] < 6.0
     assert rep["impurity_cents"] <= 1.0
+
+
+def test_three_parts_the_third_alone_in_the_second_file_still_one_harmony(tmp_path, monkeypatch):
+    src = chorale(tmp_path / "trio.mid", parts=(0, 1, 3))
+    res, rep, logs = convert(tmp_path, src, "trio-out.mid", monkeypatch)
+    assert len(logs) == 1 and res.one_harmony and [o.parts for o in res.outputs] == [[0, 1], [3]]
+    sent, synths = replay(logs[0], 2)
+    for k, o in enumerate(res.outputs):
+        assert [bytes(m.bytes()) for m in file_messages(o.path)[0]] == [bytes(m.bytes()) for m in sent[k]]
+    # the second file: the bass alone in a lower zone (members 2..8)
+    assert [c for c in range(16) if synths[1].manager_of[c] == 0] == list(range(0, 8))
+    assert not any(synths[1].manager_of[c] == 15 for c in range(16))
+    assert set(res.outputs[1].channels[3]) <= set(range(1, 8))
+    assert rep["impurity_cents"] <= 1.0
