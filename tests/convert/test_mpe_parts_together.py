@@ -19,7 +19,7 @@ Checks, against sources outside retuner:
 * impurity of the whole harmony (retuner.measure.metrics through the report: consonant pairs
   against 6/5, 5/4, 4/3, 3/2, 8/5, 5/3 and octaves) at most 1 c, against 12-EDO's several cents
   (its thirds and sixths lie 14 to 16 c from just: common practice) and ``--parts-apart``;
-* drums byte for byte (MIDI 1.0: channel 10 passes through).
+* drums byte for byte (MIDI 1.0: channel 10 passes through), in the first file only.
 """
 
 from __future__ import annotations
@@ -199,8 +199,8 @@ def test_four_parts_in_mpe_are_one_harmony_each_in_a_zone_of_its_own(tmp_path, m
     for k, o in enumerate(res.outputs):
         mine, drums = file_messages(o.path)
         assert [bytes(m.bytes()) for m in mine] == [bytes(m.bytes()) for m in sent[k]]
-        # drums byte for byte, at their ticks, in every file
-        assert drums == file_messages(src)[1] and drums
+        # drums byte for byte, at their ticks, in the first file only (the files sound together)
+        assert drums == (file_messages(src)[1] if k == 0 else []) and file_messages(src)[1]
         notes, synth = programs_per_note(o.path)
         assert sorted({p for p, _ in notes}) == o.parts
         assert len(notes) == len(CHORDS) * 2
