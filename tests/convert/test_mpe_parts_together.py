@@ -24,6 +24,9 @@ Checks, against sources outside retuner:
 
 from __future__ import annotations
 
+import subprocess
+import sys
+
 import mido
 import pytest
 
@@ -324,3 +327,15 @@ def test_three_parts_the_third_alone_in_the_second_file_still_one_harmony(tmp_pa
     assert not any(synths[1].manager_of[c] == 15 for c in range(16))
     assert set(res.outputs[1].channels[3]) <= set(range(1, 8))
     assert rep["impurity_cents"] <= 1.0
+
+
+def test_the_command_line_says_the_files_are_one_harmony(tmp_path):
+    src = chorale(tmp_path / "quartet.mid")
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", str(src), "-o", str(tmp_path / "o.mid"),
+                        "--mode", "mpe", "--adaptive", "-q"], capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+    assert "o-part1.mid, o-part2.mid" in r.stderr and "tuned as one harmony" in r.stderr
+    r = subprocess.run([sys.executable, "-m", "retuner", "convert", str(src), "-o", str(tmp_path / "a.mid"),
+                        "--mode", "mpe", "--adaptive", "--parts-apart", "-q"], capture_output=True, text=True,
+                       timeout=120)
+    assert r.returncode == 0 and "a-part1.mid" in r.stderr and "one harmony" not in r.stderr
