@@ -16,7 +16,16 @@ default 0: GM2 defaults, from memory; RP-015 resets modulation to 0 and expressi
 A GM System On (F0 7E <device> 09 01 F7, General MIDI System Level 1; GM2 System On ends
 09 03, General MIDI 2; bytes from memory) puts the synth back at its power-up state: every
 note silenced, bend range 2 semitones, wheel centred, pedals up, RPN null, programs 0,
-controllers at their defaults. A set-up sent before it is lost.
+controllers at their defaults, no MPE zone. A set-up sent before it is lost.
+
+MPE (MPE specification, The MIDI Association, 2018): given ``mpe_manager``, every other channel
+is a member of that manager's zone. With ``zones=True`` the model learns the zones from the MPE
+Configuration Message instead, as an MPE synth does: RPN 6 on channel 1 with data entry N makes
+a lower zone (manager 1, members 2..N+1), on channel 16 an upper zone (manager 16, members
+15..16-N), N = 0 turns the zone off, a zone configured later takes the channels it overlaps from
+the other, and the message sets the members' pitch bend range to 48 semitones and the manager's
+to 2 (from memory). A member's note then sounds with its zone manager's program (messages on the
+manager channel apply to the whole zone), the manager's bend and pedals.
 
 :class:`MtsSynth`: a synth's key table under the MIDI Tuning Standard.
 """
@@ -43,7 +52,8 @@ class Voice:
 class SynthModel:
     """What a synth does with a stream of messages (see the module docstring)."""
 
-    def __init__(self, mpe_manager=None):
+    def __init__(self, mpe_manager=None, zones=False):
+        self.zones = zones
         self.mpe_manager = mpe_manager
         self.messages = 0
         self.problems: list[str] = []
@@ -51,6 +61,7 @@ class SynthModel:
 
     def power_up(self):
         """The state after power-up or a GM System On."""
+        self.manager_of: list = [None] * 16     # zones=True: each channel's zone manager
         self.bend = [0] * 16                   # signed, as mido's 'pitch'
         self.range = [200.0] * 16              # cents; MIDI 1.0 default sensitivity: 2 semitones
         self.rpn = [(127, 127)] * 16
@@ -86,7 +97,9 @@ class SynthModel:
             for v in self.voices[c]:
                 if v.key == m.note and v.down:
                     self.problems.append(f"key {m.note} struck twice on channel {c}")
-            v = Voice(m.note, tag, m.velocity, self.program[c])
+            mgr = self._manager(c)
+            v = Voice(m.note, tag, m.velocity,
+                      self.program[mgr] if self.zones and mgr is not None and mgr != c else self.program[c])
             self.voices[c].append(v)
             self.last_on.append((c, v))
         elif m.type in ("note_on", "note_off"):
@@ -111,6 +124,8 @@ class SynthModel:
                 self.rpn[c] = (val, self.rpn[c][1])
             elif cc == 100:
                 self.rpn[c] = (self.rpn[c][0], val)
+            elif cc == 6 and self.rpn[c] == (0, 6) and self.zones and c in (0, 15):
+                self._configure_zone(c, val)
             elif cc == 6 and self.rpn[c] == (0, 0):
                 self.range[c] = val * 100.0 + self.range[c] % 100
             elif cc == 38 and self.rpn[c] == (0, 0):
@@ -121,7 +136,7 @@ class SynthModel:
             elif cc == 66:
                 on = val >= 64
                 if on and not self.sostenuto[c]:
-                    chans = range(16) if c == self.mpe_manager else [c]
+                    chans = [ch for ch in range(16) if self._manager(ch) == c] if self._manager(c) == c else [c]
                     for ch in chans:
                         for v in self.voices[ch]:
                             if v.down:
@@ -145,10 +160,29 @@ class SynthModel:
                     v.sost = False
                 self.rpn[c] = (127, 127)
 
+    def _manager(self, c):
+        """The manager of channel ``c``'s zone (None: no zone)."""
+        if self.mpe_manager is not None:
+            return self.mpe_manager
+        return self.manager_of[c] if self.zones else None
+
+    def _configure_zone(self, manager, n):
+        """The MPE Configuration Message on ``manager`` (0 or 15) with ``n`` members."""
+        for ch in range(16):
+            if self.manager_of[ch] == manager:
+                self.manager_of[ch] = None
+        if n:
+            members = range(1, 1 + n) if manager == 0 else range(14, 14 - n, -1)
+            for ch in members:
+                self.manager_of[ch] = manager
+                self.range[ch] = 4800.0
+            self.manager_of[manager] = manager
+            self.range[manager] = 200.0
+
     def _pedals(self, c):
         """(sustain, sostenuto) acting on channel c. MPE specification (The MIDI
         Association, 2018): pedals on the manager channel act on the whole zone."""
-        m = self.mpe_manager
+        m = self._manager(c)
         if m is not None and c != m:
             return self.sustain[c] or self.sustain[m], self.sostenuto[c] or self.sostenuto[m]
         return self.sustain[c], self.sostenuto[c]
@@ -169,8 +203,8 @@ class SynthModel:
 
     def pitch(self, c, v) -> float:
         p = v.key * 100.0 + self.bend[c] / 8192.0 * self.range[c]
-        if self.mpe_manager is not None:
-            m = self.mpe_manager
+        m = self._manager(c)
+        if m is not None and (self.mpe_manager is not None or m != c):
             p += self.bend[m] / 8192.0 * self.range[m]
         return p
 

@@ -123,7 +123,9 @@ def run(args) -> int:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
         why = ("in MPE mode a port holds two parts (one per zone)" if MODES[opts.config.mode].zone_per_part
                else "the parts need more channels than the pool has")
-        print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own",
+        together = (", the parts of all of them tuned as one harmony: play them together, a port each"
+                    if res.one_harmony else "")
+        print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own{together}",
               file=sys.stderr)
     if not (args.report or args.plot or not args.quiet):
         return 0      # -q and nothing asked for: the measures are not computed at all

@@ -22,7 +22,10 @@ mode keeps notes on their own channels: one engine, no sharing needed. In MPE mo
 belongs to one part: a file holds two parts, the first in the lower zone (manager channel
 1, members 2..8), the second in the upper zone (manager channel 16, members 15..9, channel
 10 left to percussion); a third part starts the next file. A single part keeps the whole
-configured zone.
+configured zone. In adaptive mode (``together``) one engine plays every part of every file,
+each in its zone (``EngineConfig.part_zones``), so one solver tunes them as one harmony; its
+output channel ``16 k + c`` is channel ``c`` of the k-th file (the converter writes each
+message to its file). Static tunings and ``--parts-apart`` keep an engine per part.
 """
 
 from __future__ import annotations
@@ -148,9 +151,11 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     """Share the output channels among the parts (see the module docstring).
 
     Returns groups, one per output file: (parts, {part: engine config}). ``together``
-    (adaptive mode, pool): the parts of a group keep their own channels but share one
-    engine config (``parts`` lists each part's channels), so one engine and one solver tune
-    them as one harmony.
+    (adaptive mode): in pool mode the parts of a group keep their own channels but share one
+    engine config (``parts`` lists each part's channels); in MPE mode every part of every
+    group shares one engine config (``part_zones`` gives each part its zone, the k-th group's
+    channels numbered ``16 k + c``). Parts given the very same config object are played by
+    one engine, so one solver tunes them as one harmony.
     """
     pas = frozenset(config.passthrough)
     all_parts = song_parts(merged, pas)
@@ -173,6 +178,13 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
             shares = tuple((p, tuple(cfgs[p].pool)) for p in g)
             one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
             groups[i] = (g, {p: one for p in g})
+    elif together:
+        # MPE: one engine for every part of every file, each part in the zone it has; output
+        # channel 16 k + c is channel c of file k
+        zones = tuple((p, 16 * i + cfgs[p].mpe_manager(), tuple(16 * i + c for c in cfgs[p].mpe_member_channels()))
+                      for i, (g, cfgs) in enumerate(groups) for p in g)
+        one = config.replace(part_zones=zones)
+        groups = [(g, {p: one for p in g}) for g, _ in groups]
     first_parts, first_cfgs = groups[0]
     for q in quiet:
         first_cfgs[q] = first_cfgs[first_parts[0]]

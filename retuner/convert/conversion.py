@@ -23,9 +23,13 @@ the target folder, then ``os.replace`` -- there is never a half-written output.
 Parts
 -----
 How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode (``--live``
-and ``--lookahead`` too) runs one engine for the parts of an output file: one solver (or the plan,
+and ``--lookahead`` too) runs one engine for the parts of an output file (in MPE mode, for the parts
+of every output file: each part in a zone of its own, two zones a file): one solver (or the plan,
 which pairs the notes of every part) tunes them together as one harmony, and each part still sounds
-only on its own channels (its program and controllers) with its own pedals and wheel. ``parts_apart`` runs one engine per part instead,
+only on its own channels (its program and controllers) with its own pedals and wheel. An engine
+that plays several files numbers channel c of its k-th file ``16 k + c``; every file is driven in
+one pass over the input and each message written to its file. Such an engine's counters go with
+the first file it plays. ``parts_apart`` runs one engine per part instead,
 as a daemon per part would: each part is tuned against itself. ``--merge-parts`` runs one engine with one pool for all parts instead, exactly
 as the daemon treats a multi-channel input: the parts are then tuned together and share
 the output channels, each channel dressed for the part whose note it plays (its program and
@@ -44,6 +48,7 @@ from retuner.midi.resets import system_reset_raw
 from retuner.convert.arrange import plan_groups, split_name
 from retuner.engine.core import Engine, EngineConfig
 from retuner.engine.drive import Drive
+from retuner.midi import encode as E
 from retuner.errors import RetunerError
 from retuner.outfile import write_atomic
 from retuner.smf.messages import message_to_raw, output_stream, raw_to_message
@@ -78,6 +83,9 @@ class Output:
     wheel_channels: Optional[dict] = None   # part -> the output channels its wheel was sent on
     steals_why: str = ""                # why steals cut notes short and what avoids it ("" if none did)
     engines: int = 1                    # engines that played this file's parts (1: one harmony)
+    # which engine of the conversion played them (-1: several): files with the same number were
+    # tuned as one harmony, by one engine whose counters (``stats``) go with the first of them
+    harmony: int = 0
 
 
 @dataclass
@@ -90,9 +98,9 @@ class ConvertResult:
 
     @property
     def one_harmony(self) -> bool:
-        """Did one engine (one solver) play every part? Parts in other files, or in MPE zones of
-        their own, are each tuned against themselves."""
-        return len(self.outputs) == 1 and self.outputs[0].engines == 1
+        """Did one engine (one solver) play every part, in one file or several? Parts played by
+        engines of their own are each tuned against themselves."""
+        return all(o.engines == 1 for o in self.outputs) and len({o.harmony for o in self.outputs}) == 1
 
     @property
     def stats(self) -> dict:
@@ -126,28 +134,57 @@ class _Group:
 SHOWN_ONCE = frozenset({0x01, 0x05, 0x06, 0x07})
 
 
-def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, passthrough: frozenset,
-           as_lists: bool = False, first: bool = True) -> list[tuple[list, int]]:
-    """Feed the group's engines with the file's events on the file's clock; return output tracks.
-    ``first``: the group's file is the first (or only) one, the one with the percussion and the
-    text meta events (:data:`SHOWN_ONCE`)."""
+def _drive(song: Song, merged: Sequence, secs: Sequence[float], groups: Sequence[_Group], passthrough: frozenset,
+           as_lists: bool = False) -> list[list[tuple[list, int]]]:
+    """Feed the engines of the output files ``groups`` with the file's events on the file's
+    clock; return the output tracks of each file. An engine may play the parts of several
+    files: its output channel 16 k + c is channel c of the k-th file it plays. The first file
+    holds the percussion and the text meta events (:data:`SHOWN_ONCE`)."""
     ntr = len(song.tracks)
     # a plan rewrites the tracks after the drive: it gets lists; otherwise bytes as they come
-    outs: list = [[] for _ in range(ntr)] if as_lists else [TrackBytes() for _ in range(ntr)]
+    outs: list = [[[] for _ in range(ntr)] if as_lists else [TrackBytes() for _ in range(ntr)] for _ in groups]
     tm = song.tempo_map
-    engine_of = group.engines                           # part -> engine
-    engines = list({id(e): e for e in engine_of.values()}.values())
-    home: dict[int, int] = {}                           # id(engine) -> track of its first event
+    engine_of: dict[int, Any] = {}                      # part -> engine
+    file_of: dict[int, int] = {}                        # part -> the file it is written to
+    files_of: dict[int, list] = {}                      # id(engine) -> the files it plays, in order
+    engines: list = []
+    for gi, g in enumerate(groups):
+        for p in g.parts:
+            e = g.engines[p]
+            engine_of[p] = e
+            file_of[p] = gi
+            fs = files_of.setdefault(id(e), [])
+            if not fs:
+                engines.append(e)
+            if gi not in fs:
+                fs.append(gi)
+    home: dict = {}                                     # (id(engine), file) -> track of its first event
     for tick, ti, kind, raw in merged:
         if kind == CHANNEL:
-            e = engine_of.get(raw[0] & 0x0F)
-            if e is not None and id(e) not in home:
-                home[id(e)] = ti
+            p = raw[0] & 0x0F
+            e = engine_of.get(p)
+            if e is not None:
+                home.setdefault((id(e), file_of[p]), ti)
     to_raw = message_to_raw
+
+    def route(e, res, tick, ti=None):
+        """Write engine ``e``'s output ``res`` at ``tick``: in track ``ti`` (None: the engine's
+        home track in each file)."""
+        fs = files_of[id(e)]
+        if len(fs) == 1:
+            f = fs[0]
+            outs[f][home.get((id(e), f), 0) if ti is None else ti].extend((tick, to_raw(m)) for m in res)
+            return
+        for m in res:
+            c = getattr(m, "channel", 0)
+            f = fs[c >> 4]
+            if c > 15:
+                m = E.with_channel(m, c & 15)
+            outs[f][home.get((id(e), f), 0) if ti is None else ti].append((tick, to_raw(m)))
+
     drives = {id(e): Drive(e) for e in engines}
     for e in engines:
-        ti = home.get(id(e), 0)
-        outs[ti].extend((0, to_raw(m)) for m in drives[id(e)].start(0.0))
+        route(e, drives[id(e)].start(0.0), 0)
     timed = [(e, drives[id(e)]) for e in engines if e.adaptive]   # only adaptive engines have deadlines
     last_tick = 0
     for idx, (tick, ti, kind, raw) in enumerate(merged):
@@ -155,42 +192,40 @@ def _drive(song: Song, merged: Sequence, secs: Sequence[float], group: _Group, p
         for e, dr in timed:
             for d, res in dr.due(t):
                 dt = min(max(int(round(tm.tick(d))), last_tick), tick)
-                outs[home.get(id(e), ti)].extend((dt, to_raw(m)) for m in res)
+                route(e, res, dt)
         last_tick = tick
         if kind != CHANNEL:
-            if not first and kind == META and raw[1] in SHOWN_ONCE:
-                continue
-            outs[ti].append((tick, raw))
+            for fi, f in enumerate(outs):
+                if fi and kind == META and raw[1] in SHOWN_ONCE:
+                    continue
+                f[ti].append((tick, raw))
             if kind == SYSEX and system_reset_raw(raw) is not None:
                 # the file resets the synth: each engine's set-up follows right after it
                 for e in engines:
-                    outs[ti].extend((tick, to_raw(m)) for m in e.synth_reset(t))
+                    route(e, e.synth_reset(t), tick, ti)
             continue
         ch = raw[0] & 0x0F
         if ch in passthrough:
-            if first:
-                outs[ti].append((tick, raw))
+            outs[0][ti].append((tick, raw))
             continue
         e = engine_of.get(ch)
         if e is None:
-            continue  # a part written to another file
-        msg = raw_to_message(raw)
-        res = e.feed(t, msg)
+            continue
+        res = e.feed(t, raw_to_message(raw))
         if res:
-            out = outs[ti]
-            for m in res:
-                out.append((tick, to_raw(m)))
+            route(e, res, tick, ti)
     # timers after the last event (chord windows still open)
     for e, dr in timed:
         for d, res in dr.finish():
-            dt = max(int(round(tm.tick(d))), last_tick)
-            outs[home.get(id(e), 0)].extend((dt, to_raw(m)) for m in res)
+            route(e, res, max(int(round(tm.tick(d))), last_tick))
     result = []
-    for ti, tr in enumerate(song.tracks):
-        evs = outs[ti]
-        last = evs.last if isinstance(evs, TrackBytes) else (evs[-1][0] if evs else 0)
-        end = max(tr.end_tick, last)
-        result.append((evs, end))
+    for f in outs:
+        tracks = []
+        for ti, tr in enumerate(song.tracks):
+            evs = f[ti]
+            last = evs.last if isinstance(evs, TrackBytes) else (evs[-1][0] if evs else 0)
+            tracks.append((evs, max(tr.end_tick, last)))
+        result.append(tracks)
     return result
 
 
@@ -244,36 +279,44 @@ def convert_song(song: Song, out_path: str, opts: ConvertOptions, progress=None)
 
 def _render(song, merged, secs, groups, tuning, config, out_path, plan) -> list[Output]:
     pas = frozenset(config.passthrough)
-    outputs = []
     split = len(groups) > 1
-    for gi, (parts, cfgs) in enumerate(groups):
+    by_cfg: dict[int, Any] = {}          # parts given the very same config share one engine
+    files = []
+    for parts, cfgs in groups:
         engines = {}
-        by_cfg: dict[int, Any] = {}      # parts given the very same config share one engine
         for p in parts:
             cfg = cfgs[p]
             e = by_cfg.get(id(cfg))
             if e is None:
-                e = _make_engine(tuning, cfg, plan)
-                by_cfg[id(cfg)] = e
+                e = by_cfg[id(cfg)] = _make_engine(tuning, cfg, plan)
             engines[p] = e
-        # parts tuned together each sound on their own share of the pool (config.parts)
-        channels = {p: list(dict(cfgs[p].parts).get(p, ())) or MODES[cfgs[p].mode].part_channels(cfgs[p])
-                    for p in parts}
-        group = _Group(parts, engines, channels)
-        tracks = _drive(song, merged, secs, group, pas, as_lists=plan is not None, first=gi == 0)
+        # parts tuned together each sound on their own share of the pool or their own zone; an
+        # engine playing several files numbers the channels of its k-th file 16 k + c
+        channels = {p: MODES[cfgs[p].mode].channels_of_part(cfgs[p], p) for p in parts}
+        files.append(_Group(parts, engines, channels))
+    drives = _drive(song, merged, secs, files, pas, as_lists=plan is not None)
+    number = {id(e): i for i, e in enumerate(by_cfg.values())}      # an engine's number in this conversion
+    counted: set = set()                 # an engine's counters go with the first file it plays
+    outputs = []
+    for gi, (group, tracks) in enumerate(zip(files, drives)):
+        parts, engines = group.parts, group.engines
         if plan is not None:
             plan.after_drive(song, tracks, group)
         data = serialize(song.format, song.header_division, tracks)
-        stats: dict = {}
         distinct = list({id(e): e for e in engines.values()}.values())
-        for e in distinct:
+        mine = [e for e in distinct if id(e) not in counted]
+        counted |= {id(e) for e in mine}
+        stats: dict = {}
+        for e in mine:
             for k, v in e.stats.items():
                 stats[k] = stats.get(k, 0) + v
         path = split_name(out_path, gi + 1) if split else str(out_path)
-        wheel_channels = {p: engines[p].output.wheel_channels(channels[p]) for p in parts}
+        wheel_channels = {p: [c & 15 for c in engines[p].output.wheel_channels(group.channels[p])] for p in parts}
+        channels = {p: [c & 15 for c in chans] for p, chans in group.channels.items()}
+        harmony = number[id(distinct[0])] if len(distinct) == 1 else -1
         outputs.append(Output(path, parts, channels, data, stats,
-                              steals_why=_steals_why(distinct), engines=len(distinct),
-                              wheel_channels=wheel_channels))
+                              steals_why=_steals_why(mine) if mine else "", engines=len(distinct),
+                              wheel_channels=wheel_channels, harmony=harmony))
     return outputs
 
 

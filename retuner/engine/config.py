@@ -36,6 +36,11 @@ class EngineConfig:
     # sounds only on its own pool channels (its program and controllers) and is a pedal domain
     # of its own; empty: the pool is one instrument. Set by file conversion, not a user setting
     parts: tuple = dataclasses.field(default=(), metadata={"user_setting": False})
+    # parts of a file tuned together in MPE: ((input channel, manager, (member channels, ...)), ...);
+    # each part in a zone of its own (its program, controllers, pedals and wheel on the manager, its
+    # notes on the members) and a pedal domain of its own. Output channel 16 * k + c is channel c of
+    # the k-th output file (a port holds two zones). Set by file conversion, not a user setting
+    part_zones: tuple = dataclasses.field(default=(), metadata={"user_setting": False})
     # MPE
     mpe_zone: str = "lower"                  # lower (manager channel 1) | upper (manager 16)
     mpe_members: Optional[int] = None        # member channels in the zone; None: up to the first passthrough channel
@@ -58,6 +63,7 @@ class EngineConfig:
         if isinstance(self.parts, dict):
             self.parts = tuple(sorted(self.parts.items()))
         self.parts = tuple((int(p), tuple(chs)) for p, chs in self.parts)
+        self.part_zones = tuple((int(p), int(m), tuple(chs)) for p, m, chs in self.part_zones)
 
     def validate(self) -> "EngineConfig":
         def bad(msg: str, fld: str) -> RetunerError:
@@ -103,6 +109,14 @@ class EngineConfig:
             if not 0 <= p <= 15 or not chs or not set(chs) <= set(self.pool) or seen & set(chs):
                 raise bad(f"part {p + 1}: its channels must be pool channels no other part has", "parts")
             seen |= set(chs)
+        seen = set()
+        for p, manager, chs in self.part_zones:
+            port = manager // 16
+            if (not 0 <= p <= 15 or manager < 0 or manager % 16 not in (0, 15) or not 1 <= len(chs) <= 15
+                    or any(c // 16 != port or c == manager for c in chs) or seen & {manager, *chs}):
+                raise bad(f"part {p + 1}: its zone needs a manager channel (1 or 16) and member channels "
+                          f"of the same port that no other zone has", "part_zones")
+            seen |= {manager, *chs}
         mode.check(self)
         return self
 

@@ -246,9 +246,18 @@ def bend_range_rpn(channel: int, range_cents: float, whole_semitones: bool = Fal
     """RPN 0 (pitch bend sensitivity) announcing ``range_cents``: semitones in
     data entry MSB (CC6), cents in data entry LSB (CC38) unless
     ``whole_semitones`` (for synths that ignore the cents part; the range is then
-    whole semitones and CC38 is left out)."""
+    whole semitones and CC38 is left out). ``channel`` may name a channel of a
+    further port (see :func:`on_port`)."""
     semis, cents = split_range(range_cents, whole_semitones)
-    return rpn(channel, RPN_PITCH_BEND_SENSITIVITY, semis, None if whole_semitones else cents)
+    return on_port(rpn(channel % 16, RPN_PITCH_BEND_SENSITIVITY, semis, None if whole_semitones else cents), channel)
+
+
+def on_port(msgs: list[Message], channel: int) -> list[Message]:
+    """Messages written for channel ``channel % 16`` moved to the port of ``channel``: an
+    engine whose output channels span several ports (file conversion: one port per output
+    file) numbers channel c of port k ``16 k + c``."""
+    base = channel - channel % 16
+    return [with_channel(m, m.channel + base) for m in msgs] if base else msgs
 
 
 def split_range(range_cents: float, whole_semitones: bool = False) -> tuple[int, int]:
@@ -264,13 +273,13 @@ def split_range(range_cents: float, whole_semitones: bool = False) -> tuple[int,
 
 def mpe_configuration(manager: int, members: int) -> list[Message]:
     """MPE Configuration Message: RPN 6 on the manager channel (0 = lower zone,
-    15 = upper zone), data entry MSB = number of member channels (0 turns the
+    15 = upper zone, of any port: see :func:`on_port`), data entry MSB = number of member channels (0 turns the
     zone off). MPE specification (The MIDI Association, 2018)."""
-    if manager not in (0, 15):
+    if manager < 0 or manager % 16 not in (0, 15):
         raise ValueError("an MPE manager channel is channel 1 or 16")
     if not (0 <= members <= 15):
         raise ValueError("an MPE zone has 0..15 member channels")
-    return rpn(manager, RPN_MPE_CONFIGURATION, members)
+    return on_port(rpn(manager % 16, RPN_MPE_CONFIGURATION, members), manager)
 
 
 # ---------------------------------------------------------------------------

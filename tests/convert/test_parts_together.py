@@ -16,6 +16,7 @@ from retuner.convert.conversion import ConvertOptions, convert_file
 from retuner.engine.core import EngineConfig
 from retuner.measure import report
 from retuner.pitch.tuning import Tuning
+from data import midigen
 from synth import note_events, write_midi
 
 PROGRAMS = {0: 52, 1: 53, 2: 68, 3: 70}
@@ -78,23 +79,22 @@ def test_parts_apart_are_each_tuned_alone(tmp_path):
 
 
 def test_the_summary_says_apart_when_engines_of_their_own_played_the_parts(tmp_path):
-    """MPE gives each part a zone and an engine of its own (two zones a port, so four parts
-    make two files): asked for one harmony, the summary must not claim it; it says why and
-    what would keep the parts together. The impurity tells the truth the same way: near
-    12-EDO's, as apart (a chorale whose voices are each a melody)."""
-    src = chorale(tmp_path / "chorale.mid")
-    opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(mode="mpe", adaptive=AdaptiveConfig()))
-    res = convert_file(src, tmp_path / "mpe.mid", opts)
+    """Pool mode splits parts that need more channels than one port has (three parts of
+    8-note chords) into files with an engine each: asked for one harmony, the summary must not
+    claim it; it says why and what would keep the parts together."""
+    src = tmp_path / "wide.mid"
+    midigen.wide_arrangement(src)
+    opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(adaptive=AdaptiveConfig()))
+    res = convert_file(src, tmp_path / "pool.mid", opts)
     rep = report.build_report(res, opts)
-    assert not res.one_harmony and len(res.outputs) == 2
+    assert not res.one_harmony and len(res.outputs) > 1
     assert rep["parts_tuned"] == "apart"
-    assert "zone and an engine of its own" in rep["parts_apart_why"] and "pool mode" in rep["parts_apart_why"]
+    assert "more channels than one port" in rep["parts_apart_why"] and "--merge-parts" in rep["parts_apart_why"]
     text = report.text_summary(rep)
     assert "parts tuned apart" in text and "parts tuned together" not in text
-    # pool mode, the same piece: one engine, one harmony
+    # the same piece in one file of the chorale: one engine, one harmony
     _, pool = convert(tmp_path, apart=False)
     assert pool["parts_tuned"] == "together" and "parts_apart_why" not in pool
-    assert pool["impurity_cents"] < 1.0 < min(f["impurity_cents"] for f in rep["files"])
 
 
 def test_merged_parts_are_said_to_share_the_channels(tmp_path):

@@ -390,11 +390,7 @@ def harmony(res, opts):
     return imp, drift["max"]
 
 
-MPE_APART = ("MPE gives each part of a file a zone and an engine of its own, so the parts are tuned "
-             "apart, not as one harmony (being changed on main)")
-
-
-@pytest.mark.parametrize("mode", ["pool", pytest.param("mpe", marks=pytest.mark.xfail(strict=True, reason=MPE_APART))])
+@pytest.mark.parametrize("mode", ["pool", "mpe"])
 def test_adaptive_tunes_the_parts_as_one_harmony(piece, mode):
     res, opts, _ = convert(piece, f"adaptive-{mode}-harmony", Tuning.equal12(), mode=mode,
                               adaptive=AdaptiveConfig())

@@ -86,6 +86,12 @@ class OutputMode(abc.ABC):
         """The output channels a file part converted with ``config`` may use."""
 
     @classmethod
+    def channels_of_part(cls, config: Any, part: int) -> list[int]:
+        """The output channels the notes of input channel ``part`` use with ``config`` (its
+        share when the parts of a file are tuned together, else :meth:`part_channels`)."""
+        return list(dict(config.parts).get(part, ())) or cls.part_channels(config)
+
+    @classmethod
     def without_passthrough(cls, config: Any) -> Any:
         """``config`` for a file with no events on the passthrough channels (the same
         object when nothing changes)."""

@@ -70,7 +70,9 @@ class BendMode(OutputMode):
         self.scale = s.bend_scale
         self.share = s.share_channels
         self.table = self.pool = Pool(s.channels, s.release_time)
-        self.sent: dict[int, Optional[int]] = {c: None for c in range(16)}
+        # what was last sent on each output channel (channel 16 k + c is channel c of port k)
+        self.ports = max(s.channels, default=0) // 16 + 1
+        self.sent: dict[int, Optional[int]] = {c: None for c in range(16 * self.ports)}
         # the player's wheel in output bend steps, per input channel: added to the bend of the
         # output channels whose notes came from that input channel (``owner``)
         self.wheel_units: dict[int, int] = {}
@@ -300,7 +302,7 @@ class BendMode(OutputMode):
                 self.pool.bend[c] = E.BEND_CENTRE
 
     def output_lost(self) -> None:
-        self.sent = {c: None for c in range(16)}
+        self.sent = {c: None for c in range(16 * self.ports)}
 
     # ------------------------------------------------------------------ steals explained
     #: what a steal takes, in the words of the line that explains steals
@@ -319,8 +321,12 @@ class BendMode(OutputMode):
             return []
         return ["sharing channels among notes of one bend (engine.share_channels: true)"]
 
+    def steal_channels(self) -> int:
+        """The channels a note may take (the number the line that explains steals gives)."""
+        return len(self.pool.channels)
+
     def why_steals(self, config: Any, shares_port: bool = False) -> str:
-        k = len(self.pool.channels)
+        k = self.steal_channels()
         cure = self.more_channels(config, shares_port) + self.sharing(config)
         # the release time is no remedy: a ringing channel is always taken before a sounding
         # note is cut (the allocator's rules)

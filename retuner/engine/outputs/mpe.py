@@ -11,11 +11,21 @@ sostenuto, channel pressure, program change and other controllers go to the
 manager channel. A steal of a pedalled note silences its member alone with
 all-sound-off (the pedals live on the manager).
 
+**Zones of their own.** File conversion in adaptive mode puts each part of a file in a
+zone of its own and plays them all with one engine, so one solver tunes them as one
+harmony (``EngineConfig.part_zones``: each part's manager and members). Two zones share a
+port, the lower and the upper; a third part goes to a further port: output channel
+``16 k + c`` is channel ``c`` of port ``k`` (the converter writes port k to the k-th file).
+Each part is then a pedal and controller domain of its own: its program, bank, controllers,
+pedals and channel pressure go to its zone's manager, a channel mode message (all notes off
+and the like) to its zone's channels, its notes to its zone's members; each zone follows the
+wheel rules below on its own.
+
 The player's wheel belongs to its part, and where it is sent depends on how many
 parts the zone holds (one rule, for files and live alike):
 
-* **A zone that holds one part** (a converted file gives each part a zone of its own;
-  live, while only one input channel has played a note or moved its wheel into the
+* **A zone that holds one part** (a converted file gives each part a zone of its own, with
+  an engine per part or one engine for all; live, while only one input channel has played a note or moved its wheel into the
   zone): the wheel goes on the manager channel, at the manager's range (2 semitones by
   default, a step of 0.024 c); the MPE specification makes a manager-channel bend apply
   to every note of the zone. The members' bends carry the tuning alone, so a note sounds
@@ -54,15 +64,45 @@ class MPESettings(BendSettings):
     manager: int = 0
     members: tuple[int, ...] = ()        # every member channel of the zone (RPN 0 goes to each)
     manager_range: float = 2.0           # semitones
+    #: parts of a file in zones of their own: ((input channel, manager, members, note channels), ...)
+    zones: tuple = ()
 
     @classmethod
     def from_config(cls, cfg: Any) -> "MPESettings":
-        members = tuple(cfg.mpe_member_channels())
         pas = set(cfg.passthrough)
-        return cls(channels=tuple(c for c in members if c not in pas), bend_range=cfg.mpe_member_range,
-                   release_time=cfg.release_time, bend_scale=cfg.bend_scale,
-                   whole_semitone_range=cfg.whole_semitone_range, share_channels=False,
-                   manager=cfg.mpe_manager(), members=members, manager_range=cfg.mpe_manager_range)
+        common = dict(bend_range=cfg.mpe_member_range, release_time=cfg.release_time,
+                      bend_scale=cfg.bend_scale, whole_semitone_range=cfg.whole_semitone_range,
+                      share_channels=False, manager_range=cfg.mpe_manager_range)
+        if cfg.part_zones:
+            # a member that is a passthrough channel of its port (channel 16 k + c is channel c of
+            # port k) is announced with the zone but plays no note
+            zones = tuple((p, m, tuple(chs), tuple(c for c in chs if c % 16 not in pas))
+                          for p, m, chs in cfg.part_zones)
+            return cls(channels=tuple(c for z in zones for c in z[3]), manager=zones[0][1],
+                       members=tuple(c for z in zones for c in z[2]), zones=zones, **common)
+        members = tuple(cfg.mpe_member_channels())
+        return cls(channels=tuple(c for c in members if c not in pas), manager=cfg.mpe_manager(),
+                   members=members, **common)
+
+
+class Zone:
+    """One zone: its manager channel, its member channels (``channels``: those that take
+    notes), and the input channels that have played or moved a wheel in it (``parts``; while
+    there is one, its wheel is on the manager channel, from the second on, ``shared``, in the
+    members' bends)."""
+
+    __slots__ = ("manager", "members", "channels", "parts", "shared")
+
+    def __init__(self, manager: int, members: tuple, channels: tuple):
+        self.manager = manager
+        self.members = members
+        self.channels = channels
+        self.parts: set[int] = set()
+        self.shared = False
+
+    def forget(self) -> None:
+        self.parts = set()
+        self.shared = False
 
 
 class MPEMode(BendMode):
@@ -75,6 +115,10 @@ class MPEMode(BendMode):
 
     @classmethod
     def check(cls, config: Any) -> None:
+        if config.part_zones:
+            if not any(c % 16 not in config.passthrough for _, _, chs in config.part_zones for c in chs):
+                raise config_error("no MPE member channel is left after the passthrough channels", "part_zones")
+            return
         if not [c for c in config.mpe_member_channels() if c not in config.passthrough]:
             raise config_error("no MPE member channel is left after the passthrough channels", "mpe_members")
 
@@ -83,9 +127,13 @@ class MPEMode(BendMode):
         return list(config.mpe_member_channels())
 
     @classmethod
-    def why_parts_apart(cls, split: bool) -> str:
-        return ("in MPE each part has a zone and an engine of its own; to tune the parts as one "
-                "harmony use pool mode, or --merge-parts (one zone, one instrument)")
+    def channels_of_part(cls, config: Any, part: int) -> list[int]:
+        for p, _, chs in config.part_zones:
+            if p == part:
+                return list(chs)
+        if config.part_zones:       # a channel that plays no note of its own goes with the first zone
+            return list(config.part_zones[0][2])
+        return cls.part_channels(config)
 
     @classmethod
     def without_passthrough(cls, config: Any) -> Any:
@@ -97,12 +145,21 @@ class MPEMode(BendMode):
 
     def __init__(self, config: Any, inputs: Any, stats: dict):
         super().__init__(config, inputs, stats)
-        self.manager = self.settings.manager
-        self.members = list(self.settings.members)
-        # the input channels that have played or moved a wheel in the zone; while there is one,
-        # its wheel is on the manager channel, from the second on (``shared``) on the members
-        self.parts: set[int] = set()
-        self.shared = False
+        s = self.settings
+        if s.zones:
+            self.zones = [Zone(m, members, chans) for _, m, members, chans in s.zones]
+            self.zone_of_part = {z[0]: zone for z, zone in zip(s.zones, self.zones)}
+        else:
+            self.zones = [Zone(s.manager, s.members, s.channels)]
+            self.zone_of_part = {}
+        first = self.zones[0]
+        self.manager = first.manager        # (the one zone's, when the zone holds every part)
+        self.members = list(first.members)
+
+    def zone_of(self, ch: int) -> Zone:
+        """The zone of input channel ``ch`` (a channel that plays no note of its own goes with
+        the first zone)."""
+        return self.zone_of_part.get(ch, self.zones[0])
 
     def manager_range(self) -> float:
         s = self.settings
@@ -111,26 +168,41 @@ class MPEMode(BendMode):
     def setup(self, t: float, tuning: Any) -> list[mido.Message]:
         s = self.settings
         out: list[mido.Message] = []
-        out += E.mpe_configuration(self.manager, len(self.members))
-        for c in self.members:
-            out += E.bend_range_rpn(c, self.range_cents, s.whole_semitone_range)
-        out += E.bend_range_rpn(self.manager, self.manager_range(), s.whole_semitone_range)
+        for z in self.zones:
+            out += E.mpe_configuration(z.manager, len(z.members))
+            for c in z.members:
+                out += E.bend_range_rpn(c, self.range_cents, s.whole_semitone_range)
+            out += E.bend_range_rpn(z.manager, self.manager_range(), s.whole_semitone_range)
         self.centre_pool(out)
-        self.centre_manager(out)
+        for z in self.zones:
+            self.centre_manager(z, out)
         return out
 
-    def centre_manager(self, out: list) -> None:
+    def centre_manager(self, z: Zone, out: list) -> None:
         """The manager's bend at centre."""
-        if self.sent[self.manager] != E.BEND_CENTRE:
-            self.sent[self.manager] = E.BEND_CENTRE
-            out.append(E.pitchwheel(self.manager, E.BEND_CENTRE))
+        if self.sent[z.manager] != E.BEND_CENTRE:
+            self.sent[z.manager] = E.BEND_CENTRE
+            out.append(E.pitchwheel(z.manager, E.BEND_CENTRE))
             self.stats["bends_sent"] += 1
 
+    def domain(self, ch: int) -> int:
+        # parts in zones of their own: each part is a pedal and controller domain of its own
+        return ch if ch in self.zone_of_part else 0
+
+    def channels_of(self, in_ch: int):
+        if not self.zone_of_part:
+            return None
+        return self.zone_of(in_ch).channels
+
     def zone(self, dom: int, msg: mido.Message) -> list[mido.Message]:
-        return [E.with_channel(msg, self.manager)]
+        return [E.with_channel(msg, self.zone_of(dom).manager)]
+
+    def channel_mode(self, dom: int, msg: mido.Message) -> list[mido.Message]:
+        z = self.zone_of(dom)
+        return E.on_channels(msg, [z.manager] + list(z.members))
 
     def all_channels(self) -> list[int]:
-        return [self.manager] + list(self.members)
+        return [c for z in self.zones for c in (z.manager,) + tuple(z.members)]
 
     def poly_pressure(self, msg: mido.Message, note) -> list[mido.Message]:
         if note is None:
@@ -140,56 +212,57 @@ class MPEMode(BendMode):
     # ------------------------------------------------------------------ the player's wheel
     def units_of(self, ch: int) -> int:
         # while the zone holds one part its wheel is on the manager: none in the members' bends
-        return super().units_of(ch) if self.shared else 0
+        return super().units_of(ch) if self.zone_of(ch).shared else 0
 
-    def manager_value(self) -> Optional[int]:
+    def manager_value(self, z: Zone) -> Optional[int]:
         """The manager's bend carrying the one part's wheel (None: beyond the manager's range)."""
-        if not self.parts:
+        if not z.parts:
             return E.BEND_CENTRE
-        (ch,) = self.parts
+        (ch,) = z.parts
         v = E.BEND_CENTRE + round(self.inputs.wheel_cents(ch) * 8192.0 / (self.manager_range() * self.scale))
         return v if 0 <= v <= 16383 else None
 
-    def send_manager(self, t: float, out: list) -> None:
+    def send_manager(self, t: float, z: Zone, out: list) -> None:
         """The manager's bend as the one part's wheel wants it (switching to per-note wheels
         when it is beyond the manager's range)."""
-        v = self.manager_value()
+        v = self.manager_value(z)
         if v is None:
-            self.share_zone(t, out, "its wheel goes beyond the manager channel's bend range")
-        elif self.sent[self.manager] != v:
-            self.sent[self.manager] = v
-            out.append(E.pitchwheel(self.manager, v))
+            self.share_zone(t, z, out, "its wheel goes beyond the manager channel's bend range")
+        elif self.sent[z.manager] != v:
+            self.sent[z.manager] = v
+            out.append(E.pitchwheel(z.manager, v))
             self.stats["bends_sent"] += 1
 
     def joins(self, t: float, ch: int, out: list) -> None:
-        """Input channel ``ch`` plays a note or moves its wheel in the zone."""
-        if self.shared or ch in self.parts:
+        """Input channel ``ch`` plays a note or moves its wheel in its zone."""
+        z = self.zone_of(ch)
+        if z.shared or ch in z.parts:
             return
-        if not self.parts:
-            self.parts.add(ch)
-            return
-        self.parts.add(ch)
-        self.share_zone(t, out, f"a second input channel ({ch + 1}) plays in it")
+        z.parts.add(ch)
+        if len(z.parts) > 1:
+            self.share_zone(t, z, out, f"a second input channel ({ch + 1}) plays in it")
 
-    def share_zone(self, t: float, out: list, why: str) -> None:
+    def share_zone(self, t: float, z: Zone, out: list, why: str) -> None:
         """From now on each part's wheel in its own notes' member bends; the manager centred."""
-        self.shared = True
+        z.shared = True
         log.debug("MPE zone shared: the player's wheel now goes in each note's member bend, the "
                   "manager channel back at centre (%s)", why)
-        # each moved wheel reaches its notes' members as a wheel move would (widening the
-        # members' range when it must)
-        self.wheel_units = {}
+        # each moved wheel of the zone reaches its notes' members as a wheel move would (widening
+        # the members' range when it must)
         for ch, pitch in list(self.inputs.wheel.items()):
-            BendMode.wheel(self, t, -1, E.msg("pitchwheel", channel=ch, pitch=pitch), out)
-        self.centre_manager(out)
+            if self.zone_of(ch) is z:
+                self.wheel_units.pop(ch, None)
+                BendMode.wheel(self, t, -1, E.msg("pitchwheel", channel=ch, pitch=pitch), out)
+        self.centre_manager(z, out)
 
     def wheel(self, t: float, dom: int, msg: mido.Message, out: list) -> None:
-        if not self.shared and (msg.pitch or msg.channel in self.parts):
+        z = self.zone_of(msg.channel)
+        if not z.shared and (msg.pitch or msg.channel in z.parts):
             self.joins(t, msg.channel, out)
-        if self.shared:
+        if z.shared:
             super().wheel(t, dom, msg, out)
-        elif msg.channel in self.parts:
-            self.send_manager(t, out)
+        elif msg.channel in z.parts:
+            self.send_manager(t, z, out)
 
     def strike(self, t: float, note, c: int, kind: str, out: list) -> None:
         self.joins(t, note.in_ch, out)
@@ -197,30 +270,40 @@ class MPEMode(BendMode):
 
     def controllers_reset(self, t: float, out: list) -> None:
         # reset-all-controllers reached every channel of the zone: the manager's bend is centred
-        self.sent[self.manager] = E.BEND_CENTRE
+        for z in self.zones:
+            self.sent[z.manager] = E.BEND_CENTRE
         super().controllers_reset(t, out)
-        if not self.shared:
-            self.send_manager(t, out)
+        for z in self.zones:
+            if not z.shared:
+                self.send_manager(t, z, out)
 
     def wheel_channels(self, channels) -> list[int]:
         # a zone that held one part carried its wheel on the manager channel
-        return list(channels) if self.shared else [self.manager]
+        chans = list(channels)
+        for z in self.zones:
+            if chans and chans[0] in z.members:
+                return chans if z.shared else [z.manager]
+        return chans
 
     def released(self) -> None:
         super().released()
-        self.parts = set()
-        self.shared = False
+        for z in self.zones:
+            z.forget()
 
     def output_lost(self) -> None:
         super().output_lost()
-        self.parts = set()
-        self.shared = False
+        for z in self.zones:
+            z.forget()
 
     # ------------------------------------------------------------------ steals explained
     steal_unit = "MPE zone's {} member channels"
 
+    def steal_channels(self) -> int:
+        # parts in zones of their own: a note is stolen within its zone
+        return max(len(z.channels) for z in self.zones)
+
     def more_channels(self, config: Any, shares_port: bool) -> list[str]:
-        if shares_port:
+        if shares_port or len(self.zones) > 1:
             # the converter gives each of two parts in one file a zone of 7 members
             return ["--merge-parts (the file's parts share one zone of up to 15 member channels "
                     "instead of a zone of 7 each)"]
@@ -244,9 +327,11 @@ class MPEMode(BendMode):
 
     def reconfigure_extra(self, config: Any, old: Any, range_changed: bool, out: list) -> None:
         if config.mpe_manager_range != old.mpe_manager_range or range_changed:
-            out += E.bend_range_rpn(self.manager, self.manager_range(), config.whole_semitone_range)
+            for z in self.zones:
+                out += E.bend_range_rpn(z.manager, self.manager_range(), config.whole_semitone_range)
 
     def reconfigure(self, config: Any, old: Any, t: float, out: list) -> None:
         super().reconfigure(config, old, t, out)
-        if not self.shared:
-            self.send_manager(t, out)        # the one part's wheel at the manager's (new) range
+        for z in self.zones:
+            if not z.shared:
+                self.send_manager(t, z, out)     # the one part's wheel at the manager's (new) range

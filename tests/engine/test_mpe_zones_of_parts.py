@@ -1,0 +1,91 @@
+"""One engine, each part (input channel) in an MPE zone of its own (``EngineConfig.part_zones``, as
+file conversion sets it): each zone a pedal and controller domain of its own.
+
+Decoded by the synth model of tests/synthmodel.py, which learns the zones from the MPE
+Configuration Message (MPE specification, The MIDI Association, 2018: RPN 6 on the manager, channel
+1 for the lower zone and 16 for the upper; messages on the manager channel, pedals and program
+included, apply to every note of its zone; a member channel's own all-notes-off to its notes)."""
+
+from __future__ import annotations
+
+import mido
+import pytest
+
+from retuner.engine.core import Engine, EngineConfig
+from retuner.errors import RetunerError
+from retuner.pitch.tuning import Tuning
+from synthmodel import SynthModel
+
+LOWER = (0, 0, (1, 2, 3, 4, 5, 6, 7))
+UPPER = (1, 15, (14, 13, 12, 11, 10))
+
+
+def engine():
+    return Engine(Tuning.equal12(), EngineConfig(mode="mpe", part_zones=(LOWER, UPPER)))
+
+
+def on(ch, key):
+    return mido.Message("note_on", channel=ch, note=key, velocity=80)
+
+
+def off(ch, key):
+    return mido.Message("note_off", channel=ch, note=key)
+
+
+def cc(ch, control, value):
+    return mido.Message("control_change", channel=ch, control=control, value=value)
+
+
+def play(e, synth, events):
+    for t, m in events:
+        synth.feed(e.feed(t, m))
+
+
+def keys_sounding(synth, channels):
+    return sorted(v.key for c in channels for v in synth.voices[c])
+
+
+def test_each_part_has_its_zone_its_program_and_its_pedal():
+    e = engine()
+    s = SynthModel(zones=True)
+    s.feed(e.start(0.0))
+    assert [c for c in range(16) if s.manager_of[c] == 0] == list(range(0, 8))
+    assert [c for c in range(16) if s.manager_of[c] == 15] == list(range(10, 16))
+    play(e, s, [(0.0, mido.Message("program_change", channel=0, program=40)),
+                (0.0, mido.Message("program_change", channel=1, program=42)),
+                (0.1, cc(0, 64, 127)),                    # the first part's sustain pedal
+                (0.2, on(0, 67)), (0.2, on(1, 48)),
+                (0.5, off(0, 67)), (0.5, off(1, 48))])
+    assert s.program[0][2] == 40 and s.program[15][2] == 42
+    # the first part's note is held by its own pedal, the second part's is not
+    assert keys_sounding(s, LOWER[2]) == [67] and keys_sounding(s, UPPER[2]) == []
+    assert s.sustain[0] and not s.sustain[15]
+    play(e, s, [(0.6, on(1, 50)), (0.7, cc(1, 123, 0))])  # the second part's all-notes-off
+    assert keys_sounding(s, UPPER[2]) == [] and keys_sounding(s, LOWER[2]) == [67]
+    play(e, s, [(0.8, cc(0, 64, 0))])
+    assert s.count() == 0 and s.problems == []
+
+
+def test_a_second_port_is_numbered_16_k_plus_c():
+    far = (2, 16, (17, 18, 19))
+    e = Engine(Tuning.equal12(), EngineConfig(mode="mpe", part_zones=(LOWER, UPPER, far)))
+    out = e.start(0.0)
+    assert {m.channel for m in out} >= {0, 15, 16, 17, 18, 19}
+    assert max(m.channel for m in out) == 19
+    # the MPE Configuration Message of the far zone: RPN 6 on channel 1 of the second port
+    far_cc = [(m.control, m.value) for m in out if m.channel == 16 and m.type == "control_change"]
+    i = far_cc.index((100, 6))
+    assert far_cc[i - 1] == (101, 0) and far_cc[i + 1] == (6, 3)
+    res = e.feed(0.1, on(2, 60))
+    assert [m.channel for m in res if m.type == "note_on"][0] in (17, 18, 19)
+
+
+@pytest.mark.parametrize("zones", [
+    ((0, 3, (1, 2)),),                        # a manager is channel 1 or 16
+    ((0, 0, (1, 2)), (1, 15, (2, 14))),       # a member in two zones
+    ((0, 0, (1, 17)),),                       # members on another port than their manager
+    ((0, 0, ()),),                            # no member
+])
+def test_zones_that_cannot_be_are_refused(zones):
+    with pytest.raises(RetunerError):
+        EngineConfig(mode="mpe", part_zones=zones).validate()
