@@ -2,9 +2,10 @@
 
 Each source channel is a *part*. Parts get disjoint shares of the output channels, so each
 part keeps its own program, controllers and wheel: one engine per part, each with its own
-sub-pool; or, in adaptive mode (``together``), one engine for the parts of a file, each part
-still on its own share (``EngineConfig.parts``), so one solver tunes them as one harmony, and
-every channel of the file is shared out (none kept back). Sharing: every part first gets as many channels as its largest number of notes
+sub-pool; or, in adaptive mode (``together``), one engine for the parts of every file, each
+part still on its own share (``EngineConfig.parts``), so one solver tunes them as one harmony,
+and every channel of a file is shared out (none kept back); that engine's output channel
+``16 k + c`` is channel ``c`` of the k-th file (the converter writes each message to its file). Sharing: every part first gets as many channels as its largest number of notes
 sounding at once (its *minimum*: with fewer it would steal notes; in a static tuning notes
 with one bend share a channel, so it counts notes with different bends); channels left over
 go, one at a time, to the part whose wish is least met (its *wish*: one channel per bend
@@ -151,10 +152,9 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     """Share the output channels among the parts (see the module docstring).
 
     Returns groups, one per output file: (parts, {part: engine config}). ``together``
-    (adaptive mode): in pool mode the parts of a group keep their own channels but share one
-    engine config (``parts`` lists each part's channels); in MPE mode every part of every
-    group shares one engine config (``part_zones`` gives each part its zone, the k-th group's
-    channels numbered ``16 k + c``). Parts given the very same config object are played by
+    (adaptive mode): every part of every group shares one engine config, the k-th group's
+    channels numbered ``16 k + c``: in pool mode each part keeps its own channels (``parts``
+    lists them), in MPE mode its own zone (``part_zones``). Parts given the very same config object are played by
     one engine, so one solver tunes them as one harmony.
     """
     pas = frozenset(config.passthrough)
@@ -174,10 +174,12 @@ def plan_groups(song: Song, merged: Sequence, secs: Sequence[float], tuning, con
     groups = _plan_note_groups(merged, parts, tuning, config, pas, together, secs)
     mode = MODES[config.mode]
     if together and not mode.zone_per_part:
-        for i, (g, cfgs) in enumerate(groups):
-            shares = tuple((p, tuple(cfgs[p].pool)) for p in g)
-            one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
-            groups[i] = (g, {p: one for p in g})
+        # pool: one engine for every part of every file, each part on its share; output
+        # channel 16 k + c is channel c of file k
+        shares = tuple((p, tuple(16 * i + c for c in cfgs[p].pool))
+                       for i, (g, cfgs) in enumerate(groups) for p in g)
+        one = config.replace(pool=tuple(c for _, chs in shares for c in chs), parts=shares)
+        groups = [(g, {p: one for p in g}) for g, _ in groups]
     elif together:
         # MPE: one engine for every part of every file, each part in the zone it has; output
         # channel 16 k + c is channel c of file k

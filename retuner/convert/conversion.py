@@ -23,8 +23,8 @@ the target folder, then ``os.replace`` -- there is never a half-written output.
 Parts
 -----
 How parts share the output channels is :mod:`retuner.convert.arrange`. Adaptive mode (``--live``
-and ``--lookahead`` too) runs one engine for the parts of an output file (in MPE mode, for the parts
-of every output file: each part in a zone of its own, two zones a file): one solver (or the plan,
+and ``--lookahead`` too) runs one engine for the parts of every output file (each part on its own share
+of the pool, or in MPE mode in a zone of its own, two zones a file): one solver (or the plan,
 which pairs the notes of every part) tunes them together as one harmony, and each part still sounds
 only on its own channels (its program and controllers) with its own pedals and wheel. An engine
 that plays several files numbers channel c of its k-th file ``16 k + c``; every file is driven in

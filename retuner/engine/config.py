@@ -74,8 +74,11 @@ class EngineConfig:
             raise bad(f"unknown mode {self.mode!r} (one of {', '.join(MODES)})", "mode")
         for name in ("pool", "passthrough"):
             chans = getattr(self, name)
+            # parts of a file tuned together may span output files: channel 16 k + c of the pool
+            # is channel c of the k-th file (set by file conversion only)
+            top = 16 * 16 - 1 if name == "pool" and self.parts else 15
             for c in chans:
-                if not isinstance(c, int) or not 0 <= c <= 15:
+                if not isinstance(c, int) or not 0 <= c <= top:
                     raise bad(f"channel {c!r} is not a MIDI channel", name)
             if len(set(chans)) != len(chans):
                 raise bad("a channel is listed twice", name)

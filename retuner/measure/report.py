@@ -207,9 +207,6 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         top["parts_tuned"] = "together" if together else "apart"
         if together and getattr(opts, "merge_parts", False):
             top["parts_share_channels"] = True      # one pool, each channel dressed for its note's part
-        if not together and not getattr(opts, "parts_apart", False):
-            # asked for one harmony, but the parts were played by engines of their own
-            top["parts_apart_why"] = MODES[config.mode].why_parts_apart(bool(res.split))
     if getattr(opts, "live", False) and getattr(res, "note_ons", None) is not None:
         # played as live: how much later each note-on left than it came (engine clock)
         outs = [(n.start, n.key) for dec in decs for n in dec.notes]
@@ -267,8 +264,7 @@ def text_summary(rep: dict) -> str:
             "sharing the output channels (each dressed for the part whose note it plays)"
             if rep.get("parts_share_channels") else "each on its own channels"))
     elif rep.get("parts_tuned") == "apart":
-        lines.append("  parts tuned apart, each against itself"
-                     + (f": {rep['parts_apart_why']}" if rep.get("parts_apart_why") else ""))
+        lines.append("  parts tuned apart, each against itself")
     if rep.get("added_latency_ms"):
         a = rep["added_latency_ms"]
         lines.append(f"  played as live: added latency per note-on p50 {a['p50']:.1f} ms, p99 {a['p99']:.1f} ms, "

@@ -16,7 +16,6 @@ from retuner.convert.conversion import ConvertOptions, convert_file
 from retuner.engine.core import EngineConfig
 from retuner.measure import report
 from retuner.pitch.tuning import Tuning
-from data import midigen
 from synth import note_events, write_midi
 
 PROGRAMS = {0: 52, 1: 53, 2: 68, 3: 70}
@@ -78,23 +77,60 @@ def test_parts_apart_are_each_tuned_alone(tmp_path):
     assert together["impurity_cents"] < apart["impurity_cents"] - 4.0
 
 
-def test_the_summary_says_apart_when_engines_of_their_own_played_the_parts(tmp_path):
-    """Pool mode splits parts that need more channels than one port has (three parts of
-    8-note chords) into files with an engine each: asked for one harmony, the summary must not
-    claim it; it says why and what would keep the parts together."""
-    src = tmp_path / "wide.mid"
-    midigen.wide_arrangement(src)
-    opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(adaptive=AdaptiveConfig()))
-    res = convert_file(src, tmp_path / "pool.mid", opts)
-    rep = report.build_report(res, opts)
-    assert not res.one_harmony and len(res.outputs) > 1
-    assert rep["parts_tuned"] == "apart"
-    assert "more channels than one port" in rep["parts_apart_why"] and "--merge-parts" in rep["parts_apart_why"]
-    text = report.text_summary(rep)
-    assert "parts tuned apart" in text and "parts tuned together" not in text
-    # the same piece in one file of the chorale: one engine, one harmony
-    _, pool = convert(tmp_path, apart=False)
-    assert pool["parts_tuned"] == "together" and "parts_apart_why" not in pool
+# four parts, four notes each, of one major triad (I IV V I in C, by its root): 16 notes at once,
+# more than the 15 channels one port has beside the drums' channel 10, so pool mode writes two
+# files. Each part holds two of the triad's tones (in two octaves), so only the parts together
+# make the chord: tuned apart, each part's pair is just but centred on its own
+SPLIT_ROOTS = [0, 5, 7, 0]
+SPLIT_TONES = {0: (4, 7, 16, 19), 1: (0, 7, 12, 19), 2: (0, 4, 12, 16), 3: (0, 7, 12, 19)}
+SPLIT_BASE = {0: 60, 1: 48, 2: 48, 3: 36}
+SPLIT_VELOCITY = {0: 71, 1: 72, 2: 73, 3: 74}      # a note's velocity tells its part
+
+
+def split_piece(path):
+    ev = [(0.0, mido.Message("program_change", channel=ch, program=p)) for ch, p in PROGRAMS.items()]
+    notes = [(0.2 + 0.8 * i, 0.9 + 0.8 * i, ch, SPLIT_BASE[ch] + root + d, SPLIT_VELOCITY[ch])
+             for i, root in enumerate(SPLIT_ROOTS) for ch in PROGRAMS for d in SPLIT_TONES[ch]]
+    return write_midi(path, ev + note_events(notes))
+
+
+def test_parts_split_over_two_files_are_still_one_harmony(tmp_path):
+    """Pool mode writes parts that need more channels than one port has to several files, and one
+    engine plays them all (its output channel 16 k + c is channel c of file k): the files played
+    together, a port each, are one harmony, each part on its own program; tuned apart, each
+    part's chord is just but the parts' chords are centred each on its own."""
+    src = split_piece(tmp_path / "wide.mid")
+
+    def run(apart):
+        opts = ConvertOptions(tuning=Tuning.equal12(), config=EngineConfig(adaptive=AdaptiveConfig()),
+                              parts_apart=apart)
+        res = convert_file(src, tmp_path / ("apart.mid" if apart else "together.mid"), opts)
+        return res, report.build_report(res, opts)
+
+    res, rep = run(False)
+    assert len(res.outputs) == 2 and res.one_harmony
+    assert rep["parts_tuned"] == "together"
+    assert "parts tuned together as one harmony" in report.text_summary(rep)
+    apart_res, apart = run(True)
+    assert not apart_res.one_harmony and apart["parts_tuned"] == "apart"
+    # impurity across both files (they sound together): within 1 c of just, against the parts
+    # tuned apart and 12-EDO (a 12-EDO major third is 13.7 c from 5/4: common practice)
+    assert rep["impurity_cents"] <= 1.0
+    assert apart["impurity_cents"] > rep["impurity_cents"] + 1.0
+    assert rep["steals"] == 0
+    # every note on a channel that carries its own part's program (the last program change on the
+    # channel, as a GM synth keeps it: MIDI 1.0), each file on channels 1..16 of its own port
+    seen = set()
+    for o in res.outputs:
+        program = [0] * 16
+        for m in mido.merge_tracks(mido.MidiFile(o.path).tracks):
+            if m.type == "program_change":
+                program[m.channel] = m.program
+            elif m.type == "note_on" and m.velocity:
+                part = {v: p for p, v in SPLIT_VELOCITY.items()}[m.velocity]
+                assert program[m.channel] == PROGRAMS[part], (o.path, m)
+                seen.add(part)
+    assert seen == set(PROGRAMS)
 
 
 def test_merged_parts_are_said_to_share_the_channels(tmp_path):

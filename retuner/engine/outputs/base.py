@@ -97,13 +97,6 @@ class OutputMode(abc.ABC):
         object when nothing changes)."""
         return config
 
-    @classmethod
-    def why_parts_apart(cls, split: bool) -> str:
-        """Why a file converter asked for one harmony played the parts with engines of their
-        own (``split``: the parts went to several files), and what would keep them together."""
-        return ("the parts needed more channels than one port has, so each file was tuned on its own; "
-                "to keep one harmony: fewer notes at once, or --merge-parts (one instrument)") if split else ""
-
     # ---------------------------------------------------------------- the engine's side
     def __init__(self, config: Any, inputs: Any, stats: dict):
         self.inputs = inputs
