@@ -123,10 +123,10 @@ def run(args) -> int:
         names = ", ".join(os.path.basename(o.path) for o in res.outputs)
         why = ("in MPE mode a port holds two parts (one per zone)" if MODES[opts.config.mode].zone_per_part
                else "the parts need more channels than the pool has")
-        together = (", the parts of all of them tuned as one harmony: play them together, a port each"
-                    if res.one_harmony else "")
-        print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), each playable on its own{together}",
-              file=sys.stderr)
+        how = ("the parts of all of them tuned as one harmony: play them together, a port each"
+               if res.one_harmony else "each playable on its own")
+        print(f"retuner: {why}: wrote {len(res.outputs)} files ({names}), {how} (the drums, lyrics and "
+              f"markers in the first)", file=sys.stderr)
     if not (args.report or args.plot or not args.quiet):
         return 0      # -q and nothing asked for: the measures are not computed at all
     decoded = rp.decode_outputs(res, opts)
