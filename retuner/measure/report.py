@@ -149,6 +149,12 @@ def decode_outputs(res, opts) -> list:
     return out
 
 
+#: the per-file fields counted by the engine (not measured from the file)
+ENGINE_COUNTERS = ("steals", "ringing_retunes", "attack_retunes", "attack_retune_cents_mean",
+                   "attack_retune_cents_max", "attack_corrected_notes", "redressings", "range_widenings",
+                   "wheel_clamps")
+
+
 def _measures(dec, tuning, stats: dict) -> dict:
     imp, _, dr = metrics.moment_figures(dec.notes, SETTLE)   # impurity and drift: one walk
     rep = {
@@ -189,10 +195,18 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
     static = config.adaptive is None
     files_rep = []
     decs = decoded if decoded is not None else decode_outputs(res, opts)
+    files_of_harmony: dict = {}
+    for o in res.outputs:
+        files_of_harmony[o.harmony] = files_of_harmony.get(o.harmony, 0) + 1
     for o, dec in zip(res.outputs, decs):
         r = {"file": o.path, "parts": [p + 1 for p in o.parts],
              "part_channels": {str(p + 1): [c + 1 for c in chans] for p, chans in o.channels.items()}}
         r.update(_measures(dec, opts.tuning if static else None, o.stats))
+        if o.harmony >= 0 and files_of_harmony[o.harmony] > 1:
+            # one engine played this file and others: its counters are the whole conversion's
+            # (at the top of the report), not this file's
+            for k in ENGINE_COUNTERS:
+                r[k] = None
         if o.steals_why and r["steals"]:
             r["steals_explained"] = explain_steals(r["steals"], o.steals_why)
         files_rep.append(r)
@@ -222,11 +236,15 @@ def build_report(res, opts, decoded: Optional[list] = None) -> dict:
         top.update({k: v for k, v in files_rep[0].items() if k != "file"})
     else:
         top["notes"] = sum(f["notes"] for f in files_rep)
-        for k in ("steals", "ringing_retunes", "bends_sent", "attack_retunes", "attack_corrected_notes",
+        # the engines' counters from the engines (an engine playing several files counts once)
+        for k in ("steals", "ringing_retunes", "attack_retunes", "attack_corrected_notes",
                   "redressings", "range_widenings", "wheel_clamps"):
-            top[k] = sum(f[k] for f in files_rep)
-        top["attack_retune_cents_max"] = max(f["attack_retune_cents_max"] for f in files_rep)
-        said = [(f["steals"], o.steals_why) for f, o in zip(files_rep, res.outputs) if f.get("steals_explained")]
+            top[k] = sum(int(o.stats.get(k, 0)) for o in res.outputs)
+        top["bends_sent"] = sum(f["bends_sent"] for f in files_rep)
+        top["attack_retune_cents_max"] = round(max(float(o.stats.get("attack_retune_cents_max", 0.0))
+                                                   for o in res.outputs), 4)
+        said = [(int(o.stats.get("steals", 0)), o.steals_why) for o in res.outputs
+                if o.steals_why and o.stats.get("steals")]
         if said:
             # one line for the whole conversion: every file's steals, the reason of the file
             # that stole most

@@ -118,6 +118,10 @@ def test_parts_split_over_two_files_are_still_one_harmony(tmp_path):
     assert rep["impurity_cents"] <= 1.0
     assert apart["impurity_cents"] > rep["impurity_cents"] + 1.0
     assert rep["steals"] == 0
+    # the engine's counters are the whole conversion's: at the top of the report, not per file
+    assert all(f["ringing_retunes"] is None and f["attack_retunes"] is None for f in rep["files"])
+    assert rep["ringing_retunes"] == sum(o.stats.get("ringing_retunes", 0) for o in res.outputs)
+    assert rep["bends_sent"] == sum(f["bends_sent"] for f in rep["files"]) > 0
     # every note on a channel that carries its own part's program (the last program change on the
     # channel, as a GM synth keeps it: MIDI 1.0), each file on channels 1..16 of its own port
     seen = set()
