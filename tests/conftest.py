@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import os
 import uuid
 
 import pytest
 
-from jack import JackServer, JackError, TestClient  # tests/ is on sys.path (rootdir conftest)
+from jack import TestClient, private_server  # tests/ is on sys.path (rootdir conftest)
 
 
 @pytest.fixture(scope="session")
@@ -22,24 +21,8 @@ def jack_server():
 
     ``JACK_DEFAULT_SERVER`` names it in this process's environment (so python-rtmidi clients
     in the tests reach it) and in ``server.env`` for subprocesses."""
-    name = f"retuner-test-{os.getpid()}-{uuid.uuid4().hex[:6]}"
-    server = JackServer(name)
-    try:
-        server.start()
-    except JackError as exc:
-        pytest.fail(f"JACK server could not start: {exc}", pytrace=False)
-    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
-    os.environ["JACK_DEFAULT_SERVER"] = name
-    os.environ["JACK_NO_START_SERVER"] = "1"
-    try:
+    with private_server("retuner-test") as server:
         yield server
-    finally:
-        server.stop()
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
 
 
 @pytest.fixture

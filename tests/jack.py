@@ -22,8 +22,10 @@ import subprocess
 import sys
 import threading
 import time
+import contextlib
+import uuid
 from dataclasses import dataclass, field
-from typing import Callable, Optional
+from typing import Callable, Iterator, Optional
 
 import mido
 import rtmidi
@@ -118,6 +120,32 @@ class JackServer:
                     return p
             time.sleep(0.05)
         raise JackError(f"no such port after {timeout} s; have {ports}")
+
+
+@contextlib.contextmanager
+def private_server(prefix: str, **kw) -> Iterator["JackServer"]:
+    """A JACK server of our own (``JackServer(NAME, **kw)``, NAME from ``prefix``, the process id
+    and a random part), named in this process's environment while it runs (so python-rtmidi and
+    JACK-Client clients in the tests reach it; ``server.env`` is for subprocesses); a server that
+    does not start fails the test."""
+    import pytest       # only where a test uses it
+    server = JackServer(f"{prefix}-{os.getpid()}-{uuid.uuid4().hex[:6]}", **kw)
+    try:
+        server.start()
+    except JackError as exc:
+        pytest.fail(f"JACK server could not start: {exc}", pytrace=False)
+    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
+    os.environ["JACK_DEFAULT_SERVER"] = server.name
+    os.environ["JACK_NO_START_SERVER"] = "1"
+    try:
+        yield server
+    finally:
+        server.stop()
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
 
 
 @dataclass

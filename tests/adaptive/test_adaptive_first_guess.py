@@ -90,16 +90,21 @@ def test_most_notes_of_the_chorales_played_by_hand_need_no_correction():
     assert chorale_share() < 0.5
 
 
+def chord_then(*keys):
+    """An adaptive engine with ``keys`` struck together at 0 s; and its count of corrected notes."""
+    e = Engine(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()))
+    e.start(0.0)
+    for k in keys:
+        e.feed(0.0, on(k))
+    return e, e.stats["attack_corrected_notes"]
+
+
 def test_a_held_note_a_step_below_a_new_one_is_left_out_of_its_first_guess():
     """C4-E4-G4 sound; the top voice moves G4 -> A4 legato (A4 starts, G4 ends 10 ms later).
     A4 is taken for G4's voice moving on: it leaves tuned against what stays (C4: a just major
     sixth 5/3, E4: a just fourth 4/3) and needs no correction when G4 ends. (Tuned against
     G4 as well, it left a comma's compromise away and was corrected by 1.8 c.)"""
-    e = Engine(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()))
-    e.start(0.0)
-    for k in (60, 64, 67):
-        e.feed(0.0, on(k))
-    before = e.stats["attack_corrected_notes"]
+    e, before = chord_then(60, 64, 67)
     e.feed(1.0, on(69))
     first = pitch(e, 69)
     e.feed(1.01, off(67))
@@ -117,11 +122,7 @@ def test_a_new_note_a_step_from_two_held_notes_leaves_both_in_its_guess():
     is not known, so neither is left out. A4 then ends: G4 was tuned with it as well as
     with D4 and F4 and, the chord being pure, needs no correction (leaving F4 out instead,
     the voice that stays, would have cost one)."""
-    e = Engine(Tuning.equal12(), EngineConfig(adaptive=AdaptiveConfig()))
-    e.start(0.0)
-    for k in (62, 65, 69):
-        e.feed(0.0, on(k))
-    before = e.stats["attack_corrected_notes"]
+    e, before = chord_then(62, 65, 69)
     e.feed(1.0, on(67))
     e.feed(1.01, off(69))
     assert e.stats["attack_corrected_notes"] == before

@@ -14,6 +14,7 @@ import pytest
 from retuner.engine.core import Engine, EngineConfig
 from retuner.errors import RetunerError
 from retuner.pitch.tuning import Tuning
+from keyboard import CC, OFF, ON
 from synthmodel import SynthModel
 
 LOWER = (0, 0, (1, 2, 3, 4, 5, 6, 7))
@@ -22,18 +23,6 @@ UPPER = (1, 15, (14, 13, 12, 11, 10))
 
 def engine():
     return Engine(Tuning.equal12(), EngineConfig(mode="mpe", part_zones=(LOWER, UPPER)))
-
-
-def on(ch, key):
-    return mido.Message("note_on", channel=ch, note=key, velocity=80)
-
-
-def off(ch, key):
-    return mido.Message("note_off", channel=ch, note=key)
-
-
-def cc(ch, control, value):
-    return mido.Message("control_change", channel=ch, control=control, value=value)
 
 
 def play(e, synth, events):
@@ -53,16 +42,16 @@ def test_each_part_has_its_zone_its_program_and_its_pedal():
     assert [c for c in range(16) if s.manager_of[c] == 15] == list(range(10, 16))
     play(e, s, [(0.0, mido.Message("program_change", channel=0, program=40)),
                 (0.0, mido.Message("program_change", channel=1, program=42)),
-                (0.1, cc(0, 64, 127)),                    # the first part's sustain pedal
-                (0.2, on(0, 67)), (0.2, on(1, 48)),
-                (0.5, off(0, 67)), (0.5, off(1, 48))])
+                (0.1, CC(64, 127, ch=0)),                    # the first part's sustain pedal
+                (0.2, ON(67, 80, ch=0)), (0.2, ON(48, 80, ch=1)),
+                (0.5, OFF(67, ch=0)), (0.5, OFF(48, ch=1))])
     assert s.program[0][2] == 40 and s.program[15][2] == 42
     # the first part's note is held by its own pedal, the second part's is not
     assert keys_sounding(s, LOWER[2]) == [67] and keys_sounding(s, UPPER[2]) == []
     assert s.sustain[0] and not s.sustain[15]
-    play(e, s, [(0.6, on(1, 50)), (0.7, cc(1, 123, 0))])  # the second part's all-notes-off
+    play(e, s, [(0.6, ON(50, 80, ch=1)), (0.7, CC(123, 0, ch=1))])  # the second part's all-notes-off
     assert keys_sounding(s, UPPER[2]) == [] and keys_sounding(s, LOWER[2]) == [67]
-    play(e, s, [(0.8, cc(0, 64, 0))])
+    play(e, s, [(0.8, CC(64, 0, ch=0))])
     assert s.count() == 0 and s.problems == []
 
 
@@ -76,7 +65,7 @@ def test_a_second_port_is_numbered_16_k_plus_c():
     far_cc = [(m.control, m.value) for m in out if m.channel == 16 and m.type == "control_change"]
     i = far_cc.index((100, 6))
     assert far_cc[i - 1] == (101, 0) and far_cc[i + 1] == (6, 3)
-    res = e.feed(0.1, on(2, 60))
+    res = e.feed(0.1, ON(60, 80, ch=2))
     assert [m.channel for m in res if m.type == "note_on"][0] in (17, 18, 19)
 
 

@@ -14,14 +14,12 @@ window longer than a period shows that the count can fail.
 
 from __future__ import annotations
 
-import os
 import sys
-import uuid
 from pathlib import Path
 
 import pytest
 
-from jack import JackError, JackServer
+from jack import private_server
 from retuner.bench import jacklive
 
 REPO = next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file())
@@ -31,24 +29,8 @@ NOTES = 12
 
 @pytest.fixture(scope="module")
 def long_periods():
-    name = f"retuner-period-{os.getpid()}-{uuid.uuid4().hex[:6]}"
-    server = JackServer(name, rate=RATE, period=PERIOD)
-    try:
-        server.start()
-    except JackError as exc:
-        pytest.fail(f"JACK server could not start: {exc}", pytrace=False)
-    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
-    os.environ["JACK_DEFAULT_SERVER"] = name
-    os.environ["JACK_NO_START_SERVER"] = "1"
-    try:
+    with private_server("retuner-period", rate=RATE, period=PERIOD) as server:
         yield server
-    finally:
-        server.stop()
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
 
 
 def periods(adaptive: bool, *extra: str) -> dict:
