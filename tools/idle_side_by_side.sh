@@ -1,27 +1,32 @@
 #!/bin/bash
-# Idle CPU of two retuner checkouts' daemons side by side on one JACK server (dummy driver, 48 kHz,
-# 128-frame periods), measured per thread from /proc over SECONDS: the same conditions for both,
-# unlike `retuner bench --jack --against`, which measures one after the other.
-# usage: tools/idle_side_by_side.sh OLD_CHECKOUT NEW_CHECKOUT [SECONDS] [PYTHON]
+# Idle CPU of two retuner checkouts' daemons under one JACK server (dummy driver, 48 kHz, 128-frame
+# periods): each daemon alone on the server, OLD and NEW taking turns ROUNDS times for SECONDS each,
+# so that both meet the same conditions (two daemons at once would share, and swap, JACK's order
+# of clients). CPU time is each thread's time on a CPU in nanoseconds (/proc/PID/task/TID/schedstat,
+# first field: kernel documentation, scheduler statistics), not the clock-tick counts of
+# /proc/PID/stat, which sample a thread that runs for microseconds a period only now and then.
+# usage: tools/idle_side_by_side.sh OLD_CHECKOUT NEW_CHECKOUT [SECONDS] [PYTHON] [ROUNDS]
 set -u
-old=$1 new=$2 secs=${3:-60} py=${4:-python3}
+old=$1 new=$2 secs=${3:-20} py=${4:-python3} rounds=${5:-3}
 tmp=$(mktemp -d)
 export JACK_DEFAULT_SERVER=retuner-idle-$$ JACK_NO_START_SERVER=1
 jackd -n "$JACK_DEFAULT_SERVER" --no-realtime -d dummy -r 48000 -p 128 > "$tmp/jackd.log" 2>&1 & jp=$!
 sleep 2
-mkdir -p "$tmp/a" "$tmp/b"
-XDG_RUNTIME_DIR=$tmp/a PYTHONPATH=$old "$py" -m retuner run --virtual --backend jack --client-name idle-old \
-    --no-control-socket --status-interval 0 > "$tmp/old.log" 2>&1 & op=$!
-XDG_RUNTIME_DIR=$tmp/b PYTHONPATH=$new "$py" -m retuner run --virtual --backend jack --client-name idle-new \
-    --no-control-socket --status-interval 0 > "$tmp/new.log" 2>&1 & np=$!
-sleep 5
-ticks() { cat /proc/"$1"/task/*/stat 2>/dev/null | awk '{s += $14 + $15} END {print s + 0}'; }
-o1=$(ticks $op) n1=$(ticks $np)
-sleep "$secs"
-o2=$(ticks $op) n2=$(ticks $np)
-hz=$(getconf CLK_TCK)
-awk -v a="$o1" -v b="$o2" -v c="$n1" -v d="$n2" -v t="$secs" -v hz="$hz" \
-    'BEGIN {printf "idle over %d s, %% of a core: old %.2f, new %.2f\n", t, 100*(b-a)/hz/t, 100*(d-c)/hz/t}'
-kill $op $np 2>/dev/null; wait $op $np 2>/dev/null
+cpu_ns() { cat /proc/"$1"/task/*/schedstat 2>/dev/null | awk '{s += $1} END {printf "%d\n", s + 0}'; }
+one() {   # one daemon of checkout $1 alone for $secs seconds: percent of a core
+    mkdir -p "$tmp/run"
+    XDG_RUNTIME_DIR=$tmp/run PYTHONPATH=$1 "$py" -m retuner run --virtual --backend jack --client-name idle \
+        --no-control-socket --status-interval 0 > "$tmp/daemon.log" 2>&1 & local p=$!
+    sleep 4
+    local a b
+    a=$(cpu_ns $p); sleep "$secs"; b=$(cpu_ns $p)
+    kill $p 2>/dev/null; wait $p 2>/dev/null
+    awk -v a="$a" -v b="$b" -v t="$secs" 'BEGIN {printf "%.3f\n", 100*(b-a)/1e9/t}'
+}
+olds=() news=()
+for ((r = 0; r < rounds; r++)); do
+    olds+=("$(one "$old")"); news+=("$(one "$new")")
+done
 kill $jp; wait $jp 2>/dev/null
 rm -rf "$tmp"
+echo "idle, % of a core, $rounds turns of $secs s each: old ${olds[*]}; new ${news[*]}"

@@ -8,7 +8,7 @@ with a process callback that waits for that lock.
 
 Threads
 -------
-JACK calls :meth:`_Client._process` once every period on its own thread. It
+JACK calls the process callback (:meth:`_Client._process_callback`) once every period on its own thread. It
 
 * writes what the engine sent since the last cycle (a deque of bytes) into the out port, at the
   start of the period (an event the buffer has no room for waits for the next cycle), and
@@ -115,43 +115,48 @@ class _Client:
         self.outputs: list = []                # (port pointer, deque of bytes)
         self.cycles = 0                        # process cycles run (a drain waits on it)
         self.active = False                    # activated with the first port: a client that only
-        self.client.set_process_callback(self._process)   # lists ports costs nothing per period
+        #                                        lists ports costs nothing per period
+        self.client.set_process_callback(self._process_callback())
         self.client.set_shutdown_callback(self._shutdown)
 
     # --------------------------------------------------------------- JACK's threads
-    def _process(self, frames: int) -> None:
-        # libjack is called directly (cffi), with the port pointers kept at registration and the
-        # period's ``frames``: JACK-Client's port methods ask the server for the buffer size on
-        # every call and build a generator per port; an idle period costs four C calls here
-        self._lock.acquire()        # held elsewhere only to change the port tables, never across a JACK call
-        try:
-            self._cycle(frames)
-        except Exception:  # noqa: BLE001 - an exception here would make JACK drop the client
-            pass
-        finally:
-            self._lock.release()
+    def _process_callback(self) -> Callable[[int], None]:
+        """The process callback: one period's work, with everything it uses bound beforehand.
 
-    def _cycle(self, frames: int) -> None:
-        lib = self._lib
-        get = lib.jack_port_get_buffer
-        for ptr, queue in self.outputs:
-            buf = get(ptr, frames)
-            lib.jack_midi_clear_buffer(buf)       # every period, before any write (JACK MIDI API)
-            while queue:
-                data = queue[0]
-                if lib.jack_midi_event_write(buf, 0, data, len(data)):
-                    break                         # no room left in this period's buffer
-                queue.popleft()
-        for ptr, callback, on_error in self.inputs:
-            buf = get(ptr, frames)
-            n = lib.jack_midi_get_event_count(buf)
-            if n:
-                event = self._event
-                for i in range(n):
-                    if lib.jack_midi_event_get(event, buf, i):
-                        break
-                    deliver(self._ffi.buffer(event.buffer, event.size)[:], callback, on_error)
-        self.cycles += 1
+        libjack is called directly (cffi), with the port pointers kept at registration and the
+        period's ``frames``: JACK-Client's port methods ask the server for the buffer size on
+        every call and build a generator per port. An idle period costs one lock and four C calls
+        (each output's buffer and its clear, each input's buffer and its event count)."""
+        lib, ffi, event = self._lib, self._ffi, self._event
+        get, clear = lib.jack_port_get_buffer, lib.jack_midi_clear_buffer
+        write, count, take = lib.jack_midi_event_write, lib.jack_midi_get_event_count, lib.jack_midi_event_get
+        acquire, release = self._lock.acquire, self._lock.release   # held elsewhere only to change
+        me = self                                                   # the port tables, never across a JACK call
+
+        def process(frames: int) -> None:
+            acquire()
+            try:
+                for ptr, queue in me.outputs:
+                    buf = get(ptr, frames)
+                    clear(buf)                    # every period, before any write (JACK MIDI API)
+                    while queue:
+                        data = queue[0]
+                        if write(buf, 0, data, len(data)):
+                            break                 # no room left in this period's buffer
+                        queue.popleft()
+                for ptr, callback, on_error in me.inputs:
+                    buf = get(ptr, frames)
+                    n = count(buf)
+                    for i in range(n):
+                        if take(event, buf, i):
+                            break
+                        deliver(ffi.buffer(event.buffer, event.size)[:], callback, on_error)
+                me.cycles += 1
+            except Exception:  # noqa: BLE001 - an exception here would make JACK drop the client
+                pass
+            finally:
+                release()
+        return process
 
     def _shutdown(self, status, reason) -> None:
         self.dead = True
