@@ -78,3 +78,24 @@ def test_a_second_port_is_numbered_16_k_plus_c():
 def test_zones_that_cannot_be_are_refused(zones):
     with pytest.raises(RetunerError):
         EngineConfig(mode="mpe", part_zones=zones).validate()
+
+
+def test_a_widened_member_range_reaches_every_zone():
+    """The second part sets its own bend range to 48 semitones and 50 cents (RPN 0, MIDI 1.0: data
+    entry MSB semitones, LSB cents) and bends its wheel full up while a note sounds: that is beyond
+    its zone manager's range (2 semitones), so its zone takes the wheel into the members' bends, and
+    beyond the members' 48 semitones, so the members' range is widened. Every member of every zone must hear the new
+    range (RPN 0), or the second zone's notes would be decoded at the old one."""
+    e = engine()
+    s = SynthModel(zones=True)
+    s.feed(e.start(0.0))
+    play(e, s, [(0.0, CC(101, 0, ch=1)), (0.0, CC(100, 0, ch=1)), (0.0, CC(6, 48, ch=1)),
+                (0.0, CC(38, 50, ch=1)),
+                (0.1, ON(60, 80, ch=0)), (0.1, ON(48, 80, ch=1)),
+                (0.2, mido.Message("pitchwheel", channel=1, pitch=8191))])
+    assert e.stats["range_widenings"] >= 1
+    (c,) = [c for c in UPPER[2] if s.voices[c]]
+    v = s.voices[c][0]
+    want = 4800.0 + 4850.0 * 8191 / 8192          # key 48 plus the full wheel at 48.5 semitones
+    assert s.pitch(c, v) == pytest.approx(want, abs=0.5)
+    assert s.problems == []

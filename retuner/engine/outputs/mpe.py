@@ -152,9 +152,7 @@ class MPEMode(BendMode):
         else:
             self.zones = [Zone(s.manager, s.members, s.channels)]
             self.zone_of_part = {}
-        first = self.zones[0]
-        self.manager = first.manager        # (the one zone's, when the zone holds every part)
-        self.members = list(first.members)
+        self.manager = self.zones[0].manager    # (the one zone's, when the zone holds every part)
 
     def zone_of(self, ch: int) -> Zone:
         """The zone of input channel ``ch`` (a channel that plays no note of its own goes with
@@ -323,7 +321,8 @@ class MPEMode(BendMode):
 
     # ------------------------------------------------------------------ settings
     def range_channels(self) -> list[int]:
-        return list(self.members)
+        # every member of every zone (zones of their own: each part's)
+        return [c for z in self.zones for c in z.members]
 
     def reconfigure_extra(self, config: Any, old: Any, range_changed: bool, out: list) -> None:
         if config.mpe_manager_range != old.mpe_manager_range or range_changed:
