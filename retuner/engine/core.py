@@ -546,21 +546,15 @@ class Engine:
         # voice leading: the held notes the new ones are taken to replace are about to end,
         # so they stay out of the solve (they keep their pitch); see engine/attack.py
         ending = attack.ending(held, new_notes, pend, t) if attack is not None else ()
+        asked = [h for h, n in zip(held_in, held) if id(n) not in ending] if ending else held_in
         try:
-            if ending:
-                keep = [id(n) not in ending for n in held]
-                kept, new_cents = solver.solve(held=[h for h, k in zip(held_in, keep) if k],
-                                               new=[n.in_key for n in new_notes], t=t, part=new_notes[0].in_ch)
-                kept = list(kept)
-                if len(kept) == sum(keep):
-                    it = iter(kept)
-                    held_new = [next(it) if k else n.cents for n, k in zip(held, keep)]
-                else:
-                    held_new = kept   # a short answer: caught below
-            else:
-                held_new, new_cents = solver.solve(held=held_in, new=[n.in_key for n in new_notes],
-                                                   t=t, part=new_notes[0].in_ch)
+            held_new, new_cents = solver.solve(held=asked, new=[n.in_key for n in new_notes],
+                                               t=t, part=new_notes[0].in_ch)
             held_new, new_cents = list(held_new), list(new_cents)
+            if ending and len(held_new) == len(asked):
+                # the notes left out keep their pitch (a short answer is caught below)
+                it = iter(held_new)
+                held_new = [n.cents if id(n) in ending else next(it) for n in held]
         except Exception:  # the engine must never die on a solver failure
             log.exception("adaptive solver failed: the chord keeps static pitches")
             held_new, new_cents = [], []
