@@ -3,8 +3,14 @@
 For each daemon (this checkout, and with ``--against REPO`` another checkout run by
 ``--against-python``) and each of static and adaptive (default attack mode) play:
 
-* ``idle_cpu_percent``: CPU time of the idle daemon (utime + stime from /proc/PID/stat, proc(5))
-  over ``idle`` seconds, in percent of one core;
+* ``idle_cpu_percent``: CPU time of the idle daemon over ``idle`` seconds, in percent of one core:
+  the sum over its threads of their time on a CPU in nanoseconds (/proc/PID/task/TID/schedstat,
+  first field: the kernel's scheduler statistics documentation), as a thread that runs for
+  microseconds a period is seldom caught by the clock ticks of /proc/PID/stat (which serve where
+  schedstat is missing); with ``turns`` above 1 the checkouts take turns, each play measured
+  ``turns`` times, and the figure is the median (``idle_cpu_turns`` has each);
+* ``period``: where the checkout's JACK backend does each period's work, ``C`` (its compiled
+  part is there) or ``Python``;
 * note-on latency from a measuring client of our own (JACK-Client): its process callback writes a
   note-on at the start of a period and finds the retuned note-on on its input some periods later.
   ``latency_periods`` counts those periods (JACK time, exact); ``latency_ms`` is the same span in
@@ -18,6 +24,7 @@ Figures, not goals: they depend on the machine and its load.
 
 from __future__ import annotations
 
+import glob
 import os
 import shutil
 import statistics
@@ -33,10 +40,26 @@ from retuner.errors import Unavailable
 from retuner.live import jackmidi
 
 
-def _cpu_ticks(pid: int) -> int:
-    with open(f"/proc/{pid}/stat") as fh:
-        fields = fh.read().rsplit(")", 1)[1].split()
-    return int(fields[11]) + int(fields[12])          # utime, stime (proc(5))
+def _cpu_seconds(pid: int) -> float:
+    """CPU time of a process so far: its threads' schedstat, else its clock ticks."""
+    try:
+        total = 0
+        for tid in os.listdir(f"/proc/{pid}/task"):
+            try:
+                with open(f"/proc/{pid}/task/{tid}/schedstat") as fh:
+                    total += int(fh.read().split()[0])
+            except FileNotFoundError:                 # a thread that ended meanwhile
+                continue
+        return total / 1e9
+    except (OSError, ValueError, IndexError):
+        with open(f"/proc/{pid}/stat") as fh:
+            fields = fh.read().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")   # utime, stime (proc(5))
+
+
+def period_word(repo: str) -> str:
+    """``C`` when the checkout's JACK backend has its compiled part, else ``Python``."""
+    return "C" if glob.glob(os.path.join(repo, "retuner", "live", "_jackcycle*.so")) else "Python"
 
 
 
@@ -174,11 +197,10 @@ def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: 
         meter.client.connect(outs[0], meter.inp)
         fig["ports"] = ins + outs
         time.sleep(2.0)                                   # settle after start-up
-        hz = os.sysconf("SC_CLK_TCK")
-        c0, t0 = _cpu_ticks(proc.pid), time.monotonic()
+        c0, t0 = _cpu_seconds(proc.pid), time.monotonic()
         time.sleep(idle)
-        c1, t1 = _cpu_ticks(proc.pid), time.monotonic()
-        fig["idle_cpu_percent"] = round(100.0 * (c1 - c0) / hz / (t1 - t0), 2)
+        c1, t1 = _cpu_seconds(proc.pid), time.monotonic()
+        fig["idle_cpu_percent"] = round(100.0 * (c1 - c0) / (t1 - t0), 3)
         frames, periods, wall = [], [], []
         for i in range(notes):
             r = meter.note(48 + i % 36)
@@ -205,8 +227,9 @@ def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: 
 
 
 def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = None,
-               against_python: Optional[str] = None) -> dict:
-    """Figures for this checkout (``new``) and, with ``against``, another one (``old``)."""
+               against_python: Optional[str] = None, turns: int = 1) -> dict:
+    """Figures for this checkout (``new``) and, with ``against``, another one (``old``); with
+    ``turns`` above 1 they take turns, every play measured ``turns`` times."""
     here = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
     server = _Server()
     try:
@@ -215,17 +238,44 @@ def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = 
         probe.close()
         out: dict = {"server": os.environ.get("JACK_DEFAULT_SERVER", "default"), "sample_rate": rate,
                      "period_frames": period, "period_ms": round(1000.0 * period / rate, 3),
-                     "idle_s": idle}
+                     "idle_s": idle, "turns": turns}
         runs = [("new", sys.executable, here)]
         if against:
             runs.append(("old", against_python or sys.executable, os.path.abspath(against)))
+        got: dict = {(label, play): [] for label, _, _ in runs for play in ("static", "adaptive")}
+        for _ in range(turns):
+            for label, python, repo in runs:
+                for play in ("static", "adaptive"):
+                    got[(label, play)].append(_one(python, repo, play == "adaptive", idle, notes, rate, period))
         for label, python, repo in runs:
-            out[label] = {"repo": repo, "python": python}
+            out[label] = {"repo": repo, "python": python, "period": period_word(repo)}
             for play in ("static", "adaptive"):
-                out[label][play] = _one(python, repo, play == "adaptive", idle, notes, rate, period)
+                out[label][play] = _merge(got[(label, play)])
         return out
     finally:
         server.stop()
+
+
+def _merge(figs: list) -> dict:
+    """One play's turns as one figure: the median idle CPU (each turn's kept); of the latencies,
+    the median of the turns' medians and the largest of their maxima."""
+    bad = [f for f in figs if "error" in f]
+    if bad:
+        return bad[0]
+    if len(figs) == 1:
+        return dict(figs[0], idle_cpu_turns=[figs[0]["idle_cpu_percent"]])
+    merged = dict(figs[0])
+    turns = [f["idle_cpu_percent"] for f in figs]
+    merged["idle_cpu_percent"] = round(statistics.median(turns), 3)
+    merged["idle_cpu_turns"] = turns
+    merged["notes"] = sum(f["notes"] for f in figs)
+    merged["notes_back"] = sum(f["notes_back"] for f in figs)
+    for key in ("latency_ms", "latency_periods", "wall_ms"):
+        have = [f[key] for f in figs if key in f]
+        if have:
+            merged[key] = {"median": statistics.median(h["median"] for h in have),
+                           "max": max(h["max"] for h in have)}
+    return merged
 
 
 def format_jack_bench(f: dict) -> str:
@@ -243,6 +293,9 @@ def format_jack_bench(f: dict) -> str:
             text = (f"note-on in->out median {lat['median']} ms = {r['latency_periods']['median']:g} periods "
                     f"(max {lat['max']} ms = {r['latency_periods']['max']:g}), wall clock median "
                     f"{r['wall_ms']['median']} ms" if lat else "no note-on came back")
-            lines.append(f"{label} {play}: idle {r['idle_cpu_percent']} % of a core; {text} "
-                         f"({r['notes_back']}/{r['notes']} notes); ports {', '.join(r['ports'])}")
+            turns = r.get("idle_cpu_turns", [])
+            each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
+            lines.append(f"{label} {play}: idle {r['idle_cpu_percent']:g} % of a core{each}, periods in "
+                         f"{f[label]['period']}; {text} ({r['notes_back']}/{r['notes']} notes); "
+                         f"ports {', '.join(r['ports'])}")
     return "\n".join(lines)

@@ -47,6 +47,9 @@ def add_arguments(parser):
                         help="with --jack: how long the idle daemon is measured (default 10)")
     parser.add_argument("--notes", type=int, default=50, metavar="N",
                         help="with --jack: note-ons timed in each play (default 50)")
+    parser.add_argument("--turns", type=int, default=1, metavar="N",
+                        help="with --jack: measure each play N times, the checkouts taking turns, and give "
+                             "the median idle CPU (default 1)")
     parser.add_argument("--against", metavar="REPO",
                         help="with --jack: also measure the daemon of another checkout, in the same run")
     parser.add_argument("--against-python", metavar="PYTHON",
@@ -86,10 +89,10 @@ def _files_bench(args) -> int:
 
 def _jack_bench(args) -> int:
     from retuner.bench.jacklive import format_jack_bench, jack_bench   # lazy: it loads JACK-Client
-    if args.idle <= 0 or args.notes < 1:
-        raise RetunerError("--idle must be above 0 and --notes at least 1", field="--jack")
+    if args.idle <= 0 or args.notes < 1 or args.turns < 1:
+        raise RetunerError("--idle must be above 0, --notes and --turns at least 1", field="--jack")
     figs = jack_bench(idle=args.idle, notes=args.notes, against=args.against,
-                      against_python=args.against_python)
+                      against_python=args.against_python, turns=args.turns)
     if args.json:
         print_json(figs)
     else:

@@ -6,19 +6,14 @@ PipeWire's JACK layer. cffi releases Python's global interpreter lock around eve
 closing a port or the client (which waits for the process cycle in progress) can never deadlock
 with a process callback that waits for that lock.
 
-Threads
+Periods
 -------
-JACK calls the process callback (:meth:`_Client._process_callback`) once every period on its own thread. It
-
-* writes what the engine sent since the last cycle (a deque of bytes) into the out port, at the
-  start of the period (an event the buffer has no room for waits for the next cycle), and
-* parses what arrived on the in port and hands each message to the input's callback (the daemon
-  then stamps it, queues it and wakes its engine thread: no polling anywhere).
-
-So a note-on that arrives in one period goes out, retuned, in the next one. When nothing
-happens the process callback only clears the out buffer and finds no input: that is the whole
-idle cost of the backend. Ports being closed are taken out of its reach under a lock that is
-held elsewhere only while a list of ports changes (never across a JACK call), then unregistered.
+JACK calls the client's process callback once every period on its own thread; what it does there is
+retuner.live.jackcycle's: in C when that was built at install, else in Python, the same either way.
+It writes what the engine sent since the last period into the out port and hands what arrived on
+the in port to the input's callback (the daemon then stamps it, queues it and wakes its engine
+thread: no polling anywhere). So a note-on that arrives in one period goes out, retuned, in the
+next one. A port being closed is first taken out of the period's reach, then unregistered.
 
 Server gone
 -----------
@@ -30,7 +25,6 @@ the same process right after a server stopped was seen to list no ports at times
 
 from __future__ import annotations
 
-import collections
 import importlib.machinery
 import importlib.util
 import logging
@@ -40,8 +34,9 @@ import threading
 import time
 from typing import Callable, Optional
 
+from retuner.live import jackcycle
 from retuner.live.backend import (Callback, ErrorCallback, InputHandle, OutputHandle, PortBackend,
-                                  deliver, quiet_library)
+                                  quiet_library)
 
 log = logging.getLogger("retuner.live.jackmidi")
 
@@ -101,63 +96,31 @@ def server_running() -> bool:
 class _Client:
     """One open JACK client and its ports; the process and shutdown callbacks run here."""
 
-    def __init__(self, name: str, on_lost: Optional[Callable[[], None]] = None):
+    def __init__(self, name: str, on_lost: Optional[Callable[[], None]] = None, period: Optional[str] = None):
         self.jack = jack_module()
-        self._lib = self.jack._lib              # libjack through cffi (JACK-Client's own handle)
-        self._ffi = self.jack._ffi
-        self._event = self._ffi.new("jack_midi_event_t*")
         self.on_lost = on_lost
         self.client = open_client(name)
         self.name = self.client.name
         self.dead = False
-        self._lock = threading.Lock()          # taken by the process callback and by port changes
-        self.inputs: list = []                 # (port pointer, callback, on_error)
-        self.outputs: list = []                # (port pointer, deque of bytes)
-        self.cycles = 0                        # process cycles run (a drain waits on it)
         self.active = False                    # activated with the first port: a client that only
         #                                        lists ports costs nothing per period
-        self.client.set_process_callback(self._process_callback())
+        self.period = jackcycle.choose(self.jack, period)
+        self.period.install(self.client)
         self.client.set_shutdown_callback(self._shutdown)
+        if self.period.word == "native" or jackcycle.library() is not None:
+            log.debug("JACK client %s: each period runs in %s", self.name,
+                      "C" if self.period.word == "native" else "Python")
+        else:
+            log.info("JACK client %s: each period runs in Python, as retuner was installed without a C "
+                     "compiler (apt-get install gcc libc6-dev, then install retuner again: about half "
+                     "the idle CPU)", self.name)
+
+    @property
+    def periods(self) -> int:
+        """Periods run so far (a drain waits on it)."""
+        return self.period.periods
 
     # --------------------------------------------------------------- JACK's threads
-    def _process_callback(self) -> Callable[[int], None]:
-        """The process callback: one period's work, with everything it uses bound beforehand.
-
-        libjack is called directly (cffi), with the port pointers kept at registration and the
-        period's ``frames``: JACK-Client's port methods ask the server for the buffer size on
-        every call and build a generator per port. An idle period costs one lock and four C calls
-        (each output's buffer and its clear, each input's buffer and its event count)."""
-        lib, ffi, event = self._lib, self._ffi, self._event
-        get, clear = lib.jack_port_get_buffer, lib.jack_midi_clear_buffer
-        write, count, take = lib.jack_midi_event_write, lib.jack_midi_get_event_count, lib.jack_midi_event_get
-        acquire, release = self._lock.acquire, self._lock.release   # held elsewhere only to change
-        me = self                                                   # the port tables, never across a JACK call
-
-        def process(frames: int) -> None:
-            acquire()
-            try:
-                for ptr, queue in me.outputs:
-                    buf = get(ptr, frames)
-                    clear(buf)                    # every period, before any write (JACK MIDI API)
-                    while queue:
-                        data = queue[0]
-                        if write(buf, 0, data, len(data)):
-                            break                 # no room left in this period's buffer
-                        queue.popleft()
-                for ptr, callback, on_error in me.inputs:
-                    buf = get(ptr, frames)
-                    n = count(buf)
-                    for i in range(n):
-                        if take(event, buf, i):
-                            break
-                        deliver(ffi.buffer(event.buffer, event.size)[:], callback, on_error)
-                me.cycles += 1
-            except Exception:  # noqa: BLE001 - an exception here would make JACK drop the client
-                pass
-            finally:
-                release()
-        return process
-
     def _shutdown(self, status, reason) -> None:
         self.dead = True
         log.warning("the JACK server stopped (%s)", reason)
@@ -182,13 +145,9 @@ class _Client:
                 raise
         return port
 
-    def attach(self, table: list, entry: tuple) -> None:
-        with self._lock:
-            table.append(entry)
-
-    def detach(self, table: list, port) -> None:
-        with self._lock:
-            table[:] = [e for e in table if e[0] != port._ptr]
+    def detach(self, key, port) -> None:
+        """Take a port out of the period's reach, then unregister it."""
+        self.period.remove(key, live=self.active and not self.dead)
         if not self.dead:
             try:
                 port.unregister()
@@ -202,15 +161,15 @@ class _Client:
                                                       is_output=not is_input)]
 
     def close(self) -> None:
-        with self._lock:
-            self.inputs.clear()
-            self.outputs.clear()
+        self.period.close()
         try:
             if self.active and not self.dead:
                 self.client.deactivate()
             self.client.close()
         except Exception as exc:  # noqa: BLE001 - teardown
             log.debug("closing the JACK client: %s", exc)
+            return
+        self.period.release()                  # JACK calls the period no more
 
 
 class JackInput(InputHandle):
@@ -220,56 +179,55 @@ class JackInput(InputHandle):
         self.connected_to = connect_to
         self._port = owner.register("in", port_name, connect_to)
         self.name = self._port.name
-        owner.attach(owner.inputs, (self._port._ptr, callback, on_error))
+        self._key = owner.period.add_input(self._port._ptr, callback, on_error)
         self.closed = False
 
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
-        self._owner.detach(self._owner.inputs, self._port)
+        self._owner.detach(self._key, self._port)
 
 
 class JackOutput(OutputHandle):
-    """``send(msg)`` queues the bytes; the next process cycle writes them to the port."""
+    """``send(msg)`` queues the bytes; the next period writes them to the port."""
 
     def __init__(self, owner: _Client, port_name: str, connect_to: Optional[str]):
         self._owner = owner
         self.connected_to = connect_to
         self._port = owner.register("out", port_name, connect_to)
         self.name = self._port.name
-        self._queue: collections.deque = collections.deque()
-        owner.attach(owner.outputs, (self._port._ptr, self._queue))
+        self._queue = owner.period.add_output(self._port._ptr)
         self.closed = False
 
     def send(self, msg) -> None:
         if self._owner.dead:
             raise ConnectionError("the JACK server stopped")
-        self._queue.append(bytes(msg.bytes()))
+        self._queue.send(bytes(msg.bytes()))
 
     def drain(self, timeout: float = 2.0) -> bool:
         """Wait until what was sent has been written out in a process cycle, and one more cycle
         has begun (so every client connected has read it). False after ``timeout`` seconds."""
         owner = self._owner
         end = time.monotonic() + timeout
-        while self._queue and not owner.dead:
+        while self._queue.queued() and not owner.dead:
             if time.monotonic() > end:
                 log.debug("the output did not drain within %.1f s", timeout)
                 return False
             time.sleep(0.0005)
-        seen = owner.cycles
-        while owner.cycles < seen + 2 and not owner.dead:
+        seen = owner.periods
+        while owner.periods < seen + 2 and not owner.dead:
             if time.monotonic() > end:
                 return False
             time.sleep(0.0005)
-        return not self._queue
+        return not self._queue.queued()
 
     def close(self) -> None:
         if self.closed:
             return
         self.closed = True
         self.drain()
-        self._owner.detach(self._owner.outputs, self._port)
+        self._owner.detach(self._queue.key, self._port)
 
 
 class JackBackend(PortBackend):
@@ -281,8 +239,10 @@ class JackBackend(PortBackend):
 
     word = "jack"
 
-    def __init__(self, base: str = "retuner", *, error: Optional[Callable[[Exception, str], Exception]] = None):
+    def __init__(self, base: str = "retuner", *, error: Optional[Callable[[Exception, str], Exception]] = None,
+                 period: Optional[str] = None):
         self.base = base
+        self.period = period                   # a word of jackcycle.PERIODS, or None: the best there is
         self._error = error or (lambda exc, what: RuntimeError(f"{what}: {exc}"))
         self._lock = threading.RLock()
         self._client: Optional[_Client] = None
@@ -298,7 +258,8 @@ class JackBackend(PortBackend):
                 self._client = None
             if self._client is None:
                 try:
-                    self._client = _Client(name or self.base, lambda: self.on_server_lost and self.on_server_lost())
+                    self._client = _Client(name or self.base, lambda: self.on_server_lost and self.on_server_lost(),
+                                           self.period)
                 except JackUnavailable as exc:
                     raise self._error(exc, "cannot open the jack MIDI system") from exc
             return self._client
