@@ -1,0 +1,256 @@
+"""What retuner does on a real ALSA sequencer, gathered inside the virtual machine of tests/alsavm.py
+and printed as one JSON object for the tests on the host (tests/live/test_alsa_vm.py) to check.
+
+Run as ``python tests/alsaprobe.py`` from the checkout, on a machine with ``/dev/snd/seq``. It
+observes and records; it judges nothing (the checks, and the values they compare with, are on the
+host side). Every step records its own error, so one failure does not hide what the others saw.
+
+Steps:
+- ``listing``: retuner's backend choice (``choose_backend("auto")``), ``retuner ports --json``, and
+  python-rtmidi's own lists of the sequencer's ports, with no daemon running;
+- ``virtual``: ``retuner run --virtual --backend alsa --profile meantone-quarter`` up (readiness
+  through a notify socket, sd_notify(3)), the port lists (python-rtmidi, ``aconnect -l``,
+  ``aconnect -i``, ``aconnect -o`` when alsa-utils is there, ``retuner ports --json``) while it
+  runs; then a client of ours, connected to its ``in`` and ``out`` ports through the sequencer,
+  plays notes after a pause longer than the daemon's set-up refresh (so the set-up is sent again
+  to the newly connected client before the first note), holds one, and stops the daemon with
+  SIGTERM: everything received, in order, as bytes;
+- ``named``: our own ports first (a keyboard ``probe-keys`` and a synth ``probe-synth``), then
+  ``retuner run --input probe-keys --output probe-synth``: retuner connects to them by name; a note
+  played and what came back.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import threading
+import time
+import traceback
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+REPO = os.path.dirname(HERE)
+sys.path.insert(0, HERE)
+
+import rtmidi  # noqa: E402
+
+from jack import NotifySocket  # noqa: E402
+
+PROFILE = "meantone-quarter"
+READY_TIMEOUT = 120.0        # seconds: the machine may be emulated (TCG), ten times slower than the host
+REFRESH_PAUSE = 2.5          # seconds: longer than the daemon's set-up refresh (max(setup_refresh 1 s, release 2 s))
+
+
+def retuner(*args, env, timeout=120.0):
+    r = subprocess.run([sys.executable, "-m", "retuner", *args], capture_output=True, text=True,
+                       timeout=timeout, env=env, cwd=REPO)
+    return {"returncode": r.returncode, "stdout": r.stdout, "stderr": r.stderr}
+
+
+def tool(*argv):
+    if shutil.which(argv[0]) is None:
+        return None
+    r = subprocess.run(list(argv), capture_output=True, text=True, timeout=30)
+    return r.stdout + r.stderr
+
+
+def rtmidi_lists():
+    # fresh clients of our own, as any other program would list the sequencer's ports
+    mi = rtmidi.MidiIn(rtmidi.API_LINUX_ALSA, "probe-list")
+    mo = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-list")
+    try:
+        return {"readable": mi.get_ports(), "writable": mo.get_ports()}
+    finally:
+        mi.delete()
+        mo.delete()
+
+
+class Recorder:
+    """An ALSA input of ours; records every message's bytes with the time it came."""
+
+    def __init__(self, client: str):
+        self.midi = rtmidi.MidiIn(rtmidi.API_LINUX_ALSA, client)
+        self.midi.ignore_types(sysex=False, timing=False, active_sense=True)
+        self.got: list[tuple[float, list[int]]] = []
+        self._lock = threading.Lock()
+        self.midi.set_callback(self._on)
+
+    def _on(self, event, data=None):
+        with self._lock:
+            self.got.append((time.monotonic(), list(event[0])))
+
+    def messages(self):
+        with self._lock:
+            return list(self.got)
+
+    def wait(self, predicate, timeout=20.0):
+        end = time.monotonic() + timeout
+        while time.monotonic() < end:
+            if predicate(self.messages()):
+                return True
+            time.sleep(0.01)
+        return False
+
+    def close(self):
+        self.midi.cancel_callback()
+        self.midi.close_port()
+        self.midi.delete()
+
+
+def port_index(rt, prefix: str) -> int:
+    for i, name in enumerate(rt.get_ports()):
+        if name.startswith(prefix):
+            return i
+    raise LookupError(f"no port {prefix!r} in {rt.get_ports()}")
+
+
+def note_on_count(msgs, key=None):
+    return sum(1 for _, b in msgs if len(b) == 3 and b[0] & 0xF0 == 0x90 and b[2] > 0
+               and (key is None or b[1] == key))
+
+
+class Daemon:
+    def __init__(self, args, env, log_path):
+        self.notify = NotifySocket(log_path + ".notify")
+        env = dict(env, NOTIFY_SOCKET=self.notify.path)
+        self.log_path = log_path
+        self._log = open(log_path, "wb")
+        self.started = time.monotonic()
+        self.proc = subprocess.Popen([sys.executable, "-m", "retuner", "run", *args], stdout=self._log,
+                                     stderr=subprocess.STDOUT, env=env, cwd=REPO)
+        self.ready_after = None
+        end = time.monotonic() + READY_TIMEOUT
+        while time.monotonic() < end and self.proc.poll() is None:
+            if "READY=1" in self.notify.lines():
+                self.ready_after = time.monotonic() - self.started
+                break
+            time.sleep(0.02)
+
+    def log(self):
+        with open(self.log_path, errors="replace") as fh:
+            return fh.read()
+
+    def stop(self):
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGTERM)
+            try:
+                self.proc.wait(30)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait(10)
+        self._log.close()
+        self.notify.close()
+        return self.proc.returncode
+
+
+def step(report, name, fn):
+    try:
+        report[name] = fn()
+    except Exception:  # noqa: BLE001 - recorded for the host to show
+        report.setdefault("errors", {})[name] = traceback.format_exc()
+
+
+def listing(env):
+    from retuner.live import ports
+    return {"seq_device": os.path.exists("/dev/snd/seq"),
+            "choose_auto": ports.choose_backend("auto"),
+            "ports_json": retuner("ports", "--json", env=env),
+            "rtmidi": rtmidi_lists()}
+
+
+def virtual(env, work):
+    out = {}
+    d = Daemon(["--virtual", "--backend", "alsa", "--profile", PROFILE, "--no-control-socket", "-v"],
+               env, os.path.join(work, "virtual.log"))
+    try:
+        out["ready_after"] = d.ready_after
+        if d.ready_after is None:
+            out["log"] = d.log()
+            return out
+        out["rtmidi"] = rtmidi_lists()
+        out["aconnect_l"] = tool("aconnect", "-l")
+        out["aconnect_i"] = tool("aconnect", "-i")
+        out["aconnect_o"] = tool("aconnect", "-o")
+        out["ports_json"] = retuner("ports", "--json", env=env)
+        keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-play")
+        keys.open_port(port_index(keys, "retuner-in:in"), "play")
+        rec = Recorder("probe-record")
+        rec.midi.open_port(port_index(rec.midi, "retuner-out:out"), "record")
+        # the set-up went out when the daemon started, before we were connected; before the first
+        # note after a pause, a daemon with its own out port sends it again
+        time.sleep(max(0.0, REFRESH_PAUSE - (time.monotonic() - d.started - d.ready_after)))
+        played = []
+        for key in (64, 60):                  # E4, C4: played and released one after the other
+            played.append([0x90, key, 100])
+            keys.send_message([0x90, key, 100])
+            rec.wait(lambda m, k=key: note_on_count(m, k) >= 1)
+            played.append([0x80, key, 0])
+            keys.send_message([0x80, key, 0])
+        held = 69                             # A4, held while the daemon stops
+        played.append([0x90, held, 100])
+        keys.send_message([0x90, held, 100])
+        out["held_arrived"] = rec.wait(lambda m: note_on_count(m, held) >= 1)
+        out["before_stop"] = len(rec.messages())
+        out["returncode"] = d.stop()
+        time.sleep(0.5)                       # what the sequencer still delivers
+        out["played"] = played
+        out["received"] = rec.messages()
+        out["log"] = d.log()
+        rec.close()
+        keys.delete()
+    finally:
+        d.stop()
+        out.setdefault("log", d.log())
+    return out
+
+
+def named(env, work):
+    out = {}
+    keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
+    keys.open_virtual_port("keys")
+    rec = Recorder("probe-synth")
+    rec.midi.open_virtual_port("synth")
+    d = Daemon(["--input", "probe-keys", "--output", "probe-synth", "--backend", "alsa",
+                "--profile", PROFILE, "--no-control-socket", "-v"], env, os.path.join(work, "named.log"))
+    try:
+        out["ready_after"] = d.ready_after
+        if d.ready_after is None:
+            return out
+        out["setup_arrived"] = rec.wait(lambda m: len(m) > 0)
+        out["aconnect_l"] = tool("aconnect", "-l")
+        keys.send_message([0x90, 64, 100])
+        rec.wait(lambda m: note_on_count(m, 64) >= 1)
+        keys.send_message([0x80, 64, 0])
+        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
+                               for _, b in m if len(b) == 3 and b[1] == 64))
+        out["returncode"] = d.stop()
+        out["received"] = rec.messages()
+    finally:
+        d.stop()
+        out["log"] = d.log()
+        rec.close()
+        keys.close_port()
+        keys.delete()
+    return out
+
+
+def main():
+    work = "/tmp/alsaprobe"
+    os.makedirs(work, exist_ok=True)
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("JACK_", "NOTIFY_", "JOURNAL_"))}
+    env["XDG_CONFIG_HOME"] = os.path.join(work, "config")     # no user config, no user profiles
+    env["XDG_RUNTIME_DIR"] = os.path.join(work, "run")
+    os.makedirs(env["XDG_RUNTIME_DIR"], mode=0o700, exist_ok=True)
+    report = {}
+    step(report, "listing", lambda: listing(env))
+    step(report, "virtual", lambda: virtual(env, work))
+    step(report, "named", lambda: named(env, work))
+    json.dump(report, sys.stdout)
+
+
+if __name__ == "__main__":
+    main()

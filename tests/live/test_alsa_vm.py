@@ -1,0 +1,199 @@
+"""retuner's ALSA backend (python-rtmidi on the ALSA sequencer) on a real sequencer, in a small
+virtual machine with Debian's kernel and its sequencer modules (tests/alsavm.py): this machine's own
+kernel may have none. tests/alsaprobe.py runs inside and records what happened; the checks are here.
+
+Values compared with come from outside retuner: the ALSA names python-rtmidi and alsa-utils'
+``aconnect`` print, the port names README.md states, the sequencer's "Midi Through" client that the
+kernel's snd-seq-dummy module makes, quarter-comma meantone from its published definition
+(tests/temperaments.py), and MIDI 1.0 decoding (tests/jack.py ``Decoder``: 14-bit pitch bend centred
+at 8192, RPN 0 pitch bend sensitivity, default range 2 semitones; a note-on with velocity 0 and All
+Notes Off end notes). A missing qemu, kernel or busybox fails the tests: nothing is skipped.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import sys
+
+import mido
+import pytest
+
+import alsavm
+from jack import Decoder
+from temperaments import MEANTONE, half_step
+
+REPO = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+THROUGH = "Midi Through"        # the client snd-seq-dummy makes (Linux sound/core/seq/seq_dummy.c)
+
+
+@pytest.fixture(scope="module")
+def seen():
+    """The probe's report, from one boot of the machine for the whole module."""
+    try:
+        result = alsavm.run([sys.executable, os.path.join(REPO, "tests", "alsaprobe.py")], cwd=REPO,
+                            timeout=900)
+    except alsavm.VMError as exc:
+        pytest.fail(f"the virtual machine with an ALSA sequencer could not run: {exc}", pytrace=False)
+    if result.returncode != 0:
+        pytest.fail(f"the probe exited with {result.returncode} inside the machine:\n{result.stderr[-4000:]}",
+                    pytrace=False)
+    report = json.loads(result.stdout)
+    report["machine"] = {"seconds": result.seconds, "accel": result.accel}
+    print(f"\nvirtual machine ({result.accel}): {result.seconds:.1f} s")
+    return report
+
+
+def part(seen, name):
+    errors = seen.get("errors", {})
+    assert name not in errors, f"the probe's step {name!r} failed inside the machine:\n{errors[name]}"
+    return seen[name]
+
+
+def readme_alsa_names() -> list[str]:
+    text = open(os.path.join(REPO, "README.md"), encoding="utf-8").read()
+    m = re.search(r"ALSA has a client for each\s+side: `([^`]+)`, `([^`]+)`", text)
+    assert m, "README.md no longer states the ALSA port names where this test looks for them"
+    return [m.group(1), m.group(2)]
+
+
+def aconnect_clients(text: str) -> dict[str, list[str]]:
+    """``aconnect -l``/``-i``/``-o`` output (alsa-utils): client name -> its port names."""
+    assert text is not None, "aconnect is not installed (apt-get install alsa-utils)"
+    clients: dict[str, list[str]] = {}
+    current = None
+    for line in text.splitlines():
+        m = re.match(r"client \d+: '([^']*)'", line)
+        if m:
+            current = clients.setdefault(m.group(1), [])
+            continue
+        m = re.match(r"\s+\d+ '([^']*)'", line)
+        if m and current is not None:
+            current.append(m.group(1).strip())
+    return clients
+
+
+def decoded(received) -> tuple[Decoder, list]:
+    d = Decoder()
+    msgs = []
+    for t, data in received:
+        msg = mido.Message.from_bytes(data)
+        msgs.append(msg)
+        d.feed(t, msg)
+    return d, msgs
+
+
+def without_numbers(name: str) -> str:
+    # python-rtmidi's ALSA names end in " client:port"
+    return re.sub(r"\s+\d+:\d+$", "", name)
+
+
+# ------------------------------------------------------------------ the helper itself
+def test_a_missing_qemu_or_kernel_is_an_error_not_a_skip(tmp_path):
+    with pytest.raises(alsavm.VMError, match="apt-get install"):
+        alsavm.qemu(path=str(tmp_path))
+    with pytest.raises(alsavm.VMError, match="apt-get install"):
+        alsavm.kernel(boot=str(tmp_path), modules=str(tmp_path))
+
+
+def test_modules_come_after_their_dependencies(tmp_path):
+    # a made-up modules.dep in the kernel's own layout ("path: dependency ..."), out of order
+    top = tmp_path / "9.9"
+    top.mkdir()
+    (top / "modules.dep").write_text("kernel/a/snd-seq-dummy.ko: kernel/a/snd-seq.ko kernel/a/snd.ko\n"
+                                     "kernel/a/snd-seq.ko: kernel/a/snd.ko kernel/a/snd-timer.ko\n"
+                                     "kernel/a/snd-timer.ko: kernel/a/snd.ko\n"
+                                     "kernel/a/snd.ko:\n")
+    (top / "modules.builtin").write_text("kernel/a/soundcore.ko\n")
+    names = [p.name for p in alsavm.load_order("9.9", ["snd-seq-dummy", "soundcore"], modules=str(tmp_path))]
+    assert names == ["snd.ko", "snd-timer.ko", "snd-seq.ko", "snd-seq-dummy.ko"]
+
+
+# ------------------------------------------------------------------ inside the machine
+def test_auto_picks_alsa_when_the_sequencer_is_there(seen):
+    listing = part(seen, "listing")
+    assert listing["seq_device"], "no /dev/snd/seq inside the machine"
+    assert listing["choose_auto"] == "alsa"
+    r = listing["ports_json"]
+    assert r["returncode"] == 0, r["stderr"]
+    shown = json.loads(r["stdout"])
+    assert shown["backend"] == "alsa"
+    through = [n for n in listing["rtmidi"]["readable"] if n.startswith(THROUGH)]
+    assert through, listing["rtmidi"]
+    # retuner lists the sequencer's ports as python-rtmidi names them
+    assert shown["sources"] == listing["rtmidi"]["readable"]
+    assert shown["destinations"] == listing["rtmidi"]["writable"]
+    assert shown["own_in"] == shown["own_out"] == []
+
+
+def test_run_virtual_opens_the_ports_readme_names(seen):
+    run = part(seen, "virtual")
+    assert run["ready_after"] is not None, "the daemon never said READY=1:\n" + run["log"][-3000:]
+    in_name, out_name = readme_alsa_names()            # retuner-in:in, retuner-out:out
+    (in_client, in_port), (out_client, out_port) = in_name.split(":"), out_name.split(":")
+    # alsa-utils: every client and port; -i readable ones (sources), -o writable ones (destinations)
+    every = aconnect_clients(run["aconnect_l"])
+    assert every.get(in_client) == [in_port] and every.get(out_client) == [out_port], run["aconnect_l"]
+    assert out_client in aconnect_clients(run["aconnect_i"]) and in_client not in aconnect_clients(run["aconnect_i"])
+    assert in_client in aconnect_clients(run["aconnect_o"]) and out_client not in aconnect_clients(run["aconnect_o"])
+    # python-rtmidi: "client:port N:M"
+    readable = [without_numbers(n) for n in run["rtmidi"]["readable"]]
+    writable = [without_numbers(n) for n in run["rtmidi"]["writable"]]
+    assert out_name in readable and in_name in writable
+    # retuner ports sorts them as the daemon's own
+    shown = json.loads(run["ports_json"]["stdout"])
+    assert [without_numbers(n) for n in shown["own_in"]] == [in_name]
+    assert [without_numbers(n) for n in shown["own_out"]] == [out_name]
+    assert not any(n.startswith("retuner") for n in shown["sources"] + shown["destinations"])
+
+
+def test_notes_through_the_alsa_ports_are_bent_to_quarter_comma_meantone(seen):
+    run = part(seen, "virtual")
+    assert run["received"], "nothing came out of retuner-out:out:\n" + run["log"][-3000:]
+    d, msgs = decoded(run["received"])
+    played = [m[1] for m in run["played"] if m[0] == 0x90]
+    notes = {n.key: n for n in d.notes}
+    assert sorted(notes) == sorted(played), msgs
+    for key in played:
+        n = notes[key]
+        # the set-up (RPN 0) came again before the first note after the pause; pool mode: 2 semitones
+        assert d.range.get(n.channel) == 2.0, f"no bend range announced on channel {n.channel + 1}"
+        # bend, then the note: the last message on its channel before the note-on is its bend
+        i = next(i for i, m in enumerate(msgs) if m.type == "note_on" and m.note == key and m.velocity)
+        before = [m for m in msgs[:i] if getattr(m, "channel", None) == n.channel]
+        assert before and before[-1].type == "pitchwheel", before[-3:]
+        assert abs(n.cents - MEANTONE[key]) <= half_step(2), (key, n.cents, MEANTONE[key])
+    # not 12-EDO: E4 and C4 lie several cents off their equal-tempered pitch in meantone (A4 on it)
+    assert all(abs(notes[k].cents - 100 * k) > 3 for k in (64, 60))
+
+
+def test_stopping_the_daemon_releases_the_held_note_through_alsa(seen):
+    run = part(seen, "virtual")
+    assert run["held_arrived"], run["log"][-3000:]
+    assert run["returncode"] == 0, run["log"][-3000:]
+    d, _ = decoded(run["received"])
+    assert not d.stuck(), [(n.key, n.channel) for n in d.stuck()]
+    assert len(run["received"]) > run["before_stop"]
+
+
+def test_run_connects_to_named_alsa_ports(seen):
+    run = part(seen, "named")
+    assert run["ready_after"] is not None, "the daemon never said READY=1:\n" + run["log"][-3000:]
+    assert run["setup_arrived"], run["log"][-3000:]
+    assert run["returncode"] == 0, run["log"][-3000:]
+    every = aconnect_clients(run["aconnect_l"])
+    assert every.get("retuner-in") == ["in"] and every.get("retuner-out") == ["out"], run["aconnect_l"]
+    # aconnect -l: our keyboard's port sends to retuner-in, our synth's port hears retuner-out
+    text = run["aconnect_l"]
+    numbers = {name: num for num, name in re.findall(r"client (\d+): '([^']*)'", text)}
+    keys_block = text.split(f"client {numbers['probe-keys']}:")[1].split("client ")[0]
+    synth_block = text.split(f"client {numbers['probe-synth']}:")[1].split("client ")[0]
+    assert f"Connecting To: {numbers['retuner-in']}:0" in keys_block, text
+    assert f"Connected From: {numbers['retuner-out']}:0" in synth_block, text
+    d, msgs = decoded(run["received"])
+    assert [n.key for n in d.notes] == [64], msgs
+    n = d.notes[0]
+    assert d.range.get(n.channel) == 2.0
+    assert abs(n.cents - MEANTONE[64]) <= half_step(2), (n.cents, MEANTONE[64])
+    assert not d.stuck()
