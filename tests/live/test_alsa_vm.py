@@ -197,3 +197,13 @@ def test_run_connects_to_named_alsa_ports(seen):
     assert d.range.get(n.channel) == 2.0
     assert abs(n.cents - MEANTONE[64]) <= half_step(2), (n.cents, MEANTONE[64])
     assert not d.stuck()
+
+
+def test_readme_test_command_installs_what_the_machine_needs():
+    text = open(os.path.join(REPO, "README.md"), encoding="utf-8").read()
+    marker = text.index("<!-- test-command -->")
+    command = re.match(r"\s*```sh\n(.*?)\n```", text[marker + len("<!-- test-command -->"):], re.S).group(1)
+    words = command.split()
+    assert "--no-install-recommends" in words
+    missing = [p for p in alsavm.PACKAGES.split() + ["alsa-utils"] if p not in words]
+    assert not missing, missing
