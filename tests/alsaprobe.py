@@ -176,10 +176,15 @@ def virtual(env, work):
         out["aconnect_i"] = tool("aconnect", "-i")
         out["aconnect_o"] = tool("aconnect", "-o")
         out["ports_json"] = retuner("ports", "--json", env=env)
+        # a keyboard and a synth of our own, connected as README.md says: by client name and port number
         keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-play")
-        keys.open_port(port_index(keys, "retuner-in:in"), "play")
+        keys.open_virtual_port("play")
         rec = Recorder("probe-record")
-        rec.midi.open_port(port_index(rec.midi, "retuner-out:out"), "record")
+        rec.midi.open_virtual_port("record")
+        out["aconnect_in"] = subprocess.run(["aconnect", "probe-play", "retuner:0"], capture_output=True,
+                                            text=True, timeout=30).returncode
+        out["aconnect_out"] = subprocess.run(["aconnect", "retuner:1", "probe-record"], capture_output=True,
+                                             text=True, timeout=30).returncode
         # the set-up went out when the daemon started, before we were connected; before the first
         # note after a pause, a daemon with its own out port sends it again
         time.sleep(max(0.0, REFRESH_PAUSE - (time.monotonic() - d.started - d.ready_after)))
@@ -206,6 +211,43 @@ def virtual(env, work):
         d.stop()
         out.setdefault("log", d.log())
     return out
+
+
+def backend():
+    """retuner's ALSA backend in this process (alsa-midi, one client): MIDI both ways through its
+    ports, a bulk tuning dump (408 bytes) among it, longer than one sequencer event holds."""
+    from retuner.live.alsaseq import AlsaSeqBackend
+    import mido
+    dump = [0xF0, 0x7E, 0x7F, 0x08, 0x01, 0x00] + [i % 128 for i in range(401)] + [0xF7]
+    played = [[0x90, 60, 100], [0xE0, 0x00, 0x50], dump, [0xB0, 64, 127], [0x80, 60, 0]]
+    b = AlsaSeqBackend("probe-seq")
+    got = []
+    inp = b.open_input("probe-seq", "in", connect_to=None, callback=lambda m: got.append(list(m.bytes())))
+    out = b.open_output("probe-seq", "out", connect_to=None)
+    keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-bkeys")
+    keys.open_port(port_index(keys, "probe-seq:in"), "keys")
+    rec = Recorder("probe-bsynth")
+    rec.midi.open_port(port_index(rec.midi, "probe-seq:out"), "synth")
+    try:
+        time.sleep(0.2)
+        for m in played:
+            keys.send_message(m)
+        end = time.monotonic() + 20
+        while len(got) < len(played) and time.monotonic() < end:
+            time.sleep(0.01)
+        for m in played:
+            out.send(mido.Message.from_bytes(m))
+        rec.wait(lambda r: len(r) >= len(played))
+        return {"played": played, "got": got, "sent_back": [b for _, b in rec.messages()],
+                "names": {"in": inp and [n for n in b.outputs() if n.startswith("probe-seq:")],
+                          "out": [n for n in b.inputs() if n.startswith("probe-seq:")]},
+                "aconnect_l": tool("aconnect", "-l")}
+    finally:
+        rec.close()
+        keys.delete()
+        inp.close()
+        out.close()
+        b.close()
 
 
 def named(env, work):
@@ -249,6 +291,7 @@ def main():
     step(report, "listing", lambda: listing(env))
     step(report, "virtual", lambda: virtual(env, work))
     step(report, "named", lambda: named(env, work))
+    step(report, "backend", backend)
     json.dump(report, sys.stdout)
 
 

@@ -20,7 +20,7 @@ DESCRIPTION = (
     "Run the live daemon. Settings come from the config file (--config FILE, else "
     "$XDG_CONFIG_HOME/retuner/config.yaml when it exists, else built-in defaults); the options "
     "below override it. A side (input or output) without a port name gets a port of our own "
-    "(ALSA: retuner-in:in and retuner-out:out; JACK: one client, retuner:in and retuner:out). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
+    "(one client, retuner:in and retuner:out). SIGHUP reloads the config and profiles; SIGTERM/SIGINT "
     "release every note and stop. Channels are 1..16.")
 
 def add_arguments(parser):

@@ -2,7 +2,9 @@
 
 The daemon never builds ports itself; it is handed a :class:`PortBackend`:
 
-* retuner.live.ports.RtMidiBackend: the ALSA sequencer, through python-rtmidi;
+* retuner.live.alsaseq.AlsaSeqBackend: the ALSA sequencer, through alsa-midi (one client, ports in and out);
+* retuner.live.ports.RtMidiBackend: the ALSA sequencer, through python-rtmidi (a client per port), where
+  alsa-midi does not load;
 * retuner.live.jackmidi.JackBackend: a JACK server, through JACK-Client (one client, ports in and out);
 * retuner.live.memory.MemoryBackend: ports in memory, for tests that drive the daemon in-process
   (hotplug, switching, reload, panic) without a MIDI system.
@@ -31,8 +33,9 @@ def deliver(raw, callback: Callback, on_error: Optional[ErrorCallback]) -> None:
     """Parse one whole message (as a MIDI library hands it over) and pass it on; bytes that do
     not parse go to ``on_error(exc, data)``. Never raises: it runs on a backend's thread."""
     try:
-        # python-rtmidi delivers one whole message per event (a system exclusive message
-        # complete from F0 to F7), so each event parses on its own; anything else is refused
+        # python-rtmidi and JACK deliver one whole message per event (a system exclusive message
+        # complete from F0 to F7; the ALSA backend joins the pieces first), so each event parses
+        # on its own; anything else is refused
         msg = mido.Message.from_bytes(raw)
         callback(msg)
     except Exception as exc:  # never let bad bytes kill the backend thread

@@ -9,7 +9,7 @@ defaults). Every field is optional::
     backend: auto                  # auto (ALSA sequencer, else a running JACK server), alsa or jack
     input: "Digital Piano"         # port to read from: exact name, part of it, or a shell pattern
     output: "FLUID*"               # port to write to; a side without a name gets a port of our own
-    virtual: false                 # true: always create our own ports (ALSA "retuner-in:in", "retuner-out:out"; JACK "retuner:in", "retuner:out")
+    virtual: false                 # true: always create our own ports ("retuner:in", "retuner:out")
     client_name: retuner           # base of our client names
     engine:                        # engine settings (see 'retuner run --help' and the engine's docs)
       mode: pool

@@ -12,13 +12,14 @@ two queues:
   counted in the status line and ``ctl status`` and logged at most once a second),
   and puts a ``("midi",)`` token in the event queue when it was empty;
 * events (a :class:`queue.SimpleQueue`, whose ``put`` is safe even from a signal
-  handler): the backend's port watcher (only when a port is named; the rtmidi
-  backend lists the ports every ``port_poll`` seconds) puts ``("ports", inputs,
+  handler): the backend's port watcher (only when a port is named; it lists the
+  ports every ``port_poll`` seconds) puts ``("ports", inputs,
   outputs)``; signal handlers put ``("signal", signum)``; the control socket
   (retuner.control.server) wakes the loop with ``("wake",)``.
 
-No thread polls: under JACK the input callback runs in JACK's process callback, under ALSA on
-python-rtmidi's input thread, and each wakes the engine thread through the event queue.
+No thread polls: the backend's reader thread (JACK: woken by the compiled period through an
+eventfd, or the Python period itself on JACK's thread; ALSA: waiting on the sequencer's descriptor)
+calls the input callback, which wakes the engine thread through the event queue.
 
 Each turn of the loop (:meth:`Daemon.step`) handles every waiting event first, then
 the control commands (a panic), then at most :attr:`Daemon.MIDI_BATCH` MIDI
@@ -27,8 +28,8 @@ behind MIDI. The loop waits on the event queue with a timeout: the earliest of t
 engine's ``next_deadline()``, the watchdog ping and the status line. Output is sent
 the moment the engine returns it.
 
-The ports come from a backend (retuner.live.backend: python-rtmidi over ALSA, JACK-Client
-over JACK, or ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
+The ports come from a backend (retuner.live.backend: alsa-midi over ALSA, JACK-Client over
+JACK, or ports in memory for tests) and time from a clock, both handed in; :meth:`Daemon.step`
 is one turn of the loop, so a test can drive the daemon in-process.
 
 Hotplug

@@ -1,8 +1,9 @@
 """MIDI ports: choosing the backend, listing, matching names, opening.
 
-retuner talks to the ALSA sequencer through python-rtmidi, the library behind mido's
-``mido.backends.rtmidi`` backend, and to a JACK server through JACK-Client (retuner.live.jackmidi:
-one client with the ports ``in`` and ``out``); :func:`make_backend` picks one. The bytes that
+retuner talks to the ALSA sequencer through alsa-midi (retuner.live.alsaseq) and to a JACK server
+through JACK-Client (retuner.live.jackmidi): one client with the ports ``in`` and ``out`` either way;
+:func:`make_backend` picks one. Where alsa-midi does not load, python-rtmidi (the library behind
+mido's ``mido.backends.rtmidi`` backend) serves the ALSA sequencer here, with a client per port. The bytes that
 arrive are parsed into :class:`mido.Message` objects and messages go out as ``msg.bytes()``.
 python-rtmidi is used directly (not through ``mido.open_input``) because only it lets us name our
 client and port when we connect to somebody else's port, so users find ``retuner`` in their
@@ -42,7 +43,7 @@ import mido
 import rtmidi
 
 from retuner.errors import RetunerError, Unavailable
-from retuner.live import jackmidi
+from retuner.live import alsaseq, jackmidi
 from retuner.live.backend import InputHandle, OutputHandle, PortBackend, deliver, quiet_library
 
 log = logging.getLogger("retuner.live.ports")
@@ -81,6 +82,17 @@ def _opens(api: int) -> bool:
     return True
 
 
+def _alsa_opens() -> bool:
+    """Whether an alsa-midi client opens on the ALSA sequencer now (it is closed again)."""
+    try:
+        with _quiet_library():
+            client = alsaseq.alsa_module().SequencerClient("retuner-probe")
+    except Exception:  # noqa: BLE001 - any failure means "not there"
+        return False
+    client.close()
+    return True
+
+
 def jack_start_commands(environ=None) -> str:
     """The commands that start a JACK server with its dummy driver (no sound hardware needed),
     under the server name the environment asks for, if any."""
@@ -98,7 +110,7 @@ def choose_backend(backend: str) -> str:
     word = backend_word(backend)
     if word != AUTO:
         return word
-    if os.access(SEQ_DEVICE, os.R_OK | os.W_OK) and _opens(rtmidi.API_LINUX_ALSA):
+    if os.access(SEQ_DEVICE, os.R_OK | os.W_OK) and (_alsa_opens() or _opens(rtmidi.API_LINUX_ALSA)):
         return "alsa"
     saved = os.environ.get("JACK_NO_START_SERVER")
     os.environ["JACK_NO_START_SERVER"] = "1"
@@ -231,17 +243,30 @@ class PortLister:
 
 
 def is_own(name: str, base: str = "retuner") -> bool:
-    """Whether a listed port is one of a retuner daemon's own (JACK: client ``BASE``; ALSA: clients
-    ``BASE-in``/``BASE-out``)."""
+    """Whether a listed port is one of a retuner daemon's own (client ``BASE``; ALSA through
+    python-rtmidi: clients ``BASE-in``/``BASE-out``)."""
     return name.startswith((f"{base}-", f"{base}:"))
 
 
+def alsa_midi_loads() -> bool:
+    """Whether alsa-midi (and libasound under it) loads."""
+    try:
+        alsaseq.alsa_module()
+    except (ImportError, OSError):
+        return False
+    return True
+
+
 def make_backend(backend: str, base: str = "retuner") -> PortBackend:
-    """The backend a daemon named ``base`` uses: the ALSA sequencer through python-rtmidi, or a
-    JACK server through JACK-Client (one client ``base`` with the ports ``in`` and ``out``)."""
+    """The backend a daemon named ``base`` uses: one client ``base`` with the ports ``in`` and
+    ``out``, on the ALSA sequencer through alsa-midi or on a JACK server through JACK-Client. Where
+    alsa-midi does not load, the ALSA sequencer through python-rtmidi (a client per port)."""
     word = choose_backend(backend)
     if word == "jack":
         return jackmidi.JackBackend(base, error=lambda exc, what: _rt_error(exc, what, "jack"))
+    if alsa_midi_loads():
+        return alsaseq.AlsaSeqBackend(base, error=lambda exc, what: _rt_error(exc, what, "alsa"))
+    log.info("alsa-midi does not load: python-rtmidi serves the ALSA sequencer, with a client per port")
     return RtMidiBackend(word, f"{base}-probe")
 
 

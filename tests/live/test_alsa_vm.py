@@ -1,4 +1,4 @@
-"""retuner's ALSA backend (python-rtmidi on the ALSA sequencer) on a real sequencer, in a small
+"""retuner's ALSA backend (alsa-midi on the ALSA sequencer: one client) on a real sequencer, in a small
 virtual machine with Debian's kernel and its sequencer modules (tests/alsavm.py): this machine's own
 kernel may have none. tests/alsaprobe.py runs inside and records what happened; the checks are here.
 
@@ -53,7 +53,7 @@ def part(seen, name):
 
 def readme_alsa_names() -> list[str]:
     text = open(os.path.join(REPO, "README.md"), encoding="utf-8").read()
-    m = re.search(r"ALSA has a client for each\s+side: `([^`]+)`, `([^`]+)`", text)
+    m = re.search(r"On both, retuner is one client with two ports, `([^`]+)` and `([^`]+)`", text)
     assert m, "README.md no longer states the ALSA port names where this test looks for them"
     return [m.group(1), m.group(2)]
 
@@ -130,13 +130,17 @@ def test_auto_picks_alsa_when_the_sequencer_is_there(seen):
 def test_run_virtual_opens_the_ports_readme_names(seen):
     run = part(seen, "virtual")
     assert run["ready_after"] is not None, "the daemon never said READY=1:\n" + run["log"][-3000:]
-    in_name, out_name = readme_alsa_names()            # retuner-in:in, retuner-out:out
+    in_name, out_name = readme_alsa_names()            # retuner:in, retuner:out
     (in_client, in_port), (out_client, out_port) = in_name.split(":"), out_name.split(":")
-    # alsa-utils: every client and port; -i readable ones (sources), -o writable ones (destinations)
+    assert in_client == out_client                     # one client, as README.md says
+    # alsa-utils: every client and port (numbered 0 and 1, as README.md's aconnect lines use them);
+    # -i readable ones (sources), -o writable ones (destinations)
     every = aconnect_clients(run["aconnect_l"])
-    assert every.get(in_client) == [in_port] and every.get(out_client) == [out_port], run["aconnect_l"]
-    assert out_client in aconnect_clients(run["aconnect_i"]) and in_client not in aconnect_clients(run["aconnect_i"])
-    assert in_client in aconnect_clients(run["aconnect_o"]) and out_client not in aconnect_clients(run["aconnect_o"])
+    assert every.get(in_client) == [in_port, out_port], run["aconnect_l"]
+    assert aconnect_clients(run["aconnect_i"]).get(out_client) == [out_port], run["aconnect_i"]
+    assert aconnect_clients(run["aconnect_o"]).get(in_client) == [in_port], run["aconnect_o"]
+    # README.md's aconnect lines connected a keyboard and a synth (exit status 0)
+    assert run["aconnect_in"] == 0 and run["aconnect_out"] == 0
     # python-rtmidi: "client:port N:M"
     readable = [without_numbers(n) for n in run["rtmidi"]["readable"]]
     writable = [without_numbers(n) for n in run["rtmidi"]["writable"]]
@@ -150,7 +154,7 @@ def test_run_virtual_opens_the_ports_readme_names(seen):
 
 def test_notes_through_the_alsa_ports_are_bent_to_quarter_comma_meantone(seen):
     run = part(seen, "virtual")
-    assert run["received"], "nothing came out of retuner-out:out:\n" + run["log"][-3000:]
+    assert run["received"], "nothing came out of retuner:out:\n" + run["log"][-3000:]
     d, msgs = decoded(run["received"])
     played = [m[1] for m in run["played"] if m[0] == 0x90]
     notes = {n.key: n for n in d.notes}
@@ -183,20 +187,33 @@ def test_run_connects_to_named_alsa_ports(seen):
     assert run["setup_arrived"], run["log"][-3000:]
     assert run["returncode"] == 0, run["log"][-3000:]
     every = aconnect_clients(run["aconnect_l"])
-    assert every.get("retuner-in") == ["in"] and every.get("retuner-out") == ["out"], run["aconnect_l"]
-    # aconnect -l: our keyboard's port sends to retuner-in, our synth's port hears retuner-out
+    assert every.get("retuner") == ["in", "out"], run["aconnect_l"]
+    # aconnect -l: our keyboard's port sends to retuner's port 0 (in), our synth's port hears its port 1
     text = run["aconnect_l"]
     numbers = {name: num for num, name in re.findall(r"client (\d+): '([^']*)'", text)}
     keys_block = text.split(f"client {numbers['probe-keys']}:")[1].split("client ")[0]
     synth_block = text.split(f"client {numbers['probe-synth']}:")[1].split("client ")[0]
-    assert f"Connecting To: {numbers['retuner-in']}:0" in keys_block, text
-    assert f"Connected From: {numbers['retuner-out']}:0" in synth_block, text
+    assert f"Connecting To: {numbers['retuner']}:0" in keys_block, text
+    assert f"Connected From: {numbers['retuner']}:1" in synth_block, text
     d, msgs = decoded(run["received"])
     assert [n.key for n in d.notes] == [64], msgs
     n = d.notes[0]
     assert d.range.get(n.channel) == 2.0
     assert abs(n.cents - MEANTONE[64]) <= half_step(2), (n.cents, MEANTONE[64])
     assert not d.stuck()
+
+
+def test_the_backend_passes_midi_both_ways_whole(seen):
+    """alsa-midi's one client in retuner's own process: notes, a wheel, a pedal and a bulk tuning
+    dump of 408 bytes (MIDI Tuning Standard: F0 7E 7F 08 01, program, name, 128 keys, checksum, F7;
+    here a dump's length with made-up contents) come in and go out byte for byte, the dump whole
+    though the sequencer carries it in pieces."""
+    run = part(seen, "backend")
+    assert run["got"] == run["played"]
+    assert run["sent_back"] == run["played"]
+    assert [without_numbers(n) for n in run["names"]["in"]] == ["probe-seq:in"]
+    assert [without_numbers(n) for n in run["names"]["out"]] == ["probe-seq:out"]
+    assert aconnect_clients(run["aconnect_l"]).get("probe-seq") == ["in", "out"]
 
 
 def test_readme_test_command_installs_what_the_machine_needs():

@@ -12,23 +12,27 @@ import sys
 import uuid
 from pathlib import Path
 
+from retuner.live import ports
+from retuner.live.alsaseq import AlsaSeqBackend
 from retuner.live.jackmidi import JackBackend
 from retuner.live.ports import RtMidiBackend
 
 README = (next(p for p in Path(__file__).resolve().parents if (p / "pyproject.toml").is_file()) / "README.md").read_text()
 
 
-def test_client_names_one_client_on_jack_one_per_side_on_alsa():
-    # python-rtmidi opens a client per port on ALSA; the JACK backend has one client with both ports
-    alsa, jack = RtMidiBackend("alsa"), JackBackend()       # neither opens anything yet
+def test_client_names_one_client_on_both_one_per_side_through_python_rtmidi():
+    # alsa-midi and JACK-Client: one client with both ports; python-rtmidi (the ALSA fallback) opens a
+    # client per port
+    alsa, jack, fallback = AlsaSeqBackend(), JackBackend(), RtMidiBackend("alsa")   # none opens anything yet
     for side in ("in", "out"):
-        assert alsa.client_name("retuner", side) == f"retuner-{side}"
-        assert jack.client_name("retuner", side) == "retuner"
+        assert alsa.client_name("retuner", side) == jack.client_name("retuner", side) == "retuner"
+        assert fallback.client_name("retuner", side) == f"retuner-{side}"
+    assert ports.make_backend("alsa").__class__ is AlsaSeqBackend      # alsa-midi loads here
 
 
 def test_the_readme_names_the_ports_as_they_are():
     named = set(re.findall(r"`(retuner[-\w]*:\w+)`", README))
-    assert {"retuner-in:in", "retuner-out:out", "retuner:in", "retuner:out"} == named, named
+    assert {"retuner:in", "retuner:out"} == named, named
 
 
 def test_ports_tells_our_own_ports_from_what_a_user_connects(jack_server, jack_client, tmp_path):
