@@ -213,21 +213,24 @@ def virtual(env, work):
     return out
 
 
-def backend():
-    """retuner's ALSA backend in this process (alsa-midi, one client): MIDI both ways through its
-    ports, a bulk tuning dump (408 bytes) among it, longer than one sequencer event holds."""
+def backend(fallback=False):
+    """retuner's ALSA backend in this process (alsa-midi, one client; with ``fallback``
+    python-rtmidi's, a client per port): MIDI both ways through its ports, a bulk tuning dump
+    (408 bytes) among it, longer than one sequencer event holds."""
     from retuner.live.alsaseq import AlsaSeqBackend
+    from retuner.live.ports import RtMidiBackend
     import mido
     dump = [0xF0, 0x7E, 0x7F, 0x08, 0x01, 0x00] + [i % 128 for i in range(401)] + [0xF7]
     played = [[0x90, 60, 100], [0xE0, 0x00, 0x50], dump, [0xB0, 64, 127], [0x80, 60, 0]]
-    b = AlsaSeqBackend("probe-seq")
+    b = RtMidiBackend("alsa") if fallback else AlsaSeqBackend("probe-seq")
     got = []
-    inp = b.open_input("probe-seq", "in", connect_to=None, callback=lambda m: got.append(list(m.bytes())))
-    out = b.open_output("probe-seq", "out", connect_to=None)
+    inp = b.open_input(b.client_name("probe-seq", "in"), "in", connect_to=None,
+                       callback=lambda m: got.append(list(m.bytes())))
+    out = b.open_output(b.client_name("probe-seq", "out"), "out", connect_to=None)
     keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-bkeys")
-    keys.open_port(port_index(keys, "probe-seq:in"), "keys")
+    keys.open_port(port_index(keys, f"{b.client_name('probe-seq', 'in')}:in"), "keys")
     rec = Recorder("probe-bsynth")
-    rec.midi.open_port(port_index(rec.midi, "probe-seq:out"), "synth")
+    rec.midi.open_port(port_index(rec.midi, f"{b.client_name('probe-seq', 'out')}:out"), "synth")
     try:
         time.sleep(0.2)
         for m in played:
@@ -239,8 +242,8 @@ def backend():
             out.send(mido.Message.from_bytes(m))
         rec.wait(lambda r: len(r) >= len(played))
         return {"played": played, "got": got, "sent_back": [b for _, b in rec.messages()],
-                "names": {"in": inp and [n for n in b.outputs() if n.startswith("probe-seq:")],
-                          "out": [n for n in b.inputs() if n.startswith("probe-seq:")]},
+                "names": {"in": [n for n in b.outputs() if n.startswith("probe-seq")],
+                          "out": [n for n in b.inputs() if n.startswith("probe-seq")]},
                 "aconnect_l": tool("aconnect", "-l")}
     finally:
         rec.close()
@@ -292,6 +295,7 @@ def main():
     step(report, "virtual", lambda: virtual(env, work))
     step(report, "named", lambda: named(env, work))
     step(report, "backend", backend)
+    step(report, "fallback", lambda: backend(fallback=True))
     json.dump(report, sys.stdout)
 
 

@@ -15,7 +15,8 @@ A reader thread of ours waits in ``poll(2)`` on the sequencer's file descriptor 
 that :meth:`AlsaSeqBackend.close` writes; every MIDI event that arrived goes, as bytes, to the
 callback of the input port it arrived at. The sequencer's own notices (a connection made or
 undone) are not MIDI and are left out. A system exclusive message longer than the sequencer's
-event size comes in pieces; they are joined before they are handed on. Sending (any thread) and the
+event size can come in pieces (from a hardware port: the kernel passes it on as it arrives); they
+are joined before they are handed on. Sending (any thread) and the
 port tables take a lock; the sequencer delivers at once (no queue of ours).
 """
 
@@ -59,13 +60,11 @@ class _Sysex:
         self.parts: list[bytes] = []
 
     def feed(self, data: bytes) -> Optional[bytes]:
-        """The whole message once its last piece came; None meanwhile (and for stray pieces)."""
+        """The whole message once its last piece came; None meanwhile."""
         if data[:1] == b"\xf0":
             self.parts = [data]
-        elif self.parts:
-            self.parts.append(data)
         else:
-            return None
+            self.parts.append(data)
         if data[-1:] == b"\xf7":
             whole, self.parts = b"".join(self.parts), []
             return whole
@@ -84,12 +83,19 @@ class AlsaSeqInput(InputHandle):
 
     def take(self, data: bytes) -> None:
         """One event's bytes (the reader thread)."""
-        if data[:1] == b"\xf0" or self.sysex.parts or (data[:1] < b"\x80" and data[-1:] == b"\xf7"):
-            whole = self.sysex.feed(data)
-            if whole is None:
-                return
-            data = whole
-        deliver(data, self.callback, self.on_error)
+        if not data:
+            return
+        first = data[0]
+        if first == 0xF0 or (first < 0x80 and self.sysex.parts):
+            whole = self.sysex.feed(data)              # a piece of a system exclusive message
+            if whole is not None:
+                deliver(whole, self.callback, self.on_error)
+            return
+        if first < 0x80:
+            return                                     # a piece whose start never came
+        if first < 0xF8:
+            self.sysex.parts = []                      # a status byte ends an unfinished one (MIDI 1.0)
+        deliver(data, self.callback, self.on_error)    # real-time bytes may come between pieces
 
     def close(self) -> None:
         if not self.closed:

@@ -216,6 +216,16 @@ def test_the_backend_passes_midi_both_ways_whole(seen):
     assert aconnect_clients(run["aconnect_l"]).get("probe-seq") == ["in", "out"]
 
 
+def test_where_alsa_midi_does_not_load_python_rtmidi_serves_alike_with_a_client_per_port(seen):
+    run = part(seen, "fallback")
+    assert run["got"] == run["played"]
+    assert run["sent_back"] == run["played"]
+    assert [without_numbers(n) for n in run["names"]["in"]] == ["probe-seq-in:in"]
+    assert [without_numbers(n) for n in run["names"]["out"]] == ["probe-seq-out:out"]
+    clients = aconnect_clients(run["aconnect_l"])
+    assert clients.get("probe-seq-in") == ["in"] and clients.get("probe-seq-out") == ["out"]
+
+
 def test_readme_test_command_installs_what_the_machine_needs():
     text = open(os.path.join(REPO, "README.md"), encoding="utf-8").read()
     marker = text.index("<!-- test-command -->")
