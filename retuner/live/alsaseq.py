@@ -191,15 +191,22 @@ class AlsaSeqBackend(PortBackend):
                 return client.create_port(port, caps=caps, type=kind)
 
     # ------------------------------------------------------------------ ports
-    def open_input(self, client, port, *, connect_to, callback, on_error=None) -> AlsaSeqInput:
-        ours = self._create(client, port, writable=True)
+    def _open(self, client: str, port: str, connect_to: Optional[str], *, writable: bool):
+        """Our port (``writable``: an input), connected to ``connect_to`` when that is given."""
+        ours = self._create(client, port, writable=writable)
         try:
             if connect_to is not None:
                 with self._lock:
-                    ours.connect_from(self._find(connect_to, readable=True))
+                    theirs = self._find(connect_to, readable=writable)
+                    (ours.connect_from if writable else ours.connect_to)(theirs)
         except Exception as exc:
             self._drop(ours)
-            raise self._error(exc, f"cannot open input {connect_to or port!r}") from exc
+            side = "input" if writable else "output"
+            raise self._error(exc, f"cannot open {side} {connect_to or port!r}") from exc
+        return ours
+
+    def open_input(self, client, port, *, connect_to, callback, on_error=None) -> AlsaSeqInput:
+        ours = self._open(client, port, connect_to, writable=True)
         handle = AlsaSeqInput(self, ours, connect_to, callback, on_error)
         with self._lock:
             self._inputs[ours.port_id] = handle
@@ -207,14 +214,7 @@ class AlsaSeqBackend(PortBackend):
         return handle
 
     def open_output(self, client, port, *, connect_to) -> AlsaSeqOutput:
-        ours = self._create(client, port, writable=False)
-        try:
-            if connect_to is not None:
-                with self._lock:
-                    ours.connect_to(self._find(connect_to, readable=False))
-        except Exception as exc:
-            self._drop(ours)
-            raise self._error(exc, f"cannot open output {connect_to or port!r}") from exc
+        ours = self._open(client, port, connect_to, writable=False)
         handle = AlsaSeqOutput(self, ours, connect_to)
         with self._lock:
             self._outputs[ours.port_id] = handle

@@ -25,18 +25,8 @@ class FakeJack:
 
     def __init__(self, room: int = 1000):
         self.ffi = ffi = cffi.FFI()
-        ffi.cdef("""
-            typedef struct { uint32_t time; size_t size; uint8_t *buffer; } midi_event;
-            void *jackcycle_new(void *const calls[5], int wake_fd);
-            void jackcycle_free(void *c);
-            int jackcycle_process(uint32_t frames, void *arg);
-            void jackcycle_set(void *c, int is_input, int slot, void *port);
-            int jackcycle_send(void *c, int slot, const uint8_t *data, uint32_t size);
-            uint32_t jackcycle_queued(void *c, int slot);
-            uint32_t jackcycle_take(void *c, uint8_t *into, uint32_t room, int *slot);
-            uint64_t jackcycle_periods(void *c);
-            uint64_t jackcycle_dropped(void *c);
-        """)
+        ffi.cdef("typedef struct { uint32_t time; size_t size; uint8_t *buffer; } midi_event;")
+        ffi.cdef(jackcycle._CDEF)                # the library's own declarations
         path = jackcycle.library_path()
         assert path is not None, "the compiled period was not built (gcc and libc6-dev at install)"
         self.lib = ffi.dlopen(path)
