@@ -272,6 +272,23 @@ def named(env, work):
         keys.send_message([0x80, 64, 0])
         rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
                                for _, b in m if len(b) == 3 and b[1] == 64))
+        # the keyboard goes away (unplugged) and comes back under its name: retuner connects again
+        keys.close_port()
+        keys.delete()
+        time.sleep(2.0)                       # several of the daemon's looks (port_poll 0.5 s)
+        out["aconnect_gone"] = tool("aconnect", "-l")
+        keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
+        keys.open_virtual_port("keys")
+        end = time.monotonic() + 30
+        while time.monotonic() < end and "Connecting To" not in \
+                (tool("aconnect", "-l") or "").split("'probe-keys'")[1].split("client ")[0]:
+            time.sleep(0.2)
+        out["aconnect_back"] = tool("aconnect", "-l")
+        keys.send_message([0x90, 67, 100])
+        out["back_arrived"] = rec.wait(lambda m: note_on_count(m, 67) >= 1)
+        keys.send_message([0x80, 67, 0])
+        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
+                               for _, b in m if len(b) == 3 and b[1] == 67))
         out["returncode"] = d.stop()
         out["received"] = rec.messages()
     finally:

@@ -196,11 +196,21 @@ def test_run_connects_to_named_alsa_ports(seen):
     assert f"Connecting To: {numbers['retuner']}:0" in keys_block, text
     assert f"Connected From: {numbers['retuner']}:1" in synth_block, text
     d, msgs = decoded(run["received"])
-    assert [n.key for n in d.notes] == [64], msgs
-    n = d.notes[0]
-    assert d.range.get(n.channel) == 2.0
-    assert abs(n.cents - MEANTONE[64]) <= half_step(2), (n.cents, MEANTONE[64])
+    assert [n.key for n in d.notes] == [64, 67], msgs
+    for n in d.notes:
+        assert d.range.get(n.channel) == 2.0
+        assert abs(n.cents - MEANTONE[n.key]) <= half_step(2), (n.key, n.cents, MEANTONE[n.key])
     assert not d.stuck()
+
+
+def test_a_keyboard_unplugged_and_plugged_back_is_connected_again(seen):
+    run = part(seen, "named")
+    gone, back = run["aconnect_gone"], run["aconnect_back"]
+    assert "probe-keys" not in aconnect_clients(gone), gone
+    numbers = {name: num for num, name in re.findall(r"client (\d+): '([^']*)'", back)}
+    keys_block = back.split(f"client {numbers['probe-keys']}:")[1].split("client ")[0]
+    assert f"Connecting To: {numbers['retuner']}:0" in keys_block, back
+    assert run["back_arrived"], run["log"][-3000:]
 
 
 def test_the_backend_passes_midi_both_ways_whole(seen):
