@@ -19,7 +19,7 @@ def test_every_package_of_the_tree_is_listed_for_installation():
 
 
 def test_the_installed_command_imports_every_module_outside_the_tree(tmp_path):
-    """The test environment's installed retuner (pip install '.[test]'), run from another folder,
+    """The test environment's installed retuner (pip install -e '.[test]'), run from another folder,
     imports every module of the package, and has the JACK backend's compiled period (a plain C
     library that cffi loads, built at install: no Python module, so not imported as one)."""
     code = ("import importlib, pkgutil, retuner; "
