@@ -121,7 +121,7 @@ def test_command_runs_as_root_without_sudo_and_as_a_user_with_sudo(tmp_path, whi
     assert apt[1][2] == "noninteractive" and apt[1][3].startswith("install -y")
     rest = [c for c in calls if c[0] in ("pip", "python", "retuner")]
     assert all(c[1] == str(uid) for c in rest)                        # nothing else as root
-    assert rest[0][0] == "pip" and rest[0][3].startswith("install .")
+    assert rest[0][0] == "pip" and rest[0][3].startswith(("install .", "install -e ."))
 
 
 def test_without_root_and_without_sudo_the_command_stops_at_once(tmp_path):
