@@ -6,7 +6,7 @@ PipeWire installed. Like tests/alsaprobe.py it observes and records, and judges 
 
 What it does: starts a PipeWire server of its own, with no session manager, from the system's
 ``pipewire.conf`` plus one drop-in (``pipewire.conf.d``) that makes the bridge node, the SPA factory
-``api.alsa.seq.bridge`` (from the alsa plugin of libspa-0.2-modules, which pipewire depends on) named
+``api.alsa.seq.bridge`` (the alsa plugin of libspa-0.2-modules, which libpipewire-0.3-0 depends on) named
 ``Midi-Bridge`` as WirePlumber names it; then ``retuner run --virtual --backend alsa``. Steps:
 - ``server``: PipeWire's version, whether the bridge node came up (``pw-cli ls Node``);
 - ``ports``: retuner's ALSA ports as PipeWire shows them: ``pw-cli ls Port`` (every property),
