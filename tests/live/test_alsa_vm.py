@@ -21,6 +21,7 @@ import mido
 import pytest
 
 import alsavm
+from alsalisting import aconnect_clients, readme_test_command
 from jack import Decoder
 from temperaments import MEANTONE, half_step
 
@@ -56,22 +57,6 @@ def readme_alsa_names() -> list[str]:
     m = re.search(r"On both, retuner is one client with two ports, `([^`]+)` and `([^`]+)`", text)
     assert m, "README.md no longer states the ALSA port names where this test looks for them"
     return [m.group(1), m.group(2)]
-
-
-def aconnect_clients(text: str) -> dict[str, list[str]]:
-    """``aconnect -l``/``-i``/``-o`` output (alsa-utils): client name -> its port names."""
-    assert text is not None, "aconnect is not installed (apt-get install alsa-utils)"
-    clients: dict[str, list[str]] = {}
-    current = None
-    for line in text.splitlines():
-        m = re.match(r"client \d+: '([^']*)'", line)
-        if m:
-            current = clients.setdefault(m.group(1), [])
-            continue
-        m = re.match(r"\s+\d+ '([^']*)'", line)
-        if m and current is not None:
-            current.append(m.group(1).strip())
-    return clients
 
 
 def decoded(received) -> tuple[Decoder, list]:
@@ -237,10 +222,7 @@ def test_where_alsa_midi_does_not_load_python_rtmidi_serves_alike_with_a_client_
 
 
 def test_readme_test_command_installs_what_the_machine_needs():
-    text = open(os.path.join(REPO, "README.md"), encoding="utf-8").read()
-    marker = text.index("<!-- test-command -->")
-    command = re.match(r"\s*```sh\n(.*?)\n```", text[marker + len("<!-- test-command -->"):], re.S).group(1)
-    words = command.split()
+    words = readme_test_command()
     assert "--no-install-recommends" in words
     missing = [p for p in alsavm.PACKAGES.split() + ["alsa-utils"] if p not in words]
     assert not missing, missing
