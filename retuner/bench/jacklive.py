@@ -11,6 +11,9 @@ For each daemon (this checkout, and with ``--against REPO`` another checkout run
   ``turns`` times, and the figure is the median (``idle_cpu_turns`` has each);
 * ``period``: where the checkout's JACK backend does each period's work, ``C`` (its compiled
   part is there) or ``Python``;
+* ``floor``: the idle CPU, measured in the same turns, of a JACK client that does nothing each
+  period (this checkout's compiled period with no port, in a process that only sleeps): what JACK
+  costs any client it wakes every period on this machine now, the floor under the daemons' figures;
 * note-on latency from a measuring client of our own (JACK-Client): its process callback writes a
   note-on at the start of a period and finds the retuned note-on on its input some periods later.
   ``latency_periods`` counts those periods (JACK time, exact); ``latency_ms`` is the same span in
@@ -162,6 +165,39 @@ class _Meter:
             c.close()
 
 
+# a JACK client that JACK wakes every period and that does nothing then: the compiled period with no
+# port (this checkout's), in a Python process of its own that only sleeps
+_FLOOR = """
+import sys, time
+from retuner.live import jackcycle, jackmidi
+jack = jackmidi.jack_module()
+client = jackmidi.open_client(sys.argv[1])
+jackcycle.choose(jack, "native").install(client)
+client.activate()
+print("ready", flush=True)
+time.sleep(3600)
+"""
+
+
+def _floor(repo: str, idle: float) -> dict:
+    """The idle CPU of a client that JACK wakes every period and that does nothing: what being a
+    JACK client costs on this machine now, the floor under any daemon's figure."""
+    env = dict(os.environ, PYTHONPATH=repo)
+    proc = subprocess.Popen([sys.executable, "-c", _FLOOR, f"rbfloor{uuid.uuid4().hex[:6]}"], env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        line = proc.stdout.readline() if proc.stdout is not None else ""
+        if line.strip() != "ready":
+            return {"error": "the floor client did not start: " + (line + proc.stdout.read(500))[-500:]}
+        time.sleep(2.0)
+        c0, t0 = _cpu_seconds(proc.pid), time.monotonic()
+        time.sleep(idle)
+        c1, t1 = _cpu_seconds(proc.pid), time.monotonic()
+        return {"idle_cpu_percent": round(100.0 * (c1 - c0) / (t1 - t0), 3)}
+    finally:
+        stop_child(proc, 5)
+
+
 def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: int, period: int,
          extra: Sequence[str] = ()) -> dict:
     """The daemon of ``repo`` (``extra``: more of its options) measured: idle CPU, note-on latency."""
@@ -243,10 +279,15 @@ def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = 
         if against:
             runs.append(("old", against_python or sys.executable, os.path.abspath(against)))
         got: dict = {(label, play): [] for label, _, _ in runs for play in ("static", "adaptive")}
+        floors: list = []
         for _ in range(turns):
             for label, python, repo in runs:
                 for play in ("static", "adaptive"):
                     got[(label, play)].append(_one(python, repo, play == "adaptive", idle, notes, rate, period))
+            if period_word(here) == "C":
+                floors.append(_floor(here, idle))
+        if floors:
+            out["floor"] = _merge([dict(f, notes=0, notes_back=0) for f in floors])
         for label, python, repo in runs:
             out[label] = {"repo": repo, "python": python, "period": period_word(repo)}
             for play in ("static", "adaptive"):
@@ -298,4 +339,11 @@ def format_jack_bench(f: dict) -> str:
             lines.append(f"{label} {play}: idle {r['idle_cpu_percent']:g} % of a core{each}, periods in "
                          f"{f[label]['period']}; {text} ({r['notes_back']}/{r['notes']} notes); "
                          f"ports {', '.join(r['ports'])}")
+    if "floor" in f:
+        r = f["floor"]
+        turns = r.get("idle_cpu_turns", [])
+        each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
+        lines.append(f"floor: idle {r['idle_cpu_percent']:g} % of a core{each}: a JACK client that does "
+                     f"nothing each period, what JACK costs any client it wakes" if "error" not in r
+                     else f"floor: {r['error']}")
     return "\n".join(lines)

@@ -26,6 +26,7 @@ def test_bench_jack_starts_a_server_and_gives_figures(tmp_path):
     assert "old" not in f
     assert f["turns"] == 2
     assert f["new"]["period"] == "C"                 # the compiled period, built at install
+    assert len(f["floor"]["idle_cpu_turns"]) == 2 and f["floor"]["idle_cpu_percent"] >= 0
     for play in ("static", "adaptive"):
         fig = f["new"][play]
         assert "error" not in fig, fig
@@ -56,3 +57,4 @@ def test_bench_jack_text_names_both_plays(tmp_path):
     assert lines[0].startswith(f"JACK server {name}: 48000 Hz")
     assert any(l.startswith("new static: idle ") and "periods" in l for l in lines), r.stdout
     assert any(l.startswith("new adaptive: idle ") and "periods" in l for l in lines), r.stdout
+    assert any(l.startswith("floor: idle ") for l in lines), r.stdout
