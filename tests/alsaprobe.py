@@ -22,6 +22,7 @@ Steps:
 
 from __future__ import annotations
 
+import faulthandler
 import json
 import os
 import shutil
@@ -42,6 +43,7 @@ from jack import NotifySocket  # noqa: E402
 
 PROFILE = "meantone-quarter"
 READY_TIMEOUT = 120.0        # seconds: the machine may be emulated (TCG), ten times slower than the host
+HANG_AFTER = 600.0           # seconds: the whole probe took 25 to 70 s under emulation
 REFRESH_PAUSE = 2.5          # seconds: longer than the daemon's set-up refresh (max(setup_refresh 1 s, release 2 s))
 
 
@@ -301,6 +303,8 @@ def named(env, work):
 
 
 def main():
+    # a step that hangs: every thread's stack on standard error (the host shows it), and out
+    faulthandler.dump_traceback_later(HANG_AFTER, exit=True)
     work = "/tmp/alsaprobe"
     os.makedirs(work, exist_ok=True)
     env = {k: v for k, v in os.environ.items() if not k.startswith(("JACK_", "NOTIFY_", "JOURNAL_"))}

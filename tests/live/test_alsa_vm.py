@@ -82,6 +82,12 @@ def test_a_missing_qemu_or_kernel_is_an_error_not_a_skip(tmp_path):
         alsavm.kernel(boot=str(tmp_path), modules=str(tmp_path))
 
 
+def test_an_unknown_accelerator_is_an_error(monkeypatch):
+    monkeypatch.setenv(alsavm.ACCEL_VARIABLE, "fast")
+    with pytest.raises(alsavm.VMError, match="use kvm or tcg"):
+        alsavm.run(["true"])
+
+
 def test_modules_come_after_their_dependencies(tmp_path):
     # a made-up modules.dep in the kernel's own layout ("path: dependency ..."), out of order
     top = tmp_path / "9.9"
