@@ -17,7 +17,9 @@ Steps:
   SIGTERM: everything received, in order, as bytes;
 - ``named``: our own ports first (a keyboard ``probe-keys`` and a synth ``probe-synth``), then
   ``retuner run --input probe-keys --output probe-synth``: retuner connects to them by name; a note
-  played and what came back.
+  played and what came back. Then the keyboard goes away with a key held and comes back as a new
+  client, and a note is played again; then the synth goes away and comes back, and a note is played
+  again: what the synth received before and after its return.
 """
 
 from __future__ import annotations
@@ -255,12 +257,46 @@ def backend(fallback=False):
         b.close()
 
 
-def named(env, work):
-    out = {}
+def released(msgs, key) -> bool:
+    """Whether, after the note-on for ``key`` came out, a note-off for it (or a note-on with velocity
+    0, or All Notes Off) came too."""
+    after = out_time(msgs, key)
+    return any(t >= after and len(b) == 3
+               and ((b[0] & 0xF0 in (0x80, 0x90) and b[1] == key and (b[0] & 0xF0 == 0x80 or b[2] == 0))
+                    or (b[0] & 0xF0 == 0xB0 and b[1] == 123))
+               for t, b in msgs)
+
+
+def wait_log(d, text, count, timeout=30.0) -> bool:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        if d.log().count(text) >= count:
+            return True
+        time.sleep(0.05)
+    return False
+
+
+def open_keys():
     keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
     keys.open_virtual_port("keys")
+    return keys
+
+
+def close_keys(keys):
+    keys.close_port()
+    keys.delete()
+
+
+def open_synth():
     rec = Recorder("probe-synth")
     rec.midi.open_virtual_port("synth")
+    return rec
+
+
+def named(env, work):
+    out = {}
+    keys = open_keys()
+    rec = open_synth()
     d = Daemon(["--input", "probe-keys", "--output", "probe-synth", "--backend", "alsa",
                 "--profile", PROFILE, "--no-control-socket", "-v"], env, os.path.join(work, "named.log"))
     try:
@@ -272,34 +308,55 @@ def named(env, work):
         keys.send_message([0x90, 64, 100])
         rec.wait(lambda m: note_on_count(m, 64) >= 1)
         keys.send_message([0x80, 64, 0])
-        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
-                               for _, b in m if len(b) == 3 and b[1] == 64))
-        # the keyboard goes away (unplugged) and comes back under its name: retuner connects again
-        keys.close_port()
-        keys.delete()
+        rec.wait(lambda m: released(m, 64))
+        # the keyboard goes away (unplugged) with a key held, and comes back under its name as a new
+        # client: the held note is released, and retuner connects again
+        keys.send_message([0x90, 67, 100])
+        out["held_arrived"] = rec.wait(lambda m: note_on_count(m, 67) >= 1)
+        close_keys(keys)
+        keys = None
+        out["held_released"] = rec.wait(lambda m: released(m, 67))
         time.sleep(2.0)                       # several of the daemon's looks (port_poll 0.5 s)
         out["aconnect_gone"] = tool("aconnect", "-l")
-        keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
-        keys.open_virtual_port("keys")
+        keys = open_keys()
         end = time.monotonic() + 30
         while time.monotonic() < end and "Connecting To" not in \
                 (tool("aconnect", "-l") or "").split("'probe-keys'")[1].split("client ")[0]:
             time.sleep(0.2)
         out["aconnect_back"] = tool("aconnect", "-l")
-        keys.send_message([0x90, 67, 100])
-        out["back_arrived"] = rec.wait(lambda m: note_on_count(m, 67) >= 1)
-        keys.send_message([0x80, 67, 0])
-        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
-                               for _, b in m if len(b) == 3 and b[1] == 67))
-        out["returncode"] = d.stop()
+        out["input_back"] = wait_log(d, "input: connected to probe-keys", 2)
+        keys.send_message([0x90, 62, 100])
+        out["back_arrived"] = rec.wait(lambda m: note_on_count(m, 62) >= 1)
+        keys.send_message([0x80, 62, 0])
+        rec.wait(lambda m: released(m, 62))
         out["received"] = rec.messages()
+        # the synth goes away and comes back: the set-up first, then the notes
+        rec.close()
+        rec = None
+        out["output_gone"] = wait_log(d, "output probe-synth", 1)
+        rec = open_synth()
+        out["output_back"] = wait_log(d, "output: connected to probe-synth", 2)
+        rec.wait(lambda m: len(m) > 0)
+        keys.send_message([0x90, 64, 100])
+        rec.wait(lambda m: note_on_count(m, 64) >= 1)
+        keys.send_message([0x80, 64, 0])
+        rec.wait(lambda m: released(m, 64))
+        out["received_after_return"] = rec.messages()
+        out["returncode"] = d.stop()
     finally:
         d.stop()
         out["log"] = d.log()
-        rec.close()
-        keys.close_port()
-        keys.delete()
+        if rec is not None:
+            rec.close()
+        if keys is not None:
+            close_keys(keys)
     return out
+
+
+def out_time(msgs, key) -> float:
+    """When the note-on for ``key`` came out (infinity before it did)."""
+    return next((t for t, b in msgs if len(b) == 3 and b[0] & 0xF0 == 0x90 and b[1] == key and b[2] > 0),
+                float("inf"))
 
 
 def main():

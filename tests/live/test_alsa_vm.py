@@ -176,7 +176,6 @@ def test_run_connects_to_named_alsa_ports(seen):
     run = part(seen, "named")
     assert run["ready_after"] is not None, "the daemon never said READY=1:\n" + run["log"][-3000:]
     assert run["setup_arrived"], run["log"][-3000:]
-    assert run["returncode"] == 0, run["log"][-3000:]
     every = aconnect_clients(run["aconnect_l"])
     assert every.get("retuner") == ["in", "out"], run["aconnect_l"]
     # aconnect -l: our keyboard's port sends to retuner's port 0 (in), our synth's port hears its port 1
@@ -187,10 +186,35 @@ def test_run_connects_to_named_alsa_ports(seen):
     assert f"Connecting To: {numbers['retuner']}:0" in keys_block, text
     assert f"Connected From: {numbers['retuner']}:1" in synth_block, text
     d, msgs = decoded(run["received"])
-    assert [n.key for n in d.notes] == [64, 67], msgs
+    assert [n.key for n in d.notes] == [64, 67, 62], msgs
     for n in d.notes:
         assert d.range.get(n.channel) == 2.0
         assert abs(n.cents - MEANTONE[n.key]) <= half_step(2), (n.key, n.cents, MEANTONE[n.key])
+    assert not d.stuck()
+
+
+def test_a_keyboard_that_goes_away_has_its_held_note_released_and_is_found_again(seen):
+    run = part(seen, "named")
+    assert run["held_arrived"], run["log"][-3000:]
+    assert run["held_released"], "the held note was not released when the keyboard went away:\n" + run["log"][-3000:]
+    assert run["input_back"], "the keyboard's return was not noticed:\n" + run["log"][-3000:]
+    d, msgs = decoded(run["received"])
+    assert [n.key for n in d.notes] == [64, 67, 62], msgs
+    held, again = d.notes[1], d.notes[2]
+    assert held.t_off is not None and held.t_off < again.t_on
+    assert abs(again.cents - MEANTONE[62]) <= half_step(d.range.get(again.channel, 2.0)), (again.cents, MEANTONE[62])
+    assert not d.stuck()
+
+
+def test_a_synth_that_comes_back_gets_the_setup_before_the_next_note(seen):
+    run = part(seen, "named")
+    assert run["output_gone"] and run["output_back"], run["log"][-3000:]
+    assert run["returncode"] == 0, run["log"][-3000:]
+    d, msgs = decoded(run["received_after_return"])
+    assert [n.key for n in d.notes] == [64], msgs
+    n = d.notes[0]
+    assert d.range.get(n.channel) == 2.0, f"no bend range announced on channel {n.channel + 1} after the return"
+    assert abs(n.cents - MEANTONE[64]) <= half_step(2), (n.cents, MEANTONE[64])
     assert not d.stuck()
 
 
