@@ -228,15 +228,23 @@ def run(argv: Sequence[str], *, env: Optional[Mapping[str, str]] = None, cwd: Op
     default 2 with KVM, 1 with TCG (two emulated processors on a busy 2-core host ran the same
     commands three times slower than one: 71 s against 25 s).
     The guest's own /tmp is the host's, under the tmpfs: what the command writes there is gone
-    when the machine stops; ``work_dir`` (default: a new temporary folder) is the shared folder
-    where results come back (it is writable from inside, at the same path)."""
+    when the machine stops; ``work_dir`` (default: a temporary folder, removed afterwards) holds the
+    initramfs, the console log and the shared folder where results come back (writable from inside,
+    at the same path)."""
     accel = accel or os.environ.get(ACCEL_VARIABLE) or ("kvm" if kvm_usable() else "tcg")
     if accel not in ("kvm", "tcg"):
         raise VMError(f"{ACCEL_VARIABLE}={accel!r}: use kvm or tcg")
     program = qemu()
     image, version = kernel()
     cpus = cpus or (2 if accel == "kvm" else 1)
-    work = os.path.abspath(work_dir or tempfile.mkdtemp(prefix="alsavm-"))
+    if work_dir is None:
+        with tempfile.TemporaryDirectory(prefix="alsavm-") as work:
+            return _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work)
+    return _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work_dir)
+
+
+def _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work_dir) -> Result:
+    work = os.path.abspath(work_dir)
     out = os.path.join(work, "result")
     os.makedirs(out, exist_ok=True)
     for name in ("stdout", "stderr", "returncode"):
