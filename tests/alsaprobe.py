@@ -46,6 +46,7 @@ from jack import NotifySocket  # noqa: E402
 PROFILE = "meantone-quarter"
 READY_TIMEOUT = 120.0        # seconds: the machine may be emulated (TCG), ten times slower than the host
 HANG_AFTER = 600.0           # seconds: the whole probe took 25 to 70 s under emulation
+DEAF_WAIT = 60.0             # seconds: a send that has not returned by then waits for ever
 REFRESH_PAUSE = 2.5          # seconds: longer than the daemon's set-up refresh (max(setup_refresh 1 s, release 2 s))
 
 
@@ -257,6 +258,70 @@ def backend(fallback=False):
         b.close()
 
 
+def deaf():
+    """retuner's ALSA backend (alsa-midi) sending to a client that never reads, as a synth that hung:
+    once that client's input is full, each send must fail after a short wait instead of waiting
+    for ever, the backend must still answer, and once the client reads again a message goes
+    through. Counted: sends that went, sends that failed, whether the sending thread finished."""
+    import alsa_midi
+    import mido
+    from retuner.live.alsaseq import AlsaSeqBackend
+    synth = alsa_midi.SequencerClient("probe-deaf")
+    synth_port = synth.create_port("synth", alsa_midi.WRITE_PORT)     # kept: a dropped Port object closes
+    b = AlsaSeqBackend("probe-sender")
+    names = b.outputs()
+    target = [n for n in names if n.startswith("probe-deaf:")]
+    if not target:
+        raise LookupError(f"no probe-deaf port among {names}; the synth's own list: "
+                          f"{[(p.client_name, p.name) for p in synth.list_ports(type=alsa_midi.PortType.ANY)]}")
+    out = b.open_output("probe-sender", "out", connect_to=target[0])
+    msg = mido.Message("control_change", control=1, value=5)
+    counts = {"sent": 0, "failed": 0, "error": None}
+
+    def flood():
+        for _ in range(5000):
+            try:
+                out.send(msg)
+                counts["sent"] += 1
+            except Exception as exc:  # noqa: BLE001 - what the daemon would log
+                counts["failed"] += 1
+                counts["error"] = repr(exc)
+                if counts["failed"] >= 3:
+                    return
+
+    sender = threading.Thread(target=flood, daemon=True)
+    sender.start()
+    sender.join(DEAF_WAIT)
+    counts["finished"] = not sender.is_alive()
+    listed = []
+    looker = threading.Thread(target=lambda: listed.append(b.outputs()), daemon=True)
+    looker.start()
+    looker.join(DEAF_WAIT)
+    counts["listing_answered"] = bool(listed)
+    if not counts["finished"]:
+        return counts                           # stuck: nothing more to learn, and no clean close
+    # the synth reads again: what it holds, then a note sent now
+    after = []
+    end = time.monotonic() + 30
+    sent_note = False
+    while time.monotonic() < end and not any(b[0] == 0x90 for b in after):
+        try:
+            ev = synth.event_input(prefer_bytes=True, timeout=0.2)
+        except alsa_midi.ALSAError:              # its input overran: events lost, reading goes on
+            continue
+        if ev is None and not sent_note:
+            out.send(mido.Message("note_on", note=60, velocity=100))
+            sent_note = True
+        elif isinstance(ev, alsa_midi.MidiBytesEvent):
+            after.append(list(ev.midi_bytes))
+    counts["after"] = [m for m in after if m[0] == 0x90]
+    out.close()
+    b.close()
+    synth_port.close()
+    synth.close()
+    return counts
+
+
 def released(msgs, key) -> bool:
     """Whether, after the note-on for ``key`` came out, a note-off for it (or a note-on with velocity
     0, or All Notes Off) came too."""
@@ -374,6 +439,7 @@ def main():
     step(report, "named", lambda: named(env, work))
     step(report, "backend", backend)
     step(report, "fallback", lambda: backend(fallback=True))
+    step(report, "deaf", deaf)
     json.dump(report, sys.stdout)
 
 

@@ -249,6 +249,14 @@ def test_where_alsa_midi_does_not_load_python_rtmidi_serves_alike_with_a_client_
     assert [without_numbers(n) for n in run["names"]["out"]] == ["probe-seq-out:out"]
     clients = aconnect_clients(run["aconnect_l"])
     assert clients.get("probe-seq-in") == ["in"] and clients.get("probe-seq-out") == ["out"]
+def test_a_synth_that_stops_reading_does_not_hang_the_alsa_backend(seen):
+    # a client whose input is full takes no more events (ALSA sequencer: events to it fail with
+    # EAGAIN, the kernel keeps none for later); the send must give up, not wait for ever
+    deaf = part(seen, "deaf")
+    assert deaf["finished"], f"a send to a client that does not read never returned: {deaf}"
+    assert deaf["listing_answered"], "the backend stopped answering while a send waited"
+    assert deaf["sent"] > 0 and deaf["failed"] >= 1, deaf
+    assert deaf["after"] and deaf["after"][0][:2] == [0x90, 60], deaf     # it reads again: notes go through
 
 
 def test_readme_test_command_installs_what_the_machine_needs():
