@@ -322,6 +322,41 @@ def deaf():
     return counts
 
 
+def deaf_daemon(env, work):
+    """``retuner run`` playing on a synth that never reads, flooded with notes, then SIGTERM: does
+    it stop, and how (its exit status, the seconds from the signal to its exit)."""
+    import alsa_midi
+    synth = alsa_midi.SequencerClient("probe-hung")
+    synth_port = synth.create_port("synth", alsa_midi.WRITE_PORT)     # kept: a dropped Port object closes
+    keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-flood")
+    keys.open_virtual_port("keys")
+    d = Daemon(["--input", "probe-flood", "--output", "probe-hung", "--backend", "alsa",
+                "--profile", PROFILE, "--no-control-socket"], env, os.path.join(work, "deaf.log"))
+    out = {"ready_after": d.ready_after}
+    try:
+        if d.ready_after is None:
+            return out
+        for i in range(300):
+            keys.send_message([0x90, 48 + i % 24, 100])
+            keys.send_message([0x80, 48 + i % 24, 0])
+        time.sleep(2.0)                       # the daemon meets the full input
+        t = time.monotonic()
+        d.proc.send_signal(signal.SIGTERM)
+        try:
+            out["returncode"] = d.proc.wait(DEAF_WAIT)
+            out["stopped_after"] = time.monotonic() - t
+        except subprocess.TimeoutExpired:
+            out["returncode"] = None              # still running: it hangs
+    finally:
+        d.stop()
+        out["log"] = d.log()[-3000:]
+        keys.close_port()
+        keys.delete()
+        synth_port.close()
+        synth.close()
+    return out
+
+
 def released(msgs, key) -> bool:
     """Whether, after the note-on for ``key`` came out, a note-off for it (or a note-on with velocity
     0, or All Notes Off) came too."""
@@ -440,6 +475,7 @@ def main():
     step(report, "backend", backend)
     step(report, "fallback", lambda: backend(fallback=True))
     step(report, "deaf", deaf)
+    step(report, "deaf_daemon", lambda: deaf_daemon(env, work))
     json.dump(report, sys.stdout)
 
 

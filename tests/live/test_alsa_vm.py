@@ -259,6 +259,13 @@ def test_a_synth_that_stops_reading_does_not_hang_the_alsa_backend(seen):
     assert deaf["after"] and deaf["after"][0][:2] == [0x90, 60], deaf     # it reads again: notes go through
 
 
+def test_the_daemon_stops_on_sigterm_while_its_synth_does_not_read(seen):
+    run = part(seen, "deaf_daemon")
+    assert run["ready_after"] is not None, "the daemon never said READY=1:\n" + run["log"]
+    assert run["returncode"] is not None, "the daemon did not stop on SIGTERM:\n" + run["log"]
+    assert run["returncode"] == 0, run["log"]
+
+
 def test_readme_test_command_installs_what_the_machine_needs():
     words = readme_test_command()
     assert "--no-install-recommends" in words
