@@ -17,11 +17,14 @@ Steps:
   SIGTERM: everything received, in order, as bytes;
 - ``named``: our own ports first (a keyboard ``probe-keys`` and a synth ``probe-synth``), then
   ``retuner run --input probe-keys --output probe-synth``: retuner connects to them by name; a note
-  played and what came back.
+  played and what came back. Then the keyboard goes away with a key held and comes back as a new
+  client, and a note is played again; then the synth goes away and comes back, and a note is played
+  again: what the synth received before and after its return.
 """
 
 from __future__ import annotations
 
+import faulthandler
 import json
 import os
 import shutil
@@ -42,6 +45,8 @@ from jack import NotifySocket  # noqa: E402
 
 PROFILE = "meantone-quarter"
 READY_TIMEOUT = 120.0        # seconds: the machine may be emulated (TCG), ten times slower than the host
+HANG_AFTER = 600.0           # seconds: the whole probe took 25 to 70 s under emulation
+DEAF_WAIT = 60.0             # seconds: a send that has not returned by then waits for ever
 REFRESH_PAUSE = 2.5          # seconds: longer than the daemon's set-up refresh (max(setup_refresh 1 s, release 2 s))
 
 
@@ -253,12 +258,145 @@ def backend(fallback=False):
         b.close()
 
 
-def named(env, work):
-    out = {}
+def deaf():
+    """retuner's ALSA backend (alsa-midi) sending to a client that never reads, as a synth that hung:
+    once that client's input is full, each send must fail after a short wait instead of waiting
+    for ever, the backend must still answer, and once the client reads again a message goes
+    through. Counted: sends that went, sends that failed, whether the sending thread finished."""
+    import alsa_midi
+    import mido
+    from retuner.live.alsaseq import AlsaSeqBackend
+    synth = alsa_midi.SequencerClient("probe-deaf")
+    synth_port = synth.create_port("synth", alsa_midi.WRITE_PORT)     # kept: a dropped Port object closes
+    b = AlsaSeqBackend("probe-sender")
+    names = b.outputs()
+    target = [n for n in names if n.startswith("probe-deaf:")]
+    if not target:
+        raise LookupError(f"no probe-deaf port among {names}; the synth's own list: "
+                          f"{[(p.client_name, p.name) for p in synth.list_ports(type=alsa_midi.PortType.ANY)]}")
+    out = b.open_output("probe-sender", "out", connect_to=target[0])
+    msg = mido.Message("control_change", control=1, value=5)
+    counts = {"sent": 0, "failed": 0, "error": None}
+
+    def flood():
+        for _ in range(5000):
+            try:
+                out.send(msg)
+                counts["sent"] += 1
+            except Exception as exc:  # noqa: BLE001 - what the daemon would log
+                counts["failed"] += 1
+                counts["error"] = repr(exc)
+                if counts["failed"] >= 3:
+                    return
+
+    sender = threading.Thread(target=flood, daemon=True)
+    sender.start()
+    sender.join(DEAF_WAIT)
+    counts["finished"] = not sender.is_alive()
+    listed = []
+    looker = threading.Thread(target=lambda: listed.append(b.outputs()), daemon=True)
+    looker.start()
+    looker.join(DEAF_WAIT)
+    counts["listing_answered"] = bool(listed)
+    if not counts["finished"]:
+        return counts                           # stuck: nothing more to learn, and no clean close
+    # the synth reads again: what it holds, then a note sent now
+    after = []
+    end = time.monotonic() + 30
+    sent_note = False
+    while time.monotonic() < end and not any(b[0] == 0x90 for b in after):
+        try:
+            ev = synth.event_input(prefer_bytes=True, timeout=0.2)
+        except alsa_midi.ALSAError:              # its input overran: events lost, reading goes on
+            continue
+        if ev is None and not sent_note:
+            out.send(mido.Message("note_on", note=60, velocity=100))
+            sent_note = True
+        elif isinstance(ev, alsa_midi.MidiBytesEvent):
+            after.append(list(ev.midi_bytes))
+    counts["after"] = [m for m in after if m[0] == 0x90]
+    out.close()
+    b.close()
+    synth_port.close()
+    synth.close()
+    return counts
+
+
+def deaf_daemon(env, work):
+    """``retuner run`` playing on a synth that never reads, flooded with notes, then SIGTERM: does
+    it stop, and how (its exit status, the seconds from the signal to its exit)."""
+    import alsa_midi
+    synth = alsa_midi.SequencerClient("probe-hung")
+    synth_port = synth.create_port("synth", alsa_midi.WRITE_PORT)     # kept: a dropped Port object closes
+    keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-flood")
+    keys.open_virtual_port("keys")
+    d = Daemon(["--input", "probe-flood", "--output", "probe-hung", "--backend", "alsa",
+                "--profile", PROFILE, "--no-control-socket"], env, os.path.join(work, "deaf.log"))
+    out = {"ready_after": d.ready_after}
+    try:
+        if d.ready_after is None:
+            return out
+        for i in range(300):
+            keys.send_message([0x90, 48 + i % 24, 100])
+            keys.send_message([0x80, 48 + i % 24, 0])
+        time.sleep(2.0)                       # the daemon meets the full input
+        t = time.monotonic()
+        d.proc.send_signal(signal.SIGTERM)
+        try:
+            out["returncode"] = d.proc.wait(DEAF_WAIT)
+            out["stopped_after"] = time.monotonic() - t
+        except subprocess.TimeoutExpired:
+            out["returncode"] = None              # still running: it hangs
+    finally:
+        d.stop()
+        out["log"] = d.log()[-3000:]
+        keys.close_port()
+        keys.delete()
+        synth_port.close()
+        synth.close()
+    return out
+
+
+def released(msgs, key) -> bool:
+    """Whether, after the note-on for ``key`` came out, a note-off for it (or a note-on with velocity
+    0, or All Notes Off) came too."""
+    after = out_time(msgs, key)
+    return any(t >= after and len(b) == 3
+               and ((b[0] & 0xF0 in (0x80, 0x90) and b[1] == key and (b[0] & 0xF0 == 0x80 or b[2] == 0))
+                    or (b[0] & 0xF0 == 0xB0 and b[1] == 123))
+               for t, b in msgs)
+
+
+def wait_log(d, text, count, timeout=30.0) -> bool:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        if d.log().count(text) >= count:
+            return True
+        time.sleep(0.05)
+    return False
+
+
+def open_keys():
     keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
     keys.open_virtual_port("keys")
+    return keys
+
+
+def close_keys(keys):
+    keys.close_port()
+    keys.delete()
+
+
+def open_synth():
     rec = Recorder("probe-synth")
     rec.midi.open_virtual_port("synth")
+    return rec
+
+
+def named(env, work):
+    out = {}
+    keys = open_keys()
+    rec = open_synth()
     d = Daemon(["--input", "probe-keys", "--output", "probe-synth", "--backend", "alsa",
                 "--profile", PROFILE, "--no-control-socket", "-v"], env, os.path.join(work, "named.log"))
     try:
@@ -270,37 +408,60 @@ def named(env, work):
         keys.send_message([0x90, 64, 100])
         rec.wait(lambda m: note_on_count(m, 64) >= 1)
         keys.send_message([0x80, 64, 0])
-        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
-                               for _, b in m if len(b) == 3 and b[1] == 64))
-        # the keyboard goes away (unplugged) and comes back under its name: retuner connects again
-        keys.close_port()
-        keys.delete()
+        rec.wait(lambda m: released(m, 64))
+        # the keyboard goes away (unplugged) with a key held, and comes back under its name as a new
+        # client: the held note is released, and retuner connects again
+        keys.send_message([0x90, 67, 100])
+        out["held_arrived"] = rec.wait(lambda m: note_on_count(m, 67) >= 1)
+        close_keys(keys)
+        keys = None
+        out["held_released"] = rec.wait(lambda m: released(m, 67))
         time.sleep(2.0)                       # several of the daemon's looks (port_poll 0.5 s)
         out["aconnect_gone"] = tool("aconnect", "-l")
-        keys = rtmidi.MidiOut(rtmidi.API_LINUX_ALSA, "probe-keys")
-        keys.open_virtual_port("keys")
+        keys = open_keys()
         end = time.monotonic() + 30
         while time.monotonic() < end and "Connecting To" not in \
                 (tool("aconnect", "-l") or "").split("'probe-keys'")[1].split("client ")[0]:
             time.sleep(0.2)
         out["aconnect_back"] = tool("aconnect", "-l")
-        keys.send_message([0x90, 67, 100])
-        out["back_arrived"] = rec.wait(lambda m: note_on_count(m, 67) >= 1)
-        keys.send_message([0x80, 67, 0])
-        rec.wait(lambda m: any(b[0] & 0xF0 == 0x80 or (b[0] & 0xF0 == 0x90 and b[2] == 0)
-                               for _, b in m if len(b) == 3 and b[1] == 67))
-        out["returncode"] = d.stop()
+        out["input_back"] = wait_log(d, "input: connected to probe-keys", 2)
+        keys.send_message([0x90, 62, 100])
+        out["back_arrived"] = rec.wait(lambda m: note_on_count(m, 62) >= 1)
+        keys.send_message([0x80, 62, 0])
+        rec.wait(lambda m: released(m, 62))
         out["received"] = rec.messages()
+        # the synth goes away and comes back: the set-up first, then the notes
+        rec.close()
+        rec = None
+        out["output_gone"] = wait_log(d, "output probe-synth", 1)
+        rec = open_synth()
+        out["output_back"] = wait_log(d, "output: connected to probe-synth", 2)
+        rec.wait(lambda m: len(m) > 0)
+        keys.send_message([0x90, 64, 100])
+        rec.wait(lambda m: note_on_count(m, 64) >= 1)
+        keys.send_message([0x80, 64, 0])
+        rec.wait(lambda m: released(m, 64))
+        out["received_after_return"] = rec.messages()
+        out["returncode"] = d.stop()
     finally:
         d.stop()
         out["log"] = d.log()
-        rec.close()
-        keys.close_port()
-        keys.delete()
+        if rec is not None:
+            rec.close()
+        if keys is not None:
+            close_keys(keys)
     return out
 
 
+def out_time(msgs, key) -> float:
+    """When the note-on for ``key`` came out (infinity before it did)."""
+    return next((t for t, b in msgs if len(b) == 3 and b[0] & 0xF0 == 0x90 and b[1] == key and b[2] > 0),
+                float("inf"))
+
+
 def main():
+    # a step that hangs: every thread's stack on standard error (the host shows it), and out
+    faulthandler.dump_traceback_later(HANG_AFTER, exit=True)
     work = "/tmp/alsaprobe"
     os.makedirs(work, exist_ok=True)
     env = {k: v for k, v in os.environ.items() if not k.startswith(("JACK_", "NOTIFY_", "JOURNAL_"))}
@@ -313,6 +474,8 @@ def main():
     step(report, "named", lambda: named(env, work))
     step(report, "backend", backend)
     step(report, "fallback", lambda: backend(fallback=True))
+    step(report, "deaf", deaf)
+    step(report, "deaf_daemon", lambda: deaf_daemon(env, work))
     json.dump(report, sys.stdout)
 
 

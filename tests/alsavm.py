@@ -37,6 +37,7 @@ MODULES = ("virtio_pci", "9pnet_virtio", "9p", "overlay", "snd-seq", "snd-seq-du
 PACKAGES = "qemu-system-x86 linux-image-amd64 busybox-static"   # what to install when one is missing
 ROOT_TAG = "hostroot"
 OUT_TAG = "result"
+ACCEL_VARIABLE = "RETUNER_TEST_VM_ACCEL"     # kvm or tcg, to choose instead of the rule of kvm_usable()
 
 
 class VMError(RuntimeError):
@@ -222,17 +223,28 @@ def run(argv: Sequence[str], *, env: Optional[Mapping[str, str]] = None, cwd: Op
         work_dir: Optional[str] = None) -> Result:
     """Run ``argv`` (the host's programs, at the host's paths) inside the machine as root, with
     ``env`` as its whole environment (default: PATH, HOME=/root, LANG=C.UTF-8) in ``cwd``
-    (default: this one). ``accel``: "kvm" or "tcg"; default KVM when :func:`kvm_usable`. ``cpus``:
+    (default: this one). ``accel``: "kvm" or "tcg"; default: the environment's ``RETUNER_TEST_VM_ACCEL``
+    if set, else KVM when :func:`kvm_usable`, else TCG. ``cpus``:
     default 2 with KVM, 1 with TCG (two emulated processors on a busy 2-core host ran the same
     commands three times slower than one: 71 s against 25 s).
     The guest's own /tmp is the host's, under the tmpfs: what the command writes there is gone
-    when the machine stops; ``work_dir`` (default: a new temporary folder) is the shared folder
-    where results come back (it is writable from inside, at the same path)."""
+    when the machine stops; ``work_dir`` (default: a temporary folder, removed afterwards) holds the
+    initramfs, the console log and the shared folder where results come back (writable from inside,
+    at the same path)."""
+    accel = accel or os.environ.get(ACCEL_VARIABLE) or ("kvm" if kvm_usable() else "tcg")
+    if accel not in ("kvm", "tcg"):
+        raise VMError(f"{ACCEL_VARIABLE}={accel!r}: use kvm or tcg")
     program = qemu()
     image, version = kernel()
-    accel = accel or ("kvm" if kvm_usable() else "tcg")
     cpus = cpus or (2 if accel == "kvm" else 1)
-    work = os.path.abspath(work_dir or tempfile.mkdtemp(prefix="alsavm-"))
+    if work_dir is None:
+        with tempfile.TemporaryDirectory(prefix="alsavm-") as work:
+            return _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work)
+    return _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work_dir)
+
+
+def _boot(program, image, version, argv, env, cwd, timeout, accel, memory_mb, cpus, work_dir) -> Result:
+    work = os.path.abspath(work_dir)
     out = os.path.join(work, "result")
     os.makedirs(out, exist_ok=True)
     for name in ("stdout", "stderr", "returncode"):
@@ -249,7 +261,7 @@ def run(argv: Sequence[str], *, env: Optional[Mapping[str, str]] = None, cwd: Op
     console = os.path.join(work, "console.log")
     cmd = [program, "-nodefaults", "-no-user-config", "-display", "none", "-no-reboot",
            "-M", "pc", "-m", str(memory_mb), "-smp", str(cpus),
-           "-accel", accel, "-cpu", "host,-arch-capabilities" if accel == "kvm" else "max",
+           "-accel", accel, "-cpu", "host" if accel == "kvm" else "max",
            "-kernel", str(image), "-initrd", initrd,
            "-append", "console=ttyS0 quiet panic=-1 rdinit=/init",
            "-serial", f"file:{console}",
@@ -259,8 +271,9 @@ def run(argv: Sequence[str], *, env: Optional[Mapping[str, str]] = None, cwd: Op
     try:
         proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
     except subprocess.TimeoutExpired as exc:
-        raise VMError(f"the machine did not finish within {timeout} s; console:\n"
-                      + _read(console)[-3000:]) from exc
+        raise VMError(f"the machine did not finish within {timeout} s; console:\n" + _read(console)[-3000:]
+                      + "\nthe command's standard error so far:\n" + _read(os.path.join(out, "stderr"))[-3000:]
+                      ) from exc
     seconds = time.monotonic() - start
     log = _read(console)
     if proc.returncode != 0:

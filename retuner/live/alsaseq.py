@@ -22,10 +22,12 @@ port tables take a lock; the sequencer delivers at once (no queue of ours).
 
 from __future__ import annotations
 
+import errno
 import logging
 import os
 import select
 import threading
+import time
 from typing import Callable, Optional
 
 import mido
@@ -35,6 +37,7 @@ from retuner.live.backend import Callback, ErrorCallback, InputHandle, OutputHan
 log = logging.getLogger("retuner.live.alsaseq")
 
 _MODULE = None
+SEND_PATIENCE = 1.0        # seconds a send waits for a destination whose input is full (see _send)
 PORT_NUMBERS = {True: 0, False: 1}     # writable (our in) -> port number, readable (our out) -> port number
 
 
@@ -233,13 +236,40 @@ class AlsaSeqBackend(PortBackend):
         self._drop(port)
 
     def _send(self, port, data: bytes) -> None:
+        """Deliver one message now, waiting at most ``SEND_PATIENCE`` for room. A destination that
+        takes no more events (a synth that stopped reading: its input is full) must not hold the
+        engine thread: alsa-midi's blocking client would wait for ever there, with our lock held
+        (seen on a real sequencer: after 199 events to a client that never read, the send and
+        every listing hung). So the base class's calls, which do not wait, are used, and after
+        the patience what is still ours to send is dropped and the send fails, as python-rtmidi's
+        does (the daemon logs it and goes on)."""
         alsa = alsa_module()
+        base = alsa.client.SequencerClientBase
+        event = alsa.MidiBytesEvent(data)
         with self._lock:
             client = self._client
             if client is None:
                 raise ConnectionError("the ALSA client is closed")
-            client.event_output(alsa.MidiBytesEvent(data), port=port)
-            client.drain_output()
+            deadline = time.monotonic() + SEND_PATIENCE
+            queued = False
+            while True:
+                try:
+                    if not queued:
+                        base.event_output(client, event, port=port)
+                        queued = True
+                    base.drain_output(client)
+                    return
+                except alsa.ALSAError as exc:
+                    if exc.errnum != -errno.EAGAIN:
+                        raise
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    client.drop_output()            # not delivered late either
+                    raise TimeoutError(f"the destination took no events for {SEND_PATIENCE:g} s "
+                                       f"(its input is full): message dropped")
+                waiting = select.poll()
+                waiting.register(client._fd, select.POLLOUT)   # alsa-midi's own descriptor, as the reader uses
+                waiting.poll(min(left, 0.05) * 1000)
 
     # ------------------------------------------------------------------ the reader thread
     def _start_reader(self) -> None:
