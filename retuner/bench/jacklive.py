@@ -12,8 +12,9 @@ For each daemon (this checkout, and with ``--against REPO`` another checkout run
 * ``period``: where the checkout's JACK backend does each period's work, ``C`` (its compiled
   part is there) or ``Python``;
 * ``floor``: the idle CPU, measured in the same turns, of a JACK client that does nothing each
-  period (this checkout's compiled period with no port, in a process that only sleeps): what JACK
-  costs any client it wakes every period on this machine now, the floor under the daemons' figures;
+  period (this checkout's compiled period with no port in its reach, in a process that only
+  sleeps), connected as the daemon is, between the meter's two clients: what JACK costs such a
+  client on this machine now, the floor under the daemons' figures;
 * note-on latency from a measuring client of our own (JACK-Client): its process callback writes a
   note-on at the start of a period and finds the retuned note-on on its input some periods later.
   ``latency_periods`` counts those periods (JACK time, exact); ``latency_ms`` is the same span in
@@ -165,14 +166,17 @@ class _Meter:
             c.close()
 
 
-# a JACK client that JACK wakes every period and that does nothing then: the compiled period with no
-# port (this checkout's), in a Python process of its own that only sleeps
+# a JACK client that JACK wakes every period and that does nothing then, with an in and an out port
+# in the daemon's place in the graph (between the meter's two clients): the compiled period with no
+# port in its reach (this checkout's), in a Python process of its own that only sleeps
 _FLOOR = """
 import sys, time
 from retuner.live import jackcycle, jackmidi
 jack = jackmidi.jack_module()
 client = jackmidi.open_client(sys.argv[1])
 jackcycle.choose(jack, "native").install(client)
+client.midi_inports.register("in")
+client.midi_outports.register("out")
 client.activate()
 print("ready", flush=True)
 time.sleep(3600)
@@ -180,21 +184,29 @@ time.sleep(3600)
 
 
 def _floor(repo: str, idle: float) -> dict:
-    """The idle CPU of a client that JACK wakes every period and that does nothing: what being a
-    JACK client costs on this machine now, the floor under any daemon's figure."""
+    """The idle CPU of a client that JACK wakes every period and that does nothing, connected as the
+    daemon is (a keyboard before it, a synth after it: JACK's clients wake the ones they feed):
+    what being such a JACK client costs on this machine now, the floor under any daemon's figure."""
     env = dict(os.environ, PYTHONPATH=repo)
-    proc = subprocess.Popen([sys.executable, "-c", _FLOOR, f"rbfloor{uuid.uuid4().hex[:6]}"], env=env,
+    name = f"rbfloor{uuid.uuid4().hex[:6]}"
+    proc = subprocess.Popen([sys.executable, "-c", _FLOOR, name], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    meter = None
     try:
         line = proc.stdout.readline() if proc.stdout is not None else ""
         if line.strip() != "ready":
             return {"error": "the floor client did not start: " + (line + proc.stdout.read(500))[-500:]}
+        meter = _Meter(f"{name}-meter")
+        meter.client.connect(meter.out, f"{name}:in")
+        meter.client.connect(f"{name}:out", meter.inp)
         time.sleep(2.0)
         c0, t0 = _cpu_seconds(proc.pid), time.monotonic()
         time.sleep(idle)
         c1, t1 = _cpu_seconds(proc.pid), time.monotonic()
         return {"idle_cpu_percent": round(100.0 * (c1 - c0) / (t1 - t0), 3)}
     finally:
+        if meter is not None:
+            meter.close()
         stop_child(proc, 5)
 
 
@@ -314,7 +326,7 @@ def _merge(figs: list) -> dict:
     for key in ("latency_ms", "latency_periods", "wall_ms"):
         have = [f[key] for f in figs if key in f]
         if have:
-            merged[key] = {"median": statistics.median(h["median"] for h in have),
+            merged[key] = {"median": round(statistics.median(h["median"] for h in have), 3),
                            "max": max(h["max"] for h in have)}
     return merged
 
@@ -344,6 +356,6 @@ def format_jack_bench(f: dict) -> str:
         turns = r.get("idle_cpu_turns", [])
         each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
         lines.append(f"floor: idle {r['idle_cpu_percent']:g} % of a core{each}: a JACK client that does "
-                     f"nothing each period, what JACK costs any client it wakes" if "error" not in r
+                     f"nothing each period, connected as the daemon is: what JACK costs such a client" if "error" not in r
                      else f"floor: {r['error']}")
     return "\n".join(lines)
