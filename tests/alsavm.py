@@ -292,3 +292,33 @@ def _read(path: str) -> str:
             return fh.read()
     except FileNotFoundError:
         return ""
+
+
+def probe_report(script: str, repo: str) -> dict:
+    """Run a probe script of tests/ (``python tests/SCRIPT`` from the checkout ``repo``) in the
+    machine and return the JSON object it prints, with ``machine`` (seconds, accelerator) added.
+    Fails the calling test (never skips) when the machine cannot run or the probe fails."""
+    import json  # noqa: PLC0415
+    import sys  # noqa: PLC0415
+
+    import pytest  # noqa: PLC0415
+
+    try:
+        result = run([sys.executable, os.path.join(repo, "tests", script)], cwd=repo, timeout=900)
+    except VMError as exc:
+        pytest.fail(f"the virtual machine with an ALSA sequencer could not run: {exc}", pytrace=False)
+    if result.returncode != 0:
+        pytest.fail(f"the probe exited with {result.returncode} inside the machine:\n{result.stderr[-4000:]}",
+                    pytrace=False)
+    report = json.loads(result.stdout)
+    report["machine"] = {"seconds": result.seconds, "accel": result.accel}
+    print(f"\nvirtual machine ({result.accel}): {result.seconds:.1f} s")
+    return report
+
+
+def part(report: dict, name: str, why_missing: str = "") -> dict:
+    """One step's record from a probe's report; the step's own error, or its absence, fails the test."""
+    errors = report.get("errors", {})
+    assert name not in errors, f"the probe's step {name!r} failed inside the machine:\n{errors[name]}"
+    assert name in report, f"the probe's step {name!r} did not run{why_missing}"
+    return report[name]

@@ -44,3 +44,20 @@ EDO12 = {k: 100.0 * k for k in range(128)}
 def half_step(range_semitones: float) -> float:
     """Half of one 14-bit bend step in cents (MIDI 1.0: 8192 steps span the range)."""
     return 100.0 * range_semitones / 8192 / 2
+
+
+def assert_bent_to_meantone(decoded, msgs, keys) -> None:
+    """Each key in ``keys`` sounded once, after the bend range (RPN 0, 2 semitones in pool mode) and
+    with its own bend sent just before its note-on, at quarter-comma meantone's pitch within half a
+    bend step; and E4 and C4 are not at 12-EDO (they lie several cents off it in meantone, A4 on it).
+    ``decoded``: tests/jack.py's Decoder fed with ``msgs`` (mido messages, in order)."""
+    notes = {n.key: n for n in decoded.notes}
+    assert sorted(notes) == sorted(keys), msgs
+    for key in keys:
+        n = notes[key]
+        assert decoded.range.get(n.channel) == 2.0, f"no bend range announced on channel {n.channel + 1}"
+        i = next(i for i, m in enumerate(msgs) if m.type == "note_on" and m.note == key and m.velocity)
+        before = [m for m in msgs[:i] if getattr(m, "channel", None) == n.channel]
+        assert before and before[-1].type == "pitchwheel", before[-3:]
+        assert abs(n.cents - MEANTONE[key]) <= half_step(2), (key, n.cents, MEANTONE[key])
+    assert all(abs(notes[k].cents - 100 * k) > 3 for k in (64, 60) if k in notes)

@@ -15,7 +15,6 @@ from __future__ import annotations
 import json
 import os
 import re
-import sys
 
 import mido
 import pytest
@@ -23,7 +22,7 @@ import pytest
 import alsavm
 from alsalisting import aconnect_clients, readme_test_command
 from jack import Decoder
-from temperaments import MEANTONE, half_step
+from temperaments import MEANTONE, assert_bent_to_meantone, half_step
 
 REPO = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 THROUGH = "Midi Through"        # the client snd-seq-dummy makes (Linux sound/core/seq/seq_dummy.c)
@@ -32,24 +31,11 @@ THROUGH = "Midi Through"        # the client snd-seq-dummy makes (Linux sound/co
 @pytest.fixture(scope="module")
 def seen():
     """The probe's report, from one boot of the machine for the whole module."""
-    try:
-        result = alsavm.run([sys.executable, os.path.join(REPO, "tests", "alsaprobe.py")], cwd=REPO,
-                            timeout=900)
-    except alsavm.VMError as exc:
-        pytest.fail(f"the virtual machine with an ALSA sequencer could not run: {exc}", pytrace=False)
-    if result.returncode != 0:
-        pytest.fail(f"the probe exited with {result.returncode} inside the machine:\n{result.stderr[-4000:]}",
-                    pytrace=False)
-    report = json.loads(result.stdout)
-    report["machine"] = {"seconds": result.seconds, "accel": result.accel}
-    print(f"\nvirtual machine ({result.accel}): {result.seconds:.1f} s")
-    return report
+    return alsavm.probe_report("alsaprobe.py", REPO)
 
 
 def part(seen, name):
-    errors = seen.get("errors", {})
-    assert name not in errors, f"the probe's step {name!r} failed inside the machine:\n{errors[name]}"
-    return seen[name]
+    return alsavm.part(seen, name)
 
 
 def readme_alsa_names() -> list[str]:
@@ -148,19 +134,7 @@ def test_notes_through_the_alsa_ports_are_bent_to_quarter_comma_meantone(seen):
     assert run["received"], "nothing came out of retuner:out:\n" + run["log"][-3000:]
     d, msgs = decoded(run["received"])
     played = [m[1] for m in run["played"] if m[0] == 0x90]
-    notes = {n.key: n for n in d.notes}
-    assert sorted(notes) == sorted(played), msgs
-    for key in played:
-        n = notes[key]
-        # the set-up (RPN 0) came again before the first note after the pause; pool mode: 2 semitones
-        assert d.range.get(n.channel) == 2.0, f"no bend range announced on channel {n.channel + 1}"
-        # bend, then the note: the last message on its channel before the note-on is its bend
-        i = next(i for i, m in enumerate(msgs) if m.type == "note_on" and m.note == key and m.velocity)
-        before = [m for m in msgs[:i] if getattr(m, "channel", None) == n.channel]
-        assert before and before[-1].type == "pitchwheel", before[-3:]
-        assert abs(n.cents - MEANTONE[key]) <= half_step(2), (key, n.cents, MEANTONE[key])
-    # not 12-EDO: E4 and C4 lie several cents off their equal-tempered pitch in meantone (A4 on it)
-    assert all(abs(notes[k].cents - 100 * k) > 3 for k in (64, 60))
+    assert_bent_to_meantone(d, msgs, played)      # the set-up came again before the first note after the pause
 
 
 def test_stopping_the_daemon_releases_the_held_note_through_alsa(seen):

@@ -11,10 +11,8 @@ range 2 semitones). A missing qemu, kernel, busybox or PipeWire fails the tests:
 
 from __future__ import annotations
 
-import json
 import os
 import re
-import sys
 
 import mido
 import pytest
@@ -22,30 +20,17 @@ import pytest
 import alsavm
 from alsalisting import REPO, aconnect_clients, aconnect_numbers, readme_test_command
 from jack import Received, decode
-from temperaments import MEANTONE, half_step
+from temperaments import assert_bent_to_meantone
 
 
 @pytest.fixture(scope="module")
 def seen():
     """The probe's report, from one boot of the machine for the whole module."""
-    try:
-        result = alsavm.run([sys.executable, os.path.join(REPO, "tests", "pwbridgeprobe.py")], cwd=REPO,
-                            timeout=900)
-    except alsavm.VMError as exc:
-        pytest.fail(f"the virtual machine with an ALSA sequencer could not run: {exc}", pytrace=False)
-    if result.returncode != 0:
-        pytest.fail(f"the probe exited with {result.returncode} inside the machine:\n{result.stderr[-4000:]}",
-                    pytrace=False)
-    report = json.loads(result.stdout)
-    print(f"\nvirtual machine ({result.accel}): {result.seconds:.1f} s")
-    return report
+    return alsavm.probe_report("pwbridgeprobe.py", REPO)
 
 
 def part(seen, name):
-    errors = seen.get("errors", {})
-    assert name not in errors, f"the probe's step {name!r} failed inside the machine:\n{errors[name]}"
-    assert name in seen, f"the probe's step {name!r} did not run; PipeWire's log:\n{seen['pipewire_log']}"
-    return seen[name]
+    return alsavm.part(seen, name, f"; PipeWire's log:\n{seen.get('pipewire_log')}")
 
 
 def readme_bridge_names() -> list[str]:
@@ -122,18 +107,8 @@ def test_a_note_from_a_jack_client_through_the_bridge_comes_back_in_quarter_comm
     d = decode(received)
     played = [mido.Message.from_hex(h) for h in player["played"]]
     keys = [m.note for m in played if m.type == "note_on"]
-    notes = {n.key: n for n in d.notes}
-    assert sorted(notes) == sorted(keys) == [60, 64], msgs
-    for key in keys:
-        n = notes[key]
-        # the set-up (RPN 0) came again before the first note after the pause: 2 semitones
-        assert d.range.get(n.channel) == 2.0, f"no bend range announced on channel {n.channel + 1}"
-        i = next(i for i, m in enumerate(msgs) if m.type == "note_on" and m.note == key and m.velocity)
-        before = [m for m in msgs[:i] if getattr(m, "channel", None) == n.channel]
-        assert before and before[-1].type == "pitchwheel", before[-3:]
-        assert abs(n.cents - MEANTONE[key]) <= half_step(2), (key, n.cents, MEANTONE[key])
-    # not 12-EDO: E4 and C4 lie several cents off their equal-tempered pitch in meantone (A4 on it)
-    assert all(abs(notes[k].cents - 100 * k) > 3 for k in (64, 60))
+    assert sorted(keys) == [60, 64], msgs
+    assert_bent_to_meantone(d, msgs, keys)        # the set-up came again before the first note after the pause
     assert not d.stuck(), [(n.key, n.channel) for n in d.stuck()]
     assert seen["daemon_returncode"] == 0, seen["daemon_log"]
 
