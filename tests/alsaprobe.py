@@ -42,6 +42,7 @@ sys.path.insert(0, HERE)
 import rtmidi  # noqa: E402
 
 from jack import NotifySocket  # noqa: E402
+from retuner.bench.jacklive import stop_child  # noqa: E402
 
 PROFILE = "meantone-quarter"
 READY_TIMEOUT = 120.0        # seconds: the machine may be emulated (TCG), ten times slower than the host
@@ -140,13 +141,7 @@ class Daemon:
             return fh.read()
 
     def stop(self):
-        if self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGTERM)
-            try:
-                self.proc.wait(30)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(10)
+        stop_child(self.proc, 30)             # SIGTERM, then SIGKILL after 30 s
         self._log.close()
         self.notify.close()
         return self.proc.returncode

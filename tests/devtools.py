@@ -24,6 +24,8 @@ import time
 import urllib.request
 from typing import Any
 
+from retuner.bench.jacklive import stop_child
+
 GUID = "258EAFA5-E914-47DA-95CA-C5AB0DC85B11"     # RFC 6455, section 1.3
 
 
@@ -187,11 +189,5 @@ class Browser:
         try:
             self.ws.close()
         finally:
-            if self.proc.poll() is None:
-                self.proc.terminate()
-                try:
-                    self.proc.wait(10)
-                except subprocess.TimeoutExpired:
-                    self.proc.kill()
-                    self.proc.wait(10)
+            stop_child(self.proc, 10)         # SIGTERM, then SIGKILL after 10 s
             self.log.close()

@@ -34,6 +34,7 @@ sys.path.insert(0, HERE)
 
 from alsalisting import pw_objects  # noqa: E402
 from alsaprobe import PROFILE, REFRESH_PAUSE, Daemon, step, tool  # noqa: E402
+from retuner.bench.jacklive import stop_child  # noqa: E402
 
 BRIDGE = "Midi-Bridge"
 DROP_IN = """context.objects = [
@@ -110,13 +111,7 @@ class PipeWire:
             return fh.read()
 
     def stop(self):
-        if self.proc.poll() is None:
-            self.proc.terminate()
-            try:
-                self.proc.wait(20)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(10)
+        stop_child(self.proc, 20)             # SIGTERM, then SIGKILL after 20 s
         self._log.close()
 
 

@@ -61,6 +61,16 @@ def _cpu_seconds(pid: int) -> float:
         return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")   # utime, stime (proc(5))
 
 
+def _idle_percent(pid: int, idle: float) -> float:
+    """CPU of a process left alone for ``idle`` seconds, after 2 s to settle after its start-up, in
+    percent of one core."""
+    time.sleep(2.0)
+    c0, t0 = _cpu_seconds(pid), time.monotonic()
+    time.sleep(idle)
+    c1, t1 = _cpu_seconds(pid), time.monotonic()
+    return round(100.0 * (c1 - c0) / (t1 - t0), 3)
+
+
 def period_word(repo: str) -> str:
     """``C`` when the checkout's JACK backend has its compiled part, else ``Python``."""
     return "C" if glob.glob(os.path.join(repo, "retuner", "live", "_jackcycle*.so")) else "Python"
@@ -199,11 +209,7 @@ def _floor(repo: str, idle: float) -> dict:
         meter = _Meter(f"{name}-meter")
         meter.client.connect(meter.out, f"{name}:in")
         meter.client.connect(f"{name}:out", meter.inp)
-        time.sleep(2.0)
-        c0, t0 = _cpu_seconds(proc.pid), time.monotonic()
-        time.sleep(idle)
-        c1, t1 = _cpu_seconds(proc.pid), time.monotonic()
-        return {"idle_cpu_percent": round(100.0 * (c1 - c0) / (t1 - t0), 3)}
+        return {"idle_cpu_percent": _idle_percent(proc.pid, idle)}
     finally:
         if meter is not None:
             meter.close()
@@ -244,11 +250,7 @@ def _one(python: str, repo: str, adaptive: bool, idle: float, notes: int, rate: 
         meter.client.connect(meter.out, ins[0])
         meter.client.connect(outs[0], meter.inp)
         fig["ports"] = ins + outs
-        time.sleep(2.0)                                   # settle after start-up
-        c0, t0 = _cpu_seconds(proc.pid), time.monotonic()
-        time.sleep(idle)
-        c1, t1 = _cpu_seconds(proc.pid), time.monotonic()
-        fig["idle_cpu_percent"] = round(100.0 * (c1 - c0) / (t1 - t0), 3)
+        fig["idle_cpu_percent"] = _idle_percent(proc.pid, idle)
         frames, periods, wall = [], [], []
         for i in range(notes):
             r = meter.note(48 + i % 36)
@@ -299,7 +301,8 @@ def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = 
             if period_word(here) == "C":
                 floors.append(_floor(here, idle))
         if floors:
-            out["floor"] = _merge([dict(f, notes=0, notes_back=0) for f in floors])
+            bad = [f for f in floors if "error" in f]
+            out["floor"] = bad[0] if bad else _idle_turns(floors)
         for label, python, repo in runs:
             out[label] = {"repo": repo, "python": python, "period": period_word(repo)}
             for play in ("static", "adaptive"):
@@ -309,18 +312,21 @@ def jack_bench(*, idle: float = 10.0, notes: int = 50, against: Optional[str] = 
         server.stop()
 
 
+def _idle_turns(figs: list) -> dict:
+    """The median idle CPU of several turns, and each turn's."""
+    turns = [f["idle_cpu_percent"] for f in figs]
+    return {"idle_cpu_percent": round(statistics.median(turns), 3), "idle_cpu_turns": turns}
+
+
 def _merge(figs: list) -> dict:
     """One play's turns as one figure: the median idle CPU (each turn's kept); of the latencies,
     the median of the turns' medians and the largest of their maxima."""
     bad = [f for f in figs if "error" in f]
     if bad:
         return bad[0]
+    merged = dict(figs[0], **_idle_turns(figs))
     if len(figs) == 1:
-        return dict(figs[0], idle_cpu_turns=[figs[0]["idle_cpu_percent"]])
-    merged = dict(figs[0])
-    turns = [f["idle_cpu_percent"] for f in figs]
-    merged["idle_cpu_percent"] = round(statistics.median(turns), 3)
-    merged["idle_cpu_turns"] = turns
+        return merged
     merged["notes"] = sum(f["notes"] for f in figs)
     merged["notes_back"] = sum(f["notes_back"] for f in figs)
     for key in ("latency_ms", "latency_periods", "wall_ms"):
@@ -329,6 +335,12 @@ def _merge(figs: list) -> dict:
             merged[key] = {"median": round(statistics.median(h["median"] for h in have), 3),
                            "max": max(h["max"] for h in have)}
     return merged
+
+
+def _idle_text(r: dict) -> str:
+    turns = r.get("idle_cpu_turns", [])
+    each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
+    return f"idle {r['idle_cpu_percent']:g} % of a core{each}"
 
 
 def format_jack_bench(f: dict) -> str:
@@ -346,16 +358,12 @@ def format_jack_bench(f: dict) -> str:
             text = (f"note-on in->out median {lat['median']} ms = {r['latency_periods']['median']:g} periods "
                     f"(max {lat['max']} ms = {r['latency_periods']['max']:g}), wall clock median "
                     f"{r['wall_ms']['median']} ms" if lat else "no note-on came back")
-            turns = r.get("idle_cpu_turns", [])
-            each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
-            lines.append(f"{label} {play}: idle {r['idle_cpu_percent']:g} % of a core{each}, periods in "
+            lines.append(f"{label} {play}: {_idle_text(r)}, periods in "
                          f"{f[label]['period']}; {text} ({r['notes_back']}/{r['notes']} notes); "
                          f"ports {', '.join(r['ports'])}")
     if "floor" in f:
         r = f["floor"]
-        turns = r.get("idle_cpu_turns", [])
-        each = f" (turns: {' '.join(f'{t:g}' for t in turns)})" if len(turns) > 1 else ""
-        lines.append(f"floor: idle {r['idle_cpu_percent']:g} % of a core{each}: a JACK client that does "
-                     f"nothing each period, connected as the daemon is: what JACK costs such a client" if "error" not in r
+        lines.append(f"floor: {_idle_text(r)}: a JACK client that does nothing each period, connected as "
+                     f"the daemon is: what JACK costs such a client" if "error" not in r
                      else f"floor: {r['error']}")
     return "\n".join(lines)

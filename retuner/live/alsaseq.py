@@ -158,27 +158,25 @@ class AlsaSeqBackend(PortBackend):
                     raise self._error(exc, "cannot open the alsa MIDI system") from exc
             return self._client
 
-    def _ports(self, *, readable: bool) -> list[str]:
+    def _ports(self, *, readable: bool) -> list:
+        """The sequencer's MIDI ports we can read from (``readable``) or write to, in its own order."""
         alsa = alsa_module()
         kinds = alsa.PortType.MIDI_GENERIC | alsa.PortType.SYNTH | alsa.PortType.APPLICATION
         with self._lock:
             infos = self._live().list_ports(input=readable, output=not readable, type=alsa.PortType.ANY,
                                             include_no_export=False, sort=False)
-        return [port_name(p) for p in infos if p.type & kinds]
+        return [p for p in infos if p.type & kinds]
 
     def inputs(self) -> list[str]:
-        return self._ports(readable=True)
+        return [port_name(p) for p in self._ports(readable=True)]
 
     def outputs(self) -> list[str]:
-        return self._ports(readable=False)
+        return [port_name(p) for p in self._ports(readable=False)]
 
     def _find(self, name: str, *, readable: bool):
-        alsa = alsa_module()
-        with self._lock:
-            for p in self._live().list_ports(input=readable, output=not readable, type=alsa.PortType.ANY,
-                                             include_no_export=False, sort=False):
-                if port_name(p) == name:
-                    return p
+        for p in self._ports(readable=readable):
+            if port_name(p) == name:
+                return p
         raise LookupError(f"port {name!r} is gone")
 
     def _create(self, client_name: str, port: str, *, writable: bool):

@@ -158,8 +158,6 @@ class PythonPeriod:
             self._inputs[:] = [e for e in self._inputs if e[0] != key]
             self._outputs[:] = [e for e in self._outputs if e[0] != key]
 
-    dropped = 0                           # nothing is dropped: the deques have no bound
-
     def close(self) -> None:
         with self._lock:
             self._inputs.clear()
@@ -205,17 +203,10 @@ class NativePeriod:
         self._stop = False
         self._reader: Optional[threading.Thread] = None
         self._callback = None                          # kept alive as long as JACK may call it
-        self.sleep = time.sleep                        # how waits wait (a test's model clock may replace it)
-        self.clock = time.monotonic
 
     @property
     def periods(self) -> int:
         return int(self._lib.jackcycle_periods(self._state))
-
-    @property
-    def dropped(self) -> int:
-        """Input events that found no room in the ring (or were larger than it takes)."""
-        return int(self._lib.jackcycle_dropped(self._state))
 
     def install(self, client) -> None:
         """Make ``jackcycle_process`` the process callback of a JACK-Client client (not yet
@@ -275,9 +266,9 @@ class NativePeriod:
         side, slot = key
         self._lib.jackcycle_set(self._state, 1 if side == "in" else 0, slot, self._ffi.NULL)
         if live:
-            seen, end = self.periods, self.clock() + 1.0
-            while self.periods < seen + 2 and self.clock() < end:
-                self.sleep(0.0005)
+            seen, end = self.periods, time.monotonic() + 1.0
+            while self.periods < seen + 2 and time.monotonic() < end:
+                time.sleep(0.0005)
         with self._lock:
             (self._inputs if side == "in" else self._outputs).pop(slot, None)
 
@@ -317,10 +308,10 @@ class NativeQueue:
         with self._lock:
             end = None
             while p._lib.jackcycle_send(p._state, self._slot, data, len(data)):
-                end = end or p.clock() + SEND_WAIT
-                if p.clock() > end:
+                end = end or time.monotonic() + SEND_WAIT
+                if time.monotonic() > end:
                     raise ConnectionError("the JACK output is not being read (no process cycle)")
-                p.sleep(0.0005)
+                time.sleep(0.0005)
 
     def queued(self) -> bool:
         return self._period._lib.jackcycle_queued(self._period._state, self._slot) > 0

@@ -107,7 +107,7 @@ class _Client:
         self.period = jackcycle.choose(self.jack, period)
         self.period.install(self.client)
         self.client.set_shutdown_callback(self._shutdown)
-        if self.period.word == "native" or jackcycle.library() is not None:
+        if jackcycle.library() is not None:
             log.debug("JACK client %s: each period runs in %s", self.name,
                       "C" if self.period.word == "native" else "Python")
         else:
