@@ -32,7 +32,8 @@ from typing import Callable, Optional
 
 import mido
 
-from retuner.live.backend import Callback, ErrorCallback, InputHandle, OutputHandle, PortBackend, deliver
+from retuner.live.backend import (Callback, ErrorCallback, InputHandle, OutputHandle, PortBackend, deliver,
+                                  quiet_library)
 
 log = logging.getLogger("retuner.live.alsaseq")
 
@@ -153,7 +154,8 @@ class AlsaSeqBackend(PortBackend):
             if self._client is None:
                 try:
                     alsa = alsa_module()
-                    self._client = alsa.SequencerClient(name or self.base)
+                    with quiet_library():          # libasound's own lines when there is no sequencer
+                        self._client = alsa.SequencerClient(name or self.base)
                 except Exception as exc:  # noqa: BLE001 - no sequencer, no libasound, no module
                     raise self._error(exc, "cannot open the alsa MIDI system") from exc
             return self._client

@@ -110,3 +110,17 @@ def test_no_midi_system_gives_the_commands_that_start_one_and_they_work(tmp_path
         proc.send_signal(signal.SIGTERM)
         proc.wait(10)
         log.close()
+
+
+def test_alsa_insisted_on_with_no_sequencer_is_one_line_naming_the_device(tmp_path):
+    # libasound prints lines of its own when the sequencer does not open; the user gets ours only
+    if EXPECTED == "alsa":
+        raise AssertionError("this machine has an ALSA sequencer: run this test where it has none")
+    env = dict(os.environ, XDG_CONFIG_HOME=str(tmp_path), XDG_RUNTIME_DIR=str(tmp_path))
+    for r in (_retuner("ports", "--backend", "alsa", env=env),
+              _retuner("run", "--virtual", "--backend", "alsa", "--no-control-socket", env=env)):
+        assert r.returncode == 1, r.stderr
+        lines = r.stderr.strip().splitlines()
+        assert len(lines) == 1, r.stderr
+        assert lines[0].startswith("retuner: backend: cannot open the alsa MIDI system") \
+            and "/dev/snd/seq" in lines[0], r.stderr
