@@ -180,8 +180,9 @@ class _Meter:
 # in the daemon's place in the graph (between the meter's two clients): the compiled period with no
 # port in its reach (this checkout's), in a Python process of its own that only sleeps
 _FLOOR = """
-import sys, time
+import signal, sys, time
 from retuner.live import jackcycle, jackmidi
+signal.signal(signal.SIGTERM, lambda *_: sys.exit(0))   # stopped: leave the server as a client should
 jack = jackmidi.jack_module()
 client = jackmidi.open_client(sys.argv[1])
 jackcycle.choose(jack, "native").install(client)
@@ -189,7 +190,11 @@ client.midi_inports.register("in")
 client.midi_outports.register("out")
 client.activate()
 print("ready", flush=True)
-time.sleep(3600)
+try:
+    time.sleep(3600)
+finally:
+    client.deactivate()
+    client.close()
 """
 
 
